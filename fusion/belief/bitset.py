@@ -1,0 +1,111 @@
+"""Packed bitsets over a frame of ``n`` cells: the storage of focal sets.
+
+Cell ``c`` is bit ``c % 64`` of word ``c // 64``; words are little-endian
+``uint64`` so that ``np.packbits(..., bitorder="little")`` and a ``view`` agree on
+every machine.  Bits past ``n`` in the last word are always zero; every function
+here keeps that true, so counting and comparing words needs no masking.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from fusion.errors import CellIndexError
+
+__all__ = [
+    "WORD",
+    "n_words",
+    "pack_indices",
+    "pack_masks",
+    "unpack",
+    "indices",
+    "cardinality",
+    "full",
+    "fingerprint",
+]
+
+WORD = np.dtype("<u8")
+
+# Fixed odd multipliers: a fingerprint must be the same in every process so that
+# results are reproducible; the seed is arbitrary (common practice, no source).
+_MULTIPLIER_SEED = 0x5EED_F00D
+
+
+def n_words(n: int) -> int:
+    """Number of 64-bit words that hold ``n`` cells."""
+    return (int(n) + 63) // 64
+
+
+def pack_masks(masks: np.ndarray) -> np.ndarray:
+    """Pack boolean masks of shape ``(m, n)`` (or ``(n,)``) into words ``(m, W)``."""
+    masks = np.asarray(masks, dtype=bool)
+    if masks.ndim == 1:
+        masks = masks[None, :]
+    m, n = masks.shape
+    padded = np.zeros((m, n_words(n) * 64), dtype=bool)
+    padded[:, :n] = masks
+    return np.packbits(padded, axis=1, bitorder="little").view(WORD)
+
+
+def pack_indices(cells, n: int) -> np.ndarray:
+    """Pack one collection of cell indices into a word vector ``(W,)``.
+
+    Raises ``CellIndexError`` naming the first index outside ``0 .. n-1``.
+    """
+    idx = np.asarray(list(cells) if not isinstance(cells, np.ndarray) else cells)
+    if idx.size == 0:
+        return np.zeros(n_words(n), dtype=WORD)
+    if idx.dtype == bool:
+        if idx.shape != (n,):
+            raise CellIndexError(f"a boolean cell mask must have one entry per cell ({n}), got shape {idx.shape}")
+        return pack_masks(idx)[0]
+    if not np.issubdtype(idx.dtype, np.integer):
+        raise CellIndexError(f"cell indices must be integers, got {idx.dtype} values such as {idx.flat[0]!r}")
+    bad = (idx < 0) | (idx >= n)
+    if bad.any():
+        raise CellIndexError(f"cell index {int(idx[bad][0])} is outside the frame of {n} cells (valid: 0 to {n - 1})")
+    mask = np.zeros(n, dtype=bool)
+    mask[idx] = True
+    return pack_masks(mask)[0]
+
+
+def unpack(words: np.ndarray, n: int) -> np.ndarray:
+    """Boolean masks ``(m, n)`` (or ``(n,)`` for one word vector) from packed words."""
+    words = np.ascontiguousarray(words, dtype=WORD)
+    bits = np.unpackbits(words.view(np.uint8), axis=-1, bitorder="little")
+    return bits[..., :n].astype(bool)
+
+
+def indices(words: np.ndarray, n: int) -> np.ndarray:
+    """Sorted cell indices set in one word vector."""
+    return np.flatnonzero(unpack(words, n))
+
+
+def cardinality(words: np.ndarray) -> np.ndarray:
+    """Number of cells in each set (last axis holds the words)."""
+    return np.bitwise_count(words).sum(axis=-1, dtype=np.int64)
+
+
+def full(n: int) -> np.ndarray:
+    """Word vector of the whole frame (every cell set, trailing bits clear)."""
+    return pack_masks(np.ones(n, dtype=bool))[0]
+
+
+_multipliers: dict[int, np.ndarray] = {}
+
+
+def fingerprint(words: np.ndarray) -> np.ndarray:
+    """A 64-bit fingerprint per row, equal for equal sets.
+
+    Rows with equal fingerprints are almost surely equal; callers that merge sets
+    confirm with an exact comparison, so a collision never merges two sets.
+    """
+    w = words.shape[-1]
+    mult = _multipliers.get(w)
+    if mult is None:
+        rng = np.random.default_rng(_MULTIPLIER_SEED)
+        mult = rng.integers(0, 2**63, size=w, dtype=np.uint64) * np.uint64(2) + np.uint64(1)
+        _multipliers[w] = mult
+    # uint64 array arithmetic wraps modulo 2**64 by design; the product with a
+    # vector makes no temporary copy of the rows.
+    return np.ascontiguousarray(words, dtype=WORD) @ mult
