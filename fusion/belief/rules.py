@@ -1,0 +1,297 @@
+"""Combination rules, discounting and focal-set reduction for ``MassFunction``.
+
+Every pairwise rule runs over the k1 × k2 pairs of focal sets with vectorised
+bitwise operations on packed words, in chunks so that memory stays bounded on
+frames of millions of cells.  Sources:
+
+- conjunctive (unnormalised) rule: Smets (1990), "The combination of evidence in
+  the transferable belief model";
+- Dempster's rule: Shafer (1976), *A Mathematical Theory of Evidence*;
+- Yager (1987), "On the Dempster–Shafer framework and new combination rules";
+- Dubois & Prade (1988), "Representation and combination of uncertainty with
+  belief functions and possibility measures";
+- disjunctive rule: Dubois & Prade (1986); Smets (1993);
+- PCR5: Smarandache & Dezert (2005), "Information fusion based on new
+  proportional conflict redistribution rules";
+- averaging then Dempster: Murphy (2000), "Combining belief functions when
+  evidence conflicts";
+- discounting: Shafer (1976), ch. 11.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from functools import reduce as _fold
+from typing import NamedTuple
+
+import numpy as np
+
+from fusion.belief import bitset
+from fusion.belief.mass import FocalAccumulator, MassFunction, check_same_frame
+from fusion.errors import MassValueError, RuleError, TotalConflictError
+
+__all__ = [
+    "RULES",
+    "combine",
+    "conjunctive",
+    "dempster",
+    "yager",
+    "dubois_prade",
+    "disjunctive",
+    "pcr5",
+    "murphy",
+    "average",
+    "discount",
+    "reduce_focal_sets",
+    "Reduction",
+]
+
+# Bytes of candidate sets built at once by a pairwise rule.
+_CHUNK_BYTES = 32 * 1024**2
+
+
+def _pairs(m1: MassFunction, m2: MassFunction, op: Callable) -> Iterator[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    """Yield ``(op(B_i, C_j) rows, i, j)`` over all focal-set pairs, a chunk of i at a time."""
+    s1, s2 = m1.sets, m2.sets
+    k2, w = s2.shape
+    step = max(1, _CHUNK_BYTES // max(1, k2 * w * 8))
+    for start in range(0, len(s1), step):
+        a = s1[start : start + step]
+        rows = op(a[:, None, :], s2[None, :, :]).reshape(-1, w)
+        ii = np.repeat(np.arange(start, start + len(a)), k2)
+        jj = np.tile(np.arange(k2), len(a))
+        yield rows, ii, jj
+
+
+def _empty_rows(rows: np.ndarray) -> np.ndarray:
+    return ~rows.any(axis=1)
+
+
+def conjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
+    """Unnormalised conjunctive rule: m(A) = Σ_{B∩C=A} m1(B) m2(C); m(∅) keeps the conflict."""
+    n = check_same_frame(m1, m2)
+    acc = FocalAccumulator(n)
+    for rows, ii, jj in _pairs(m1, m2, np.bitwise_and):
+        acc.add(rows, m1.masses[ii] * m2.masses[jj])
+    return acc.result()
+
+
+def dempster(m1: MassFunction, m2: MassFunction, *, if_total_conflict: str = "raise") -> MassFunction:
+    """Dempster's rule: the conjunctive rule normalised by 1 − K, K = m(∅).
+
+    On total conflict (K = 1) raises ``TotalConflictError``; with
+    ``if_total_conflict="unnormalised"`` returns the conjunctive result instead.
+    """
+    if if_total_conflict not in ("raise", "unnormalised"):
+        raise RuleError(f"if_total_conflict must be 'raise' or 'unnormalised', got {if_total_conflict!r}")
+    joint = conjunctive(m1, m2)
+    try:
+        return joint.normalised()
+    except TotalConflictError:
+        if if_total_conflict == "unnormalised":
+            return joint
+        raise TotalConflictError(
+            "Dempster's rule is undefined: the sources are in total conflict (K = 1, no pair of focal "
+            "sets intersects). Discount the less reliable source, or pass if_total_conflict='unnormalised' "
+            "to keep the conflict as m(∅)."
+        ) from None
+
+
+def _conflict_to_whole_frame(m: MassFunction) -> MassFunction:
+    empty = m.cardinalities == 0
+    if not empty.any():
+        return m
+    acc = FocalAccumulator(m.n)
+    acc.add(m.sets[~empty], m.masses[~empty])
+    acc.add(bitset.full(m.n)[None, :], [m.masses[empty].sum()])
+    return acc.result()
+
+
+def yager(m1: MassFunction, m2: MassFunction) -> MassFunction:
+    """Yager's rule: the conjunctive rule with the conflict mass moved to the whole frame."""
+    return _conflict_to_whole_frame(conjunctive(m1, m2))
+
+
+def dubois_prade(m1: MassFunction, m2: MassFunction) -> MassFunction:
+    """Dubois–Prade rule: a conflicting pair's product goes to the union B ∪ C."""
+    n = check_same_frame(m1, m2)
+    acc = FocalAccumulator(n)
+    for rows, ii, jj in _pairs(m1, m2, np.bitwise_and):
+        empty = _empty_rows(rows)
+        if empty.any():
+            rows[empty] = m1.sets[ii[empty]] | m2.sets[jj[empty]]
+        acc.add(rows, m1.masses[ii] * m2.masses[jj])
+    return acc.result()
+
+
+def disjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
+    """Disjunctive rule: m(A) = Σ_{B∪C=A} m1(B) m2(C), for when one of the sources is right."""
+    n = check_same_frame(m1, m2)
+    acc = FocalAccumulator(n)
+    for rows, ii, jj in _pairs(m1, m2, np.bitwise_or):
+        acc.add(rows, m1.masses[ii] * m2.masses[jj])
+    return acc.result()
+
+
+def pcr5(m1: MassFunction, m2: MassFunction) -> MassFunction:
+    """PCR5 for two sources: each partial conflict m1(B) m2(C) (B ∩ C = ∅) goes back to B and C
+    in proportion to m1(B) and m2(C)."""
+    n = check_same_frame(m1, m2)
+    for i, m in enumerate((m1, m2), start=1):
+        if m.conflict > 0:
+            raise RuleError(
+                f"PCR5 takes normal mass functions, but source {i} has m(∅) = {m.conflict:.6g}; "
+                "normalise it first (MassFunction.normalised)"
+            )
+    acc = FocalAccumulator(n)
+    for rows, ii, jj in _pairs(m1, m2, np.bitwise_and):
+        a, b = m1.masses[ii], m2.masses[jj]
+        empty = _empty_rows(rows)
+        acc.add(rows[~empty], (a * b)[~empty])
+        if empty.any():
+            a, b = a[empty], b[empty]
+            acc.add(m1.sets[ii[empty]], a * a * b / (a + b))
+            acc.add(m2.sets[jj[empty]], b * b * a / (a + b))
+    return acc.result()
+
+
+def average(*ms: MassFunction, weights=None) -> MassFunction:
+    """Weighted mean of mass functions (equal weights by default)."""
+    n = check_same_frame(*ms)
+    w = np.full(len(ms), 1.0 / len(ms)) if weights is None else np.asarray(weights, dtype=np.float64)
+    if w.shape != (len(ms),) or not np.isfinite(w).all() or (w < 0).any() or w.sum() <= 0:
+        raise MassValueError(f"average needs one non-negative finite weight per mass function, got {weights!r}")
+    w = w / w.sum()
+    acc = FocalAccumulator(n)
+    for m, wi in zip(ms, w.tolist()):
+        acc.add(m.sets, m.masses * wi)
+    return acc.result()
+
+
+def murphy(*ms: MassFunction, if_total_conflict: str = "raise") -> MassFunction:
+    """Murphy's rule: average the n sources, then combine the average with itself n − 1 times (Dempster)."""
+    mean = average(*ms)
+    out = mean
+    for _ in range(len(ms) - 1):
+        out = dempster(out, mean, if_total_conflict=if_total_conflict)
+    return out
+
+
+def discount(m: MassFunction, reliability: float) -> MassFunction:
+    """Shafer discounting with discount rate α = 1 − reliability.
+
+    m'(A) = (1 − α) m(A) for A ≠ Θ, and m'(Θ) = (1 − α) m(Θ) + α.
+    """
+    r = _unit_interval(reliability, "reliability")
+    if r == 1.0:
+        return m
+    acc = FocalAccumulator(m.n)
+    acc.add(m.sets, m.masses * r)
+    acc.add(bitset.full(m.n)[None, :], [1.0 - r])
+    return acc.result()
+
+
+class Reduction(NamedTuple):
+    """Result of ``reduce_focal_sets``: the reduced mass function and what the cap cost."""
+
+    mass_function: MassFunction
+    mass_moved: float
+    """Total mass of the focal sets merged into a larger set (0 when nothing was merged)."""
+    sets_merged: int
+
+
+def reduce_focal_sets(m: MassFunction, max_focal: int) -> Reduction:
+    """Cap the number of non-empty focal sets at ``max_focal``.
+
+    The ``max_focal − 1`` most massive sets are kept; the rest are merged into
+    their union, which takes their summed mass.  Only mass moves to supersets, so
+    the result is less committed than ``m`` (plausibilities never fall).  The
+    empty set is never merged: its mass is the conflict and must stay visible.
+    """
+    if isinstance(max_focal, bool) or not isinstance(max_focal, (int, np.integer)) or max_focal < 1:
+        raise RuleError(f"max_focal must be a whole number ≥ 1, got {max_focal!r}")
+    card = m.cardinalities
+    nonempty = np.flatnonzero(card > 0)
+    if len(nonempty) <= max_focal:
+        return Reduction(m, 0.0, 0)
+    order = nonempty[np.argsort(-m.masses[nonempty], kind="stable")]
+    keep, merge = order[: max_focal - 1], order[max_focal - 1 :]
+    acc = FocalAccumulator(m.n)
+    acc.add(m.sets[keep], m.masses[keep])
+    acc.add(np.bitwise_or.reduce(m.sets[merge], axis=0)[None, :], [m.masses[merge].sum()])
+    empty = np.flatnonzero(card == 0)
+    acc.add(m.sets[empty], m.masses[empty])
+    return Reduction(acc.result(), float(m.masses[merge].sum()), int(len(merge)))
+
+
+def _fold_pairwise(rule: Callable, **options) -> Callable:
+    def run(*ms: MassFunction) -> MassFunction:
+        return _fold(lambda a, b: rule(a, b, **options), ms)
+
+    return run
+
+
+def _exactly_two(name: str, rule: Callable) -> Callable:
+    def run(*ms: MassFunction) -> MassFunction:
+        if len(ms) != 2:
+            raise RuleError(
+                f"the {name} rule is defined here for two sources, got {len(ms)}; it is not associative, "
+                "so combining more sources one after another depends on their order. Combine pairwise "
+                "yourself if that order is meaningful, or use 'dempster', 'conjunctive' or 'murphy'."
+            )
+        return rule(*ms)
+
+    return run
+
+
+def _yager_n(*ms: MassFunction) -> MassFunction:
+    # Yager's rule for n sources: the joint conjunctive combination, then the
+    # conflict to Θ (so the result does not depend on the order of the sources).
+    return _conflict_to_whole_frame(_fold(conjunctive, ms))
+
+
+RULES: dict[str, str] = {
+    "conjunctive": "unnormalised conjunctive rule; keeps the conflict as m(∅)",
+    "dempster": "Dempster's rule; conflict removed by normalisation",
+    "yager": "Yager's rule; conflict moved to the whole frame",
+    "dubois_prade": "Dubois–Prade rule; each conflicting pair's mass goes to the union (two sources)",
+    "disjunctive": "disjunctive rule; for when at least one source is right",
+    "pcr5": "proportional conflict redistribution, PCR5 (two sources)",
+    "murphy": "Murphy's averaging, then Dempster's rule",
+}
+"""Names accepted by ``combine(rule=...)``, with a one-line description each."""
+
+
+def combine(*ms: MassFunction, rule: str = "dempster", **options) -> MassFunction:
+    """Combine mass functions with a named rule (see ``RULES``).
+
+    ``options`` go to the rule: ``if_total_conflict`` for 'dempster' and 'murphy'.
+    One mass function alone is returned unchanged.
+    """
+    check_same_frame(*ms)
+    runners = {
+        "conjunctive": _fold_pairwise(conjunctive),
+        "dempster": _fold_pairwise(dempster, **options),
+        "yager": _yager_n,
+        "dubois_prade": _exactly_two("Dubois–Prade", dubois_prade),
+        "disjunctive": _fold_pairwise(disjunctive),
+        "pcr5": _exactly_two("PCR5", pcr5),
+        "murphy": lambda *m: murphy(*m, **options),
+    }
+    if rule not in runners:
+        raise RuleError(f"unknown combination rule {rule!r}; choose one of: {', '.join(RULES)}")
+    if options and rule not in ("dempster", "murphy"):
+        raise RuleError(f"the {rule!r} rule takes no options, got {', '.join(options)}")
+    if len(ms) == 1:
+        return ms[0]
+    return runners[rule](*ms)
+
+
+def _unit_interval(value, name: str) -> float:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise MassValueError(f"{name} must be a number in [0, 1], got {value!r}") from None
+    if not (0.0 <= v <= 1.0):
+        raise MassValueError(f"{name} must lie in [0, 1], got {v!r}")
+    return v
