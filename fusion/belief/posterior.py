@@ -1,0 +1,170 @@
+"""Bayesian belief over the cells of a frame: a posterior updated by likelihoods.
+
+The posterior is kept as float64 probabilities normalised after every update;
+the normalising constant of each update, p(z_t | z_1..t-1), is returned as a log
+and summed, so a long run never underflows and the evidence of every update is
+available for conflict detection (a low evidence means the observation was
+surprising under the belief).  The update is Bayes' rule as in a histogram filter
+(Thrun, Burgard & Fox 2005, *Probabilistic Robotics*, §4.1).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from fusion.errors import LikelihoodValueError, ZeroEvidenceError
+
+__all__ = ["Posterior"]
+
+
+class Posterior:
+    """A probability per cell, updated in place by likelihood vectors.
+
+    >>> p = Posterior.uniform(2)
+    >>> round(p.update([0.6, 0.2]), 4)   # log p(z) = log(0.4)
+    -0.9163
+    >>> p.probabilities.tolist()
+    [0.75, 0.25]
+    """
+
+    __slots__ = ("_p", "log_evidence")
+
+    def __init__(self, probabilities):
+        p = _vector(probabilities, "prior")
+        total = p.sum()
+        if (p < 0).any():
+            i = int(np.flatnonzero(p < 0)[0])
+            raise LikelihoodValueError(f"prior probability of cell {i} is negative ({float(p[i])!r})")
+        if total <= 0:
+            raise ZeroEvidenceError("the prior gives zero probability to every cell; give at least one cell weight")
+        self._p = p / total
+        self.log_evidence = 0.0
+        """Sum of the log evidence of every update since the prior (nats)."""
+
+    @classmethod
+    def uniform(cls, n: int, mask=None) -> Posterior:
+        """Uniform over ``n`` cells, or over the cells where ``mask`` is true."""
+        if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
+            raise LikelihoodValueError(f"a belief needs a whole number of cells ≥ 1, got {n!r}")
+        p = np.ones(int(n)) if mask is None else np.asarray(mask, dtype=np.float64)
+        if p.shape != (int(n),):
+            raise LikelihoodValueError(f"the mask must have one entry per cell ({n}), got shape {p.shape}")
+        return cls(p)
+
+    @property
+    def n(self) -> int:
+        return len(self._p)
+
+    @property
+    def probabilities(self) -> np.ndarray:
+        """The posterior (a read-only view; copy it to keep a snapshot)."""
+        view = self._p.view()
+        view.flags.writeable = False
+        return view
+
+    def copy(self) -> Posterior:
+        out = object.__new__(Posterior)
+        out._p, out.log_evidence = self._p.copy(), self.log_evidence
+        return out
+
+    def set(self, probabilities) -> None:
+        """Replace the belief (after a prediction step), renormalising it; evidence is kept."""
+        fresh = Posterior(probabilities)
+        if fresh.n != self.n:
+            raise LikelihoodValueError(f"the new belief has {fresh.n} cells, this one has {self.n}")
+        self._p = fresh._p
+
+    # ----------------------------------------------------------------- updates
+    def update(self, likelihood) -> float:
+        """Multiply by p(z | x) per cell and renormalise; returns log p(z | past) in nats.
+
+        Raises ``ZeroEvidenceError`` (and leaves the belief unchanged) when the
+        likelihood is zero wherever the belief is positive.
+        """
+        lik = self._check(likelihood, "likelihood")
+        if (lik < 0).any():
+            i = int(np.flatnonzero(lik < 0)[0])
+            raise LikelihoodValueError(f"likelihood of cell {i} is negative ({float(lik[i])!r}); likelihoods are ≥ 0")
+        scale = lik.max()
+        if scale <= 0:
+            raise ZeroEvidenceError(self._zero_message())
+        # Scale so the largest entry is 1: the product cannot underflow for a
+        # likelihood whose entries are all tiny (e.g. 1e-320 everywhere).
+        return self._absorb(lik / scale, float(np.log(scale)))
+
+    def update_log(self, log_likelihood) -> float:
+        """As ``update`` but from log p(z | x) (−inf allowed); safe for likelihoods below 1e-308."""
+        ll = np.asarray(log_likelihood, dtype=np.float64)
+        if ll.shape != (self.n,):
+            raise LikelihoodValueError(f"log-likelihood must have one entry per cell ({self.n}), got shape {ll.shape}")
+        if np.isnan(ll).any() or np.isposinf(ll).any():
+            i = int(np.flatnonzero(np.isnan(ll) | np.isposinf(ll))[0])
+            raise LikelihoodValueError(f"log-likelihood of cell {i} is {float(ll[i])!r}; it must be finite or -inf")
+        top = ll.max()
+        if np.isneginf(top):
+            raise ZeroEvidenceError(self._zero_message())
+        return self._absorb(np.exp(ll - top), float(top))
+
+    def _absorb(self, scaled: np.ndarray, log_scale: float) -> float:
+        post = self._p * scaled
+        z = post.sum()
+        if not z > 0:
+            raise ZeroEvidenceError(self._zero_message())
+        post /= z
+        self._p = post
+        step = float(np.log(z)) + log_scale
+        self.log_evidence += step
+        return step
+
+    def _zero_message(self) -> str:
+        return (
+            "the observation has zero likelihood on every cell the belief allows (zero evidence): "
+            "the sensor contradicts the belief completely. The belief was left unchanged; "
+            "re-localize, or give the sensor model an outlier share so no reading is impossible."
+        )
+
+    def _check(self, values, name: str) -> np.ndarray:
+        v = _vector(values, name)
+        if v.shape != (self.n,):
+            raise LikelihoodValueError(f"{name} must have one entry per cell ({self.n}), got shape {v.shape}")
+        return v
+
+    # ----------------------------------------------------------------- queries
+    def entropy(self) -> float:
+        """Shannon entropy in nats (0 log 0 = 0)."""
+        p = self._p[self._p > 0]
+        return float(-(p * np.log(p)).sum())
+
+    def map_cell(self) -> int:
+        """The most probable cell (the lowest index on ties)."""
+        return int(np.argmax(self._p))
+
+    def hpd_region(self, level: float = 0.95) -> np.ndarray:
+        """Smallest set of cells holding at least ``level`` of the probability (sorted indices).
+
+        Cells are taken most probable first; ties at the boundary are broken by index.
+        """
+        level = float(level)
+        if not 0.0 < level <= 1.0:
+            raise LikelihoodValueError(f"the region's level must lie in (0, 1], got {level!r}")
+        order = np.argsort(-self._p, kind="stable")
+        cumulative = np.cumsum(self._p[order])
+        # Small tolerance so that a level equal to a cumulative sum is reached.
+        count = int(np.searchsorted(cumulative, level - 1e-12)) + 1
+        return np.sort(order[: min(count, self.n)])
+
+    def __repr__(self) -> str:
+        return f"Posterior(n={self.n}, MAP cell {self.map_cell()}, entropy {self.entropy():.3g} nats)"
+
+
+def _vector(values, name: str) -> np.ndarray:
+    try:
+        v = np.array(values, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise LikelihoodValueError(f"{name} must be a vector of numbers, one per cell") from None
+    if v.ndim != 1 or v.size == 0:
+        raise LikelihoodValueError(f"{name} must be a non-empty vector with one entry per cell, got shape {v.shape}")
+    if not np.isfinite(v).all():
+        i = int(np.flatnonzero(~np.isfinite(v))[0])
+        raise LikelihoodValueError(f"{name} has the non-finite value {float(v[i])!r} at cell {i}")
+    return v
