@@ -1,0 +1,27 @@
+import subprocess
+import sys
+
+from fusion import SAFETY_NOTICE
+from fusion.cli import main
+
+
+def test_import_is_light_and_never_pulls_torch():
+    code = (
+        "import sys, fusion; fusion.MassFunction; fusion.Posterior; fusion.combine;"
+        "heavy = [m for m in ('torch', 'pyro', 'matplotlib', 'pandas', 'rich') if m in sys.modules];"
+        "print(','.join(heavy))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""
+
+
+def test_demo_runs_and_states_the_safety_notice(capsys):
+    assert main(["demo", "--seed", "3"]) == 0
+    out = capsys.readouterr().out
+    assert "not a certified safety" in out and "Aisle C" in out
+    assert "not a certified safety function" in SAFETY_NOTICE
+
+
+def test_no_command_prints_help_and_fails(capsys):
+    assert main([]) == 2
+    assert "demo" in capsys.readouterr().out

@@ -1,0 +1,105 @@
+import numpy as np
+import pytest
+from scipy.special import logsumexp
+from scipy.stats import entropy as scipy_entropy
+from support import assert_close
+
+from fusion.belief.posterior import Posterior
+from fusion.errors import LikelihoodValueError, ZeroEvidenceError
+
+
+def test_door_example():
+    # Thrun, Burgard & Fox (2005), Probabilistic Robotics, §2.4.2: cells (open, closed), uniform prior,
+    # p(sense open | open) = 0.6, p(sense open | closed) = 0.2.
+    belief = Posterior.uniform(2)
+    sense_open = np.array([0.6, 0.2])
+    belief.update(sense_open)
+    assert_close(belief.probabilities[0], 0.75)
+    # Action "push": p(open | push, open) = 1, p(open | push, closed) = 0.8.
+    push = np.array([[1.0, 0.8], [0.0, 0.2]])
+    belief.set(push @ belief.probabilities)
+    assert_close(belief.probabilities[0], 0.95)
+    belief.update(sense_open)
+    assert_close(belief.probabilities[0], 0.983, tol=5e-4)  # the book prints three decimals
+
+
+def test_log_evidence_is_the_log_marginal_likelihood():
+    # Sum of per-update log normalisers = log Σ_x p0(x) Π_t p(z_t | x) (chain rule of probability);
+    # the reference is computed in one shot with scipy's logsumexp.
+    rng = np.random.default_rng(0)
+    n, steps = 50, 40
+    prior = rng.dirichlet(np.ones(n))
+    logliks = rng.normal(-3.0, 2.0, size=(steps, n))
+    belief = Posterior(prior)
+    per_step = [belief.update_log(ll) for ll in logliks]
+    expected = logsumexp(np.log(prior) + logliks.sum(axis=0))
+    assert_close(belief.log_evidence, expected, tol=1e-9)
+    assert_close(sum(per_step), expected, tol=1e-9)
+    posterior = np.exp(np.log(prior) + logliks.sum(axis=0) - expected)
+    assert_close(belief.probabilities, posterior, tol=1e-12)
+
+
+def test_long_runs_with_tiny_likelihoods_neither_underflow_nor_produce_nan():
+    rng = np.random.default_rng(1)
+    belief = Posterior.uniform(200)
+    for _ in range(5000):
+        lik = 1e-300 * (0.5 + rng.random(200))  # every product of two such numbers underflows
+        belief.update(lik)
+    p = belief.probabilities
+    assert np.isfinite(p).all() and (p >= 0).all()
+    assert_close(p.sum(), 1.0, tol=1e-12)
+    assert np.isfinite(belief.log_evidence)
+    assert belief.log_evidence < -5000 * 690  # each step carried its own log(1e-300) ≈ -690.8
+
+
+def test_update_and_update_log_agree():
+    rng = np.random.default_rng(2)
+    lik = rng.random(30)
+    a, b = Posterior.uniform(30), Posterior.uniform(30)
+    assert_close(a.update(lik), b.update_log(np.log(lik)))
+    assert_close(a.probabilities, b.probabilities, tol=1e-15)
+
+
+def test_zero_evidence_is_reported_and_the_belief_kept():
+    belief = Posterior.uniform(4, mask=[1, 1, 0, 0])
+    before = belief.probabilities.copy()
+    with pytest.raises(ZeroEvidenceError, match="zero evidence"):
+        belief.update([0.0, 0.0, 0.7, 0.3])
+    with pytest.raises(ZeroEvidenceError):
+        belief.update_log([-np.inf] * 4)
+    assert_close(belief.probabilities, before)
+
+
+def test_entropy_map_and_region():
+    belief = Posterior([0.1, 0.4, 0.2, 0.3])
+    assert_close(belief.entropy(), scipy_entropy([0.1, 0.4, 0.2, 0.3]))  # scipy.stats.entropy, natural log
+    assert_close(Posterior.uniform(8).entropy(), np.log(8))
+    assert belief.map_cell() == 1
+    assert belief.hpd_region(0.7).tolist() == [1, 3]
+    assert belief.hpd_region(0.71).tolist() == [1, 2, 3]
+    assert belief.hpd_region(1.0).tolist() == [0, 1, 2, 3]
+
+
+@pytest.mark.parametrize(
+    "values, error, message",
+    [
+        ([0.5, -0.1, 0.2], LikelihoodValueError, "cell 1 is negative"),
+        ([0.5, np.nan, 0.2], LikelihoodValueError, "non-finite value nan at cell 1"),
+        ([0.5, 0.2], LikelihoodValueError, r"one entry per cell \(3\)"),
+        ("abc", LikelihoodValueError, "vector of numbers"),
+    ],
+)
+def test_bad_likelihoods_are_refused(values, error, message):
+    with pytest.raises(error, match=message):
+        Posterior.uniform(3).update(values)
+
+
+def test_bad_priors_and_regions():
+    with pytest.raises(ZeroEvidenceError, match="zero probability to every cell"):
+        Posterior([0.0, 0.0])
+    with pytest.raises(LikelihoodValueError, match="whole number of cells"):
+        Posterior.uniform(0)
+    with pytest.raises(LikelihoodValueError, match="level"):
+        Posterior.uniform(3).hpd_region(0.0)
+    with pytest.raises(LikelihoodValueError, match=r"finite or -inf"):
+        Posterior.uniform(2).update_log([np.inf, 0.0])
