@@ -49,51 +49,81 @@ class FocalAccumulator:
     """Collects (set, weight) rows and adds up the weights of equal sets.
 
     Combination rules produce many candidate sets, often equal; this merges them
-    without ever holding all candidates at once.
+    batch by batch without holding all candidates at once.  Equal sets are found
+    by fingerprint and confirmed by an exact comparison, so a fingerprint
+    collision never merges two different sets.
     """
 
     def __init__(self, n: int):
         self.n = int(n)
         self._w = bitset.n_words(n)
-        self._index: dict[int, list[int]] = {}  # fingerprint -> positions in _rows
-        self._rows: list[np.ndarray] = []
+        self._slots: dict[int, list[int]] = {}  # fingerprint -> slots holding sets with it
+        self._blocks: list[np.ndarray] = []  # distinct sets, in slot order, one array per batch
+        self._where: list[tuple[int, int]] = []  # slot -> (block, row)
         self._weights: list[float] = []
 
-    def add(self, rows: np.ndarray, weights: np.ndarray) -> None:
+    def add(self, rows: np.ndarray, weights, *, owned: bool = False) -> None:
+        """Add ``weights[i]`` to the set ``rows[i]``.  With ``owned=True`` the caller hands
+        ``rows`` over (it will not change them), which saves a copy."""
         rows = np.asarray(rows, dtype=bitset.WORD).reshape(-1, self._w)
         weights = np.asarray(weights, dtype=np.float64).reshape(-1)
         keep = weights != 0.0
         if not keep.all():
-            rows, weights = rows[keep], weights[keep]
+            rows, weights, owned = rows[keep], weights[keep], True
         if len(weights) == 0:
             return
         fps = bitset.fingerprint(rows)
-        uniq, first, inverse = np.unique(fps, return_index=True, return_inverse=True)
-        same_as_first = (rows == rows[first[inverse]]).all(axis=1)
-        if same_as_first.all():
-            sums = np.bincount(inverse, weights=weights, minlength=len(uniq))
-            for fp, pos, w in zip(uniq.tolist(), first.tolist(), sums.tolist()):
-                self._add_one(fp, rows[pos], w)
-        else:  # a fingerprint collision inside the batch: merge row by row
-            for fp, row, w in zip(fps.tolist(), rows, weights.tolist()):
-                self._add_one(fp, row, w)
+        uniq, first, inverse, counts = np.unique(fps, return_index=True, return_inverse=True, return_counts=True)
+        shared = counts[inverse] > 1
+        if shared.any() and not (rows[shared] == rows[first[inverse[shared]]]).all():
+            # A fingerprint collision inside the batch: merge one row at a time.
+            for i, (fp, w) in enumerate(zip(fps.tolist(), weights.tolist())):
+                if not self._add_to_existing(fp, rows[i], w):
+                    self._append(rows[i : i + 1], [fp], [w])
+            return
+        sums = np.bincount(inverse, weights=weights, minlength=len(uniq))
+        positions, new_fps, new_weights = [], [], []
+        for fp, pos, w in zip(uniq.tolist(), first.tolist(), sums.tolist()):
+            if not self._add_to_existing(fp, rows[pos], w):
+                positions.append(pos)
+                new_fps.append(fp)
+                new_weights.append(w)
+        if not positions:
+            return
+        order = np.argsort(positions)
+        new_fps, new_weights = [new_fps[i] for i in order], [new_weights[i] for i in order]
+        if owned and len(positions) == len(rows):
+            fresh = rows  # every row is new and distinct: keep the caller's array, no copy
+        else:
+            fresh = rows[np.sort(positions)]
+        self._append(fresh, new_fps, new_weights)
 
-    def _add_one(self, fp: int, row: np.ndarray, weight: float) -> None:
-        slots = self._index.setdefault(fp, [])
-        for slot in slots:
-            if np.array_equal(self._rows[slot], row):
+    def _add_to_existing(self, fp: int, row: np.ndarray, weight: float) -> bool:
+        for slot in self._slots.get(fp, ()):
+            block, r = self._where[slot]
+            if np.array_equal(self._blocks[block][r], row):
                 self._weights[slot] += weight
-                return
-        slots.append(len(self._rows))
-        self._rows.append(row.copy())
-        self._weights.append(weight)
+                return True
+        return False
+
+    def _append(self, rows: np.ndarray, fps: list[int], weights: list[float]) -> None:
+        block = len(self._blocks)
+        self._blocks.append(rows)
+        for r, (fp, w) in enumerate(zip(fps, weights)):
+            self._slots.setdefault(fp, []).append(len(self._weights))
+            self._where.append((block, r))
+            self._weights.append(w)
 
     def result(self) -> MassFunction:
-        if not self._rows:
+        if not self._weights:
             raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
-        sets = np.stack(self._rows)
+        sets = self._blocks[0] if len(self._blocks) == 1 else np.concatenate(self._blocks)
         masses = np.asarray(self._weights, dtype=np.float64)
         return MassFunction._trusted(self.n, sets, masses)
+
+    def residual(self) -> np.ndarray:
+        """Weights accumulated so far, one per distinct set (for comparisons within a tolerance)."""
+        return np.asarray(self._weights, dtype=np.float64)
 
 
 class MassFunction:
@@ -342,7 +372,9 @@ class MassFunction:
             )
         if nonempty.all():
             return self
-        return MassFunction._trusted(self.n, self._sets[nonempty], self._masses[nonempty] / total)
+        out = MassFunction._trusted(self.n, self._sets[nonempty], self._masses[nonempty] / total)
+        out._card = self.cardinalities[nonempty]
+        return out
 
     def is_close(self, other: MassFunction, tol: float = 1e-9) -> bool:
         """Same frame and every set's mass within ``tol`` (sets absent from one count as 0)."""
@@ -350,7 +382,7 @@ class MassFunction:
         acc = FocalAccumulator(self.n)
         acc.add(self._sets, self._masses)
         acc.add(other._sets, -other._masses)
-        return bool(np.all(np.abs(acc._weights) <= tol)) if acc._weights else True
+        return bool(np.all(np.abs(acc.residual()) <= tol))
 
     def __repr__(self) -> str:
         top = self.focal_sets()[:3]
@@ -458,9 +490,7 @@ def _as_vector(values, name: str) -> np.ndarray:
 
 def _short(cells) -> str:
     try:
-        items = sorted(
-            int(c) for c in (np.flatnonzero(cells) if getattr(cells, "dtype", None) == np.bool_ else cells)
-        )
+        items = sorted(int(c) for c in (np.flatnonzero(cells) if getattr(cells, "dtype", None) == np.bool_ else cells))
     except (TypeError, ValueError):
         return repr(cells)
     if len(items) > 6:

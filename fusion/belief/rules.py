@@ -72,7 +72,7 @@ def conjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     n = check_same_frame(m1, m2)
     acc = FocalAccumulator(n)
     for rows, ii, jj in _pairs(m1, m2, np.bitwise_and):
-        acc.add(rows, m1.masses[ii] * m2.masses[jj])
+        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True)
     return acc.result()
 
 
@@ -120,7 +120,7 @@ def dubois_prade(m1: MassFunction, m2: MassFunction) -> MassFunction:
         empty = _empty_rows(rows)
         if empty.any():
             rows[empty] = m1.sets[ii[empty]] | m2.sets[jj[empty]]
-        acc.add(rows, m1.masses[ii] * m2.masses[jj])
+        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True)
     return acc.result()
 
 
@@ -129,7 +129,7 @@ def disjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     n = check_same_frame(m1, m2)
     acc = FocalAccumulator(n)
     for rows, ii, jj in _pairs(m1, m2, np.bitwise_or):
-        acc.add(rows, m1.masses[ii] * m2.masses[jj])
+        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True)
     return acc.result()
 
 
