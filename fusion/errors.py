@@ -17,6 +17,10 @@ __all__ = [
     "ZeroEvidenceError",
     "LikelihoodValueError",
     "RuleError",
+    "PoseError",
+    "SiteError",
+    "ObservationError",
+    "ResourceError",
 ]
 
 
@@ -50,3 +54,19 @@ class LikelihoodValueError(FusionError, ValueError):
 
 class RuleError(FusionError, ValueError):
     """An unknown combination rule, or a rule used outside what it is defined for."""
+
+
+class PoseError(FusionError, ValueError):
+    """A pose or position lies off the site, or is not finite."""
+
+
+class SiteError(FusionError, ValueError):
+    """A site description is inconsistent: a door or marker off the map, an unknown marker, a bad size."""
+
+
+class ObservationError(FusionError, ValueError):
+    """An observation cannot be encoded: a negative range, an unknown sensor or marker, a wrong field."""
+
+
+class ResourceError(FusionError, MemoryError):
+    """A request would need more memory than the engine allows; the message gives the figure."""

@@ -103,3 +103,11 @@ def test_bad_priors_and_regions():
         Posterior.uniform(3).hpd_region(0.0)
     with pytest.raises(LikelihoodValueError, match=r"finite or -inf"):
         Posterior.uniform(2).update_log([np.inf, 0.0])
+
+
+def test_a_belief_read_before_an_update_is_not_changed_by_it():
+    belief = Posterior.uniform(3)
+    before = belief.probabilities
+    belief.update([0.2, 0.3, 0.5])
+    belief.update([0.2, 0.3, 0.5])
+    assert_close(before, [1 / 3] * 3)

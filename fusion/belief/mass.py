@@ -34,6 +34,8 @@ MASS_TOLERANCE = 1e-9
 
 # Distinct contour values turned into nested focal sets without quantisation.
 _MAX_EXACT_LEVELS = 256
+# Words of each focal set unpacked at once when spreading masses over cells (64 Ki cells).
+_SPREAD_BLOCK_WORDS = 1024
 # Largest focal-set table a constructor will allocate, in bytes.
 _MAX_TABLE_BYTES = 2 * 1024**3
 
@@ -397,11 +399,24 @@ class MassFunction:
         return bitset.pack_indices(_cells(cells), self.n)
 
     def _spread(self, weights: np.ndarray) -> np.ndarray:
-        """Σ_B weight(B) · 1[x ∈ B] for every cell x, one focal set at a time (bounded memory)."""
-        out = np.zeros(self.n, dtype=np.float64)
-        for row, w in zip(self._sets, weights.tolist()):
-            if w != 0.0:
-                out += w * bitset.unpack(row, self.n)
+        """Σ_B weight(B) · 1[x ∈ B] for every cell x.
+
+        Works on blocks of cells so that memory stays bounded: each block's bits are
+        unpacked once for all focal sets and summed with one matrix-vector product.
+        """
+        out = np.empty(self.n, dtype=np.float64)
+        keep = weights != 0.0
+        sets, w = self._sets[keep], weights[keep]
+        if len(w) == 0:
+            out[:] = 0.0
+            return out
+        words_per_block = _SPREAD_BLOCK_WORDS
+        for start in range(0, sets.shape[1], words_per_block):
+            block = np.ascontiguousarray(sets[:, start : start + words_per_block])
+            bits = np.unpackbits(block.view(np.uint8), axis=1, bitorder="little")
+            lo = start * 64
+            hi = min(lo + bits.shape[1], self.n)
+            out[lo:hi] = w @ bits[:, : hi - lo].astype(np.float64)
         return out
 
 

@@ -27,7 +27,7 @@ class Posterior:
     [0.75, 0.25]
     """
 
-    __slots__ = ("_p", "log_evidence")
+    __slots__ = ("_p", "_scratch", "_lent", "log_evidence")
 
     def __init__(self, probabilities):
         p = _vector(probabilities, "prior")
@@ -38,6 +38,8 @@ class Posterior:
         if total <= 0:
             raise ZeroEvidenceError("the prior gives zero probability to every cell; give at least one cell weight")
         self._p = p / total
+        self._scratch = None
+        self._lent = False
         self.log_evidence = 0.0
         """Sum of the log evidence of every update since the prior (nats)."""
 
@@ -57,14 +59,15 @@ class Posterior:
 
     @property
     def probabilities(self) -> np.ndarray:
-        """The posterior (a read-only view; copy it to keep a snapshot)."""
+        """The posterior as a read-only array (it is not changed by later updates)."""
         view = self._p.view()
         view.flags.writeable = False
+        self._lent = True  # this buffer must not be reused as scratch space
         return view
 
     def copy(self) -> Posterior:
         out = object.__new__(Posterior)
-        out._p, out.log_evidence = self._p.copy(), self.log_evidence
+        out._p, out._scratch, out._lent, out.log_evidence = self._p.copy(), None, False, self.log_evidence
         return out
 
     def set(self, probabilities) -> None:
@@ -72,7 +75,7 @@ class Posterior:
         fresh = Posterior(probabilities)
         if fresh.n != self.n:
             raise LikelihoodValueError(f"the new belief has {fresh.n} cells, this one has {self.n}")
-        self._p = fresh._p
+        self._p, self._lent = fresh._p, False
 
     # ----------------------------------------------------------------- updates
     def update(self, likelihood) -> float:
@@ -81,16 +84,30 @@ class Posterior:
         Raises ``ZeroEvidenceError`` (and leaves the belief unchanged) when the
         likelihood is zero wherever the belief is positive.
         """
-        lik = self._check(likelihood, "likelihood")
-        if (lik < 0).any():
+        try:
+            lik = np.asarray(likelihood, dtype=np.float64)
+        except (TypeError, ValueError):
+            lik = None
+        if lik is None or lik.shape != (self.n,):
+            lik = self._check(likelihood, "likelihood")
+        # min and max find NaN, infinities and negatives in two passes, without a copy.
+        lo, hi = float(lik.min()), float(lik.max())
+        if not (np.isfinite(lo) and np.isfinite(hi)):
+            self._check(lik, "likelihood")  # names the first bad cell
+        if lo < 0:
             i = int(np.flatnonzero(lik < 0)[0])
             raise LikelihoodValueError(f"likelihood of cell {i} is negative ({float(lik[i])!r}); likelihoods are ≥ 0")
-        scale = lik.max()
-        if scale <= 0:
+        if hi <= 0:
             raise ZeroEvidenceError(self._zero_message())
-        # Scale so the largest entry is 1: the product cannot underflow for a
-        # likelihood whose entries are all tiny (e.g. 1e-320 everywhere).
-        return self._absorb(lik / scale, float(np.log(scale)))
+        post = np.multiply(self._p, lik, out=self._spare())
+        z = float(post.sum())
+        if z < 1e-250:  # may have underflowed: redo with the likelihood scaled to a maximum of 1
+            return self._absorb(lik / hi, float(np.log(hi)))
+        post *= 1.0 / z
+        self._swap(post)
+        step = float(np.log(z))
+        self.log_evidence += step
+        return step
 
     def update_log(self, log_likelihood) -> float:
         """As ``update`` but from log p(z | x) (−inf allowed); safe for likelihoods below 1e-308."""
@@ -106,15 +123,25 @@ class Posterior:
         return self._absorb(np.exp(ll - top), float(top))
 
     def _absorb(self, scaled: np.ndarray, log_scale: float) -> float:
-        post = self._p * scaled
-        z = post.sum()
+        post = np.multiply(self._p, scaled, out=self._spare())
+        z = float(post.sum())
         if not z > 0:
             raise ZeroEvidenceError(self._zero_message())
-        post /= z
-        self._p = post
+        post *= 1.0 / z
+        self._swap(post)
         step = float(np.log(z)) + log_scale
         self.log_evidence += step
         return step
+
+    def _spare(self) -> np.ndarray:
+        """A second buffer the size of the belief, so an update allocates nothing and a refused one changes nothing."""
+        if self._scratch is None or self._scratch.shape != self._p.shape:
+            self._scratch = np.empty_like(self._p)
+        return self._scratch
+
+    def _swap(self, post: np.ndarray) -> None:
+        self._p, self._scratch = post, (None if self._lent else self._p)
+        self._lent = False
 
     def _zero_message(self) -> str:
         return (

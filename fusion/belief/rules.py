@@ -33,6 +33,7 @@ from fusion.errors import MassValueError, RuleError, TotalConflictError
 __all__ = [
     "RULES",
     "combine",
+    "conflict_mass",
     "conjunctive",
     "dempster",
     "yager",
@@ -65,6 +66,16 @@ def _pairs(m1: MassFunction, m2: MassFunction, op: Callable) -> Iterator[tuple[n
 
 def _empty_rows(rows: np.ndarray) -> np.ndarray:
     return ~rows.any(axis=1)
+
+
+def conflict_mass(m1: MassFunction, m2: MassFunction) -> float:
+    """K = Σ m1(B) m2(C) over pairs with B ∩ C = ∅: the conflict, without building the combination."""
+    check_same_frame(m1, m2)
+    k = 0.0
+    for rows, ii, jj in _pairs(m1, m2, np.bitwise_and):
+        empty = _empty_rows(rows)
+        k += float((m1.masses[ii[empty]] * m2.masses[jj[empty]]).sum())
+    return k
 
 
 def conjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:

@@ -1,0 +1,1 @@
+"""The two interchangeable back ends behind one ``Backend`` protocol (see ``base``)."""

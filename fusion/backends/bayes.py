@@ -1,0 +1,72 @@
+"""The Bayesian back end: a histogram filter over the pose grid.
+
+Prediction shifts and blurs each heading slice (``fusion.motion.predict_density``);
+an update multiplies by the reading's likelihood and renormalises
+(``fusion.belief.posterior.Posterior``).  Cells off free space keep probability 0.
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+
+from fusion.backends.base import PoseEstimate, StepReport, estimate_pose, region_size
+from fusion.belief.posterior import Posterior
+from fusion.errors import FrameMismatchError, ZeroEvidenceError
+from fusion.grid import PoseGrid
+from fusion.motion import predict_density
+from fusion.sensors.base import Evidence
+from fusion.sensors.odometry import Motion
+
+__all__ = ["HistogramFilter"]
+
+
+class HistogramFilter:
+    name = "bayes"
+
+    def __init__(self, grid: PoseGrid, free: np.ndarray | None = None, *, report_region: bool = True):
+        self.grid = grid
+        self.free = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
+        self.report_region = report_region
+        self.belief = Posterior.uniform(grid.n_cells, mask=self.free)
+
+    def reset(self, prior: np.ndarray) -> None:
+        prior = np.asarray(prior, dtype=np.float64).reshape(-1)
+        if prior.shape != (self.grid.n_cells,):
+            raise FrameMismatchError(f"the prior has {prior.size} cells, the grid {self.grid.n_cells}")
+        self.belief = Posterior(prior * self.free)
+
+    def predict(self, motion: Motion) -> None:
+        cube = self.belief.probabilities.reshape(self.grid.shape)
+        moved = predict_density(cube, motion)
+        if motion.reliability < 1.0:  # wheel slip: with 1 − r the move is only known within the slip bound
+            slipped = predict_density(cube, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
+            moved = motion.reliability * moved + (1.0 - motion.reliability) * slipped
+        moved = moved.reshape(-1)
+        moved *= self.free
+        try:
+            self.belief.set(moved)
+        except ZeroEvidenceError:  # every cell moved off free space: keep the belief, the monitor will see it
+            pass
+
+    def update(self, evidence: Evidence) -> StepReport:
+        if evidence.n != self.grid.n_cells:
+            raise FrameMismatchError(
+                f"evidence from {evidence.sensor!r} covers {evidence.n} cells, the grid has {self.grid.n_cells}"
+            )
+        likelihood = evidence.likelihood
+        start = time.perf_counter()
+        try:
+            log_z, rejected = self.belief.update(likelihood), False
+        except ZeroEvidenceError:
+            log_z, rejected = float("-inf"), True
+        seconds = time.perf_counter() - start
+        region = region_size(self.belief.probabilities) if self.report_region else 0
+        return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=log_z, rejected=rejected)
+
+    def distribution(self) -> np.ndarray:
+        return self.belief.probabilities
+
+    def pose_estimate(self) -> PoseEstimate:
+        return estimate_pose(self.grid, self.belief.probabilities)

@@ -1,0 +1,172 @@
+"""The evidential back end: a mass function over pose cells, filtered with set-valued motion.
+
+Prediction moves every focal set and dilates it by the odometry's error bound
+(``fusion.motion.predict_sets``), then intersects it with free space.  An update
+combines the belief with the reading's mass function by the configured rule and
+caps the number of focal sets (``reduce_focal_sets``), reporting the mass moved.
+The conflict K of every update is m(∅) of the unnormalised conjunctive
+combination of the (normalised) belief with the evidence.
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+
+from fusion.backends.base import REGION_LEVEL, PoseEstimate, StepReport, estimate_pose
+from fusion.belief import bitset, rules
+from fusion.belief.mass import FocalAccumulator, MassFunction
+from fusion.errors import FrameMismatchError, RuleError, TotalConflictError
+from fusion.grid import PoseGrid
+from fusion.motion import predict_sets
+from fusion.sensors.base import Evidence
+from fusion.sensors.odometry import Motion
+
+__all__ = ["MassFilter", "FILTER_RULES"]
+
+FILTER_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy", "disjunctive")
+# Rules that normalise conflict away and so cannot absorb a totally conflicting reading.
+_NORMALISING = ("dempster", "murphy")
+_TOTAL = 1.0 - 1e-12
+
+
+class MassFilter:
+    name = "evidential"
+
+    def __init__(self, grid: PoseGrid, free: np.ndarray | None = None, *, rule: str = "dempster", max_focal: int = 32):
+        if rule not in FILTER_RULES:
+            raise RuleError(
+                f"unknown combination rule {rule!r} for the evidential back end; choose one of: "
+                f"{', '.join(FILTER_RULES)}"
+            )
+        if isinstance(max_focal, bool) or not isinstance(max_focal, int) or max_focal < 1:
+            raise RuleError(f"max_focal must be a whole number ≥ 1, got {max_focal!r}")
+        self.grid, self.rule, self.max_focal = grid, rule, max_focal
+        free_cells = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
+        self._free_words = bitset.pack_masks(free_cells)[0]
+        self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_cells))
+        self.motion_lost = 0.0  # mass whose focal sets moved wholly off free space at the last prediction
+
+    def reset(self, prior) -> None:
+        """Start from ignorance over the cells where ``prior`` > 0 (or from a given ``MassFunction``)."""
+        if isinstance(prior, MassFunction):
+            if prior.n != self.grid.n_cells:
+                raise FrameMismatchError(f"the prior is over {prior.n} cells, the grid has {self.grid.n_cells}")
+            self.belief = prior
+            return
+        prior = np.asarray(prior).reshape(-1)
+        if prior.shape != (self.grid.n_cells,):
+            raise FrameMismatchError(f"the prior has {prior.size} cells, the grid {self.grid.n_cells}")
+        words = bitset.pack_masks(prior > 0)[0] & self._free_words
+        self.belief = MassFunction._trusted(self.grid.n_cells, words[None, :].copy(), np.ones(1))
+
+    # ----------------------------------------------------------------- prediction
+    def predict(self, motion: Motion) -> None:
+        m = self.belief
+        n, shape = self.grid.n_cells, self.grid.shape
+        empty = m.cardinalities == 0
+        sets = m.sets[~empty]
+        masses = m.masses[~empty]
+        masks = bitset.unpack(sets, n).reshape((len(sets), *shape))
+        variants = [(predict_sets(masks, motion), masses * motion.reliability)]
+        if motion.reliability < 1.0:
+            slipped = predict_sets(masks, motion, bound=motion.slip, bound_turn=motion.slip_turn)
+            variants.append((slipped, masses * (1.0 - motion.reliability)))
+        acc = FocalAccumulator(n)
+        lost = 0.0
+        for moved, w in variants:
+            words = bitset.pack_masks(moved.reshape(len(sets), n)) & self._free_words
+            gone = ~words.any(axis=1)
+            lost += float(w[gone].sum())
+            acc.add(words[~gone], w[~gone], owned=True)
+        if empty.any():
+            acc.add(m.sets[empty], m.masses[empty])
+        self.motion_lost = lost
+        if lost >= 1.0 - 1e-12:
+            return  # everything moved into walls: keep the belief; the next update will show the conflict
+        out = acc.result()
+        if lost > 0:
+            out = MassFunction._trusted(n, out.sets.copy(), out.masses / out.masses.sum())
+        self.belief = rules.reduce_focal_sets(out, self.max_focal).mass_function
+
+    # ----------------------------------------------------------------- update
+    def update(self, evidence: Evidence) -> StepReport:
+        if evidence.n != self.grid.n_cells:
+            raise FrameMismatchError(
+                f"evidence from {evidence.sensor!r} covers {evidence.n} cells, the grid has {self.grid.n_cells}"
+            )
+        e = evidence.masses
+        start = time.perf_counter()
+        # Every rule combines the normalised belief, so K is the conflict of this reading alone.
+        belief = self.belief if self.belief.is_normal else _drop_conflict(self.belief)
+        if self.rule in ("dempster", "conjunctive", "yager"):
+            joint = rules.conjunctive(belief, e)
+            k = joint.conflict
+            combined = None if k >= _TOTAL and self.rule == "dempster" else self._finish(joint)
+        else:
+            k = rules.conflict_mass(belief, e)
+            combined = None if k >= _TOTAL and self.rule in _NORMALISING else rules.combine(belief, e, rule=self.rule)
+        moved = 0.0
+        if combined is not None:
+            reduction = rules.reduce_focal_sets(combined, self.max_focal)
+            self.belief, moved = reduction.mass_function, reduction.mass_moved
+        seconds = time.perf_counter() - start
+        return StepReport(
+            self.name,
+            evidence.sensor,
+            seconds,
+            self.region_cells(),
+            conflict=k,
+            focal_sets=len(self.belief),
+            mass_moved=moved,
+            rejected=combined is None,
+        )
+
+    def _finish(self, joint: MassFunction) -> MassFunction:
+        if self.rule == "dempster":
+            return joint.normalised()
+        if self.rule == "yager":
+            return _conflict_to_free(joint, self._free_words)
+        return joint  # conjunctive: this step's conflict stays visible as m(∅) until the next update
+
+    # ----------------------------------------------------------------- queries
+    def region_cells(self, level: float = REGION_LEVEL) -> int:
+        """Cells in the union of the most massive focal sets that together hold ``level`` of the belief."""
+        m = self.belief
+        nonempty = np.flatnonzero(m.cardinalities > 0)
+        if len(nonempty) == 0:
+            return 0
+        order = nonempty[np.argsort(-m.masses[nonempty], kind="stable")]
+        cum = np.cumsum(m.masses[order])
+        top = int(np.searchsorted(cum, level * cum[-1] * (1 - 1e-12))) + 1
+        union = np.bitwise_or.reduce(m.sets[order[:top]], axis=0)
+        return int(bitset.cardinality(union))
+
+    def distribution(self) -> np.ndarray:
+        try:
+            return self.belief.pignistic()
+        except TotalConflictError:  # all mass on ∅ (conjunctive rule after total conflict): no information left
+            free = bitset.unpack(self._free_words, self.grid.n_cells).astype(np.float64)
+            return free / free.sum()
+
+    def pose_estimate(self) -> PoseEstimate:
+        return estimate_pose(self.grid, self.distribution())
+
+
+def _drop_conflict(m: MassFunction) -> MassFunction:
+    try:
+        return m.normalised()
+    except TotalConflictError:
+        return m
+
+
+def _conflict_to_free(joint: MassFunction, free_words: np.ndarray) -> MassFunction:
+    """Yager's rule on a site: the conflict goes to the whole of free space (the frame the robot can be in)."""
+    empty = joint.cardinalities == 0
+    if not empty.any():
+        return joint
+    acc = FocalAccumulator(joint.n)
+    acc.add(joint.sets[~empty], joint.masses[~empty])
+    acc.add(free_words[None, :], [joint.masses[empty].sum()])
+    return acc.result()

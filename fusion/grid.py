@@ -1,0 +1,197 @@
+"""Frames of discernment for localization: a metric pose grid, and a topological frame of places.
+
+``PoseGrid`` cells are (heading, row, column) bins laid out heading-major: cell
+index = (h · ny + iy) · nx + ix, so one heading slice is a contiguous ``(ny, nx)``
+image (motion shifts whole slices) and x varies fastest.  Positions are in metres
+from the site's lower-left corner; headings in radians, bin 0 centred on 0 (east),
+counter-clockwise.
+
+``PlaceGraph`` is the second frame kind: one cell per named place, with passages
+of known length between them, for sites described by places rather than geometry.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from fusion.errors import PoseError, ResourceError, SiteError
+
+__all__ = ["PoseGrid", "PlaceGraph", "MAX_CELLS"]
+
+MAX_CELLS = 50_000_000
+"""Largest pose grid accepted: at 8 bytes a cell and a few working copies per step, more would not
+fit a robot's computer (about 2 GB at this size)."""
+
+_BYTES_PER_CELL_IN_USE = 8 * 5  # float64 belief plus the working copies of one step (measured, rounded up)
+
+
+@dataclass(frozen=True)
+class PoseGrid:
+    """x, y and heading bins over a rectangular site of ``width_m`` × ``height_m``."""
+
+    width_m: float
+    height_m: float
+    resolution_m: float
+    headings: int = 36
+
+    def __post_init__(self):
+        for name in ("width_m", "height_m", "resolution_m"):
+            value = getattr(self, name)
+            if not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
+                raise SiteError(f"grid {name} must be a positive finite number of metres, got {value!r}")
+        if isinstance(self.headings, bool) or not isinstance(self.headings, int) or self.headings < 1:
+            raise SiteError(f"grid headings must be a whole number ≥ 1, got {self.headings!r}")
+        cells = self.nx * self.ny * self.headings
+        if cells > MAX_CELLS:
+            raise ResourceError(
+                f"a {self.width_m} m × {self.height_m} m site at {self.resolution_m} m with {self.headings} "
+                f"headings needs {cells:,} cells, about {cells * _BYTES_PER_CELL_IN_USE / 1024**3:.1f} GiB while "
+                f"running (limit {MAX_CELLS:,} cells); use a coarser resolution or fewer headings"
+            )
+
+    # ----------------------------------------------------------------- shape
+    @property
+    def nx(self) -> int:
+        return max(1, int(round(self.width_m / self.resolution_m)))
+
+    @property
+    def ny(self) -> int:
+        return max(1, int(round(self.height_m / self.resolution_m)))
+
+    @property
+    def shape(self) -> tuple[int, int, int]:
+        """Array shape of a belief over the grid: (headings, ny, nx)."""
+        return (self.headings, self.ny, self.nx)
+
+    @property
+    def n_cells(self) -> int:
+        return self.headings * self.ny * self.nx
+
+    @property
+    def heading_step(self) -> float:
+        return 2 * math.pi / self.headings
+
+    def memory_bytes(self) -> int:
+        """Rough memory a back end needs while running on this grid."""
+        return self.n_cells * _BYTES_PER_CELL_IN_USE
+
+    # ----------------------------------------------------------------- centres
+    def x_centres(self) -> np.ndarray:
+        return (np.arange(self.nx) + 0.5) * self.resolution_m
+
+    def y_centres(self) -> np.ndarray:
+        return (np.arange(self.ny) + 0.5) * self.resolution_m
+
+    def heading_centres(self) -> np.ndarray:
+        return np.arange(self.headings) * self.heading_step
+
+    # ----------------------------------------------------------------- conversions
+    def cell_of(self, x: float, y: float, heading: float = 0.0) -> int:
+        """Cell holding the pose (x, y, heading); ``PoseError`` when it is off the site or not finite."""
+        ix, iy, ih = self._bins(np.asarray([x]), np.asarray([y]), np.asarray([heading]))
+        return int((ih[0] * self.ny + iy[0]) * self.nx + ix[0])
+
+    def cells_of(self, x, y, heading) -> np.ndarray:
+        """Vectorised ``cell_of`` for arrays of poses."""
+        ix, iy, ih = self._bins(np.asarray(x, float), np.asarray(y, float), np.asarray(heading, float))
+        return (ih * self.ny + iy) * self.nx + ix
+
+    def pose_of(self, cell: int) -> tuple[float, float, float]:
+        """Centre (x, y, heading) of a cell."""
+        if isinstance(cell, bool) or not isinstance(cell, (int, np.integer)) or not 0 <= cell < self.n_cells:
+            raise PoseError(f"cell {cell!r} is not a cell of this grid (valid: 0 to {self.n_cells - 1})")
+        ih, rest = divmod(int(cell), self.ny * self.nx)
+        iy, ix = divmod(rest, self.nx)
+        return (
+            float((ix + 0.5) * self.resolution_m),
+            float((iy + 0.5) * self.resolution_m),
+            float(ih * self.heading_step),
+        )
+
+    def poses_of(self, cells) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        cells = np.asarray(cells, dtype=np.int64)
+        ih, rest = np.divmod(cells, self.ny * self.nx)
+        iy, ix = np.divmod(rest, self.nx)
+        return (ix + 0.5) * self.resolution_m, (iy + 0.5) * self.resolution_m, ih * self.heading_step
+
+    def heading_bin(self, heading) -> np.ndarray:
+        return np.round(np.asarray(heading, float) / self.heading_step).astype(np.int64) % self.headings
+
+    def _bins(self, x, y, heading):
+        for name, v in (("x", x), ("y", y), ("heading", heading)):
+            if not np.isfinite(v).all():
+                raise PoseError(f"pose {name} must be a finite number, got {v[~np.isfinite(v)][0]!r}")
+        off = (x < 0) | (x >= self.width_m) | (y < 0) | (y >= self.height_m)
+        if off.any():
+            i = int(np.flatnonzero(off)[0])
+            raise PoseError(
+                f"position ({float(x[i]):.3f} m, {float(y[i]):.3f} m) is off the site, which spans "
+                f"0–{self.width_m} m in x and 0–{self.height_m} m in y"
+            )
+        ix = np.minimum((x / self.resolution_m).astype(np.int64), self.nx - 1)
+        iy = np.minimum((y / self.resolution_m).astype(np.int64), self.ny - 1)
+        return ix, iy, self.heading_bin(heading)
+
+    def broadcast(self, plane: np.ndarray) -> np.ndarray:
+        """Repeat a ``(ny, nx)`` map (e.g. free space) over every heading, flattened to one value per cell."""
+        plane = np.asarray(plane)
+        if plane.shape != (self.ny, self.nx):
+            raise SiteError(f"a map plane must have shape (ny, nx) = {(self.ny, self.nx)}, got {plane.shape}")
+        return np.broadcast_to(plane, self.shape).reshape(-1)
+
+
+@dataclass(frozen=True)
+class PlaceGraph:
+    """Places (one cell each) joined by passages of known length.
+
+    ``passages`` are (place, place, length_m).  ``distances()`` gives the shortest
+    travel distance between every pair (scipy's Dijkstra), used to spread belief
+    along passages the way a pose grid blurs it in space.
+    """
+
+    places: tuple[str, ...]
+    passages: tuple[tuple[str, str, float], ...] = ()
+
+    def __post_init__(self):
+        if len(self.places) == 0 or len(set(self.places)) != len(self.places):
+            raise SiteError(f"places must be a non-empty list of distinct names, got {list(self.places)!r}")
+        known = set(self.places)
+        for i, (a, b, length) in enumerate(self.passages):
+            for end in (a, b):
+                if end not in known:
+                    raise SiteError(f"passage {i + 1} ({a!r}–{b!r}) names the unknown place {end!r}")
+            if not isinstance(length, (int, float)) or not math.isfinite(length) or length <= 0:
+                raise SiteError(f"passage {i + 1} ({a!r}–{b!r}) needs a positive length in metres, got {length!r}")
+
+    @property
+    def n_cells(self) -> int:
+        return len(self.places)
+
+    @property
+    def shape(self) -> tuple[int]:
+        return (len(self.places),)
+
+    def cell_of(self, place: str) -> int:
+        try:
+            return self.places.index(place)
+        except ValueError:
+            raise PoseError(f"unknown place {place!r}; known places: {', '.join(self.places)}") from None
+
+    def pose_of(self, cell: int) -> str:
+        if isinstance(cell, bool) or not isinstance(cell, (int, np.integer)) or not 0 <= cell < self.n_cells:
+            raise PoseError(f"cell {cell!r} is not a place of this graph (valid: 0 to {self.n_cells - 1})")
+        return self.places[int(cell)]
+
+    def distances(self) -> np.ndarray:
+        from scipy.sparse import coo_matrix
+        from scipy.sparse.csgraph import shortest_path
+
+        n = self.n_cells
+        rows = [self.places.index(a) for a, _, _ in self.passages]
+        cols = [self.places.index(b) for _, b, _ in self.passages]
+        lengths = [float(length) for _, _, length in self.passages]
+        graph = coo_matrix((lengths, (rows, cols)), shape=(n, n)).tocsr()
+        return shortest_path(graph, method="D", directed=False)

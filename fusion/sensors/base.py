@@ -1,0 +1,110 @@
+"""Evidence: one reading as a likelihood over cells and as a mass function, from one set of parameters.
+
+A sensor model computes the *contour* of a reading: c(x) = p(z | x) / max_x p(z | x),
+the plausibility of each cell from the reading alone (Shafer 1976, ch. 11).  The
+sensor's reliability r (probability that the reading comes from a working sensor)
+then enters both back ends in the same way:
+
+- mass side: the consonant mass function of the contour, discounted at rate 1 − r;
+- Bayesian side: the likelihood r · c(x) + (1 − r), a mixture with an outlier that
+  is equally likely everywhere — which is exactly the contour of the discounted
+  mass function, so both sides hold the same assumptions about the sensor.
+
+The mass side quantises the contour into ``levels`` nested focal sets, rounding up
+(no cell loses plausibility).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+from typing import Protocol
+
+import numpy as np
+
+from fusion.belief import rules
+from fusion.belief.mass import MassFunction
+from fusion.errors import ObservationError
+
+__all__ = ["Evidence", "SensorModel", "contour_from_log", "check_reliability", "check_positive", "check_probability"]
+
+MASS_FORMS = ("consonant", "bayesian")
+
+
+@dataclass(frozen=True, eq=False)
+class Evidence:
+    """One reading's evidence over the cells of a frame; both forms are built on first use."""
+
+    sensor: str
+    contour: np.ndarray
+    reliability: float = 1.0
+    levels: int = 4
+    form: str = "consonant"
+
+    def __post_init__(self):
+        if self.form not in MASS_FORMS:
+            raise ObservationError(f"evidence form must be one of {', '.join(MASS_FORMS)}, got {self.form!r}")
+
+    @property
+    def n(self) -> int:
+        return len(self.contour)
+
+    @cached_property
+    def likelihood(self) -> np.ndarray:
+        """r · c + (1 − r): the Bayesian likelihood, up to a constant factor."""
+        r = self.reliability
+        return self.contour if r == 1.0 else r * self.contour + (1.0 - r)
+
+    @cached_property
+    def masses(self) -> MassFunction:
+        if self.form == "bayesian":
+            lik = self.likelihood
+            total = lik.sum()
+            if total <= 0:  # an impossible reading: all mass on the empty set
+                return MassFunction.from_contour(np.zeros(self.n))
+            return MassFunction.bayesian(lik / total)
+        return rules.discount(MassFunction.from_contour(self.contour, levels=self.levels), self.reliability)
+
+
+class SensorModel(Protocol):
+    """What every sensor model offers: a name and ``encode(reading) -> Evidence``."""
+
+    name: str
+
+    def encode(self, reading) -> Evidence: ...
+
+
+def contour_from_log(log_likelihood: np.ndarray) -> np.ndarray:
+    """exp(ll − max ll), with an impossible reading (all −inf) giving an all-zero contour."""
+    top = np.max(log_likelihood)
+    if not np.isfinite(top):
+        return np.zeros(log_likelihood.size)
+    return np.exp(log_likelihood - top).reshape(-1)
+
+
+def check_reliability(value, sensor: str) -> float:
+    return _check_range(value, sensor, "reliability", 0.0, 1.0)
+
+
+def check_positive(value, sensor: str, field: str) -> float:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ObservationError(f"sensor {sensor!r}: {field} must be a number, got {value!r}") from None
+    if not np.isfinite(v) or v <= 0:
+        raise ObservationError(f"sensor {sensor!r}: {field} must be a positive finite number, got {value!r}")
+    return v
+
+
+def check_probability(value, sensor: str, field: str) -> float:
+    return _check_range(value, sensor, field, 0.0, 1.0)
+
+
+def _check_range(value, sensor, field, lo, hi) -> float:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ObservationError(f"sensor {sensor!r}: {field} must be a number in [{lo}, {hi}], got {value!r}") from None
+    if not lo <= v <= hi:
+        raise ObservationError(f"sensor {sensor!r}: {field} must lie in [{lo}, {hi}], got {value!r}")
+    return v

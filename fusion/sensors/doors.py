@@ -1,0 +1,61 @@
+"""Door contact sensors: a binary reading with a hit rate and a false-alarm rate.
+
+The sensor of a door is *active* when it senses the robot in the door's zone (free
+cells within the door's radius on its open side).  p(active | in zone) = hit rate,
+p(active | elsewhere) = false-alarm rate; an inactive reading has the complements.
+The reading says nothing about heading.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from fusion.errors import ObservationError
+from fusion.grid import PoseGrid
+from fusion.sensors.base import Evidence, check_probability, check_reliability
+from fusion.site import SiteMap
+
+__all__ = ["DoorParams", "DoorReading", "DoorSensor"]
+
+
+@dataclass(frozen=True)
+class DoorParams:
+    hit_rate: float = 0.95
+    false_alarm_rate: float = 0.02
+    reliability: float = 0.98
+    levels: int = 2
+
+
+@dataclass(frozen=True)
+class DoorReading:
+    active: bool
+
+
+class DoorSensor:
+    def __init__(self, name: str, door: str, site: SiteMap, grid: PoseGrid, params: DoorParams = DoorParams()):
+        self.name, self.grid, self.params = name, grid, params
+        check_probability(params.hit_rate, name, "hit_rate")
+        check_probability(params.false_alarm_rate, name, "false_alarm_rate")
+        check_reliability(params.reliability, name)
+        self.door = site.door(door)
+        self.zone = site.door_zone(self.door)
+        if not self.zone.any():
+            raise ObservationError(
+                f"sensor {name!r}: the zone of door {door!r} holds no free cell; check its position, facing and radius"
+            )
+
+    def likelihood(self, reading) -> np.ndarray:
+        active = getattr(reading, "active", reading)
+        if not isinstance(active, (bool, np.bool_)):
+            raise ObservationError(f"sensor {self.name!r}: a door reading is true or false, got {active!r}")
+        p = self.params
+        inside, outside = (p.hit_rate, p.false_alarm_rate) if active else (1 - p.hit_rate, 1 - p.false_alarm_rate)
+        return self.grid.broadcast(np.where(self.zone, inside, outside))
+
+    def encode(self, reading) -> Evidence:
+        lik = self.likelihood(reading)
+        top = lik.max()
+        contour = lik / top if top > 0 else np.zeros(lik.shape)
+        return Evidence(self.name, contour, self.params.reliability, self.params.levels)
