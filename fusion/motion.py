@@ -32,6 +32,7 @@ def shift_kernel(shift: float, sigma: float) -> tuple[int, np.ndarray]:
         gauss = np.exp(-0.5 * (offsets / sigma) ** 2)
     else:
         gauss = (offsets == 0).astype(np.float64)
+    gauss[0] = gauss[-1] = 0.0  # keep the ends empty so the roll below never wraps mass round
     gauss /= gauss.sum()
     # Split each cell's mass between offsets 0 and +1 in proportion (1 − frac, frac).
     weights = (1 - frac) * gauss + frac * np.roll(gauss, 1)

@@ -76,8 +76,7 @@ class FocalAccumulator:
             return
         fps = bitset.fingerprint(rows)
         uniq, first, inverse, counts = np.unique(fps, return_index=True, return_inverse=True, return_counts=True)
-        shared = counts[inverse] > 1
-        if shared.any() and not (rows[shared] == rows[first[inverse[shared]]]).all():
+        if (counts > 1).any() and not _groups_equal(rows, fps, uniq[counts > 1]):
             # A fingerprint collision inside the batch: merge one row at a time.
             for i, (fp, w) in enumerate(zip(fps.tolist(), weights.tolist())):
                 if not self._add_to_existing(fp, rows[i], w):
@@ -418,6 +417,16 @@ class MassFunction:
             hi = min(lo + bits.shape[1], self.n)
             out[lo:hi] = w @ bits[:, : hi - lo].astype(np.float64)
         return out
+
+
+def _groups_equal(rows: np.ndarray, fps: np.ndarray, repeated: np.ndarray) -> bool:
+    """True when all rows sharing each repeated fingerprint are identical (exact check, no row copies)."""
+    for fp in repeated.tolist():
+        members = np.flatnonzero(fps == fp)
+        head = rows[members[0]]
+        if not all(np.array_equal(head, rows[i]) for i in members[1:].tolist()):
+            return False
+    return True
 
 
 def check_same_frame(*ms: MassFunction) -> int:

@@ -227,12 +227,21 @@ def reduce_focal_sets(m: MassFunction, max_focal: int) -> Reduction:
         return Reduction(m, 0.0, 0)
     order = nonempty[np.argsort(-m.masses[nonempty], kind="stable")]
     keep, merge = order[: max_focal - 1], order[max_focal - 1 :]
-    acc = FocalAccumulator(m.n)
-    acc.add(m.sets[keep], m.masses[keep])
-    acc.add(np.bitwise_or.reduce(m.sets[merge], axis=0)[None, :], [m.masses[merge].sum()])
+    union = np.bitwise_or.reduce(m.sets[merge], axis=0)
+    moved = float(m.masses[merge].sum())
+    # The kept sets are distinct; the union is new unless it equals one of them.
+    kept = m.sets[keep]
+    same = np.flatnonzero((kept == union).all(axis=1))
     empty = np.flatnonzero(card == 0)
-    acc.add(m.sets[empty], m.masses[empty])
-    return Reduction(acc.result(), float(m.masses[merge].sum()), int(len(merge)))
+    masses = np.concatenate([m.masses[keep], [moved] if not same.size else [], m.masses[empty]])
+    if same.size:
+        masses[same[0]] += moved
+    parts = [kept] + ([] if same.size else [union[None, :]]) + [m.sets[empty]]
+    out = MassFunction._trusted(m.n, np.concatenate(parts), masses)
+    out._card = np.concatenate([card[keep], [] if same.size else [bitset.cardinality(union)], card[empty]]).astype(
+        np.int64
+    )
+    return Reduction(out, moved, int(len(merge)))
 
 
 def _fold_pairwise(rule: Callable, **options) -> Callable:

@@ -1,0 +1,49 @@
+import math
+
+import numpy as np
+from support import assert_close
+
+from fusion.grid import PoseGrid
+from fusion.motion import predict_density, predict_sets, shift_kernel
+from fusion.sensors.odometry import OdometryParams, OdometryReading, OdometrySensor
+
+
+def test_shift_kernel_moves_the_mean_exactly_and_adds_the_noise_variance():
+    for shift, sigma in ((2.3, 1.5), (-0.7, 0.8), (4.0, 0.0)):
+        whole, w = shift_kernel(shift, sigma)
+        offsets = np.arange(len(w)) - len(w) // 2 + whole
+        mean = float(w @ offsets)
+        var = float(w @ (offsets - mean) ** 2)
+        frac = shift - math.floor(shift)
+        assert_close(w.sum(), 1.0)
+        assert_close(mean, shift, tol=1e-9)
+        # discrete Gaussian variance ≈ σ² (truncated at 4σ: −0.03 % of σ²) plus the linear split's
+        # frac·(1 − frac)
+        assert abs(var - (sigma**2 + frac * (1 - frac))) < 1e-3 * max(sigma**2, 1e-3)
+
+
+def test_predicted_density_conserves_mass_away_from_the_edges():
+    grid = PoseGrid(20.0, 20.0, 0.25, 36)
+    belief = np.zeros(grid.shape)
+    belief[3, 40, 40] = 1.0
+    motion = OdometrySensor("wheels", grid).motion(OdometryReading(1.0, 0.0, 20.0))
+    out = predict_density(belief, motion)
+    assert_close(out.sum(), 1.0, tol=1e-12)
+    h, y, x = np.unravel_index(np.argmax(out), out.shape)
+    assert h == 5  # heading bin 3 (30°) turned by 20°
+    th = math.radians(30)
+    assert abs(x - (40 + 4 * math.cos(th))) <= 1 and abs(y - (40 + 4 * math.sin(th))) <= 1
+
+
+def test_set_valued_motion_contains_every_reachable_cell_and_wraps_heading():
+    grid = PoseGrid(10.0, 10.0, 0.5, 8)
+    masks = np.zeros((1, *grid.shape), bool)
+    masks[0, 0, 10, 10] = True  # heading 0 (east), cell (10, 10)
+    motion = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1, floor_m=0.0, floor_deg=1.0)).motion(
+        OdometryReading(1.0, 0.0, -45.0)
+    )
+    out = predict_sets(masks, motion)[0]
+    # moved 2 cells east, bound ceil(3 · 0.1 m / 0.5 m) = 1 cell, heading −1 bin → bin 7 (wraps)
+    assert out[7, 10, 12] and out[7, 9, 11] and out[7, 11, 13]
+    assert not out[7, 10, 10] and not out[3].any()
+    assert out[7].sum() == 9

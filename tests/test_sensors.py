@@ -1,0 +1,123 @@
+import math
+
+import numpy as np
+import pytest
+from scipy import integrate
+from support import assert_close
+
+from fusion.belief import rules
+from fusion.belief.mass import MassFunction
+from fusion.errors import ObservationError, SiteError
+from fusion.sensors.base import Evidence
+from fusion.sensors.doors import DoorParams, DoorReading, DoorSensor
+from fusion.sensors.markers import MarkerMiss, MarkerParams, MarkerSensor, MarkerSighting
+from fusion.sensors.odometry import OdometryParams, OdometryReading, OdometrySensor
+from fusion.sensors.ranging import RangeParams, RangeScan, RangeSensor
+from fusion.site import Door, Marker, SiteMap
+
+
+@pytest.fixture(scope="module")
+def depot():
+    # Our test bay: 12 m × 8 m at 0.25 m, one rack block, one door on the west wall, two markers.
+    site = SiteMap.empty(
+        12.0,
+        8.0,
+        0.25,
+        doors=(Door("bay door", 0.5, 4.0, 0.0, 1.0),),
+        markers=(Marker("R1", 9.0, 7.5), Marker("R2", 9.0, 0.5)),
+        name="test bay",
+    )
+    return site.with_box(4.0, 3.0, 6.0, 5.0)
+
+
+def test_beam_mixture_integrates_to_one_over_the_measurement_range(depot):
+    # Thrun, Burgard & Fox (2005), Probabilistic Robotics, ch. 6: the beam density is a mixture whose
+    # components each integrate to one over [0, z_max], plus the point mass z_max at the maximum range.
+    # A beam facing a wall 4 m away: the end-point distance is |z − 4|.
+    sensor = RangeSensor("lidar", depot, depot.grid(4), RangeParams(max_range_m=8.0, sigma_hit_m=0.2))
+    p = sensor.params
+    total, _ = integrate.quad(
+        lambda z: float(sensor.beam_density(z, np.array(abs(z - 4.0)))), 0.0, p.max_range_m, points=[4.0], limit=200
+    )
+    assert_close(total + p.z_max, 1.0, tol=1e-6)
+
+
+def test_range_scan_favours_the_true_pose(depot):
+    grid = depot.grid(36)
+    sensor = RangeSensor("lidar", depot, grid)
+    x, y, th = 8.1, 2.1, math.radians(30)
+    scan = RangeScan(tuple(depot.ray_range(x, y, th + math.radians(b), 8.0) for b in sensor.params.bearings_deg))
+    ev = sensor.encode(scan)
+    truth = grid.cell_of(x, y, th)
+    assert ev.contour[truth] > 0.3  # within the half-cell snapping error of the best
+    free = grid.broadcast(depot.free)
+    assert ev.contour[truth] >= np.quantile(ev.contour[free], 0.99)
+
+
+def test_reliability_maps_to_discounting_and_the_matching_outlier_mixture():
+    # Shafer (1976), ch. 11: the contour of the discounted consonant mass function is r·c + (1 − r),
+    # which is the Bayesian side's likelihood.
+    c = np.array([1.0, 0.5, 0.25, 0.0])
+    ev = Evidence("s", c, reliability=0.8, levels=4)
+    assert_close(ev.likelihood, 0.8 * c + 0.2)
+    assert_close(ev.masses.contour(), ev.likelihood)
+    expected = rules.discount(MassFunction.from_contour(c), 0.8)
+    assert ev.masses.is_close(expected)
+
+
+def test_range_bad_input(depot):
+    sensor = RangeSensor("lidar", depot, depot.grid(4))
+    with pytest.raises(ObservationError, match="beam 2 has range -1.0"):
+        sensor.encode(RangeScan((1.0, -1.0, 2.0, 3.0)))
+    with pytest.raises(ObservationError, match="expected 4 ranges"):
+        sensor.encode(RangeScan((1.0,)))
+    with pytest.raises(ObservationError, match="must sum to 1"):
+        RangeSensor("lidar", depot, depot.grid(4), RangeParams(z_hit=0.9))
+
+
+def test_marker_sighting_and_miss(depot):
+    grid = depot.grid(36)
+    sensor = MarkerSensor("camera", depot, grid, MarkerParams(confusion=0.0))
+    x, y, th = 8.125, 5.625, math.radians(80)  # a cell centre, so no snapping error
+    m = depot.marker("R1")
+    r, b = math.hypot(m.x - x, m.y - y), math.degrees(math.atan2(m.y - y, m.x - x) - th)
+    ev = sensor.encode(MarkerSighting("R1", r, b))
+    truth = grid.cell_of(x, y, th)
+    assert ev.contour[truth] > 0.9
+    # Facing away from both markers, nothing can be seen: a miss is fully expected there.
+    miss = sensor.likelihood(MarkerMiss()).reshape(-1)
+    away = grid.cell_of(2.0, 4.0, math.radians(180))
+    assert_close(miss[away], 1.0)
+    assert miss[truth] < 0.2
+
+
+def test_marker_bad_input(depot):
+    sensor = MarkerSensor("camera", depot, depot.grid(8))
+    with pytest.raises(ObservationError, match="marker 'R9' is not on the map of site 'test bay'"):
+        sensor.encode(MarkerSighting("R9", 1.0, 0.0))
+    with pytest.raises(ObservationError, match="finite range"):
+        sensor.encode(MarkerSighting("R1", float("nan"), 0.0))
+    with pytest.raises(SiteError, match="has none on its map"):
+        MarkerSensor("camera", SiteMap.empty(4.0, 4.0, 0.5), SiteMap.empty(4.0, 4.0, 0.5).grid(4))
+
+
+def test_door_sensor_likelihood(depot):
+    grid = depot.grid(4)
+    sensor = DoorSensor("bay contact", "bay door", depot, grid, DoorParams(hit_rate=0.9, false_alarm_rate=0.05))
+    near, far = grid.cell_of(0.9, 4.1, 0.0), grid.cell_of(10.0, 2.0, 0.0)
+    on, off = sensor.likelihood(DoorReading(True)), sensor.likelihood(DoorReading(False))
+    assert_close([on[near], on[far], off[near], off[far]], [0.9, 0.05, 0.1, 0.95])
+    with pytest.raises(ObservationError, match="true or false"):
+        sensor.likelihood(DoorReading("yes"))
+    with pytest.raises(SiteError, match="door 'loading door' is not on the map"):
+        DoorSensor("x", "loading door", depot, grid)
+
+
+def test_odometry_noise_grows_with_distance(depot):
+    grid = depot.grid(36)
+    odo = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1, floor_m=0.0))
+    short, long = odo.motion(OdometryReading(0.5)), odo.motion(OdometryReading(2.0))
+    assert_close(long.sigma / short.sigma, 4.0)
+    assert_close(short.dx[0], 2.0) and assert_close(short.dy[9], 2.0)  # heading bin 9 = 90°
+    with pytest.raises(ObservationError, match="forward_m must be a finite number"):
+        odo.motion(OdometryReading(float("inf")))
