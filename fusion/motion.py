@@ -7,7 +7,10 @@
   exactly the odometry and the variance grows by σ² plus at most 1/4 cell² (grid error).
 - ``predict_sets``: the set-valued motion of the mass side.  Each focal set is
   moved and dilated by the odometry's error bound: it becomes the set of every
-  pose reachable from it by a move within the bound (headings wrap).
+  pose reachable from it by a move within the bound (headings wrap).  It works on
+  the packed words themselves: a move of s cells in x is a shift of s bits, in y
+  of s·nx bits, so a whole step costs a few passes over the packed sets and never
+  unpacks them to one byte per cell.
 """
 
 from __future__ import annotations
@@ -17,9 +20,11 @@ import math
 import numpy as np
 from scipy import ndimage
 
+from fusion.belief import bitset
+from fusion.grid import PoseGrid
 from fusion.sensors.odometry import Motion
 
-__all__ = ["predict_density", "predict_sets", "shift_kernel"]
+__all__ = ["predict_density", "predict_sets", "shift_kernel", "SlicedSets"]
 
 
 def shift_kernel(shift: float, sigma: float) -> tuple[int, np.ndarray]:
@@ -76,41 +81,160 @@ def predict_density(
     return ndimage.convolve1d(out, kt, axis=0, mode="wrap")
 
 
-def _dilate_zero(a: np.ndarray, lo: int, hi: int, axis: int) -> np.ndarray:
-    """OR of ``a`` shifted by every offset in [lo, hi] along ``axis`` (zero-filled), in O(log width) passes."""
-    cur = _shift_zero(a, lo, axis)
-    covered, width = 1, hi - lo + 1
-    while covered < width:
-        step = min(covered, width - covered)
-        cur = cur | _shift_zero(cur, step, axis)
-        covered += step
-    return cur
+class SlicedSets:
+    """Packed focal sets re-laid so each heading slice starts on a word boundary: shape (k, headings, S).
+
+    In the frame's own packing a slice of ``nx·ny`` cells starts anywhere inside a
+    word; aligning the slices lets each be shifted on its own with whole-word slicing.
+    When ``nx·ny`` is a multiple of 64 the two layouts coincide and no copy is made.
+    """
+
+    def __init__(self, grid: PoseGrid):
+        self.grid = grid
+        self.cells = grid.nx * grid.ny  # bits per slice
+        self.words = bitset.n_words(self.cells)
+        self.aligned = self.cells % 64 == 0
+        tail = self.cells - 64 * (self.words - 1)
+        self.tail = np.full(self.words, np.uint64(2**64 - 1), dtype=np.uint64)
+        self.tail[-1] = np.uint64(2**64 - 1) if tail == 64 else np.uint64((1 << tail) - 1)
+        self._columns: dict[int, np.ndarray] = {}
+
+    def _offsets(self):
+        for h in range(self.grid.headings):
+            yield h, *divmod(h * self.cells, 64)
+
+    def split(self, sets: np.ndarray) -> np.ndarray:
+        """(k, W) frame words -> (k, H, S) aligned slices."""
+        k, s = len(sets), self.words
+        if self.aligned:
+            return sets.reshape(k, self.grid.headings, s)
+        padded = np.zeros((k, sets.shape[1] + 2), dtype=bitset.WORD)
+        padded[:, : sets.shape[1]] = sets
+        out = np.empty((k, self.grid.headings, s), dtype=bitset.WORD)
+        for h, q, r in self._offsets():
+            if r:
+                np.right_shift(padded[:, q : q + s], np.uint64(r), out=out[:, h])
+                out[:, h] |= padded[:, q + 1 : q + s + 1] << np.uint64(64 - r)
+            else:
+                out[:, h] = padded[:, q : q + s]
+            out[:, h] &= self.tail
+        return out
+
+    def join(self, slices: np.ndarray) -> np.ndarray:
+        """(k, H, S) aligned slices -> (k, W) frame words (inverse of ``split``)."""
+        k, _, s = slices.shape
+        grid_words = bitset.n_words(self.grid.n_cells)
+        if self.aligned:
+            return np.ascontiguousarray(slices).reshape(k, grid_words)
+        out = np.zeros((k, grid_words + 2), dtype=bitset.WORD)
+        for h, q, r in self._offsets():
+            if r:
+                out[:, q : q + s] |= slices[:, h] << np.uint64(r)
+                out[:, q + 1 : q + s + 1] |= slices[:, h] >> np.uint64(64 - r)
+            else:
+                out[:, q : q + s] |= slices[:, h]
+        return out[:, :grid_words]
+
+    def column_mask(self, shift: int) -> np.ndarray:
+        """Packed slice mask of the cells a move of ``shift`` cells in x can land on from inside the row."""
+        mask = self._columns.get(shift)
+        if mask is None:
+            ix = np.arange(self.grid.nx)
+            valid = (ix >= shift) if shift >= 0 else (ix < self.grid.nx + shift)
+            plane = np.broadcast_to(valid[None, :], (self.grid.ny, self.grid.nx)).reshape(-1)
+            mask = bitset.pack_masks(plane)[0]
+            self._columns[shift] = mask
+        return mask
 
 
-def _dilate_wrap(a: np.ndarray, lo: int, hi: int, axis: int) -> np.ndarray:
-    n = a.shape[axis]
-    if hi - lo + 1 >= n:
-        return np.broadcast_to(a.any(axis=axis, keepdims=True), a.shape).copy()
-    cur = np.roll(a, lo, axis=axis)
-    covered, width = 1, hi - lo + 1
-    while covered < width:
-        step = min(covered, width - covered)
-        cur = cur | np.roll(cur, step, axis=axis)
-        covered += step
-    return cur
+def _shift_slice(a: np.ndarray, t: int, mask: np.ndarray | None) -> np.ndarray:
+    """Words (k, S) of one slice shifted towards higher cell index by ``t`` bits (may be negative), masked."""
+    out = np.zeros_like(a)
+    q, r = divmod(t, 64)  # floor division: out[i] = a[i−q] << r | a[i−q−1] >> (64 − r)
+    _or_words(out, a, q, (lambda w: w << np.uint64(r)) if r else (lambda w: w))
+    if r:
+        _or_words(out, a, q + 1, lambda w: w >> np.uint64(64 - r))
+    if mask is not None:
+        out &= mask
+    return out
+
+
+def _or_words(dst: np.ndarray, src: np.ndarray, offset: int, transform) -> None:
+    """dst[:, i] |= transform(src[:, i − offset]) wherever both indices are inside the slice."""
+    s = src.shape[1]
+    lo, hi = max(0, offset), min(s, s + offset)
+    if lo < hi:
+        dst[:, lo:hi] |= transform(src[:, lo - offset : hi - offset])
+
+
+def _dilate_slice(a: np.ndarray, lo: int, hi: int, unit: int, mask_for) -> np.ndarray:
+    """OR of slice ``a`` shifted by every offset in [lo, hi] (in units of ``unit`` bits).
+
+    Offsets ≥ 0 and < 0 are handled apart, each by doubling in its own direction: after a
+    first shift, each pass ORs in a copy shifted by the width covered so far (about log2(width)
+    passes).  Going one way only matters at the map's edge: a cell shifted off the map is then
+    only ever needed further off it.  ``mask_for(offset)`` masks the cells a shift may land on.
+    """
+    out = None
+    parts = []
+    if hi >= 0:
+        parts.append((1, max(lo, 0), hi - max(lo, 0) + 1))
+    if lo < 0:
+        parts.append((-1, min(hi, -1), min(hi, -1) - lo + 1))
+    for sign, first, width in parts:
+        cur = _shift_slice(a, first * unit, mask_for(first))
+        covered = 1
+        while covered < width:
+            step = min(covered, width - covered) * sign
+            cur |= _shift_slice(cur, step * unit, mask_for(step))
+            covered += abs(step)
+        out = cur if out is None else (out | cur)
+    return out
 
 
 def predict_sets(
-    masks: np.ndarray, motion: Motion, bound: int | None = None, bound_turn: int | None = None
+    sets: np.ndarray,
+    grid: PoseGrid,
+    motion: Motion,
+    bound: int | None = None,
+    bound_turn: int | None = None,
+    layout: SlicedSets | None = None,
 ) -> np.ndarray:
-    """Set-valued motion of boolean focal sets of shape (k, headings, ny, nx)."""
+    """Set-valued motion of packed focal sets ``(k, W)`` on ``grid``; returns new packed sets.
+
+    Each heading slice is dilated in x and y on its own (small arrays that stay in cache),
+    then headings are combined: slice h of the result is the union of the moved slices
+    h − t for every turn t within the bound (headings wrap).
+    """
     bound = motion.bound if bound is None else bound
     bound_turn = motion.bound_turn if bound_turn is None else bound_turn
-    out = np.empty_like(masks)
-    for h in range(masks.shape[1]):
+    layout = layout or SlicedSets(grid)
+    a = layout.split(sets)
+    headings = grid.headings
+    tail = None if layout.cells % 64 == 0 else layout.tail
+
+    def columns(offset):
+        return layout.column_mask(int(offset))
+
+    def rows(offset):
+        return tail
+
+    moved = np.empty_like(a)
+    for h in range(headings):
+        plane = np.ascontiguousarray(a[:, h])
         x_lo, x_hi = math.floor(motion.dx[h] - bound), math.ceil(motion.dx[h] + bound)
         y_lo, y_hi = math.floor(motion.dy[h] - bound), math.ceil(motion.dy[h] + bound)
-        plane = _dilate_zero(masks[:, h], x_lo, x_hi, axis=2)
-        out[:, h] = _dilate_zero(plane, y_lo, y_hi, axis=1)
+        plane = _dilate_slice(plane, x_lo, x_hi, 1, columns)
+        moved[:, h] = _dilate_slice(plane, y_lo, y_hi, grid.nx, rows)
     t_lo, t_hi = math.floor(motion.turn - bound_turn), math.ceil(motion.turn + bound_turn)
-    return _dilate_wrap(out, t_lo, t_hi, axis=1)
+    if t_hi - t_lo + 1 >= headings:
+        union = np.bitwise_or.reduce(moved, axis=1)
+        out = np.broadcast_to(union[:, None, :], moved.shape).copy()
+    else:
+        out = np.empty_like(moved)
+        for h in range(headings):
+            acc = moved[:, (h - t_lo) % headings].copy()
+            for t in range(t_lo + 1, t_hi + 1):
+                acc |= moved[:, (h - t) % headings]
+            out[:, h] = acc
+    return layout.join(out)

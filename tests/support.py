@@ -98,3 +98,25 @@ def pignistic(vec, n):
             for c in cells:
                 out[c] += v / len(cells) / (1 - k)
     return out
+
+
+def reference_predict_sets(masks: np.ndarray, motion, bound: int, bound_turn: int) -> np.ndarray:
+    """Set-valued motion on boolean arrays (k, headings, ny, nx), one offset at a time: the obvious
+    implementation, used to check the packed-word version."""
+    import math
+
+    k, headings, ny, nx = masks.shape
+    out = np.zeros_like(masks)
+    for h in range(headings):
+        xs = range(math.floor(motion.dx[h] - bound), math.ceil(motion.dx[h] + bound) + 1)
+        ys = range(math.floor(motion.dy[h] - bound), math.ceil(motion.dy[h] + bound) + 1)
+        for sx in xs:
+            for sy in ys:
+                dst_y, src_y = slice(max(0, sy), ny + min(0, sy)), slice(max(0, -sy), ny - max(0, sy))
+                dst_x, src_x = slice(max(0, sx), nx + min(0, sx)), slice(max(0, -sx), nx - max(0, sx))
+                if abs(sx) < nx and abs(sy) < ny:
+                    out[:, h, dst_y, dst_x] |= masks[:, h, src_y, src_x]
+    result = np.zeros_like(out)
+    for t in range(math.floor(motion.turn - bound_turn), math.ceil(motion.turn + bound_turn) + 1):
+        result |= np.roll(out, t, axis=1)
+    return result

@@ -1,8 +1,11 @@
 import math
 
 import numpy as np
-from support import assert_close
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from support import assert_close, reference_predict_sets
 
+from fusion.belief import bitset
 from fusion.grid import PoseGrid
 from fusion.motion import predict_density, predict_sets, shift_kernel
 from fusion.sensors.odometry import OdometryParams, OdometryReading, OdometrySensor
@@ -42,8 +45,33 @@ def test_set_valued_motion_contains_every_reachable_cell_and_wraps_heading():
     motion = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1, floor_m=0.0, floor_deg=1.0)).motion(
         OdometryReading(1.0, 0.0, -45.0)
     )
-    out = predict_sets(masks, motion)[0]
+    packed = predict_sets(bitset.pack_masks(masks.reshape(1, -1)), grid, motion)
+    out = bitset.unpack(packed, grid.n_cells).reshape(grid.shape)
     # moved 2 cells east, bound ceil(3 · 0.1 m / 0.5 m) = 1 cell, heading −1 bin → bin 7 (wraps)
     assert out[7, 10, 12] and out[7, 9, 11] and out[7, 11, 13]
     assert not out[7, 10, 10] and not out[3].any()
     assert out[7].sum() == 9
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.integers(1, 21),
+    st.integers(1, 13),
+    st.integers(1, 7),
+    st.floats(-3, 3),
+    st.floats(-3, 3),
+    st.floats(-60, 60),
+    st.integers(0, 2),
+    st.integers(0, 2),
+    st.integers(0, 2**32 - 1),
+)
+def test_packed_set_motion_equals_the_cell_by_cell_reference(
+    nx, ny, headings, fwd, left, turn, bound, bound_turn, seed
+):
+    grid = PoseGrid(nx * 0.5, ny * 0.5, 0.5, headings)
+    rng = np.random.default_rng(seed)
+    masks = rng.random((3, *grid.shape)) < 0.05
+    motion = OdometrySensor("wheels", grid).motion(OdometryReading(fwd, left, turn))
+    expected = reference_predict_sets(masks, motion, bound, bound_turn)
+    packed = predict_sets(bitset.pack_masks(masks.reshape(3, -1)), grid, motion, bound=bound, bound_turn=bound_turn)
+    np.testing.assert_array_equal(bitset.unpack(packed, grid.n_cells).reshape(masks.shape), expected)

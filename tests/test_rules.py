@@ -1,6 +1,7 @@
 import numpy as np
 import pytest
 from hypothesis import given, settings
+from hypothesis import strategies as st
 from strategies import frames_and_pairs, frames_and_triples, mass_functions
 from support import assert_close, dense
 from support import conjunctive as ref_conjunctive
@@ -241,3 +242,14 @@ def test_combining_two_32_focal_set_mass_functions_on_a_million_cells():
     assert_close(joint.masses.sum(), 1.0)
     product = m1.contour() * m2.contour()  # Shafer (1976), ch. 3: contours multiply under Dempster's rule
     assert_close(joint.contour(), product / (1 - conflict), tol=1e-9)
+
+
+@settings(max_examples=100, deadline=None)
+@given(frames_and_pairs(allow_empty=True), st.integers(1, 6))
+def test_one_pass_combine_and_cap_equals_the_two_steps(case, cap):
+    _, m1, m2 = case
+    one = rules.conjunctive_reduced(m1, m2, cap)
+    two = rules.reduce_focal_sets(rules.conjunctive(m1, m2), cap)
+    assert one.mass_function.is_close(two.mass_function, 1e-12)
+    assert_close(one.mass_moved, two.mass_moved, tol=1e-12)
+    assert one.sets_merged == two.sets_merged

@@ -19,7 +19,7 @@ from fusion.belief import bitset, rules
 from fusion.belief.mass import FocalAccumulator, MassFunction
 from fusion.errors import FrameMismatchError, RuleError, TotalConflictError
 from fusion.grid import PoseGrid
-from fusion.motion import predict_sets
+from fusion.motion import SlicedSets, predict_sets
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
@@ -46,6 +46,7 @@ class MassFilter:
         free_cells = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
         self._free_words = bitset.pack_masks(free_cells)[0]
         self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_cells))
+        self._layout = SlicedSets(grid) if isinstance(grid, PoseGrid) else None
         self.motion_lost = 0.0  # mass whose focal sets moved wholly off free space at the last prediction
 
     def reset(self, prior) -> None:
@@ -64,19 +65,20 @@ class MassFilter:
     # ----------------------------------------------------------------- prediction
     def predict(self, motion: Motion) -> None:
         m = self.belief
-        n, shape = self.grid.n_cells, self.grid.shape
+        n = self.grid.n_cells
         empty = m.cardinalities == 0
         sets = m.sets[~empty]
         masses = m.masses[~empty]
-        masks = bitset.unpack(sets, n).reshape((len(sets), *shape))
-        variants = [(predict_sets(masks, motion), masses * motion.reliability)]
+        variants = [(predict_sets(sets, self.grid, motion, layout=self._layout), masses * motion.reliability)]
         if motion.reliability < 1.0:
-            slipped = predict_sets(masks, motion, bound=motion.slip, bound_turn=motion.slip_turn)
+            slipped = predict_sets(
+                sets, self.grid, motion, bound=motion.slip, bound_turn=motion.slip_turn, layout=self._layout
+            )
             variants.append((slipped, masses * (1.0 - motion.reliability)))
         acc = FocalAccumulator(n)
         lost = 0.0
         for moved, w in variants:
-            words = bitset.pack_masks(moved.reshape(len(sets), n)) & self._free_words
+            words = moved & self._free_words
             gone = ~words.any(axis=1)
             lost += float(w[gone].sum())
             acc.add(words[~gone], w[~gone], owned=True)
@@ -101,18 +103,24 @@ class MassFilter:
         # Every rule combines the normalised belief, so K is the conflict of this reading alone.
         belief = self.belief if self.belief.is_normal else _drop_conflict(self.belief)
         if self.rule in ("dempster", "conjunctive", "yager"):
-            joint = rules.conjunctive(belief, e)
-            k = joint.conflict
-            combined = None if k >= _TOTAL and self.rule == "dempster" else joint
+            # One pass: conjunctive combination and the focal-set cap (the ranking of non-empty sets is
+            # the same before and after normalisation, so the cap may come first).
+            reduction = rules.conjunctive_reduced(belief, e, self.max_focal)
+            k = reduction.mass_function.conflict
+            rejected = k >= _TOTAL and self.rule == "dempster"
+            moved = (
+                reduction.mass_moved / (1.0 - k) if self.rule == "dempster" and not rejected else reduction.mass_moved
+            )
         else:
             k = rules.conflict_mass(belief, e)
-            combined = None if k >= _TOTAL and self.rule in _NORMALISING else rules.combine(belief, e, rule=self.rule)
-        moved = 0.0
-        if combined is not None:
-            # Reduce before normalising: the ranking of non-empty sets is the same, and far fewer rows are copied.
-            reduction = rules.reduce_focal_sets(combined, self.max_focal)
+            rejected = k >= _TOTAL and self.rule in _NORMALISING
+            reduction = (
+                None if rejected else rules.reduce_focal_sets(rules.combine(belief, e, rule=self.rule), self.max_focal)
+            )
+            moved = 0.0 if rejected else reduction.mass_moved
+        if not rejected:
             self.belief = self._finish(reduction.mass_function)
-            moved = reduction.mass_moved / (1.0 - k) if self.rule == "dempster" else reduction.mass_moved
+        combined = None if rejected else reduction
         seconds = time.perf_counter() - start
         return StepReport(
             self.name,

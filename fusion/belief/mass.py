@@ -62,6 +62,7 @@ class FocalAccumulator:
         self._slots: dict[int, list[int]] = {}  # fingerprint -> slots holding sets with it
         self._blocks: list[np.ndarray] = []  # distinct sets, in slot order, one array per batch
         self._where: list[tuple[int, int]] = []  # slot -> (block, row)
+        self._fps: list[int] = []  # slot -> fingerprint
         self._weights: list[float] = []
 
     def add(self, rows: np.ndarray, weights, *, owned: bool = False) -> None:
@@ -80,7 +81,7 @@ class FocalAccumulator:
             # A fingerprint collision inside the batch: merge one row at a time.
             for i, (fp, w) in enumerate(zip(fps.tolist(), weights.tolist())):
                 if not self._add_to_existing(fp, rows[i], w):
-                    self._append(rows[i : i + 1], [fp], [w])
+                    self._append(rows[i : i + 1].copy(), [0], [fp], [w])
             return
         sums = np.bincount(inverse, weights=weights, minlength=len(uniq))
         positions, new_fps, new_weights = [], [], []
@@ -92,35 +93,93 @@ class FocalAccumulator:
         if not positions:
             return
         order = np.argsort(positions)
+        positions = [positions[i] for i in order]
         new_fps, new_weights = [new_fps[i] for i in order], [new_weights[i] for i in order]
-        if owned and len(positions) == len(rows):
-            fresh = rows  # every row is new and distinct: keep the caller's array, no copy
+        if owned:
+            self._append(rows, positions, new_fps, new_weights)  # rows are referenced, not copied
         else:
-            fresh = rows[np.sort(positions)]
-        self._append(fresh, new_fps, new_weights)
+            self._append(rows[positions], list(range(len(positions))), new_fps, new_weights)
 
     def _add_to_existing(self, fp: int, row: np.ndarray, weight: float) -> bool:
         for slot in self._slots.get(fp, ()):
-            block, r = self._where[slot]
-            if np.array_equal(self._blocks[block][r], row):
+            if np.array_equal(self._row(slot), row):
                 self._weights[slot] += weight
                 return True
         return False
 
-    def _append(self, rows: np.ndarray, fps: list[int], weights: list[float]) -> None:
+    def _append(self, rows: np.ndarray, positions: list[int], fps: list[int], weights: list[float]) -> None:
         block = len(self._blocks)
         self._blocks.append(rows)
-        for r, (fp, w) in enumerate(zip(fps, weights)):
+        for r, fp, w in zip(positions, fps, weights):
             self._slots.setdefault(fp, []).append(len(self._weights))
             self._where.append((block, r))
+            self._fps.append(fp)
             self._weights.append(w)
+
+    def _gather(self, slots) -> np.ndarray:
+        """Rows of the given slots, in order, as one new (or, when possible, the original) array."""
+        slots = list(slots)
+        if len(self._blocks) == 1 and len(slots) == len(self._blocks[0]):
+            rows = [self._where[s][1] for s in slots]
+            if rows == list(range(len(rows))):
+                return self._blocks[0]
+        out = np.empty((len(slots), self._w), dtype=bitset.WORD)
+        for i, s in enumerate(slots):
+            block, r = self._where[s]
+            out[i] = self._blocks[block][r]
+        return out
 
     def result(self) -> MassFunction:
         if not self._weights:
             raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
-        sets = self._blocks[0] if len(self._blocks) == 1 else np.concatenate(self._blocks)
+        sets = self._gather(range(len(self._weights)))
         masses = np.asarray(self._weights, dtype=np.float64)
         return MassFunction._trusted(self.n, sets, masses)
+
+    def reduced(self, max_focal: int) -> tuple[MassFunction, float, int]:
+        """Like ``result`` followed by ``rules.reduce_focal_sets``, but copies only the rows it keeps.
+
+        Returns (mass function, mass moved, sets merged).  The empty set is found by its
+        fingerprint (0) and confirmed exactly; it is never merged.
+        """
+        if not self._weights:
+            raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
+        w = np.asarray(self._weights, dtype=np.float64)
+        fps = np.asarray(self._fps, dtype=np.uint64)
+        empty = np.zeros(len(w), dtype=bool)
+        for s in np.flatnonzero(fps == 0).tolist():
+            block, r = self._where[s]
+            empty[s] = not self._blocks[block][r].any()
+        nonempty = np.flatnonzero(~empty & (w > 0))
+        if len(nonempty) <= max_focal:
+            return self.result(), 0.0, 0
+        order = nonempty[np.argsort(-w[nonempty], kind="stable")]
+        keep, merge = order[: max_focal - 1].tolist(), order[max_focal - 1 :].tolist()
+        union = np.zeros(self._w, dtype=bitset.WORD)
+        for s in merge:
+            block, r = self._where[s]
+            np.bitwise_or(union, self._blocks[block][r], out=union)
+        moved = float(w[merge].sum())
+        empty_slots = np.flatnonzero(empty & (w > 0)).tolist()
+        union_fp = int(bitset.fingerprint(union[None, :])[0])
+        same = [i for i, s in enumerate(keep) if self._fps[s] == union_fp and np.array_equal(self._row(s), union)]
+        sets = np.empty((len(keep) + (0 if same else 1) + len(empty_slots), self._w), dtype=bitset.WORD)
+        for i, s in enumerate(keep):
+            sets[i] = self._row(s)
+        masses = list(w[keep])
+        if same:
+            masses[same[0]] += moved
+        else:
+            sets[len(keep)] = union
+            masses.append(moved)
+        for i, s in enumerate(empty_slots):
+            sets[len(masses) + i] = self._row(s)
+        masses += [float(w[s]) for s in empty_slots]
+        return MassFunction._trusted(self.n, sets, np.asarray(masses)), moved, len(merge)
+
+    def _row(self, slot: int) -> np.ndarray:
+        block, r = self._where[slot]
+        return self._blocks[block][r]
 
     def residual(self) -> np.ndarray:
         """Weights accumulated so far, one per distinct set (for comparisons within a tolerance)."""

@@ -35,6 +35,7 @@ __all__ = [
     "combine",
     "conflict_mass",
     "conjunctive",
+    "conjunctive_reduced",
     "dempster",
     "yager",
     "dubois_prade",
@@ -85,6 +86,20 @@ def conjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     for rows, ii, jj in _pairs(m1, m2, np.bitwise_and):
         acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True)
     return acc.result()
+
+
+def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int) -> Reduction:
+    """``reduce_focal_sets(conjunctive(m1, m2), max_focal)`` in one pass that copies only the kept sets.
+
+    This is the filter's update: most of the k1 × k2 intersections are merged into one
+    union anyway, so they are never gathered into a table of their own.
+    """
+    _check_cap(max_focal)
+    n = check_same_frame(m1, m2)
+    acc = FocalAccumulator(n)
+    for rows, ii, jj in _pairs(m1, m2, np.bitwise_and):
+        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True)
+    return Reduction(*acc.reduced(max_focal))
 
 
 def dempster(m1: MassFunction, m2: MassFunction, *, if_total_conflict: str = "raise") -> MassFunction:
@@ -219,8 +234,7 @@ def reduce_focal_sets(m: MassFunction, max_focal: int) -> Reduction:
     the result is less committed than ``m`` (plausibilities never fall).  The
     empty set is never merged: its mass is the conflict and must stay visible.
     """
-    if isinstance(max_focal, bool) or not isinstance(max_focal, (int, np.integer)) or max_focal < 1:
-        raise RuleError(f"max_focal must be a whole number ≥ 1, got {max_focal!r}")
+    _check_cap(max_focal)
     card = m.cardinalities
     nonempty = np.flatnonzero(card > 0)
     if len(nonempty) <= max_focal:
@@ -242,6 +256,11 @@ def reduce_focal_sets(m: MassFunction, max_focal: int) -> Reduction:
         np.int64
     )
     return Reduction(out, moved, int(len(merge)))
+
+
+def _check_cap(max_focal) -> None:
+    if isinstance(max_focal, bool) or not isinstance(max_focal, (int, np.integer)) or max_focal < 1:
+        raise RuleError(f"max_focal must be a whole number ≥ 1, got {max_focal!r}")
 
 
 def _fold_pairwise(rule: Callable, **options) -> Callable:
