@@ -18,7 +18,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import ndimage
 
 from fusion.belief import bitset
 from fusion.grid import PoseGrid
@@ -44,41 +43,58 @@ def shift_kernel(shift: float, sigma: float) -> tuple[int, np.ndarray]:
     return whole, weights
 
 
-def _shift_zero(a: np.ndarray, s: int, axis: int) -> np.ndarray:
-    """``a`` moved by ``s`` cells along ``axis``, zero-filled (mass moving off the map is lost)."""
-    if s == 0:
-        return a
-    out = np.zeros_like(a)
-    n = a.shape[axis]
-    if abs(s) >= n:
-        return out
-    src = [slice(None)] * a.ndim
-    dst = [slice(None)] * a.ndim
-    src[axis], dst[axis] = (slice(0, n - s), slice(s, n)) if s > 0 else (slice(-s, n), slice(0, n + s))
-    out[tuple(dst)] = a[tuple(src)]
+def _taps(shift: float, sigma: float) -> list[tuple[int, float]]:
+    """(offset, weight) pairs of ``shift_kernel``, dropping weights too small to matter (< 1e-15 of the total)."""
+    whole, weights = shift_kernel(shift, sigma)
+    radius = len(weights) // 2
+    return [(whole + i - radius, float(w)) for i, w in enumerate(weights) if w > 1e-15]
+
+
+def _convolve_zero(plane: np.ndarray, taps, axis: int) -> np.ndarray:
+    """Σ w · (plane moved by offset along ``axis``), zero-filled: mass moving off the map is lost."""
+    out = np.zeros_like(plane)
+    n = plane.shape[axis]
+    for offset, w in taps:
+        if abs(offset) >= n:
+            continue
+        dst = [slice(None)] * plane.ndim
+        src = [slice(None)] * plane.ndim
+        dst[axis] = slice(max(0, offset), n + min(0, offset))
+        src[axis] = slice(max(0, -offset), n - max(0, offset))
+        out[tuple(dst)] += w * plane[tuple(src)]
     return out
 
 
 def predict_density(
     belief: np.ndarray, motion: Motion, sigma: float | None = None, sigma_turn: float | None = None
 ) -> np.ndarray:
-    """Predicted density of shape (headings, ny, nx); not renormalised (mass may leave the map)."""
+    """Predicted density of shape (headings, ny, nx); not renormalised (mass may leave the map).
+
+    Kernels are short (a move of a few tenths of a metre has two or three taps per axis), so
+    the convolutions are written as a few shifted multiply-adds per heading slice.
+    """
     sigma = motion.sigma if sigma is None else sigma
     sigma_turn = motion.sigma_turn if sigma_turn is None else sigma_turn
+    headings = belief.shape[0]
+    moved = np.empty_like(belief)
+    for h in range(headings):
+        plane = _convolve_zero(belief[h], _taps(motion.dx[h], sigma), axis=1)
+        moved[h] = _convolve_zero(plane, _taps(motion.dy[h], sigma), axis=0)
+    # Headings wrap: fold each tap's offset round the circle.
+    turn: dict[int, float] = {}
+    for offset, w in _taps(motion.turn, sigma_turn):
+        turn[offset % headings] = turn.get(offset % headings, 0.0) + w
     out = np.empty_like(belief)
-    for h in range(belief.shape[0]):
-        sx, kx = shift_kernel(motion.dx[h], sigma)
-        sy, ky = shift_kernel(motion.dy[h], sigma)
-        plane = _shift_zero(_shift_zero(belief[h], sx, 1), sy, 0)
-        plane = ndimage.convolve1d(plane, kx, axis=1, mode="constant")
-        ndimage.convolve1d(plane, ky, axis=0, mode="constant", output=out[h])
-    st, kt = shift_kernel(motion.turn, sigma_turn)
-    if len(kt) > belief.shape[0]:  # a heading blur wider than the circle: fold the kernel round it
-        folded = np.zeros(belief.shape[0])
-        np.add.at(folded, (np.arange(len(kt)) - len(kt) // 2) % belief.shape[0], kt)
-        kt = np.roll(folded, len(folded) // 2)
-    out = np.roll(out, st, axis=0)
-    return ndimage.convolve1d(out, kt, axis=0, mode="wrap")
+    for h in range(headings):
+        first = True
+        for offset, w in turn.items():
+            src = moved[(h - offset) % headings]
+            if first:
+                np.multiply(src, w, out=out[h])
+                first = False
+            else:
+                out[h] += w * src
+    return out
 
 
 class SlicedSets:

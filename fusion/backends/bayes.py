@@ -46,7 +46,7 @@ class HistogramFilter:
         moved = moved.reshape(-1)
         moved *= self.free
         try:
-            self.belief.set(moved)
+            self.belief.set(moved, owned=True)
         except ZeroEvidenceError:  # every cell moved off free space: keep the belief, the monitor will see it
             pass
 

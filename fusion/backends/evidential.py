@@ -34,7 +34,15 @@ _TOTAL = 1.0 - 1e-12
 class MassFilter:
     name = "evidential"
 
-    def __init__(self, grid: PoseGrid, free: np.ndarray | None = None, *, rule: str = "dempster", max_focal: int = 32):
+    def __init__(
+        self,
+        grid: PoseGrid,
+        free: np.ndarray | None = None,
+        *,
+        rule: str = "dempster",
+        max_focal: int = 32,
+        report_region: bool = True,
+    ):
         if rule not in FILTER_RULES:
             raise RuleError(
                 f"unknown combination rule {rule!r} for the evidential back end; choose one of: "
@@ -42,7 +50,7 @@ class MassFilter:
             )
         if isinstance(max_focal, bool) or not isinstance(max_focal, int) or max_focal < 1:
             raise RuleError(f"max_focal must be a whole number ≥ 1, got {max_focal!r}")
-        self.grid, self.rule, self.max_focal = grid, rule, max_focal
+        self.grid, self.rule, self.max_focal, self.report_region = grid, rule, max_focal, report_region
         free_cells = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
         self._free_words = bitset.pack_masks(free_cells)[0]
         self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_cells))
@@ -120,17 +128,16 @@ class MassFilter:
             moved = 0.0 if rejected else reduction.mass_moved
         if not rejected:
             self.belief = self._finish(reduction.mass_function)
-        combined = None if rejected else reduction
         seconds = time.perf_counter() - start
         return StepReport(
             self.name,
             evidence.sensor,
             seconds,
-            self.region_cells(),
+            self.region_cells() if self.report_region else 0,
             conflict=k,
             focal_sets=len(self.belief),
             mass_moved=moved,
-            rejected=combined is None,
+            rejected=rejected,
         )
 
     def _finish(self, joint: MassFunction) -> MassFunction:

@@ -65,17 +65,19 @@ class FocalAccumulator:
         self._fps: list[int] = []  # slot -> fingerprint
         self._weights: list[float] = []
 
-    def add(self, rows: np.ndarray, weights, *, owned: bool = False) -> None:
+    def add(self, rows: np.ndarray, weights, *, owned: bool = False, fingerprints=None) -> None:
         """Add ``weights[i]`` to the set ``rows[i]``.  With ``owned=True`` the caller hands
-        ``rows`` over (it will not change them), which saves a copy."""
+        ``rows`` over (it will not change them), which saves a copy; ``fingerprints`` may be
+        passed when already computed (``bitset.fingerprint`` of the rows)."""
         rows = np.asarray(rows, dtype=bitset.WORD).reshape(-1, self._w)
         weights = np.asarray(weights, dtype=np.float64).reshape(-1)
         keep = weights != 0.0
         if not keep.all():
             rows, weights, owned = rows[keep], weights[keep], True
+            fingerprints = None if fingerprints is None else np.asarray(fingerprints)[keep]
         if len(weights) == 0:
             return
-        fps = bitset.fingerprint(rows)
+        fps = bitset.fingerprint(rows) if fingerprints is None else np.asarray(fingerprints, dtype=np.uint64)
         uniq, first, inverse, counts = np.unique(fps, return_index=True, return_inverse=True, return_counts=True)
         if (counts > 1).any() and not _groups_equal(rows, fps, uniq[counts > 1]):
             # A fingerprint collision inside the batch: merge one row at a time.
@@ -432,7 +434,10 @@ class MassFunction:
             )
         if nonempty.all():
             return self
-        out = MassFunction._trusted(self.n, self._sets[nonempty], self._masses[nonempty] / total)
+        count = int(nonempty.sum())
+        # The empty set usually comes last (the accumulator puts it there): then a view, not a copy.
+        sets = self._sets[:count] if nonempty[:count].all() else self._sets[nonempty]
+        out = MassFunction._trusted(self.n, sets, self._masses[nonempty] / total)
         out._card = self.cardinalities[nonempty]
         return out
 

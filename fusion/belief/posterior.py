@@ -70,8 +70,22 @@ class Posterior:
         out._p, out._scratch, out._lent, out.log_evidence = self._p.copy(), None, False, self.log_evidence
         return out
 
-    def set(self, probabilities) -> None:
-        """Replace the belief (after a prediction step), renormalising it; evidence is kept."""
+    def set(self, probabilities, *, owned: bool = False) -> None:
+        """Replace the belief (after a prediction step), renormalising it; evidence is kept.
+
+        With ``owned=True`` the caller hands over a float64 array it will not touch again,
+        known to be finite and non-negative (a prediction of this belief): it is normalised in
+        place instead of being checked and copied.
+        """
+        if owned:
+            p = np.asarray(probabilities).reshape(-1)
+            total = float(p.sum())
+            if p.shape != (self.n,) or p.dtype != np.float64 or not total > 0 or not np.isfinite(total):
+                owned = False
+            else:
+                p *= 1.0 / total
+                self._p, self._lent = p, False
+                return
         fresh = Posterior(probabilities)
         if fresh.n != self.n:
             raise LikelihoodValueError(f"the new belief has {fresh.n} cells, this one has {self.n}")
