@@ -21,6 +21,7 @@ __all__ = [
     "SiteError",
     "ObservationError",
     "ResourceError",
+    "InputFileError",
 ]
 
 
@@ -70,3 +71,12 @@ class ObservationError(FusionError, ValueError):
 
 class ResourceError(FusionError, MemoryError):
     """A request would need more memory than the engine allows; the message gives the figure."""
+
+
+class InputFileError(FusionError, ValueError):
+    """A file we read is malformed; the message names the file, the line and the field."""
+
+    def __init__(self, path, line: int | None, field: str | None, problem: str):
+        self.path, self.line, self.field, self.problem = str(path), line, field, problem
+        where = self.path + (f", line {line}" if line else "")
+        super().__init__(f"{where}: {field + ': ' if field else ''}{problem}")

@@ -23,7 +23,7 @@ from fusion.belief import bitset
 from fusion.grid import PoseGrid
 from fusion.sensors.odometry import Motion
 
-__all__ = ["predict_density", "predict_sets", "shift_kernel", "SlicedSets"]
+__all__ = ["predict_density", "predict_sets", "move_sets", "shift_kernel", "SlicedSets", "SubCellMotion"]
 
 
 def shift_kernel(shift: float, sigma: float) -> tuple[int, np.ndarray]:
@@ -218,12 +218,25 @@ def predict_sets(
 ) -> np.ndarray:
     """Set-valued motion of packed focal sets ``(k, W)`` on ``grid``; returns new packed sets.
 
-    Each heading slice is dilated in x and y on its own (small arrays that stay in cache),
-    then headings are combined: slice h of the result is the union of the moved slices
-    h − t for every turn t within the bound (headings wrap).
+    Every cell moves to every cell reachable by the odometry's move within ``bound`` cells
+    (and ``bound_turn`` heading bins): the offsets [floor(d − bound), ceil(d + bound)].
     """
     bound = motion.bound if bound is None else bound
     bound_turn = motion.bound_turn if bound_turn is None else bound_turn
+    x = (np.floor(motion.dx - bound).astype(int), np.ceil(motion.dx + bound).astype(int))
+    y = (np.floor(motion.dy - bound).astype(int), np.ceil(motion.dy + bound).astype(int))
+    t = (math.floor(motion.turn - bound_turn), math.ceil(motion.turn + bound_turn))
+    return move_sets(sets, grid, x, y, t, layout)
+
+
+def move_sets(sets: np.ndarray, grid: PoseGrid, x, y, turn, layout: SlicedSets | None = None) -> np.ndarray:
+    """Dilate packed focal sets by integer offset intervals: ``x`` and ``y`` are (lo, hi) arrays per heading
+    bin, ``turn`` one (lo, hi) pair of heading bins.
+
+    Each heading slice is dilated in x and y on its own (small arrays that stay in cache), then
+    headings are combined: slice h of the result is the union of the moved slices h − t for every
+    turn t in the interval (headings wrap).
+    """
     layout = layout or SlicedSets(grid)
     a = layout.split(sets)
     headings = grid.headings
@@ -238,11 +251,9 @@ def predict_sets(
     moved = np.empty_like(a)
     for h in range(headings):
         plane = np.ascontiguousarray(a[:, h])
-        x_lo, x_hi = math.floor(motion.dx[h] - bound), math.ceil(motion.dx[h] + bound)
-        y_lo, y_hi = math.floor(motion.dy[h] - bound), math.ceil(motion.dy[h] + bound)
-        plane = _dilate_slice(plane, x_lo, x_hi, 1, columns)
-        moved[:, h] = _dilate_slice(plane, y_lo, y_hi, grid.nx, rows)
-    t_lo, t_hi = math.floor(motion.turn - bound_turn), math.ceil(motion.turn + bound_turn)
+        plane = _dilate_slice(plane, int(x[0][h]), int(x[1][h]), 1, columns)
+        moved[:, h] = _dilate_slice(plane, int(y[0][h]), int(y[1][h]), grid.nx, rows)
+    t_lo, t_hi = int(turn[0]), int(turn[1])
     if t_hi - t_lo + 1 >= headings:
         union = np.bitwise_or.reduce(moved, axis=1)
         out = np.broadcast_to(union[:, None, :], moved.shape).copy()
@@ -254,3 +265,62 @@ def predict_sets(
                 acc |= moved[:, (h - t) % headings]
             out[:, h] = acc
     return layout.join(out)
+
+
+class SubCellMotion:
+    """Keeps track of the part of the motion that has not yet moved the focal sets.
+
+    Moves of a few centimetres per tick would be lost if each tick's offsets were rounded to
+    whole cells, and rounding their error bounds *up* every tick would grow the sets by a cell
+    per tick.  Instead the pose of the robot relative to a set's cell is known to lie in a
+    residual box [lo, hi] (cells, per heading bin and axis; heading bins for turns).  Each tick
+    widens and shifts the box by the move and its bound; the sets are then moved by whole
+    offsets [A, B] chosen so the box that remains keeps a width under two cells and a centre
+    within half a cell.  Over many ticks the sets grow with the *sum* of the bounds (the
+    set-valued view of accumulated odometry error), not with the number of ticks.
+    """
+
+    def __init__(self, headings: int):
+        self.x = np.zeros((2, headings))
+        self.y = np.zeros((2, headings))
+        self.t = np.zeros(2)
+
+    def reset(self) -> None:
+        self.x[:] = 0.0
+        self.y[:] = 0.0
+        self.t[:] = 0.0
+
+    def advance(self, motion: Motion, bound: float, bound_turn: float):
+        """Add one move (``bound``: error bound in cells, ``bound_turn`` in bins); returns the whole offsets
+        ((x_lo, x_hi), (y_lo, y_hi), (t_lo, t_hi)) to apply to the sets now."""
+        offsets = []
+        for box, d in ((self.x, motion.dx), (self.y, motion.dy)):
+            box[0] += d - bound
+            box[1] += d + bound
+            offsets.append(_whole_offsets(box))
+        self.t[0] += motion.turn - bound_turn
+        self.t[1] += motion.turn + bound_turn
+        t_lo, t_hi = _whole_offsets(self.t)
+        turn = (int(t_lo), int(t_hi))
+        if turn != (0, 0):
+            # Cells change heading bin: a bin's residual box becomes the union of the boxes of the
+            # bins that move into it.
+            for box in (self.x, self.y):
+                lo, hi = box[0].copy(), box[1].copy()
+                for k in range(turn[0], turn[1] + 1):
+                    rolled_lo, rolled_hi = np.roll(lo, k), np.roll(hi, k)
+                    box[0] = rolled_lo if k == turn[0] else np.minimum(box[0], rolled_lo)
+                    box[1] = rolled_hi if k == turn[0] else np.maximum(box[1], rolled_hi)
+        return offsets[0], offsets[1], turn
+
+
+def _whole_offsets(box: np.ndarray):
+    """Choose integer offsets [A, B] for a residual box [lo, hi] and leave the remainder in the box."""
+    lo, hi = box[0], box[1]
+    width = hi - lo
+    spread = np.maximum(0, np.floor(width - 1.0)).astype(np.int64)  # B − A ≤ width − 1 keeps coverage
+    a = np.round((lo + hi - spread) / 2).astype(np.int64)
+    b = a + spread
+    box[0] = lo - a
+    box[1] = hi - b
+    return a, b

@@ -109,10 +109,15 @@ class SiteMap:
 
     @cached_property
     def distance_m(self) -> np.ndarray:
-        """(ny, nx) distance in metres from each cell centre to the nearest occupied cell centre."""
+        """(ny, nx) distance in metres from each cell centre to the nearest obstacle surface.
+
+        The Euclidean distance to the nearest occupied cell centre, less half a cell: a range
+        return ends on the face of a wall, half a cell before the centre of its first cell
+        (0 inside obstacles)."""
         if not self.occupied.any():
             return np.full(self.occupied.shape, np.inf)
-        return ndimage.distance_transform_edt(~self.occupied, sampling=self.resolution_m)
+        centres = ndimage.distance_transform_edt(~self.occupied, sampling=self.resolution_m)
+        return np.maximum(centres - self.resolution_m / 2, 0.0)
 
     def marker(self, marker_id: str) -> Marker:
         try:

@@ -41,3 +41,11 @@ def test_fingerprint_is_equal_for_equal_sets_and_deterministic():
     np.testing.assert_array_equal(fp[:50], fp[50:])
     assert len(np.unique(fp[:50])) == 50
     assert bitset.fingerprint(words).tolist() == fp[:50].tolist()
+
+
+def test_intersection_counts_match_numpy():
+    rng = np.random.default_rng(5)
+    a = rng.random((4, 70_000)) < 0.5
+    b = rng.random((3, 70_000)) < 0.3
+    counts = bitset.intersection_counts(bitset.pack_masks(a), bitset.pack_masks(b))
+    np.testing.assert_array_equal(counts, (a[:, None, :] & b[None, :, :]).sum(axis=2))

@@ -42,13 +42,28 @@ class StepReport:
 
 @dataclass(frozen=True)
 class PoseEstimate:
+    """Where the robot most likely is.
+
+    ``x_m``, ``y_m``, ``heading_rad`` are the mean of the distribution within ``LOCAL_RADIUS_M``
+    of its best cell (a local mean: a distribution over a site is often multimodal, or carries a
+    thin layer of ignorance over the whole site, and its global mean then lies between the modes);
+    ``mean_x_m``, ``mean_y_m`` are the global mean; ``spread_m`` is the RMS distance of the
+    whole distribution from the estimate.
+    """
+
     x_m: float
     y_m: float
-    heading_rad: float  # circular mean
+    heading_rad: float
     best_cell: int
     best_pose: tuple[float, float, float]
     region_cells: int
-    spread_m: float  # root-mean-square distance of the distribution from (x_m, y_m)
+    spread_m: float
+    mean_x_m: float = 0.0
+    mean_y_m: float = 0.0
+
+
+LOCAL_RADIUS_M = 1.0
+"""Radius of the local mean around the best cell (common practice, no source)."""
 
 
 class Backend(Protocol):
@@ -78,15 +93,22 @@ def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:
 
 
 def estimate_pose(grid: PoseGrid, p: np.ndarray) -> PoseEstimate:
-    """Mean position, circular-mean heading, best cell and spread of a distribution over the grid."""
+    """Local mean around the best cell, global mean, best cell and spread of a distribution over the grid."""
     cube = p.reshape(grid.shape)
     plane = cube.sum(axis=0)
-    px, py = plane.sum(axis=0), plane.sum(axis=1)
     xs, ys = grid.x_centres(), grid.y_centres()
-    mx, my = float(px @ xs), float(py @ ys)
-    var = float(px @ (xs - mx) ** 2 + py @ (ys - my) ** 2)
-    ph = cube.sum(axis=(1, 2))
-    th = grid.heading_centres()
-    heading = math.atan2(float(ph @ np.sin(th)), float(ph @ np.cos(th))) % (2 * math.pi)
+    px, py = plane.sum(axis=0), plane.sum(axis=1)
+    mean_x, mean_y = float(px @ xs), float(py @ ys)
     best = int(np.argmax(p))
-    return PoseEstimate(mx, my, heading, best, grid.pose_of(best), region_size(p), math.sqrt(max(var, 0.0)))
+    bx, by, bh = grid.pose_of(best)
+    near = (xs[None, :] - bx) ** 2 + (ys[:, None] - by) ** 2 <= LOCAL_RADIUS_M**2
+    local = np.where(near, plane, 0.0)
+    weight = float(local.sum())
+    lx = float(local.sum(axis=0) @ xs) / weight if weight > 0 else bx
+    ly = float(local.sum(axis=1) @ ys) / weight if weight > 0 else by
+    th = grid.heading_centres()
+    ph = (cube * near[None]).sum(axis=(1, 2))
+    heading = math.atan2(float(ph @ np.sin(th)), float(ph @ np.cos(th))) % (2 * math.pi) if weight > 0 else bh
+    dist2 = (xs[None, :] - lx) ** 2 + (ys[:, None] - ly) ** 2
+    spread = math.sqrt(max(float((plane * dist2).sum()) / max(float(plane.sum()), 1e-300), 0.0))
+    return PoseEstimate(lx, ly, heading, best, (bx, by, bh), region_size(p), spread, mean_x, mean_y)

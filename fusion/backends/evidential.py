@@ -19,7 +19,7 @@ from fusion.belief import bitset, rules
 from fusion.belief.mass import FocalAccumulator, MassFunction
 from fusion.errors import FrameMismatchError, RuleError, TotalConflictError
 from fusion.grid import PoseGrid
-from fusion.motion import SlicedSets, predict_sets
+from fusion.motion import SlicedSets, SubCellMotion, move_sets, predict_sets
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
@@ -42,6 +42,7 @@ class MassFilter:
         rule: str = "dempster",
         max_focal: int = 32,
         report_region: bool = True,
+        refine_evidence: bool = True,
     ):
         if rule not in FILTER_RULES:
             raise RuleError(
@@ -51,14 +52,17 @@ class MassFilter:
         if isinstance(max_focal, bool) or not isinstance(max_focal, int) or max_focal < 1:
             raise RuleError(f"max_focal must be a whole number ≥ 1, got {max_focal!r}")
         self.grid, self.rule, self.max_focal, self.report_region = grid, rule, max_focal, report_region
+        self.refine_evidence = refine_evidence
         free_cells = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
         self._free_words = bitset.pack_masks(free_cells)[0]
         self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_cells))
         self._layout = SlicedSets(grid) if isinstance(grid, PoseGrid) else None
+        self._residual = SubCellMotion(grid.headings)
         self.motion_lost = 0.0  # mass whose focal sets moved wholly off free space at the last prediction
 
     def reset(self, prior) -> None:
         """Start from ignorance over the cells where ``prior`` > 0 (or from a given ``MassFunction``)."""
+        self._residual.reset()
         if isinstance(prior, MassFunction):
             if prior.n != self.grid.n_cells:
                 raise FrameMismatchError(f"the prior is over {prior.n} cells, the grid has {self.grid.n_cells}")
@@ -77,14 +81,15 @@ class MassFilter:
         empty = m.cardinalities == 0
         sets = m.sets[~empty]
         masses = m.masses[~empty]
-        variants = [(predict_sets(sets, self.grid, motion, layout=self._layout), masses * motion.reliability)]
-        if motion.reliability < 1.0:
+        acc = FocalAccumulator(n)
+        lost = 0.0
+        offsets = self._residual.advance(motion, motion.bound_cells, motion.bound_bins)
+        variants = [(move_sets(sets, self.grid, *offsets, layout=self._layout), masses * motion.reliability)]
+        if motion.reliability < 1.0:  # wheel slip: the move is only known within the slip bound
             slipped = predict_sets(
                 sets, self.grid, motion, bound=motion.slip, bound_turn=motion.slip_turn, layout=self._layout
             )
             variants.append((slipped, masses * (1.0 - motion.reliability)))
-        acc = FocalAccumulator(n)
-        lost = 0.0
         for moved, w in variants:
             words = moved & self._free_words
             gone = ~words.any(axis=1)
@@ -111,13 +116,21 @@ class MassFilter:
         # Every rule combines the normalised belief, so K is the conflict of this reading alone.
         belief = self.belief if self.belief.is_normal else _drop_conflict(self.belief)
         if self.rule in ("dempster", "conjunctive", "yager"):
+            k_outside = 0.0
+            if self.refine_evidence and evidence.form == "consonant":
+                e, k_outside = self._refined(evidence, belief)
             # One pass: conjunctive combination and the focal-set cap (the ranking of non-empty sets is
             # the same before and after normalisation, so the cap may come first).
             reduction = rules.conjunctive_reduced(belief, e, self.max_focal)
-            k = reduction.mass_function.conflict
+            k_inside = reduction.mass_function.conflict
+            k = 1.0 - (1.0 - k_outside) * (1.0 - k_inside)
             rejected = k >= _TOTAL and self.rule == "dempster"
+            if k_outside > 0 and self.rule != "dempster" and k < _TOTAL:
+                reduction = reduction._replace(mass_function=_with_conflict(reduction.mass_function, k))
             moved = (
-                reduction.mass_moved / (1.0 - k) if self.rule == "dempster" and not rejected else reduction.mass_moved
+                reduction.mass_moved / (1.0 - k_inside)
+                if self.rule == "dempster" and not rejected
+                else reduction.mass_moved
             )
         else:
             k = rules.conflict_mass(belief, e)
@@ -139,6 +152,32 @@ class MassFilter:
             mass_moved=moved,
             rejected=rejected,
         )
+
+    def _refined(self, evidence: Evidence, belief: MassFunction) -> tuple[MassFunction, float]:
+        """The reading's mass function conditioned on the cells the belief still allows, and the conflict
+        that conditioning removed.
+
+        For consonant evidence with contour c and reliability r, and a belief whose focal sets all lie
+        in U: combining with the evidence equals combining with the evidence conditioned on U (Dempster's
+        rule is associative and the belief already implies U).  That conditioned evidence is consonant
+        with contour c/max_U c, discounted with r' = r·m/(r·m + 1 − r), m = max_U c, and the
+        conditioning carries the conflict r·(1 − m).  Quantising *after* conditioning spends the
+        evidence's levels on the poses still in question instead of on the whole site.
+        """
+        nonempty = belief.cardinalities > 0
+        if not nonempty.any():
+            return evidence.masses, 0.0
+        support = bitset.unpack(np.bitwise_or.reduce(belief.sets[nonempty], axis=0), belief.n)
+        inside = np.where(support, evidence.contour, 0.0)
+        top = float(inside.max())
+        r = evidence.reliability
+        if top <= 0.0:
+            if r >= 1.0:
+                return MassFunction.from_contour(inside), 0.0  # all mass on ∅: total conflict
+            return MassFunction.vacuous(belief.n), r
+        r_cond = r * top / (r * top + 1.0 - r)
+        masses = rules.discount(MassFunction.from_contour(inside / top, levels=evidence.levels), r_cond)
+        return masses, r * (1.0 - top)
 
     def _finish(self, joint: MassFunction) -> MassFunction:
         if self.rule == "dempster":
@@ -169,6 +208,15 @@ class MassFilter:
 
     def pose_estimate(self) -> PoseEstimate:
         return estimate_pose(self.grid, self.distribution())
+
+
+def _with_conflict(m: MassFunction, k: float) -> MassFunction:
+    """``m`` with its non-empty masses scaled so that m(∅) = k."""
+    empty = m.cardinalities == 0
+    acc = FocalAccumulator(m.n)
+    acc.add(m.sets[~empty], m.masses[~empty] * (1.0 - k) / max(m.masses[~empty].sum(), 1e-300))
+    acc.add(np.zeros((1, m.sets.shape[1]), dtype=bitset.WORD), [k])
+    return acc.result()
 
 
 def _drop_conflict(m: MassFunction) -> MassFunction:

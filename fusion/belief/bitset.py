@@ -22,6 +22,7 @@ __all__ = [
     "cardinality",
     "full",
     "fingerprint",
+    "intersection_counts",
 ]
 
 WORD = np.dtype("<u8")
@@ -109,3 +110,24 @@ def fingerprint(words: np.ndarray) -> np.ndarray:
     # uint64 array arithmetic wraps modulo 2**64 by design; the product with a
     # vector makes no temporary copy of the rows.
     return np.ascontiguousarray(words, dtype=WORD) @ mult
+
+
+# Words unpacked at once by intersection_counts (64 Ki cells: float32 sums stay exact).
+_COUNT_BLOCK_WORDS = 1024
+
+
+def intersection_counts(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """|A_i ∩ B_j| for every pair of rows, shape (len(a), len(b)).
+
+    Unpacks a block of cells at a time and lets a float32 matrix product count the
+    common cells (BLAS); each block holds at most 65,536 cells, so its counts are
+    exact in float32, and blocks are summed in float64.
+    """
+    out = np.zeros((len(a), len(b)), dtype=np.float64)
+    for start in range(0, a.shape[1], _COUNT_BLOCK_WORDS):
+        block_a = np.ascontiguousarray(a[:, start : start + _COUNT_BLOCK_WORDS])
+        block_b = np.ascontiguousarray(b[:, start : start + _COUNT_BLOCK_WORDS])
+        bits_a = np.unpackbits(block_a.view(np.uint8), axis=1, bitorder="little").astype(np.float32)
+        bits_b = np.unpackbits(block_b.view(np.uint8), axis=1, bitorder="little").astype(np.float32)
+        out += bits_a @ bits_b.T
+    return np.rint(out).astype(np.int64)

@@ -12,6 +12,10 @@ chance the identity is read wrongly, and u = 1 / (max range · field of view) th
 density of a false detection.  A *miss* (the camera looked and saw nothing) has
 probability Π_j (1 − p_detect · v_j(x)) of being right where markers should be
 visible; with false detections possible, (1 − f)·that + f.
+
+As for range returns, a cell stands for all the poses in it, so the noise used on the
+grid is widened: σ_r² + res²/6 for range, σ_b² + Δθ²/12 + res²/(6 r²) for bearing
+(common practice, no source).
 """
 
 from __future__ import annotations
@@ -71,32 +75,72 @@ class MarkerSensor:
         self._range = np.hypot(mx - xs, my - ys)  # (markers, ny, nx)
         self._direction = np.arctan2(my - ys, mx - xs)  # world bearing to each marker
         self._index = {m.marker_id: i for i, m in enumerate(site.markers)}
+        self._clear = np.stack([self._line_of_sight(m.x, m.y, j) for j, m in enumerate(site.markers)])
+        self._miss = None
 
-    def _relative_bearing(self, j: int) -> np.ndarray:
-        """Bearing of marker j from each pose, relative to the heading: (headings, ny, nx), in (−π, π]."""
-        theta = self.grid.heading_centres()[:, None, None]
-        return np.angle(np.exp(1j * (self._direction[j][None] - theta)))
+    def _line_of_sight(self, mx: float, my: float, j: int) -> np.ndarray:
+        """(ny, nx): cells within range from which no wall or rack hides the marker (the simulator's rule)."""
+        site, res = self.site, self.grid.resolution_m
+        clear = np.zeros(self._range[j].shape, dtype=bool)
+        iy, ix = np.nonzero(self._range[j] <= self.params.max_range_m)
+        if iy.size == 0:
+            return clear
+        x0, y0 = self.grid.x_centres()[ix], self.grid.y_centres()[iy]
+        r = self._range[j][iy, ix]
+        samples = int(math.ceil(self.params.max_range_m / (res / 2))) + 1
+        frac = np.linspace(0.0, 1.0, samples)[None, :]
+        # Stop 1.5 cells short of the marker: it is printed on the face of a rack.
+        reach = np.clip((r - 1.5 * res) / np.maximum(r, 1e-9), 0.0, 1.0)[:, None] * frac
+        px, py = x0[:, None] + (mx - x0)[:, None] * reach, y0[:, None] + (my - y0)[:, None] * reach
+        cx = np.clip((px / res).astype(int), 0, site.occupied.shape[1] - 1)
+        cy = np.clip((py / res).astype(int), 0, site.occupied.shape[0] - 1)
+        clear[iy, ix] = ~site.occupied[cy, cx].any(axis=1)
+        return clear
 
-    def _visible(self, j: int, rel: np.ndarray) -> np.ndarray:
-        half = math.radians(self.params.fov_deg) / 2
-        return (self._range[j][None] <= self.params.max_range_m) & (np.abs(rel) <= half)
+    def _relative_bearing(self, j: int, iy: np.ndarray, ix: np.ndarray) -> np.ndarray:
+        """Bearing of marker j relative to each heading from the plane cells (iy, ix): (headings, m), in [−π, π)."""
+        theta = self.grid.heading_centres()[:, None]
+        return _wrap(self._direction[j][iy, ix][None, :] - theta)
 
     def _seeing(self, j: int, r: float, b: float) -> np.ndarray:
+        """Density of sighting marker j at (r, b) from every cell, (headings, ny, nx); zero where it is not in view."""
         p = self.params
-        rel = self._relative_bearing(j)
-        sb = math.radians(p.sigma_bearing_deg)
-        db = np.angle(np.exp(1j * (b - rel)))
-        g = np.exp(-0.5 * ((r - self._range[j][None]) / p.sigma_range_m) ** 2 - 0.5 * (db / sb) ** 2)
-        g /= 2 * math.pi * p.sigma_range_m * sb
-        return p.p_detect * self._visible(j, rel) * g
+        out = np.zeros(self.grid.shape)
+        # Only plane cells at about the right range can contribute (beyond 8σ the density is < 1e-14).
+        iy, ix = np.nonzero(
+            (np.abs(self._range[j] - r) < 8 * p.sigma_range_m + self.grid.resolution_m) & self._clear[j]
+        )
+        if iy.size == 0:
+            return out
+        rel = self._relative_bearing(j, iy, ix)
+        res, step = self.grid.resolution_m, self.grid.heading_step
+        sr = math.sqrt(p.sigma_range_m**2 + res**2 / 6)
+        sb = np.sqrt(
+            math.radians(p.sigma_bearing_deg) ** 2
+            + step**2 / 12
+            + res**2 / (6 * np.maximum(self._range[j][iy, ix], res) ** 2)
+        )[None, :]
+        in_view = np.abs(rel) <= math.radians(p.fov_deg) / 2
+        g = np.exp(-0.5 * ((r - self._range[j][iy, ix]) / sr) ** 2)[None, :] * np.exp(-0.5 * (_wrap(b - rel) / sb) ** 2)
+        out[:, iy, ix] = p.p_detect * in_view * g / (2 * math.pi * sr * sb)
+        return out
+
+    def _miss_likelihood(self) -> np.ndarray:
+        if self._miss is None:
+            p = self.params
+            unseen = np.ones(self.grid.shape)
+            half = math.radians(p.fov_deg) / 2
+            for j in range(len(self.site.markers)):
+                iy, ix = np.nonzero(self._clear[j])
+                visible = np.abs(self._relative_bearing(j, iy, ix)) <= half
+                unseen[:, iy, ix] *= 1 - p.p_detect * visible
+            self._miss = (1 - p.false_rate) * unseen + p.false_rate
+        return self._miss
 
     def likelihood(self, reading) -> np.ndarray:
         p = self.params
         if isinstance(reading, MarkerMiss):
-            unseen = np.ones(self.grid.shape)
-            for j in range(len(self.site.markers)):
-                unseen *= 1 - p.p_detect * self._visible(j, self._relative_bearing(j))
-            return (1 - p.false_rate) * unseen + p.false_rate
+            return self._miss_likelihood()
         if not isinstance(reading, MarkerSighting):
             raise ObservationError(f"sensor {self.name!r}: expected a marker sighting or miss, got {reading!r}")
         if reading.marker_id not in self._index:
@@ -124,3 +168,8 @@ class MarkerSensor:
         top = lik.max()
         contour = lik / top if top > 0 else np.zeros_like(lik)
         return Evidence(self.name, contour, self.params.reliability, self.params.levels)
+
+
+def _wrap(angle):
+    """Angles wrapped to [−π, π)."""
+    return (angle + math.pi) % (2 * math.pi) - math.pi

@@ -52,11 +52,13 @@ class Motion:
     turn: float  # heading bins, may be fractional
     sigma: float  # translation noise in cells
     sigma_turn: float  # heading bins
-    bound: int  # cells: set-valued translation error bound
-    bound_turn: int  # heading bins
+    bound: int  # cells: set-valued translation error bound, rounded up
+    bound_turn: int  # heading bins, rounded up
     reliability: float
     slip: int  # cells, error bound when the wheels slipped
     slip_turn: int
+    bound_cells: float = 0.0  # the bounds before rounding up
+    bound_bins: float = 0.0
 
 
 class OdometrySensor:
@@ -99,6 +101,8 @@ class OdometrySensor:
             sigma_turn=sigma_deg / step_deg,
             bound=int(math.ceil(p.bound_sigmas * sigma_m / res - 1e-9)),
             bound_turn=int(math.ceil(p.bound_sigmas * sigma_deg / step_deg - 1e-9)),
+            bound_cells=p.bound_sigmas * sigma_m / res,
+            bound_bins=p.bound_sigmas * sigma_deg / step_deg,
             reliability=p.reliability,
             slip=int(math.ceil(p.slip_m / res)),
             slip_turn=int(math.ceil(p.slip_deg / step_deg)),
