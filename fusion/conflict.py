@@ -1,0 +1,86 @@
+"""Conflict figures: how much a reading disagrees with the belief, on both back ends.
+
+Evidential side
+- K = m(∅) of the unnormalised conjunctive combination (Dempster's conflict);
+- weight of conflict −log(1 − K) (Shafer 1976, ch. 3), infinite on total conflict;
+- Jousselme distance between two mass functions (Jousselme, Grenier & Bossé 2001);
+- pignistic disagreement max_A |BetP1(A) − BetP2(A)| = ½ Σ_x |BetP1(x) − BetP2(x)|
+  (Liu 2006, "Analyzing the degree of conflict among belief functions": K alone
+  can be large for agreeing sources; conflict needs both K and this to be large).
+
+Bayesian side
+- predictive surprise −log p(z | past) = −log Σ_x p(x) L(x) for the reading's
+  likelihood scaled to a maximum of 1 (0 = the reading is as expected as it can be);
+- a slow and a fast running average of the evidence p(z | past), as in augmented
+  Monte Carlo localization (Thrun, Burgard & Fox 2005, §8.3.5); their ratio
+  slow / fast rises when the readings stop matching the belief (the robot is lost).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from fusion.belief import bitset
+from fusion.belief.mass import FocalAccumulator, MassFunction, check_same_frame
+
+__all__ = ["weight_of_conflict", "jousselme_distance", "pignistic_disagreement", "EvidenceAverages"]
+
+
+def weight_of_conflict(k: float) -> float:
+    """−log(1 − K) in nats; ``inf`` for total conflict."""
+    return math.inf if k >= 1.0 else -math.log1p(-k)
+
+
+def jousselme_distance(m1: MassFunction, m2: MassFunction) -> float:
+    """d(m1, m2) = sqrt(½ (m1 − m2)ᵀ D (m1 − m2)) with D(A, B) = |A ∩ B| / |A ∪ B| (and D(∅, ∅) = 1)."""
+    check_same_frame(m1, m2)
+    acc = FocalAccumulator(m1.n)
+    acc.add(m1.sets, m1.masses)
+    acc.add(m2.sets, -m2.masses)
+    diff = acc.residual()
+    keep = np.abs(diff) > 0
+    if not keep.any():
+        return 0.0
+    sets = acc._gather(np.flatnonzero(keep).tolist())
+    diff = diff[keep]
+    card = bitset.cardinality(sets).astype(np.float64)
+    inter = bitset.intersection_counts(sets, sets).astype(np.float64)
+    union = card[:, None] + card[None, :] - inter
+    jaccard = np.ones_like(union)  # D(∅, ∅) = 1
+    np.divide(inter, union, out=jaccard, where=union > 0)
+    return math.sqrt(max(0.0, 0.5 * float(diff @ jaccard @ diff)))
+
+
+def pignistic_disagreement(p1: np.ndarray, p2: np.ndarray) -> float:
+    """max over sets A of |P1(A) − P2(A)| for two probability vectors: half their L1 distance."""
+    return float(0.5 * np.abs(np.asarray(p1) - np.asarray(p2)).sum())
+
+
+class EvidenceAverages:
+    """Slow and fast exponential averages of p(z | past); ``ratio`` = slow / fast (≥ 1 when readings got worse)."""
+
+    def __init__(self, slow: float = 0.02, fast: float = 0.3):
+        # Rates are common practice for augmented MCL (0 < slow ≪ fast), not from a source.
+        self.alpha_slow, self.alpha_fast = slow, fast
+        self.slow = self.fast = None
+
+    def add(self, log_evidence: float) -> float:
+        """Absorb one update's log p(z | past); returns the new ratio."""
+        e = math.exp(max(log_evidence, -700.0))
+        if self.slow is None:
+            self.slow = self.fast = e
+        else:
+            self.slow += self.alpha_slow * (e - self.slow)
+            self.fast += self.alpha_fast * (e - self.fast)
+        return self.ratio
+
+    @property
+    def ratio(self) -> float:
+        if self.slow is None or self.fast is None or self.fast <= 0:
+            return 1.0 if self.slow is None else math.inf
+        return self.slow / self.fast
+
+    def reset(self) -> None:
+        self.slow = self.fast = None

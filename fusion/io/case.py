@@ -1,0 +1,520 @@
+"""Case files: a site, its sensors and their faults, a route, and the run settings, in TOML.
+
+The format is ours; ``cases/README.md`` documents it with the demo case.  Loading
+validates everything before anything runs, and every error names the file, the
+line and the field (``InputFileError``).  Case files are data only: TOML has no
+code, and paths are never taken from them.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import os
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from fusion.errors import FusionError, InputFileError
+from fusion.io.toml_lines import key_lines
+from fusion.sensors.doors import DoorParams
+from fusion.sensors.markers import MarkerParams
+from fusion.sensors.odometry import OdometryParams
+from fusion.sensors.ranging import RangeParams
+from fusion.site import Door, Marker, SiteMap
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - exercised on Python 3.10 only
+    import tomli as tomllib
+
+__all__ = [
+    "Case",
+    "SensorSpec",
+    "FaultSpec",
+    "RouteSpec",
+    "CarryEvent",
+    "RunSpec",
+    "load_case",
+    "parse_case",
+    "SENSOR_KINDS",
+    "FAULT_KINDS",
+    "MAX_CASE_BYTES",
+]
+
+MAX_CASE_BYTES = 1024**2
+"""Case files larger than this are refused (a real case is a few kilobytes)."""
+
+SENSOR_KINDS = {"ranging": RangeParams, "markers": MarkerParams, "door": DoorParams, "odometry": OdometryParams}
+FAULT_KINDS = {
+    "ranging": {"people": "short returns from people walking through the beams (rate: chance per beam)"},
+    "markers": {"ghost": "sightings of a marker where it is not (marker, at_m = [x, y], rate: chance per firing)"},
+    "door": {"stuck": "the contact reads a fixed value (value = true or false)"},
+    "odometry": {
+        "drift": "heading drift (turn_deg_per_m) and scale error (scale) on every move",
+        "slip": "one wheel slip at start_s: forward_m and turn_deg added to the true move",
+    },
+}
+BACKENDS = ("bayes", "evidential")
+
+
+@dataclass(frozen=True)
+class FaultSpec:
+    kind: str
+    start_s: float
+    end_s: float
+    options: dict = field(default_factory=dict)
+
+    def active(self, t: float) -> bool:
+        return self.start_s <= t < self.end_s
+
+
+@dataclass(frozen=True)
+class SensorSpec:
+    name: str
+    kind: str
+    rate_hz: float
+    params: object
+    faults: tuple[FaultSpec, ...] = ()
+    door: str | None = None  # for kind = "door": which door's contact
+
+
+@dataclass(frozen=True)
+class CarryEvent:
+    at_s: float
+    to: tuple[float, float, float]  # x, y (m), heading (deg)
+    resume_waypoint: int
+
+
+@dataclass(frozen=True)
+class RouteSpec:
+    waypoints: tuple[tuple[float, float], ...]
+    speed_mps: float
+    turn_rate_deg_s: float
+    carries: tuple[CarryEvent, ...] = ()
+    start_known: bool = True  # the robot starts at the first waypoint, facing the second (a dock)
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    backends: tuple[str, ...] = BACKENDS
+    rule: str = "dempster"
+    max_focal: int = 32
+    seed: int = 1
+    tick_s: float = 0.25
+    policy: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Case:
+    name: str
+    path: str
+    site: SiteMap
+    headings: int
+    sensors: tuple[SensorSpec, ...]
+    route: RouteSpec
+    run: RunSpec
+    description: str = ""
+
+    def sensor(self, name: str) -> SensorSpec:
+        for s in self.sensors:
+            if s.name == name:
+                return s
+        raise KeyError(name)
+
+
+# ----------------------------------------------------------------- reading
+class _Reader:
+    """Typed access to parsed TOML with errors that name file, line and field."""
+
+    def __init__(self, path: str, text: str):
+        self.path = path
+        self.lines = key_lines(text)
+
+    def fail(self, where: tuple, problem: str):
+        line = None
+        for cut in range(len(where), 0, -1):
+            line = self.lines.get(tuple(where[:cut]))
+            if line:
+                break
+        raise InputFileError(self.path, line, _field_name(where), problem)
+
+    def table(self, data: dict, where: tuple, key: str, required: bool = True) -> dict:
+        if key not in data:
+            if required:
+                self.fail(where, f"the [{_field_name((*where, key))}] table is missing")
+            return {}
+        value = data[key]
+        if not isinstance(value, dict):
+            self.fail((*where, key), f"must be a table, got {_kind(value)}")
+        return value
+
+    def tables(self, data: dict, where: tuple, key: str) -> list[dict]:
+        value = data.get(key, [])
+        if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+            self.fail((*where, key), f"must be an array of tables ([[{key}]]), got {_kind(value)}")
+        return value
+
+    def number(self, data, where, key, default=None, *, low=None, high=None, positive=False, whole=False):
+        if key not in data:
+            if default is None:
+                self.fail(where, f"the field '{key}' is missing (a number)")
+            return default
+        value = data[key]
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            self.fail((*where, key), f"must be a number, got {_kind(value)}")
+        if whole and not isinstance(value, int):
+            self.fail((*where, key), f"must be a whole number, got {value!r}")
+        if not math.isfinite(value):
+            self.fail((*where, key), f"must be finite, got {value!r}")
+        if positive and value <= 0:
+            self.fail((*where, key), f"must be greater than 0, got {value!r}")
+        if low is not None and value < low:
+            self.fail((*where, key), f"must be at least {low}, got {value!r}")
+        if high is not None and value > high:
+            self.fail((*where, key), f"must be at most {high}, got {value!r}")
+        return value
+
+    def text(self, data, where, key, default=None, choices=None):
+        if key not in data:
+            if default is None:
+                self.fail(where, f"the field '{key}' is missing (a string)")
+            return default
+        value = data[key]
+        if not isinstance(value, str) or not value.strip():
+            self.fail((*where, key), f"must be a non-empty string, got {_kind(value)}")
+        if choices is not None and value not in choices:
+            self.fail((*where, key), f"unknown value {value!r}; choose one of: {', '.join(choices)}")
+        return value
+
+    def flag(self, data, where, key, default=None):
+        if key not in data:
+            if default is None:
+                self.fail(where, f"the field '{key}' is missing (true or false)")
+            return default
+        if not isinstance(data[key], bool):
+            self.fail((*where, key), f"must be true or false, got {_kind(data[key])}")
+        return data[key]
+
+    def numbers(self, data, where, key, length=None, default=None):
+        if key not in data:
+            if default is None:
+                self.fail(where, f"the field '{key}' is missing (an array of numbers)")
+            return default
+        value = data[key]
+        ok = isinstance(value, list) and all(
+            isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value
+        )
+        if not ok:
+            self.fail((*where, key), f"must be an array of finite numbers, got {_kind(value)}")
+        if length is not None and len(value) != length:
+            self.fail((*where, key), f"must hold {length} numbers, got {len(value)}")
+        return tuple(float(v) for v in value)
+
+    def only(self, data: dict, where: tuple, allowed) -> None:
+        for key in data:
+            if key not in allowed:
+                self.fail((*where, key), f"unknown field '{key}'; known fields here: {', '.join(sorted(allowed))}")
+
+
+def _field_name(where: tuple) -> str:
+    out = ""
+    for part in where:
+        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
+    return out
+
+
+def _kind(value) -> str:
+    if isinstance(value, bool):
+        return f"a boolean ({value})"
+    if isinstance(value, (int, float)):
+        return f"a number ({value!r})"
+    if isinstance(value, str):
+        return f"a string ({value!r})"
+    if isinstance(value, list):
+        return "an array"
+    if isinstance(value, dict):
+        return "a table"
+    return type(value).__name__
+
+
+def load_case(path) -> Case:
+    """Read and validate a case file; ``InputFileError`` on any problem, before anything runs."""
+    path = Path(path)
+    try:
+        size = os.path.getsize(path)
+    except OSError as err:
+        raise InputFileError(path, None, None, f"cannot read the case file: {err.strerror}") from None
+    if size > MAX_CASE_BYTES:
+        raise InputFileError(
+            path, None, None, f"the file is {size:,} bytes; case files are limited to {MAX_CASE_BYTES:,} bytes"
+        )
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as err:
+        raise InputFileError(path, None, None, f"not UTF-8 text (byte {err.start}); save the case as UTF-8") from None
+    return parse_case(text, str(path))
+
+
+def parse_case(text: str, path: str = "<case>") -> Case:
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        line = getattr(err, "lineno", None)
+        message = str(err)
+        if line is None:  # older tomllib: "... (at line 3, column 7)"
+            import re
+
+            found = re.search(r"line (\d+)", message)
+            line = int(found.group(1)) if found else None
+        raise InputFileError(path, line, None, f"not valid TOML: {message}") from None
+    r = _Reader(path, text)
+    r.only(data, (), {"case", "site", "sensors", "route", "run"})
+    head = r.table(data, (), "case")
+    r.only(head, ("case",), {"name", "description"})
+    name = r.text(head, ("case",), "name")
+    description = head.get("description", "")
+    site, headings = _site(r, r.table(data, (), "site"))
+    sensors = _sensors(r, data, site)
+    route = _route(r, r.table(data, (), "route"), site)
+    run = _run(r, r.table(data, (), "run", required=False), sensors)
+    return Case(name, path, site, headings, sensors, route, run, description if isinstance(description, str) else "")
+
+
+def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
+    w = ("site",)
+    r.only(d, w, {"name", "width_m", "height_m", "resolution_m", "headings", "border", "boxes", "doors", "markers"})
+    width = r.number(d, w, "width_m", positive=True)
+    height = r.number(d, w, "height_m", positive=True)
+    res = r.number(d, w, "resolution_m", positive=True)
+    headings = r.number(d, w, "headings", 36, whole=True, low=1, high=360)
+    border = r.flag(d, w, "border", True)
+    doors, markers = [], []
+    for i, door in enumerate(r.tables(d, w, "doors")):
+        dw = (*w, "doors", i)
+        r.only(door, dw, {"name", "x_m", "y_m", "facing_deg", "radius_m"})
+        doors.append(
+            Door(
+                r.text(door, dw, "name"),
+                r.number(door, dw, "x_m"),
+                r.number(door, dw, "y_m"),
+                r.number(door, dw, "facing_deg"),
+                r.number(door, dw, "radius_m", 1.0, positive=True),
+            )
+        )
+        _on_map(r, dw, doors[-1].x, doors[-1].y, width, height, f"door {doors[-1].name!r}")
+    for i, marker in enumerate(r.tables(d, w, "markers")):
+        mw = (*w, "markers", i)
+        r.only(marker, mw, {"id", "x_m", "y_m"})
+        markers.append(Marker(r.text(marker, mw, "id"), r.number(marker, mw, "x_m"), r.number(marker, mw, "y_m")))
+        _on_map(r, mw, markers[-1].x, markers[-1].y, width, height, f"marker {markers[-1].marker_id!r}")
+    for kind, items, key in (("door", doors, "doors"), ("marker", markers, "markers")):
+        names = [getattr(i, "name", None) or i.marker_id for i in items]
+        for j, n in enumerate(names):
+            if names.index(n) != j:
+                r.fail((*w, key, j), f"{kind} name {n!r} is used twice; names must be unique")
+    try:
+        site = SiteMap.empty(
+            width,
+            height,
+            res,
+            border=border,
+            doors=tuple(doors),
+            markers=tuple(markers),
+            name=r.text(d, w, "name", "site"),
+        )
+        site.grid(headings)  # refuses grids too large for memory
+    except FusionError as err:
+        r.fail(w, str(err))
+    boxes = d.get("boxes", [])
+    if not isinstance(boxes, list):
+        r.fail((*w, "boxes"), "must be an array of [x0, y0, x1, y1] boxes in metres")
+    for i, box in enumerate(boxes):
+        ok = (
+            isinstance(box, list)
+            and len(box) == 4
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in box)
+        )
+        if not ok:
+            r.fail((*w, "boxes"), f"box {i + 1} must be [x0, y0, x1, y1] in metres, got {box!r}")
+        site = site.with_box(*box)
+    return site, headings
+
+
+def _on_map(r, where, x, y, width, height, what):
+    if not (0 <= x < width and 0 <= y < height):
+        r.fail(where, f"{what} at ({x} m, {y} m) is off the map (0–{width} m × 0–{height} m)")
+
+
+def _params(r: _Reader, d: dict, where: tuple, cls, skip: set) -> object:
+    defaults = cls()
+    values = {}
+    for f in dataclasses.fields(cls):
+        if f.name not in d:
+            continue
+        default = getattr(defaults, f.name)
+        if isinstance(default, tuple):
+            values[f.name] = r.numbers(d, where, f.name)
+        elif isinstance(default, int) and not isinstance(default, bool):
+            values[f.name] = r.number(d, where, f.name, whole=True, low=1)
+        else:
+            values[f.name] = float(r.number(d, where, f.name))
+    known = {f.name for f in dataclasses.fields(cls)} | skip
+    r.only(d, where, known)
+    return cls(**values)
+
+
+def _sensors(r: _Reader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
+    out = []
+    tables = r.tables(data, (), "sensors")
+    if not tables:
+        r.fail((), "no [[sensors]] are given; a case needs at least odometry and one other sensor")
+    for i, d in enumerate(tables):
+        w = ("sensors", i)
+        name = r.text(d, w, "name")
+        kind = r.text(d, w, "kind", choices=tuple(SENSOR_KINDS))
+        rate = r.number(d, w, "rate_hz", 10.0 if kind == "odometry" else None, positive=True, high=100)
+        door = None
+        if kind == "door":
+            door = r.text(d, w, "door")
+            if door not in {x.name for x in site.doors}:
+                known = ", ".join(x.name for x in site.doors) or "none"
+                r.fail((*w, "door"), f"no door {door!r} on the site (doors: {known})")
+        if kind == "markers" and not site.markers:
+            r.fail((*w, "kind"), "a marker sensor needs markers on the site ([[site.markers]])")
+        params = _params(r, d, w, SENSOR_KINDS[kind], {"name", "kind", "rate_hz", "door", "faults"})
+        for f in ("reliability",):
+            value = getattr(params, f)
+            if not 0 <= value <= 1:
+                r.fail((*w, f), f"must lie in [0, 1], got {value!r}")
+        faults = []
+        for j, fd in enumerate(r.tables(d, w, "faults")):
+            fw = (*w, "faults", j)
+            fkind = r.text(fd, fw, "kind", choices=tuple(FAULT_KINDS[kind]))
+            start = r.number(fd, fw, "start_s", 0.0, low=0)
+            end = r.number(fd, fw, "end_s", math.inf if fkind != "slip" else start + 1e-9, low=0)
+            if end <= start and fkind != "slip":
+                r.fail((*fw, "end_s"), f"must be after start_s ({start} s), got {end!r}")
+            options = {k: v for k, v in fd.items() if k not in ("kind", "start_s", "end_s")}
+            allowed = {
+                "people": {"rate"},
+                "ghost": {"marker", "at_m", "rate"},
+                "stuck": {"value"},
+                "drift": {"turn_deg_per_m", "scale"},
+                "slip": {"forward_m", "turn_deg"},
+            }[fkind]
+            r.only(options, fw, allowed)
+            if fkind in ("people", "ghost"):
+                r.number(fd, fw, "rate", high=1, low=0)
+            if fkind == "ghost":
+                marker = r.text(fd, fw, "marker")
+                if marker not in {m.marker_id for m in site.markers}:
+                    r.fail((*fw, "marker"), f"no marker {marker!r} on the site")
+                r.numbers(fd, fw, "at_m", length=2)
+            if fkind == "stuck":
+                r.flag(fd, fw, "value")
+            if fkind == "drift":
+                r.number(fd, fw, "turn_deg_per_m", 0.0)
+                r.number(fd, fw, "scale", 1.0, positive=True)
+            if fkind == "slip":
+                r.number(fd, fw, "forward_m", 0.0)
+                r.number(fd, fw, "turn_deg", 0.0)
+            faults.append(FaultSpec(fkind, float(start), float(end), options))
+        out.append(SensorSpec(name, kind, float(rate), params, tuple(faults), door))
+    names = [s.name for s in out]
+    for i, n in enumerate(names):
+        if names.index(n) != i:
+            r.fail(("sensors", i, "name"), f"sensor name {n!r} is used twice; names must be unique")
+    if sum(s.kind == "odometry" for s in out) != 1:
+        r.fail(("sensors",), "exactly one sensor of kind 'odometry' is needed (it drives the prediction)")
+    return tuple(out)
+
+
+def _route(r: _Reader, d: dict, site: SiteMap) -> RouteSpec:
+    w = ("route",)
+    r.only(d, w, {"waypoints", "speed_mps", "turn_rate_deg_s", "carried", "start_known"})
+    raw = d.get("waypoints")
+    if not isinstance(raw, list) or len(raw) < 2:
+        r.fail((*w, "waypoints"), "needs at least two [x, y] waypoints in metres")
+    points = []
+    for i, p in enumerate(raw):
+        ok = (
+            isinstance(p, list)
+            and len(p) == 2
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in p)
+        )
+        if not ok:
+            r.fail((*w, "waypoints"), f"waypoint {i + 1} must be [x, y] in metres, got {p!r}")
+        points.append((float(p[0]), float(p[1])))
+    for i, p in enumerate(points):
+        _free_point(r, (*w, "waypoints"), site, p, f"waypoint {i + 1}")
+    for i in range(len(points) - 1):
+        _free_segment(r, (*w, "waypoints"), site, points[i], points[i + 1], f"route leg {i + 1}")
+    speed = r.number(d, w, "speed_mps", 0.6, positive=True, high=5)
+    turn_rate = r.number(d, w, "turn_rate_deg_s", 90.0, positive=True, high=720)
+    carries = []
+    for i, cd in enumerate(r.tables(d, w, "carried")):
+        cw = (*w, "carried", i)
+        r.only(cd, cw, {"at_s", "to", "resume_waypoint"})
+        to = r.numbers(cd, cw, "to", length=3)
+        resume = r.number(cd, cw, "resume_waypoint", whole=True, low=1, high=len(points))
+        _free_point(r, (*cw, "to"), site, to[:2], "the place the robot is carried to")
+        _free_segment(r, (*cw, "to"), site, to[:2], points[resume - 1], "the leg after the carry")
+        carries.append(CarryEvent(float(r.number(cd, cw, "at_s", low=0)), to, int(resume)))
+    start_known = r.flag(d, w, "start_known", True)
+    return RouteSpec(
+        tuple(points), float(speed), float(turn_rate), tuple(sorted(carries, key=lambda c: c.at_s)), start_known
+    )
+
+
+def _free_point(r, where, site, p, what):
+    x, y = p
+    if not (0 <= x < site.width_m and 0 <= y < site.height_m):
+        r.fail(where, f"{what} ({x} m, {y} m) is off the map (0–{site.width_m} m × 0–{site.height_m} m)")
+    if site.occupied[int(y / site.resolution_m), int(x / site.resolution_m)]:
+        r.fail(where, f"{what} ({x} m, {y} m) is inside a wall or rack")
+
+
+def _free_segment(r, where, site, a, b, what):
+    length = math.hypot(b[0] - a[0], b[1] - a[1])
+    steps = max(2, int(length / (site.resolution_m / 4)) + 1)
+    for k in range(steps + 1):
+        x = a[0] + (b[0] - a[0]) * k / steps
+        y = a[1] + (b[1] - a[1]) * k / steps
+        if site.occupied[
+            min(int(y / site.resolution_m), site.occupied.shape[0] - 1),
+            min(int(x / site.resolution_m), site.occupied.shape[1] - 1),
+        ]:
+            r.fail(
+                where,
+                f"{what} from ({a[0]}, {a[1]}) to ({b[0]}, {b[1]}) passes through a wall or rack "
+                f"near ({x:.2f} m, {y:.2f} m)",
+            )
+
+
+def _run(r: _Reader, d: dict, sensors) -> RunSpec:
+    from fusion.backends.evidential import FILTER_RULES
+
+    w = ("run",)
+    r.only(d, w, {"backends", "rule", "max_focal", "seed", "tick_s", "policy"})
+    backends = d.get("backends", list(BACKENDS))
+    if not isinstance(backends, list) or not backends or any(b not in BACKENDS for b in backends):
+        r.fail((*w, "backends"), f"must be a non-empty array naming back ends among: {', '.join(BACKENDS)}")
+    rule = r.text(d, w, "rule", "dempster", choices=FILTER_RULES)
+    max_focal = r.number(d, w, "max_focal", 32, whole=True, low=2, high=4096)
+    seed = r.number(d, w, "seed", 1, whole=True, low=0)
+    tick = r.number(d, w, "tick_s", 0.25, positive=True, high=5)
+    policy = r.table(d, w, "policy", required=False)
+    from fusion.monitor import Policy
+
+    known = {f.name for f in dataclasses.fields(Policy)}
+    r.only(policy, (*w, "policy"), known)
+    for key, value in policy.items():
+        default = getattr(Policy(), key)
+        if isinstance(default, bool):
+            r.flag(policy, (*w, "policy"), key)
+        elif isinstance(default, int):
+            r.number(policy, (*w, "policy"), key, whole=True, low=0)
+        else:
+            r.number(policy, (*w, "policy"), key, low=0)
+    return RunSpec(tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy))

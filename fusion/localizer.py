@@ -1,0 +1,364 @@
+"""The embedding API: a ``Localizer`` that a robot's control loop calls once per tick.
+
+    loc = Localizer.from_case(load_case("cases/depot.toml"), backend="evidential")
+    decision = loc.step(odometry, observations)
+    if decision.action == "re-localize": ...
+
+One ``step`` predicts with the odometry, absorbs the readings, computes the conflict
+figures, asks the ``Monitor`` for an action and carries it out (re-localizing or
+quarantining a sensor); it returns a ``Decision`` with the pose estimate, its
+uncertainty, the figures, the action and the reasons.  A reading that cannot be
+used (unknown sensor, bad payload, out of time order) is rejected with its reason
+and leaves the state unchanged.
+
+Decision support and monitoring only: not a certified safety function.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections import deque
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from fusion.backends.bayes import HistogramFilter
+from fusion.backends.evidential import MassFilter
+from fusion.belief import rules
+from fusion.conflict import EvidenceAverages, jousselme_distance, pignistic_disagreement, weight_of_conflict
+from fusion.errors import FusionError, ObservationError
+from fusion.grid import PoseGrid
+from fusion.io.observations import Observation
+from fusion.monitor import RELOCALIZE, Monitor, Policy
+from fusion.sensors.base import Evidence
+from fusion.sensors.doors import DoorSensor
+from fusion.sensors.markers import MarkerSensor
+from fusion.sensors.odometry import OdometryReading, OdometrySensor
+from fusion.sensors.ranging import RangeSensor
+from fusion.site import SiteMap
+
+__all__ = ["SensorSet", "Decision", "Localizer"]
+
+
+class SensorSet:
+    """The sensor models of a site, by name; turns observations into evidence and motion."""
+
+    def __init__(self, site: SiteMap, grid: PoseGrid, specs):
+        self.site, self.grid = site, grid
+        self.kinds: dict[str, str] = {}
+        self.models: dict[str, object] = {}
+        self.odometry: OdometrySensor | None = None
+        self._cache: dict[int, tuple] = {}
+        for spec in specs:
+            self.kinds[spec.name] = spec.kind
+            if spec.kind == "odometry":
+                self.odometry = OdometrySensor(spec.name, grid, spec.params)
+            elif spec.kind == "ranging":
+                self.models[spec.name] = RangeSensor(spec.name, site, grid, spec.params)
+            elif spec.kind == "markers":
+                self.models[spec.name] = MarkerSensor(spec.name, site, grid, spec.params)
+            elif spec.kind == "door":
+                self.models[spec.name] = DoorSensor(spec.name, spec.door, site, grid, spec.params)
+
+    def check(self, obs: Observation) -> None:
+        kind = self.kinds.get(obs.sensor)
+        if kind is None:
+            raise ObservationError(f"unknown sensor {obs.sensor!r}; this site's sensors: {', '.join(self.kinds)}")
+        if kind != obs.kind:
+            raise ObservationError(
+                f"sensor {obs.sensor!r} is a {kind} sensor, but the observation is of kind {obs.kind!r}"
+            )
+
+    def encode(self, obs: Observation) -> Evidence:
+        """Evidence of one reading; the same observation object is encoded once even when several
+        localizers (e.g. both back ends side by side) share this sensor set."""
+        hit = self._cache.get(id(obs))
+        if hit is not None and hit[0] is obs:
+            return hit[1]
+        self.check(obs)
+        evidence = self.models[obs.sensor].encode(obs.reading)
+        if len(self._cache) > 64:
+            self._cache.clear()
+        self._cache[id(obs)] = (obs, evidence)
+        return evidence
+
+
+@dataclass
+class Decision:
+    t: float
+    backend: str
+    x_m: float
+    y_m: float
+    heading_deg: float
+    spread_m: float  # RMS distance of the distribution from the estimate
+    region_cells: int
+    action: str
+    reasons: list[str]
+    figures: dict  # conflict figures of this tick (see fusion.conflict)
+    blame: list[tuple[str, float]]  # leave-one-out: how much removing each sensor lowers this tick's conflict
+    quarantined: tuple[str, ...]
+    rejected: list[tuple[str, str]] = field(default_factory=list)  # (sensor, reason)
+    seconds: float = 0.0
+
+    def to_record(self) -> dict:
+        def clean(v):
+            if isinstance(v, float):
+                return None if not math.isfinite(v) else round(v, 6)
+            return v
+
+        return {
+            "t": round(self.t, 6),
+            "backend": self.backend,
+            "x_m": round(self.x_m, 4),
+            "y_m": round(self.y_m, 4),
+            "heading_deg": round(self.heading_deg, 3),
+            "spread_m": round(self.spread_m, 4),
+            "region_cells": self.region_cells,
+            "action": self.action,
+            "reasons": self.reasons,
+            "figures": {k: clean(v) for k, v in self.figures.items()},
+            "blame": [[s, round(v, 6)] for s, v in self.blame],
+            "quarantined": list(self.quarantined),
+            "rejected": [{"sensor": s, "reason": r} for s, r in self.rejected],
+            "seconds": round(self.seconds, 6),
+        }
+
+
+class Localizer:
+    def __init__(
+        self,
+        backend: str,
+        sensors: SensorSet,
+        policy: Policy = Policy(),
+        *,
+        rule: str = "dempster",
+        max_focal: int = 32,
+    ):
+        if backend not in ("bayes", "evidential"):
+            raise ObservationError(f"unknown back end {backend!r}; choose 'bayes' or 'evidential'")
+        self.sensors, self.policy = sensors, policy
+        grid, free = sensors.grid, sensors.site.free
+        # The best region is computed once per tick by the pose estimate, not after every update.
+        self.filter = (
+            HistogramFilter(grid, free, report_region=False)
+            if backend == "bayes"
+            else MassFilter(grid, free, rule=rule, max_focal=max_focal, report_region=False)
+        )
+        self.backend = backend
+        self.monitor = Monitor(backend, policy)
+        self.averages = EvidenceAverages()
+        self.last_t = -math.inf
+        self._episode: deque = deque(maxlen=policy.relocalize_after + 4)
+        self._free_prior = grid.broadcast(free).astype(np.float64)
+
+    @classmethod
+    def from_case(cls, case, backend: str, **options) -> Localizer:
+        from fusion.monitor import Policy as _Policy
+
+        grid = case.site.grid(case.headings)
+        policy = _Policy(**case.run.policy)
+        options.setdefault("rule", case.run.rule)
+        options.setdefault("max_focal", case.run.max_focal)
+        return cls(backend, SensorSet(case.site, grid, case.sensors), policy, **options)
+
+    def start_at(
+        self, x_m: float, y_m: float, heading_deg: float, radius_m: float = 0.5, heading_tol_deg: float = 15.0
+    ) -> None:
+        """Start from a known pose: every free cell within ``radius_m`` and ``heading_tol_deg`` is equally possible."""
+        g = self.sensors.grid
+        g.cell_of(x_m, y_m, math.radians(heading_deg))  # PoseError if off the site
+        xs, ys, hs = g.poses_of(np.arange(g.n_cells))
+        near = (xs - x_m) ** 2 + (ys - y_m) ** 2 <= max(radius_m, g.resolution_m) ** 2
+        dh = np.abs((np.degrees(hs) - heading_deg + 180.0) % 360.0 - 180.0)
+        prior = near & (dh <= max(heading_tol_deg, math.degrees(g.heading_step) / 2)) & (self._free_prior > 0)
+        if not prior.any():
+            raise ObservationError(f"no free cell within {radius_m} m of ({x_m}, {y_m}); is the start inside a rack?")
+        self.filter.reset(prior.astype(np.float64))
+
+    def start_anywhere(self) -> None:
+        """Start from ignorance over free space (global localization)."""
+        self.filter.reset(self._free_prior)
+
+    # ----------------------------------------------------------------- the loop
+    def step(self, odometry, observations=()) -> Decision:
+        """One tick: ``odometry`` (an odometry ``Observation`` or ``OdometryReading``, or None) and readings."""
+        start = time.perf_counter()
+        rejected: list[tuple[str, str]] = []
+        t = self.last_t if self.last_t > -math.inf else 0.0
+        motion = None
+        if odometry is not None:
+            try:
+                reading = odometry.reading if isinstance(odometry, Observation) else odometry
+                if isinstance(odometry, Observation):
+                    self.sensors.check(odometry)
+                    t = self._check_time(odometry.t)
+                if not isinstance(reading, OdometryReading):
+                    raise ObservationError("the odometry argument must be an odometry reading")
+                motion = self.sensors.odometry.motion(reading)
+            except FusionError as err:
+                rejected.append((getattr(odometry, "sensor", "odometry"), str(err)))
+        encoded = []
+        for obs in observations:
+            try:
+                if not isinstance(obs, Observation):
+                    raise ObservationError(f"expected an Observation, got {type(obs).__name__}")
+                if obs.kind == "odometry":
+                    raise ObservationError("odometry goes in the first argument of step(), not among the readings")
+                when = self._check_time(obs.t)
+                encoded.append((obs.sensor, self.sensors.encode(obs)))
+                t = max(t, when)
+            except FusionError as err:
+                rejected.append((getattr(obs, "sensor", "?"), str(err)))
+        self.last_t = max(self.last_t, t)
+        return self._absorb(t, motion, encoded, rejected, start)
+
+    def _check_time(self, t: float) -> float:
+        if not math.isfinite(t):
+            raise ObservationError(f"time {t!r} is not a finite number of seconds")
+        if t < self.last_t - 1e-9:
+            raise ObservationError(f"out of time order: t = {t:g} s comes after t = {self.last_t:g} s")
+        return t
+
+    def _absorb(self, t, motion, encoded, rejected, start) -> Decision:
+        f = self.filter
+        if motion is not None:
+            f.predict(motion)
+        before = self._snapshot()
+        figures = {
+            "conflict": 0.0,
+            "weight_of_conflict": 0.0,
+            "disagreement": 0.0,
+            "surprise": 0.0,
+            "evidence_ratio": self.averages.ratio,
+        }
+        tick_conflicting = False
+        tick_clear = True
+        applied = []
+        for sensor, evidence in encoded:
+            original = evidence
+            if sensor in self.monitor.quarantined:
+                evidence = Evidence(
+                    evidence.sensor,
+                    evidence.contour,
+                    evidence.reliability * self.policy.quarantine_reliability,
+                    evidence.levels,
+                    evidence.form,
+                )
+            own = self._own_figure(original) if evidence is not original else None
+            prior = f.belief  # immutable on the mass side; only read below if the update conflicted
+            report = f.update(evidence)
+            applied.append((sensor, evidence))
+            if self.backend == "evidential":
+                k = report.conflict
+                figure = k if own is None else own
+                disagreement = 0.0
+                if figure > self.policy.conflict_k:
+                    disagreement = pignistic_disagreement(_pignistic(prior), original.masses.pignistic())
+                figures["conflict"] = max(figures["conflict"], k)
+                figures["disagreement"] = max(figures["disagreement"], disagreement)
+                disagree = self.monitor.disagrees(figure, disagreement)
+                clear = figure < self.policy.clear_fraction * self.policy.conflict_k
+            else:
+                log_z = report.log_evidence
+                surprise = -log_z if own is None else own
+                ratio = self.averages.add(log_z)
+                figures["surprise"] = max(figures["surprise"], -log_z)
+                figures["evidence_ratio"] = ratio
+                disagree = self.monitor.disagrees(surprise)
+                clear = surprise < self.policy.clear_fraction * self.policy.surprise
+                if sensor not in self.monitor.quarantined and ratio > self.policy.lost_ratio:
+                    disagree, clear = True, False
+            self.monitor.record_reading(sensor, disagree)
+            if sensor not in self.monitor.quarantined:
+                tick_conflicting |= disagree
+                tick_clear &= clear
+        figures["weight_of_conflict"] = weight_of_conflict(figures["conflict"])
+        if self.backend == "evidential" and encoded:
+            figures["jousselme"] = jousselme_distance(before, f.belief)
+        blame = self._leave_one_out(before, applied) if tick_conflicting else []
+        self._episode.append((motion, applied))
+        verdict = self.monitor.judge(tick_conflicting, tick_clear and not tick_conflicting, blame)
+        if tick_clear and not tick_conflicting:
+            self._episode.clear()
+        if verdict.action == RELOCALIZE:
+            self._relocalize()
+        est = f.pose_estimate()
+        return Decision(
+            t,
+            self.backend,
+            est.x_m,
+            est.y_m,
+            math.degrees(est.heading_rad) % 360,
+            est.spread_m,
+            est.region_cells,
+            verdict.action,
+            verdict.reasons,
+            figures,
+            blame,
+            verdict.quarantined,
+            rejected,
+            time.perf_counter() - start,
+        )
+
+    # ----------------------------------------------------------------- helpers
+    def _snapshot(self):
+        return self.filter.belief if self.backend == "evidential" else self.filter.belief.probabilities
+
+    def _own_figure(self, evidence: Evidence) -> float:
+        """The conflict a quarantined sensor's undiscounted reading has with the current belief."""
+        if self.backend == "evidential":
+            return rules.conflict_mass(self.filter.belief.normalised(), evidence.masses)
+        z = float(self.filter.belief.probabilities @ evidence.likelihood)
+        return math.inf if z <= 0 else -math.log(z)
+
+    def _leave_one_out(self, before, applied) -> list[tuple[str, float]]:
+        """For each sensor of this tick: how much the tick's conflict falls when its reading is left out."""
+        if len(applied) < 2:
+            return [(s, self._tick_conflict(before, applied)) for s, _ in applied]
+        whole = self._tick_conflict(before, applied)
+        out = []
+        for i, (sensor, _) in enumerate(applied):
+            rest = applied[:i] + applied[i + 1 :]
+            out.append((sensor, whole - self._tick_conflict(before, rest)))
+        return sorted(out, key=lambda sv: -sv[1])
+
+    def _tick_conflict(self, before, applied) -> float:
+        """Conflict of absorbing ``applied`` into ``before`` at once: K (evidential) or surprise (Bayes)."""
+        if not applied:
+            return 0.0
+        if self.backend == "evidential":
+            m, keep = before.normalised() if before.conflict < 1 else before, 1.0
+            for _, e in applied:
+                red = rules.conjunctive_reduced(m, e.masses, self.filter.max_focal)
+                k = red.mass_function.conflict
+                keep *= 1.0 - k
+                if k >= 1.0:
+                    return 1.0
+                m = red.mass_function.normalised()
+            return 1.0 - keep
+        lik = np.ones_like(before)
+        for _, e in applied:
+            lik = lik * e.likelihood
+        z = float(before @ lik)
+        return math.inf if z <= 0 else -math.log(z)
+
+    def _relocalize(self) -> None:
+        """Reset to ignorance over free space, then replay this episode's readings (re-seed from them)."""
+        f = self.filter
+        f.reset(self._free_prior)
+        self.averages.reset()
+        for motion, applied in list(self._episode):
+            if motion is not None:
+                f.predict(motion)
+            for _, evidence in applied:
+                f.update(evidence)
+        self._episode.clear()
+        self.monitor.forget_history()
+
+
+def _pignistic(m) -> np.ndarray:
+    try:
+        return m.pignistic()
+    except FusionError:  # all mass on the empty set: no opinion left
+        return np.full(m.n, 1.0 / m.n)

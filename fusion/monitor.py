@@ -1,0 +1,141 @@
+"""The conflict policy: turns each tick's conflict figures into an action, without crying wolf.
+
+A tick is *conflicting* when its readings disagree with the belief:
+- evidential: Dempster's K above ``conflict_k`` **and** pignistic disagreement above
+  ``disagreement`` (two-dimensional conflict, Liu 2006: a large K alone can come from
+  sources that agree but are each uncertain);
+- Bayesian: surprise above ``surprise`` nats, or the slow/fast evidence ratio above ``lost_ratio``.
+It is *clear* when both figures are below ``clear_fraction`` of their thresholds, and
+neutral in between (hysteresis: a neutral tick neither starts nor ends an episode).
+
+Actions: ``carry on``; ``alert operator`` after ``alert_after`` conflicting ticks in a row
+(once per episode, naming the sensors most to blame); ``re-localize`` after
+``relocalize_after`` conflicting ticks in a row, then not again for ``cooldown_ticks``;
+``quarantine sensor`` when one sensor keeps disagreeing while the others agree: it is
+then discounted (its reliability multiplied by ``quarantine_reliability``) until it has
+agreed ``release_after`` times in a row.  Thresholds are set per case (``[run.policy]``).
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from dataclasses import dataclass, field
+
+__all__ = ["Policy", "Monitor", "TickVerdict", "CARRY_ON", "ALERT", "RELOCALIZE", "QUARANTINE"]
+
+CARRY_ON = "carry on"
+ALERT = "alert operator"
+RELOCALIZE = "re-localize"
+QUARANTINE = "quarantine sensor"
+
+
+@dataclass(frozen=True)
+class Policy:
+    conflict_k: float = 0.7
+    disagreement: float = 0.3
+    surprise: float = 2.5
+    lost_ratio: float = 4.0
+    clear_fraction: float = 0.5
+    alert_after: int = 2
+    relocalize_after: int = 4
+    cooldown_ticks: int = 8
+    quarantine_after: int = 3
+    quarantine_window: int = 6
+    quarantine_reliability: float = 0.2
+    release_after: int = 4
+    others_agree: float = 0.25  # others disagree in at most this share of their recent readings
+
+
+@dataclass
+class TickVerdict:
+    action: str
+    reasons: list[str] = field(default_factory=list)
+    conflicting: bool = False
+    quarantined: tuple[str, ...] = ()
+    released: tuple[str, ...] = ()
+
+
+class Monitor:
+    """State of the policy for one back end.  Feed it one tick at a time with ``judge``."""
+
+    def __init__(self, backend: str, policy: Policy = Policy()):
+        self.backend, self.policy = backend, policy
+        self.run = 0  # consecutive conflicting ticks
+        self.cooldown = 0
+        self.alerted = False
+        self.quarantined: set[str] = set()
+        self._history: dict[str, deque] = {}  # sensor -> recent disagree flags
+        self._agree_run: dict[str, int] = {}
+
+    # ----------------------------------------------------------------- per reading
+    def disagrees(self, figure: float, extra: float | None = None) -> bool:
+        """Does one reading's figure (K, or surprise) count as disagreeing with the belief?"""
+        p = self.policy
+        if self.backend == "evidential":
+            return figure > p.conflict_k and (extra is None or extra > p.disagreement)
+        return figure > p.surprise
+
+    def record_reading(self, sensor: str, disagree: bool) -> None:
+        window = self._history.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))
+        window.append(disagree)
+        self._agree_run[sensor] = 0 if disagree else self._agree_run.get(sensor, 0) + 1
+
+    # ----------------------------------------------------------------- per tick
+    def judge(self, conflicting: bool, clear: bool, blame: list[tuple[str, float]]) -> TickVerdict:
+        p = self.policy
+        verdict = TickVerdict(CARRY_ON, conflicting=conflicting)
+        newly, released = self._quarantine_changes()
+        if newly:
+            verdict.action = QUARANTINE
+            verdict.reasons.append(
+                f"{', '.join(newly)} disagreed with the belief in most of its recent readings while the other "
+                f"sensors agreed; it is discounted until it agrees again"
+            )
+        if released:
+            verdict.reasons.append(f"{', '.join(released)} agrees again; its quarantine is lifted")
+        verdict.quarantined, verdict.released = tuple(sorted(self.quarantined)), tuple(released)
+        if self.cooldown:
+            self.cooldown -= 1
+        if conflicting:
+            self.run += 1
+        elif clear:
+            if self.alerted and self.run == 0:
+                verdict.reasons.append("readings agree with the belief again")
+            self.run, self.alerted = 0, False
+        top = ", ".join(f"{s} ({v:.2f})" for s, v in blame[:2] if v > 0) or "no single sensor"
+        if self.run >= p.relocalize_after and not self.cooldown and not newly:
+            verdict.action = RELOCALIZE
+            verdict.reasons.append(
+                f"{self.run} conflicting ticks in a row (limit {p.relocalize_after}); most to blame: {top}; "
+                "the belief is reset and re-seeded from the readings of this episode"
+            )
+            self.run, self.cooldown, self.alerted = 0, p.cooldown_ticks, False
+        elif self.run >= p.alert_after and not self.alerted and verdict.action == CARRY_ON:
+            verdict.action = ALERT
+            verdict.reasons.append(f"{self.run} conflicting ticks in a row; most to blame: {top}")
+            self.alerted = True
+        return verdict
+
+    def _quarantine_changes(self) -> tuple[list[str], list[str]]:
+        p = self.policy
+        newly, released = [], []
+        for sensor, window in self._history.items():
+            if sensor in self.quarantined:
+                if self._agree_run.get(sensor, 0) >= p.release_after:
+                    self.quarantined.discard(sensor)
+                    released.append(sensor)
+                continue
+            if sum(window) < p.quarantine_after:
+                continue
+            others = [w for s, w in self._history.items() if s != sensor and s not in self.quarantined and len(w)]
+            if others and all(sum(w) / len(w) <= p.others_agree for w in others):
+                self.quarantined.add(sensor)
+                newly.append(sensor)
+                window.clear()
+                self._agree_run[sensor] = 0
+        return newly, released
+
+    def forget_history(self) -> None:
+        """After a re-localization the old readings no longer describe the new belief."""
+        for window in self._history.values():
+            window.clear()

@@ -1,0 +1,200 @@
+"""Run a case: simulate it, drive one ``Localizer`` per back end on identical readings, record every tick.
+
+Results go to an output folder: ``observations.jsonl`` (the log, one reading a line),
+``truth.jsonl``, ``steps.csv`` (one row per tick and back end) and ``summary.json``.
+Each file is written to a temporary name and renamed into place, so a reader never
+sees half a file, and the folder is created only once the case has been validated.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from fusion import SAFETY_NOTICE, __version__
+from fusion.io.case import Case
+from fusion.localizer import Decision, Localizer, SensorSet
+from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Policy
+from fusion.simulate import Tick, simulate
+
+__all__ = ["StepRow", "RunResult", "run_case", "write_results", "STEP_COLUMNS"]
+
+STEP_COLUMNS = (
+    "t",
+    "backend",
+    "true_x_m",
+    "true_y_m",
+    "true_heading_deg",
+    "x_m",
+    "y_m",
+    "heading_deg",
+    "error_m",
+    "heading_error_deg",
+    "spread_m",
+    "region_cells",
+    "conflict",
+    "weight_of_conflict",
+    "disagreement",
+    "jousselme",
+    "surprise",
+    "evidence_ratio",
+    "action",
+    "blame",
+    "quarantined",
+    "faults",
+    "carried",
+    "seconds",
+)
+
+
+@dataclass
+class StepRow:
+    values: dict
+
+    @classmethod
+    def of(cls, tick: Tick, d: Decision) -> StepRow:
+        tr = tick.truth
+        err = math.hypot(d.x_m - tr.x_m, d.y_m - tr.y_m)
+        herr = abs((d.heading_deg - tr.heading_deg + 180.0) % 360.0 - 180.0)
+        fig = d.figures
+        return cls(
+            {
+                "t": tr.t,
+                "backend": d.backend,
+                "true_x_m": tr.x_m,
+                "true_y_m": tr.y_m,
+                "true_heading_deg": tr.heading_deg % 360,
+                "x_m": d.x_m,
+                "y_m": d.y_m,
+                "heading_deg": d.heading_deg,
+                "error_m": err,
+                "heading_error_deg": herr,
+                "spread_m": d.spread_m,
+                "region_cells": d.region_cells,
+                "conflict": fig.get("conflict", 0.0),
+                "weight_of_conflict": fig.get("weight_of_conflict", 0.0),
+                "disagreement": fig.get("disagreement", 0.0),
+                "jousselme": fig.get("jousselme", 0.0),
+                "surprise": fig.get("surprise", 0.0),
+                "evidence_ratio": fig.get("evidence_ratio", 1.0),
+                "action": d.action,
+                "blame": ";".join(f"{s}={v:.3f}" for s, v in d.blame[:3]),
+                "quarantined": ";".join(d.quarantined),
+                "faults": ";".join(tr.faults),
+                "carried": tr.carried,
+                "seconds": d.seconds,
+            }
+        )
+
+
+@dataclass
+class RunResult:
+    case: Case
+    ticks: list[Tick]
+    rows: list[StepRow] = field(default_factory=list)
+    events: list[dict] = field(default_factory=list)  # monitor actions other than "carry on"
+
+    def summary(self) -> dict:
+        out = {
+            "case": self.case.name,
+            "seed": self.case.run.seed,
+            "ticks": len(self.ticks),
+            "duration_s": self.ticks[-1].truth.t if self.ticks else 0.0,
+            "tool": f"fusion {__version__}",
+            "notice": SAFETY_NOTICE,
+            "backends": {},
+        }
+        for backend in self.case.run.backends:
+            mine = [r.values for r in self.rows if r.values["backend"] == backend]
+            if not mine:
+                continue
+            err = np.array([r["error_m"] for r in mine])
+            herr = np.array([r["heading_error_deg"] for r in mine])
+            secs = np.array([r["seconds"] for r in mine])
+            actions = [r["action"] for r in mine]
+            out["backends"][backend] = {
+                "median_error_m": float(np.median(err)),
+                "p95_error_m": float(np.percentile(err, 95)),
+                "median_heading_error_deg": float(np.median(herr)),
+                "within_0_5_m_and_15_deg": float(np.mean((err <= 0.5) & (herr <= 15.0))),
+                "alerts": actions.count(ALERT),
+                "relocalizations": actions.count(RELOCALIZE),
+                "quarantines": actions.count(QUARANTINE),
+                "mean_step_ms": float(secs.mean() * 1e3),
+                "p95_step_ms": float(np.percentile(secs, 95) * 1e3),
+            }
+        return out
+
+
+def run_case(case: Case, backends=None, rule: str | None = None, on_tick=None, seed: int | None = None) -> RunResult:
+    """Simulate ``case`` and run the back ends side by side; ``on_tick(tick, decisions)`` is called after each tick."""
+    backends = tuple(backends or case.run.backends)
+    grid = case.site.grid(case.headings)
+    sensors = SensorSet(case.site, grid, case.sensors)
+    policy = Policy(**case.run.policy)
+    localizers = {
+        b: Localizer(b, sensors, policy, rule=rule or case.run.rule, max_focal=case.run.max_focal) for b in backends
+    }
+    ticks = simulate(case, seed=seed)
+    result = RunResult(case, ticks)
+    if ticks and case.route.start_known:
+        first = ticks[0].truth
+        for loc in localizers.values():
+            loc.start_at(first.x_m, first.y_m, first.heading_deg)
+    for tick in ticks:
+        odometry = next((o for o in tick.observations if o.kind == "odometry"), None)
+        readings = [o for o in tick.observations if o.kind != "odometry"]
+        decisions = {}
+        for name, loc in localizers.items():
+            d = loc.step(odometry, readings)
+            decisions[name] = d
+            result.rows.append(StepRow.of(tick, d))
+            if d.action != CARRY_ON or d.reasons:
+                result.events.append({"t": tick.truth.t, "backend": name, "action": d.action, "reasons": d.reasons})
+        if on_tick is not None:
+            on_tick(tick, decisions, localizers)
+    return result
+
+
+def _atomic_write(path: Path, text: str) -> None:
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def write_results(result: RunResult, out_dir) -> Path:
+    """Write the log, truth, per-tick table and summary into ``out_dir`` (created if needed)."""
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    log = "".join(json.dumps(o.to_record()) + "\n" for t in result.ticks for o in t.observations)
+    truth = "".join(json.dumps(t.truth.to_record()) + "\n" for t in result.ticks)
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=STEP_COLUMNS)
+    writer.writeheader()
+    for r in result.rows:
+        writer.writerow({k: (f"{v:.6g}" if isinstance(v, float) else v) for k, v in r.values.items()})
+    summary = result.summary()
+    summary["events"] = result.events
+    _atomic_write(out / "observations.jsonl", log)
+    _atomic_write(out / "truth.jsonl", truth)
+    _atomic_write(out / "steps.csv", buf.getvalue())
+    _atomic_write(out / "summary.json", json.dumps(summary, indent=2, allow_nan=False, default=_finite) + "\n")
+    return out
+
+
+def _finite(value):
+    return None

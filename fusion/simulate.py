@@ -1,0 +1,236 @@
+"""Drive a robot along a case's route and produce ground truth and sensor readings, with faults injected.
+
+Every random draw comes from generators seeded by the case's seed and the
+sensor's position in the case, so a run is reproducible and adding a sensor does
+not change the readings of the others.  Sensors are simulated with the same
+parameters their models assume (noise, detection and false-alarm rates); the
+faults are what the models do *not* assume:
+
+- ranging ``people``: short returns from people walking through the beams;
+- markers ``ghost``: sightings of a marker from a place it is not (a reflection, a copied label);
+- door ``stuck``: the contact reads a fixed value;
+- odometry ``drift`` (heading drift, scale error) and ``slip`` (one large error);
+- route ``carried``: the robot is lifted and put down elsewhere; its wheels report no motion.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from fusion.io.case import Case, SensorSpec
+from fusion.io.observations import Observation
+from fusion.sensors.doors import DoorReading
+from fusion.sensors.markers import MarkerMiss, MarkerSighting
+from fusion.sensors.odometry import OdometryReading
+from fusion.sensors.ranging import RangeScan
+
+__all__ = ["Tick", "TruePose", "simulate"]
+
+
+@dataclass(frozen=True)
+class TruePose:
+    t: float
+    x_m: float
+    y_m: float
+    heading_deg: float
+    faults: tuple[str, ...] = ()  # "sensor: fault" active at this tick
+    carried: bool = False  # the robot was put down somewhere else at this tick
+
+    def to_record(self) -> dict:
+        return {
+            "t": round(self.t, 6),
+            "x_m": round(self.x_m, 4),
+            "y_m": round(self.y_m, 4),
+            "heading_deg": round(self.heading_deg % 360, 3),
+            "faults": list(self.faults),
+            "carried": self.carried,
+        }
+
+
+@dataclass(frozen=True)
+class Tick:
+    truth: TruePose
+    observations: tuple[Observation, ...] = field(default_factory=tuple)
+
+
+def _wrap_deg(a: float) -> float:
+    return (a + 180.0) % 360.0 - 180.0
+
+
+class _Driver:
+    """The true motion: turn on the spot towards the next waypoint, then drive straight to it."""
+
+    def __init__(self, case: Case):
+        route = case.route
+        self.points = list(route.waypoints)
+        self.speed, self.turn_rate = route.speed_mps, route.turn_rate_deg_s
+        self.x, self.y = self.points[0]
+        first = self.points[1]
+        self.heading = math.degrees(math.atan2(first[1] - self.y, first[0] - self.x))
+        self.target = 1
+        self.carries = list(route.carries)
+
+    @property
+    def done(self) -> bool:
+        return self.target >= len(self.points)
+
+    def carry_due(self, t: float, dt: float):
+        if self.carries and self.carries[0].at_s < t + dt / 2:
+            return self.carries.pop(0)
+        return None
+
+    def step(self, dt: float) -> tuple[float, float]:
+        """Advance by ``dt``; returns the true (forward metres, turn degrees) of this tick."""
+        forward = turn = 0.0
+        budget = dt
+        while budget > 1e-12 and not self.done:
+            tx, ty = self.points[self.target]
+            dist = math.hypot(tx - self.x, ty - self.y)
+            if dist < 1e-9:
+                self.target += 1
+                continue
+            want = _wrap_deg(math.degrees(math.atan2(ty - self.y, tx - self.x)) - self.heading)
+            if abs(want) > 1e-6:
+                step = math.copysign(min(abs(want), self.turn_rate * budget), want)
+                self.heading += step
+                turn += step
+                budget -= abs(step) / self.turn_rate
+                continue
+            move = min(dist, self.speed * budget)
+            rad = math.radians(self.heading)
+            self.x += move * math.cos(rad)
+            self.y += move * math.sin(rad)
+            forward += move
+            budget -= move / self.speed
+            if move >= dist - 1e-12:
+                self.target += 1
+        return forward, turn
+
+
+def _fires(index: int, tick: int, rate_hz: float, dt: float) -> bool:
+    every = max(1, round(1.0 / (rate_hz * dt)))
+    return (tick + index) % every == 0
+
+
+def simulate(case: Case, seed: int | None = None, max_ticks: int = 100_000) -> list[Tick]:
+    """The whole run as ticks of ``case.run.tick_s``; each holds the true pose and the readings of that tick."""
+    seed = case.run.seed if seed is None else seed
+    rngs = [np.random.default_rng([seed, i]) for i in range(len(case.sensors))]
+    driver = _Driver(case)
+    dt = case.run.tick_s
+    ticks: list[Tick] = []
+    k = 0
+    while not driver.done and k < max_ticks:
+        t = k * dt
+        carry = driver.carry_due(t, dt)
+        if carry is not None:
+            driver.x, driver.y, driver.heading = carry.to
+            driver.target = carry.resume_waypoint - 1 if carry.resume_waypoint > 1 else 1
+            forward, turn = 0.0, 0.0
+        else:
+            forward, turn = driver.step(dt) if k else (0.0, 0.0)
+        active = tuple(f"{s.name}: {f.kind}" for s in case.sensors for f in s.faults if f.active(t))
+        truth = TruePose(t, driver.x, driver.y, driver.heading, active, carry is not None)
+        observations = []
+        for i, spec in enumerate(case.sensors):
+            if spec.kind == "odometry":
+                observations.append(
+                    Observation(t, spec.name, "odometry", _odometry(spec, forward, turn, t, dt, rngs[i]))
+                )
+            elif _fires(i, k, spec.rate_hz, dt):
+                reading = _SIMULATORS[spec.kind](case, spec, truth, rngs[i])
+                observations.append(Observation(t, spec.name, spec.kind, reading))
+        observations.sort(key=lambda o: o.kind != "odometry")  # motion first, then the readings
+        ticks.append(Tick(truth, tuple(observations)))
+        k += 1
+    return ticks
+
+
+def _odometry(spec: SensorSpec, forward: float, turn: float, t: float, dt: float, rng) -> OdometryReading:
+    p = spec.params
+    measured_f = forward + rng.normal(0.0, p.sigma_per_m * abs(forward) + 1e-4)
+    measured_t = turn + rng.normal(
+        0.0, p.turn_sigma_per_m_deg * abs(forward) + p.turn_sigma_per_turn * abs(turn) + 0.05
+    )
+    for fault in spec.faults:
+        if fault.kind == "drift" and fault.active(t):
+            measured_f *= float(fault.options.get("scale", 1.0))
+            measured_t += float(fault.options.get("turn_deg_per_m", 0.0)) * abs(forward)
+        if fault.kind == "slip" and t <= fault.start_s < t + dt:
+            measured_f += float(fault.options.get("forward_m", 0.0))
+            measured_t += float(fault.options.get("turn_deg", 0.0))
+    return OdometryReading(float(measured_f), 0.0, float(measured_t))
+
+
+def _ranging(case: Case, spec: SensorSpec, truth: TruePose, rng) -> RangeScan:
+    p = spec.params
+    people = [f for f in spec.faults if f.kind == "people" and f.active(truth.t)]
+    ranges = []
+    for bearing in p.bearings_deg:
+        z = case.site.ray_range(truth.x_m, truth.y_m, math.radians(truth.heading_deg + bearing), p.max_range_m)
+        if z < p.max_range_m:
+            z = max(0.0, z + rng.normal(0.0, p.sigma_hit_m))
+        for f in people:
+            if rng.random() < float(f.options["rate"]):
+                z = float(rng.uniform(0.3, max(0.31, min(z, p.max_range_m))))
+        ranges.append(min(z, p.max_range_m))
+    return RangeScan(tuple(ranges))
+
+
+def _bearing_to(truth: TruePose, x: float, y: float) -> tuple[float, float]:
+    r = math.hypot(x - truth.x_m, y - truth.y_m)
+    b = _wrap_deg(math.degrees(math.atan2(y - truth.y_m, x - truth.x_m)) - truth.heading_deg)
+    return r, b
+
+
+def _markers(case: Case, spec: SensorSpec, truth: TruePose, rng):
+    p = spec.params
+    site = case.site
+    for f in spec.faults:
+        if f.kind == "ghost" and f.active(truth.t) and rng.random() < float(f.options["rate"]):
+            gx, gy = f.options["at_m"]
+            r, b = _bearing_to(truth, float(gx), float(gy))
+            if r <= p.max_range_m and abs(b) <= p.fov_deg / 2:
+                return MarkerSighting(
+                    str(f.options["marker"]), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg)
+                )
+    seen = []
+    for m in site.markers:
+        r, b = _bearing_to(truth, m.x, m.y)
+        if r > p.max_range_m or abs(b) > p.fov_deg / 2:
+            continue
+        clear = site.ray_range(truth.x_m, truth.y_m, math.radians(truth.heading_deg + b), r)
+        if clear < r - 1.5 * site.resolution_m:  # a rack is in the way
+            continue
+        if rng.random() < p.p_detect:
+            seen.append((r, b, m.marker_id))
+    if rng.random() < p.false_rate:  # a look-alike print somewhere in view
+        fake = site.markers[int(rng.integers(len(site.markers)))].marker_id
+        return MarkerSighting(
+            fake, float(rng.uniform(0.5, p.max_range_m)), float(rng.uniform(-p.fov_deg / 2, p.fov_deg / 2))
+        )
+    if not seen:
+        return MarkerMiss()
+    r, b, marker_id = min(seen)
+    if len(site.markers) > 1 and rng.random() < p.confusion:
+        marker_id = rng.choice([m.marker_id for m in site.markers if m.marker_id != marker_id])
+    return MarkerSighting(str(marker_id), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg))
+
+
+def _door(case: Case, spec: SensorSpec, truth: TruePose, rng) -> DoorReading:
+    for f in spec.faults:
+        if f.kind == "stuck" and f.active(truth.t):
+            return DoorReading(bool(f.options["value"]))
+    site = case.site
+    zone = site.door_zone(site.door(spec.door))
+    ix = min(int(truth.x_m / site.resolution_m), zone.shape[1] - 1)
+    iy = min(int(truth.y_m / site.resolution_m), zone.shape[0] - 1)
+    inside = bool(zone[iy, ix])
+    rate = spec.params.hit_rate if inside else spec.params.false_alarm_rate
+    return DoorReading(bool(rng.random() < rate))
+
+
+_SIMULATORS = {"ranging": _ranging, "markers": _markers, "door": _door}
