@@ -11,14 +11,66 @@ from fusion.errors import FusionError
 EXIT_BAD_INPUT = 2
 
 
+def _builtin_case(name: str):
+    from importlib import resources
+
+    return resources.files("fusion") / "cases" / name
+
+
 def _demo(args: argparse.Namespace) -> int:
+    args.case = str(_builtin_case("depot.toml"))
+    args.backend, args.rule = None, None
+    return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
     from rich.console import Console
+    from rich.live import Live
 
-    from fusion.aisle_demo import run_aisle_demo
+    from fusion.io.case import load_case
+    from fusion.runner import run_case, write_results
+    from fusion.simulate import simulate
+    from fusion.tui import RunView, summary_table
 
+    case = load_case(args.case)  # validated before anything is written
+    if args.seed is not None:
+        import dataclasses
+
+        case = dataclasses.replace(case, run=dataclasses.replace(case.run, seed=args.seed))
+    backends = args.backend or list(case.run.backends)
+    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.case).stem}-seed{case.run.seed}"
     console = Console()
-    console.print(run_aisle_demo(seed=args.seed))
+    live = console.is_terminal and not args.quiet
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
+    if live:
+        view = RunView(case, backends, len(simulate(case)))
+        with Live(view, console=console, refresh_per_second=8, transient=False):
+            result = run_case(case, backends=backends, rule=args.rule, on_tick=view.on_tick)
+    else:
+        result = run_case(case, backends=backends, rule=args.rule)
+    folder = write_results(result, out_dir)
+    console.print(summary_table(result.summary()))
+    if result.events:
+        console.print(f"{len(result.events)} monitor actions; see summary.json for each with its reasons.")
+    console.print(f"results written to [bold]{folder}[/] (observations.jsonl, truth.jsonl, steps.csv, summary.json)")
+    return 0
+
+
+def _check(args: argparse.Namespace) -> int:
+    from fusion.io.case import load_case
+
+    case = load_case(args.case)
+    sensors = ", ".join(
+        f"{s.name} ({s.kind}{', ' + str(len(s.faults)) + ' faults' if s.faults else ''})" for s in case.sensors
+    )
+    grid = case.site.grid(case.headings)
+    print(
+        f"{args.case}: valid. {case.name}: {case.site.width_m} m × {case.site.height_m} m at "
+        f"{case.site.resolution_m} m, {case.headings} headings ({grid.n_cells:,} cells); sensors: {sensors}; "
+        f"route of {len(case.route.waypoints)} waypoints."
+    )
     return 0
 
 
@@ -40,6 +92,50 @@ def _bench(args: argparse.Namespace) -> int:
     return 0
 
 
+def _targets(args: argparse.Namespace) -> int:
+    import json
+
+    from rich.console import Console
+
+    from fusion.targets import FAULT_CASES, measure_targets, render
+
+    console = Console(stderr=args.json)
+    cases = args.case or list(FAULT_CASES)
+    unknown = [c for c in cases if c not in FAULT_CASES]
+    if unknown:
+        raise FusionError(f"unknown fault case {unknown[0]!r}; choose among: {', '.join(FAULT_CASES)}")
+    rows = measure_targets(
+        _builtin_case(""),
+        range(1, args.seeds + 1),
+        cases,
+        progress=lambda c, s: console.print(f"[dim]{c} seed {s} done[/]"),
+    )
+    if args.json:
+        print(json.dumps([r.__dict__ for r in rows], indent=1))
+    else:
+        console.print(render(rows))
+    return 0
+
+
+def _stream(args: argparse.Namespace) -> int:
+    from fusion.io.case import load_case
+    from fusion.localizer import Localizer
+    from fusion.stream import stream
+
+    case = load_case(args.site)
+    loc = Localizer.from_case(case, args.backend)
+    if args.start:
+        try:
+            x, y, heading = (float(v) for v in args.start.split(","))
+        except ValueError:
+            raise FusionError(f"--start must be x,y,heading_deg in metres and degrees, got {args.start!r}") from None
+        loc.start_at(x, y, heading)
+    print(f"fusion stream: {args.backend} back end on {case.site.name}; {SAFETY_NOTICE}", file=sys.stderr)
+    written, rejected = stream(loc)
+    print(f"fusion stream: {written} decisions, {rejected} lines rejected", file=sys.stderr)
+    return 0
+
+
 def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="fusion",
@@ -48,16 +144,46 @@ def _parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"fusion {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND")
-    demo = commands.add_parser("demo", help="run the built-in demo on both back ends and show the comparison")
-    demo.add_argument("--seed", type=int, default=7, help="seed of the simulated sensor noise (default 7)")
+    demo = commands.add_parser("demo", help="run the built-in cold-store depot case on both back ends, live")
+    _run_options(demo)
     demo.set_defaults(run=_demo)
+    run = commands.add_parser("run", help="simulate a case file and run the back ends on it")
+    run.add_argument("case", help="case file (TOML); see cases/README.md")
+    run.add_argument(
+        "--backend",
+        action="append",
+        choices=("bayes", "evidential"),
+        help="back end to run (repeat for both; default: the case's [run] backends)",
+    )
+    run.add_argument("--rule", help="combination rule of the evidential back end (default: the case's)")
+    _run_options(run)
+    run.set_defaults(run=_run)
+    check = commands.add_parser("check", help="validate a case file and say what it describes")
+    check.add_argument("case", help="case file (TOML)")
+    check.set_defaults(run=_check)
     bench = commands.add_parser("bench", help="time each back end's steps as ratios to floors measured in the same run")
     bench.add_argument("--repeats", type=_positive_int, default=9, help="runs per figure, fastest kept (default 9)")
     bench.add_argument("--seed", type=int, default=0, help="seed of the synthetic beliefs and evidence (default 0)")
     bench.add_argument("--quick", action="store_true", help="only the smaller grid (100×100×36)")
     bench.add_argument("--json", action="store_true", help="print the figures as JSON on standard output")
     bench.set_defaults(run=_bench)
+    st = commands.add_parser("stream", help="read observations as JSON lines on stdin, write one decision per line")
+    st.add_argument("--site", required=True, help="case file whose site and sensors to use")
+    st.add_argument("--backend", choices=("bayes", "evidential"), default="bayes", help="back end (default bayes)")
+    st.add_argument("--start", help="known start pose x,y,heading_deg (default: anywhere in free space)")
+    st.set_defaults(run=_stream)
+    targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
+    targets.add_argument("--seeds", type=_positive_int, default=50, help="seeds per case (default 50)")
+    targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
+    targets.add_argument("--json", action="store_true", help="print every run's verdict as JSON")
+    targets.set_defaults(run=_targets)
     return parser
+
+
+def _run_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--seed", type=int, help="seed of the simulation (default: the case's)")
+    p.add_argument("--out", help="output folder (default: fusion-out/<case>-seed<seed>)")
+    p.add_argument("--quiet", action="store_true", help="no live view; print the summary only")
 
 
 def _positive_int(text: str) -> int:

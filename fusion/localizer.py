@@ -16,6 +16,7 @@ Decision support and monitoring only: not a certified safety function.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 from collections import deque
@@ -38,7 +39,11 @@ from fusion.sensors.odometry import OdometryReading, OdometrySensor
 from fusion.sensors.ranging import RangeSensor
 from fusion.site import SiteMap
 
-__all__ = ["SensorSet", "Decision", "Localizer"]
+__all__ = ["SensorSet", "Decision", "Localizer", "SUPPORT_SHARE"]
+
+SUPPORT_SHARE = 1e-3
+"""Cells with at least this share of the most probable cell's probability count as still possible
+(Bayesian conflict figure; common practice, no source)."""
 
 
 class SensorSet:
@@ -130,14 +135,17 @@ class Localizer:
         self,
         backend: str,
         sensors: SensorSet,
-        policy: Policy = Policy(),
+        policy: Policy | None = None,
         *,
         rule: str = "dempster",
         max_focal: int = 32,
+        full_figures: bool = False,
     ):
+        """``full_figures``: compute the Jousselme distance on every tick, not only on conflicting ones."""
         if backend not in ("bayes", "evidential"):
             raise ObservationError(f"unknown back end {backend!r}; choose 'bayes' or 'evidential'")
-        self.sensors, self.policy = sensors, policy
+        policy = Policy() if policy is None else policy
+        self.sensors, self.policy, self.full_figures = sensors, policy, full_figures
         grid, free = sensors.grid, sensors.site.free
         # The best region is computed once per tick by the pose estimate, not after every update.
         self.filter = (
@@ -238,15 +246,12 @@ class Localizer:
         for sensor, evidence in encoded:
             original = evidence
             if sensor in self.monitor.quarantined:
-                evidence = Evidence(
-                    evidence.sensor,
-                    evidence.contour,
-                    evidence.reliability * self.policy.quarantine_reliability,
-                    evidence.levels,
-                    evidence.form,
+                evidence = dataclasses.replace(
+                    evidence, reliability=evidence.reliability * self.policy.quarantine_reliability
                 )
             own = self._own_figure(original) if evidence is not original else None
             prior = f.belief  # immutable on the mass side; only read below if the update conflicted
+            prior_p = f.belief.probabilities if self.backend == "bayes" else None
             report = f.update(evidence)
             applied.append((sensor, evidence))
             if self.backend == "evidential":
@@ -260,13 +265,20 @@ class Localizer:
                 disagree = self.monitor.disagrees(figure, disagreement)
                 clear = figure < self.policy.clear_fraction * self.policy.conflict_k
             else:
+                # The Bayesian conflict of a reading is the conflict of conditioning it on the cells the
+                # posterior still allows (p ≥ SUPPORT_SHARE · max p): K = r·(1 − max over them of c).  It
+                # is the same figure the mass filter's conditioning carries, so both back ends share
+                # one threshold; and a sharp reading inside a vague belief (information, not
+                # contradiction) scores 0, unlike 1 − p(z | past).
                 log_z = report.log_evidence
-                surprise = -log_z if own is None else own
+                k = self._support_conflict(prior_p, original)
+                figure = k if own is None else own
                 ratio = self.averages.add(log_z)
+                figures["conflict"] = max(figures["conflict"], k)
                 figures["surprise"] = max(figures["surprise"], -log_z)
                 figures["evidence_ratio"] = ratio
-                disagree = self.monitor.disagrees(surprise)
-                clear = surprise < self.policy.clear_fraction * self.policy.surprise
+                disagree = self.monitor.disagrees(figure)
+                clear = figure < self.policy.clear_fraction * self.policy.conflict_k
                 if sensor not in self.monitor.quarantined and ratio > self.policy.lost_ratio:
                     disagree, clear = True, False
             self.monitor.record_reading(sensor, disagree)
@@ -274,7 +286,10 @@ class Localizer:
                 tick_conflicting |= disagree
                 tick_clear &= clear
         figures["weight_of_conflict"] = weight_of_conflict(figures["conflict"])
-        if self.backend == "evidential" and encoded:
+        busy = figures["conflict"] >= self.policy.clear_fraction * self.policy.conflict_k
+        if self.backend == "evidential" and encoded and (self.full_figures or busy):
+            # The distance costs a pairwise count over all focal sets; on calm ticks it is skipped
+            # unless full figures were asked for (the belief barely moved, and nothing acts on it).
             figures["jousselme"] = jousselme_distance(before, f.belief)
         blame = self._leave_one_out(before, applied) if tick_conflicting else []
         self._episode.append((motion, applied))
@@ -305,12 +320,19 @@ class Localizer:
     def _snapshot(self):
         return self.filter.belief if self.backend == "evidential" else self.filter.belief.probabilities
 
+    @staticmethod
+    def _support_conflict(p: np.ndarray, evidence: Evidence) -> float:
+        top = float(p.max())
+        if top <= 0:
+            return 1.0
+        best = float(evidence.contour[p >= SUPPORT_SHARE * top].max())
+        return evidence.reliability * (1.0 - best)
+
     def _own_figure(self, evidence: Evidence) -> float:
         """The conflict a quarantined sensor's undiscounted reading has with the current belief."""
         if self.backend == "evidential":
             return rules.conflict_mass(self.filter.belief.normalised(), evidence.masses)
-        z = float(self.filter.belief.probabilities @ evidence.likelihood)
-        return math.inf if z <= 0 else -math.log(z)
+        return self._support_conflict(self.filter.belief.probabilities, evidence)
 
     def _leave_one_out(self, before, applied) -> list[tuple[str, float]]:
         """For each sensor of this tick: how much the tick's conflict falls when its reading is left out."""
@@ -324,7 +346,7 @@ class Localizer:
         return sorted(out, key=lambda sv: -sv[1])
 
     def _tick_conflict(self, before, applied) -> float:
-        """Conflict of absorbing ``applied`` into ``before`` at once: K (evidential) or surprise (Bayes)."""
+        """Conflict of absorbing ``applied`` into ``before`` at once: K, or 1 − p(z | past) for Bayes."""
         if not applied:
             return 0.0
         if self.backend == "evidential":
@@ -340,8 +362,7 @@ class Localizer:
         lik = np.ones_like(before)
         for _, e in applied:
             lik = lik * e.likelihood
-        z = float(before @ lik)
-        return math.inf if z <= 0 else -math.log(z)
+        return 1.0 - min(float(before @ lik), 1.0)
 
     def _relocalize(self) -> None:
         """Reset to ignorance over free space, then replay this episode's readings (re-seed from them)."""

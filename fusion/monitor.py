@@ -4,7 +4,8 @@ A tick is *conflicting* when its readings disagree with the belief:
 - evidential: Dempster's K above ``conflict_k`` **and** pignistic disagreement above
   ``disagreement`` (two-dimensional conflict, Liu 2006: a large K alone can come from
   sources that agree but are each uncertain);
-- Bayesian: surprise above ``surprise`` nats, or the slow/fast evidence ratio above ``lost_ratio``.
+- Bayesian: the reading's conflict 1 − p(z | past) above ``conflict_k`` (the same quantity as
+  Dempster's K, see ``fusion.localizer``), or the slow/fast evidence ratio above ``lost_ratio``.
 It is *clear* when both figures are below ``clear_fraction`` of their thresholds, and
 neutral in between (hysteresis: a neutral tick neither starts nor ends an episode).
 
@@ -31,9 +32,8 @@ QUARANTINE = "quarantine sensor"
 
 @dataclass(frozen=True)
 class Policy:
-    conflict_k: float = 0.7
+    conflict_k: float = 0.8
     disagreement: float = 0.3
-    surprise: float = 2.5
     lost_ratio: float = 4.0
     clear_fraction: float = 0.5
     alert_after: int = 2
@@ -69,11 +69,11 @@ class Monitor:
 
     # ----------------------------------------------------------------- per reading
     def disagrees(self, figure: float, extra: float | None = None) -> bool:
-        """Does one reading's figure (K, or surprise) count as disagreeing with the belief?"""
+        """Does one reading's conflict figure count as disagreeing with the belief?"""
         p = self.policy
         if self.backend == "evidential":
             return figure > p.conflict_k and (extra is None or extra > p.disagreement)
-        return figure > p.surprise
+        return figure > p.conflict_k
 
     def record_reading(self, sensor: str, disagree: bool) -> None:
         window = self._history.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))

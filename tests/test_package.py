@@ -15,11 +15,9 @@ def test_import_is_light_and_never_pulls_torch():
     assert out.stdout.strip() == ""
 
 
-def test_demo_runs_and_states_the_safety_notice(capsys):
-    assert main(["demo", "--seed", "3"]) == 0
-    out = capsys.readouterr().out
-    assert "not a certified safety" in out and "Aisle C" in out
+def test_the_safety_notice_is_stated():
     assert "not a certified safety function" in SAFETY_NOTICE
+    assert "safety case" in SAFETY_NOTICE
 
 
 def test_no_command_prints_help_and_fails(capsys):

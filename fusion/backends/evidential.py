@@ -16,7 +16,7 @@ import numpy as np
 
 from fusion.backends.base import REGION_LEVEL, PoseEstimate, StepReport, estimate_pose
 from fusion.belief import bitset, rules
-from fusion.belief.mass import FocalAccumulator, MassFunction
+from fusion.belief.mass import MERGE_STRATEGIES, FocalAccumulator, MassFunction
 from fusion.errors import FrameMismatchError, RuleError, TotalConflictError
 from fusion.grid import PoseGrid
 from fusion.motion import SlicedSets, SubCellMotion, move_sets, predict_sets
@@ -43,6 +43,7 @@ class MassFilter:
         max_focal: int = 32,
         report_region: bool = True,
         refine_evidence: bool = True,
+        merge: str = "nearest",
     ):
         if rule not in FILTER_RULES:
             raise RuleError(
@@ -53,6 +54,9 @@ class MassFilter:
             raise RuleError(f"max_focal must be a whole number ≥ 1, got {max_focal!r}")
         self.grid, self.rule, self.max_focal, self.report_region = grid, rule, max_focal, report_region
         self.refine_evidence = refine_evidence
+        if merge not in MERGE_STRATEGIES:
+            raise RuleError(f"unknown merge strategy {merge!r}; choose one of: {', '.join(MERGE_STRATEGIES)}")
+        self.merge = merge
         free_cells = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
         self._free_words = bitset.pack_masks(free_cells)[0]
         self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_cells))
@@ -103,7 +107,7 @@ class MassFilter:
         out = acc.result()
         if lost > 0:
             out = MassFunction._trusted(n, out.sets.copy(), out.masses / out.masses.sum())
-        self.belief = rules.reduce_focal_sets(out, self.max_focal).mass_function
+        self.belief = rules.reduce_focal_sets(out, self.max_focal, self.merge).mass_function
 
     # ----------------------------------------------------------------- update
     def update(self, evidence: Evidence) -> StepReport:
@@ -111,7 +115,6 @@ class MassFilter:
             raise FrameMismatchError(
                 f"evidence from {evidence.sensor!r} covers {evidence.n} cells, the grid has {self.grid.n_cells}"
             )
-        e = evidence.masses
         start = time.perf_counter()
         # Every rule combines the normalised belief, so K is the conflict of this reading alone.
         belief = self.belief if self.belief.is_normal else _drop_conflict(self.belief)
@@ -119,9 +122,11 @@ class MassFilter:
             k_outside = 0.0
             if self.refine_evidence and evidence.form == "consonant":
                 e, k_outside = self._refined(evidence, belief)
+            else:
+                e = evidence.masses
             # One pass: conjunctive combination and the focal-set cap (the ranking of non-empty sets is
             # the same before and after normalisation, so the cap may come first).
-            reduction = rules.conjunctive_reduced(belief, e, self.max_focal)
+            reduction = rules.conjunctive_reduced(belief, e, self.max_focal, self.merge)
             k_inside = reduction.mass_function.conflict
             k = 1.0 - (1.0 - k_outside) * (1.0 - k_inside)
             rejected = k >= _TOTAL and self.rule == "dempster"
@@ -133,10 +138,13 @@ class MassFilter:
                 else reduction.mass_moved
             )
         else:
+            e = evidence.masses
             k = rules.conflict_mass(belief, e)
             rejected = k >= _TOTAL and self.rule in _NORMALISING
             reduction = (
-                None if rejected else rules.reduce_focal_sets(rules.combine(belief, e, rule=self.rule), self.max_focal)
+                None
+                if rejected
+                else rules.reduce_focal_sets(rules.combine(belief, e, rule=self.rule), self.max_focal, self.merge)
             )
             moved = 0.0 if rejected else reduction.mass_moved
         if not rejected:
@@ -176,7 +184,9 @@ class MassFilter:
                 return MassFunction.from_contour(inside), 0.0  # all mass on ∅: total conflict
             return MassFunction.vacuous(belief.n), r
         r_cond = r * top / (r * top + 1.0 - r)
-        masses = rules.discount(MassFunction.from_contour(inside / top, levels=evidence.levels), r_cond)
+        masses = rules.discount(
+            MassFunction.from_contour(inside / top, levels=evidence.levels, spacing=evidence.spacing), r_cond
+        )
         return masses, r * (1.0 - top)
 
     def _finish(self, joint: MassFunction) -> MassFunction:

@@ -27,7 +27,10 @@ from fusion.errors import (
     TotalConflictError,
 )
 
-__all__ = ["MassFunction", "FocalSet", "FocalAccumulator", "MASS_TOLERANCE", "check_same_frame"]
+__all__ = ["MassFunction", "FocalSet", "FocalAccumulator", "MASS_TOLERANCE", "MERGE_STRATEGIES", "check_same_frame"]
+
+MERGE_STRATEGIES = ("union", "nearest")
+"""How ``FocalAccumulator.reduced`` merges the focal sets beyond the cap."""
 
 MASS_TOLERANCE = 1e-9
 """How far the masses given to a constructor may sum from 1 (they are then rescaled)."""
@@ -138,46 +141,66 @@ class FocalAccumulator:
         masses = np.asarray(self._weights, dtype=np.float64)
         return MassFunction._trusted(self.n, sets, masses)
 
-    def reduced(self, max_focal: int) -> tuple[MassFunction, float, int]:
+    def reduced(self, max_focal: int, merge: str = "union") -> tuple[MassFunction, float, int]:
         """Like ``result`` followed by ``rules.reduce_focal_sets``, but copies only the rows it keeps.
 
-        Returns (mass function, mass moved, sets merged).  The empty set is found by its
-        fingerprint (0) and confirmed exactly; it is never merged.
+        The ``max_focal − 1`` most massive non-empty sets are kept.  With ``merge="union"`` every
+        other set is merged into their common union; with ``merge="nearest"`` each is merged into
+        the kept set it overlaps most (judged on which 64-cell words they occupy), so the
+        approximation stays local: a set near the robot is not blurred with one across the
+        site.  Sets that overlap no kept set go to their common union.  Either way mass only
+        moves to supersets.  Returns (mass function, mass moved to a larger set, sets merged).
+        The empty set (fingerprint 0, confirmed exactly) is never merged.
         """
+        if merge not in MERGE_STRATEGIES:
+            raise RuleError(f"unknown merge strategy {merge!r}; choose one of: {', '.join(MERGE_STRATEGIES)}")
         if not self._weights:
             raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
         w = np.asarray(self._weights, dtype=np.float64)
         fps = np.asarray(self._fps, dtype=np.uint64)
         empty = np.zeros(len(w), dtype=bool)
         for s in np.flatnonzero(fps == 0).tolist():
-            block, r = self._where[s]
-            empty[s] = not self._blocks[block][r].any()
+            empty[s] = not self._row(s).any()
         nonempty = np.flatnonzero(~empty & (w > 0))
         if len(nonempty) <= max_focal:
             return self.result(), 0.0, 0
         order = nonempty[np.argsort(-w[nonempty], kind="stable")]
-        keep, merge = order[: max_focal - 1].tolist(), order[max_focal - 1 :].tolist()
-        union = np.zeros(self._w, dtype=bitset.WORD)
-        for s in merge:
-            block, r = self._where[s]
-            np.bitwise_or(union, self._blocks[block][r], out=union)
-        moved = float(w[merge].sum())
+        keep, dropped = order[: max_focal - 1].tolist(), order[max_focal - 1 :].tolist()
+        rows = [self._row(s).copy() for s in keep]
+        masses = [float(w[s]) for s in keep]
+        moved = float(w[dropped].sum())
+        orphans = dropped
+        if merge == "nearest":
+            signatures = np.stack([np.packbits(r != 0) for r in rows])
+            sizes = np.bitwise_count(signatures).sum(axis=1)
+            grown: set[int] = set()
+            orphans = []
+            for s in dropped:
+                sig = np.packbits(self._row(s) != 0)
+                overlap = np.bitwise_count(signatures & sig).sum(axis=1)
+                if not overlap.any():
+                    orphans.append(s)
+                    continue
+                score = overlap / (sizes + np.bitwise_count(sig).sum() - overlap)
+                j = int(np.argmax(score))
+                before = rows[j].copy() if j not in grown else None
+                np.bitwise_or(rows[j], self._row(s), out=rows[j])
+                if before is not None and not np.array_equal(before, rows[j]):
+                    grown.add(j)
+                    moved += masses[j]  # the kept set's own mass now sits on a larger set too
+                masses[j] += float(w[s])
+        if orphans:
+            union = np.zeros(self._w, dtype=bitset.WORD)
+            for s in orphans:
+                np.bitwise_or(union, self._row(s), out=union)
+            rows.append(union)
+            masses.append(float(w[orphans].sum()))
         empty_slots = np.flatnonzero(empty & (w > 0)).tolist()
-        union_fp = int(bitset.fingerprint(union[None, :])[0])
-        same = [i for i, s in enumerate(keep) if self._fps[s] == union_fp and np.array_equal(self._row(s), union)]
-        sets = np.empty((len(keep) + (0 if same else 1) + len(empty_slots), self._w), dtype=bitset.WORD)
-        for i, s in enumerate(keep):
-            sets[i] = self._row(s)
-        masses = list(w[keep])
-        if same:
-            masses[same[0]] += moved
-        else:
-            sets[len(keep)] = union
-            masses.append(moved)
-        for i, s in enumerate(empty_slots):
-            sets[len(masses) + i] = self._row(s)
-        masses += [float(w[s]) for s in empty_slots]
-        return MassFunction._trusted(self.n, sets, np.asarray(masses)), moved, len(merge)
+        acc = FocalAccumulator(self.n)  # enlarged sets may now coincide: merge them exactly
+        acc.add(np.stack(rows), masses, owned=True)
+        if empty_slots:
+            acc.add(np.stack([self._row(s) for s in empty_slots]), w[empty_slots])
+        return acc.result(), moved, len(dropped)
 
     def _row(self, slot: int) -> np.ndarray:
         block, r = self._where[slot]
@@ -281,14 +304,17 @@ class MassFunction:
         return cls(len(p), bitset.pack_masks(masks), p[cells])
 
     @classmethod
-    def from_contour(cls, contour: np.ndarray, levels: int | None = None) -> MassFunction:
+    def from_contour(cls, contour: np.ndarray, levels: int | None = None, spacing: str = "linear") -> MassFunction:
         """The consonant mass function whose plausibility of each cell is ``contour``.
 
         Focal sets are nested: A_i = {x : contour(x) ≥ v_i} for the distinct values
         v_1 > … > v_r > 0, with m(A_i) = v_i − v_{i+1} and m(∅) = 1 − v_1 (Shafer
-        1976, ch. 10).  With ``levels=L`` the contour is first rounded *up* to a
-        multiple of 1/L, so no cell loses plausibility (an outer approximation,
-        Denœux 2001, "Inner and outer approximation of belief structures").
+        1976, ch. 10).  With ``levels=L`` the contour is first rounded *up* to one of L
+        values, so no cell loses plausibility (an outer approximation, Denœux 2001,
+        "Inner and outer approximation of belief structures"): multiples of 1/L with
+        ``spacing="linear"``, or 1, 1/2, 1/4, …, 2^−(L−1) with ``spacing="geometric"``.
+        Geometric levels suit likelihoods, whose information lies in ratios: a
+        reading then leaves only 2^−(L−1) of its mass on "anywhere it is possible at all".
         """
         c = _as_vector(contour, "contour")
         if (c < 0).any() or (c > 1).any():
@@ -297,22 +323,39 @@ class MassFunction:
                 f"a contour is a plausibility in [0, 1] per cell; cell {bad} has {float(c[bad])!r}. "
                 "Use from_likelihood() for an unscaled likelihood."
             )
+        if spacing not in ("linear", "geometric"):
+            raise MassValueError(f"spacing must be 'linear' or 'geometric', got {spacing!r}")
+        n = len(c)
         if levels is not None:
             if int(levels) < 1:
                 raise MassValueError(f"levels must be a positive whole number, got {levels!r}")
-            c = np.ceil(c * int(levels) - 1e-12) / int(levels)
-            c = np.clip(c, 0.0, 1.0)
-        values = np.unique(c[c > 0])[::-1]
-        if len(values) > _MAX_EXACT_LEVELS:
-            raise MassValueError(
-                f"the contour has {len(values)} distinct values, which would make as many nested focal "
-                f"sets (at most {_MAX_EXACT_LEVELS}); pass levels=8 (or similar) to quantise it"
-            )
-        n = len(c)
-        top = float(values[0]) if len(values) else 0.0
-        masses = np.append(values - np.append(values[1:], 0.0), 1.0 - top)
-        masks = np.vstack([c[None, :] >= values[:, None], np.zeros((1, n), dtype=bool)])
-        keep = masses > 0
+            levels = int(levels)
+            # Each cell's level index, 0 = top: its contour rounded up is values[index].
+            if spacing == "linear":
+                index = np.clip(levels - np.ceil(c * levels - 1e-12), 0, levels).astype(np.int16)
+                table = (levels - np.arange(levels + 1)) / levels
+            else:
+                mantissa, exponent = np.frexp(c)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
+                index = np.where(mantissa == 0.5, -exponent + 1, -exponent).astype(np.int64)
+                index = np.clip(index, 0, levels - 1).astype(np.int16)
+                index[c <= 0] = levels
+                table = np.append(2.0 ** -np.arange(levels), 0.0)
+            present = np.flatnonzero(np.bincount(index, minlength=levels + 1))
+            present = present[table[present] > 0]
+            values = table[present]
+            masses = np.append(values - np.append(values[1:], 0.0), 1.0 - (values[0] if len(values) else 0.0))
+            masks = np.vstack([index[None, :] <= present[:, None], np.zeros((1, n), dtype=bool)])
+        else:
+            values = np.unique(c[c > 0])[::-1]
+            if len(values) > _MAX_EXACT_LEVELS:
+                raise MassValueError(
+                    f"the contour has {len(values)} distinct values, which would make as many nested focal "
+                    f"sets (at most {_MAX_EXACT_LEVELS}); pass levels=8 (or similar) to quantise it"
+                )
+            top = float(values[0]) if len(values) else 0.0
+            masses = np.append(values - np.append(values[1:], 0.0), 1.0 - top)
+            masks = np.vstack([c[None, :] >= values[:, None], np.zeros((1, n), dtype=bool)])
+        keep = masses > 1e-15
         return cls._trusted(n, bitset.pack_masks(masks[keep]), masses[keep].astype(np.float64))
 
     @classmethod

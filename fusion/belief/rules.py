@@ -103,7 +103,7 @@ def conjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     return acc.result()
 
 
-def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int) -> Reduction:
+def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int, merge: str = "union") -> Reduction:
     """``reduce_focal_sets(conjunctive(m1, m2), max_focal)`` in one pass that copies only the kept sets.
 
     This is the filter's update: most of the k1 × k2 intersections are merged into one
@@ -114,7 +114,7 @@ def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int) -> R
     acc = FocalAccumulator(n)
     for rows, ii, jj, fps in _pairs(m1, m2, np.bitwise_and):
         acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True, fingerprints=fps)
-    return Reduction(*acc.reduced(max_focal))
+    return Reduction(*acc.reduced(max_focal, merge))
 
 
 def dempster(m1: MassFunction, m2: MassFunction, *, if_total_conflict: str = "raise") -> MassFunction:
@@ -242,36 +242,22 @@ class Reduction(NamedTuple):
     sets_merged: int
 
 
-def reduce_focal_sets(m: MassFunction, max_focal: int) -> Reduction:
+def reduce_focal_sets(m: MassFunction, max_focal: int, merge: str = "union") -> Reduction:
     """Cap the number of non-empty focal sets at ``max_focal``.
 
-    The ``max_focal − 1`` most massive sets are kept; the rest are merged into
-    their union, which takes their summed mass.  Only mass moves to supersets, so
-    the result is less committed than ``m`` (plausibilities never fall).  The
-    empty set is never merged: its mass is the conflict and must stay visible.
+    The ``max_focal − 1`` most massive sets are kept; the rest are merged into their union
+    (``merge="union"``), which takes their summed mass, or each into the kept set it overlaps
+    most (``merge="nearest"``, see ``FocalAccumulator.reduced``).  Only mass moves to
+    supersets, so the result is less committed than ``m`` (plausibilities never fall; an
+    outer approximation, Denœux 2001).  The empty set is never merged: its mass is the
+    conflict and must stay visible.
     """
     _check_cap(max_focal)
-    card = m.cardinalities
-    nonempty = np.flatnonzero(card > 0)
-    if len(nonempty) <= max_focal:
+    if int((m.cardinalities > 0).sum()) <= max_focal:
         return Reduction(m, 0.0, 0)
-    order = nonempty[np.argsort(-m.masses[nonempty], kind="stable")]
-    keep, merge = order[: max_focal - 1], order[max_focal - 1 :]
-    union = np.bitwise_or.reduce(m.sets[merge], axis=0)
-    moved = float(m.masses[merge].sum())
-    # The kept sets are distinct; the union is new unless it equals one of them.
-    kept = m.sets[keep]
-    same = np.flatnonzero((kept == union).all(axis=1))
-    empty = np.flatnonzero(card == 0)
-    masses = np.concatenate([m.masses[keep], [moved] if not same.size else [], m.masses[empty]])
-    if same.size:
-        masses[same[0]] += moved
-    parts = [kept] + ([] if same.size else [union[None, :]]) + [m.sets[empty]]
-    out = MassFunction._trusted(m.n, np.concatenate(parts), masses)
-    out._card = np.concatenate([card[keep], [] if same.size else [bitset.cardinality(union)], card[empty]]).astype(
-        np.int64
-    )
-    return Reduction(out, moved, int(len(merge)))
+    acc = FocalAccumulator(m.n)
+    acc.add(m.sets, m.masses)
+    return Reduction(*acc.reduced(max_focal, merge))
 
 
 def _check_cap(max_focal) -> None:

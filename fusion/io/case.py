@@ -509,7 +509,7 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
 
     known = {f.name for f in dataclasses.fields(Policy)}
     r.only(policy, (*w, "policy"), known)
-    for key, value in policy.items():
+    for key in policy:
         default = getattr(Policy(), key)
         if isinstance(default, bool):
             r.flag(policy, (*w, "policy"), key)

@@ -11,7 +11,7 @@ then enters both back ends in the same way:
   mass function, so both sides hold the same assumptions about the sensor.
 
 The mass side quantises the contour into ``levels`` nested focal sets, rounding up
-(no cell loses plausibility).
+(no cell loses plausibility), at geometric levels 1, 1/2, 1/4, … by default.
 """
 
 from __future__ import annotations
@@ -38,8 +38,9 @@ class Evidence:
     sensor: str
     contour: np.ndarray
     reliability: float = 1.0
-    levels: int = 4
+    levels: int = 6
     form: str = "consonant"
+    spacing: str = "geometric"
 
     def __post_init__(self):
         if self.form not in MASS_FORMS:
@@ -63,7 +64,9 @@ class Evidence:
             if total <= 0:  # an impossible reading: all mass on the empty set
                 return MassFunction.from_contour(np.zeros(self.n))
             return MassFunction.bayesian(lik / total)
-        return rules.discount(MassFunction.from_contour(self.contour, levels=self.levels), self.reliability)
+        return rules.discount(
+            MassFunction.from_contour(self.contour, levels=self.levels, spacing=self.spacing), self.reliability
+        )
 
 
 class SensorModel(Protocol):

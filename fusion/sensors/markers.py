@@ -43,7 +43,7 @@ class MarkerParams:
     sigma_range_m: float = 0.15
     sigma_bearing_deg: float = 3.0
     reliability: float = 0.9
-    levels: int = 4
+    levels: int = 6
 
 
 @dataclass(frozen=True)

@@ -47,7 +47,7 @@ class RangeParams:
     z_rand: float = 0.05
     lambda_short: float = 0.5
     reliability: float = 0.95
-    levels: int = 4
+    levels: int = 6
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,96 @@
+"""Does the monitor do its job?  Measured on the shipped fault cases over many seeds.
+
+For each back end and seed:
+- ``carried.toml``: the estimate is back within 0.5 m and 15° of the truth within 10 ticks
+  after the robot is put down;
+- ``stuck_door.toml`` / ``ghost.toml``: the faulty sensor is named in an alert or quarantine
+  and is quarantined during the fault, and no re-localization happens during the fault;
+- ``calm.toml``: no action other than "carry on" in the whole run.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+from fusion.io.case import load_case
+from fusion.monitor import CARRY_ON, QUARANTINE, RELOCALIZE
+from fusion.runner import run_case
+
+__all__ = ["TargetRow", "measure_targets", "FAULT_CASES"]
+
+FAULT_CASES = {"carried": None, "stuck_door": "chiller contact", "ghost": "rack camera", "calm": None}
+RECOVERY_TICKS = 10
+RECOVERY_M, RECOVERY_DEG = 0.5, 15.0
+
+
+@dataclass(frozen=True)
+class TargetRow:
+    case: str
+    backend: str
+    seed: int
+    success: bool
+    detail: str
+
+
+def _judge(name: str, result, backend: str) -> tuple[bool, str]:
+    rows = [r.values for r in result.rows if r.values["backend"] == backend]
+    events = [e for e in result.events if e["backend"] == backend]
+    if name == "calm":
+        acted = [e for e in events if e["action"] != CARRY_ON]
+        return not acted, f"{len(acted)} actions"
+    if name == "carried":
+        start = next(i for i, r in enumerate(rows) if r["carried"])
+        window = rows[start : start + RECOVERY_TICKS + 1]
+        ok = [r for r in window if r["error_m"] <= RECOVERY_M and r["heading_error_deg"] <= RECOVERY_DEG]
+        relocs = sum(r["action"] == RELOCALIZE for r in window)
+        return bool(ok), (
+            f"back within bounds {ok[0]['t'] - rows[start]['t']:.2f} s after the carry"
+            if ok
+            else f"not within bounds in {RECOVERY_TICKS} ticks"
+        ) + f"; {relocs} re-localizations"
+    sensor = FAULT_CASES[name]
+    spec = result.case.sensor(sensor)
+    fault = next(f for f in spec.faults)
+    during = [e for e in events if fault.start_s <= e["t"] <= min(fault.end_s, rows[-1]["t"]) + 2.0]
+    named = any(sensor in reason for e in during for reason in e["reasons"])
+    quarantined = any(e["action"] == QUARANTINE and sensor in " ".join(e["reasons"]) for e in during)
+    relocs = sum(e["action"] == RELOCALIZE for e in during)
+    ok = named and quarantined and relocs == 0
+    return ok, f"named={named} quarantined={quarantined} re-localizations={relocs}"
+
+
+def measure_targets(cases_dir, seeds, cases=tuple(FAULT_CASES), progress=None) -> list[TargetRow]:
+    out = []
+    for name in cases:
+        base = load_case(Path(cases_dir) / f"{name}.toml")
+        for seed in seeds:
+            case = dataclasses.replace(base, run=dataclasses.replace(base.run, seed=seed))
+            result = run_case(case)
+            for backend in case.run.backends:
+                ok, detail = _judge(name, result, backend)
+                out.append(TargetRow(name, backend, seed, ok, detail))
+            if progress:
+                progress(name, seed)
+    return out
+
+
+def render(rows: list[TargetRow]):
+    from rich.table import Table
+
+    table = Table(title="Monitor targets on the fault cases")
+    for col in ("case", "back end", "runs", "success", "share"):
+        table.add_column(col, justify="right" if col in ("runs", "success", "share") else "left")
+    keys = sorted({(r.case, r.backend) for r in rows})
+    for case, backend in keys:
+        mine = [r for r in rows if r.case == case and r.backend == backend]
+        good = sum(r.success for r in mine)
+        table.add_row(case, backend, str(len(mine)), str(good), f"{good / len(mine):.0%}" if mine else "")
+    return table
+
+
+def share(rows, case, backend) -> float:
+    mine = [r for r in rows if r.case == case and r.backend == backend]
+    return sum(r.success for r in mine) / len(mine) if mine else math.nan

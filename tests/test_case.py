@@ -1,0 +1,77 @@
+from pathlib import Path
+
+import pytest
+
+from fusion.errors import InputFileError
+from fusion.io.case import load_case, parse_case
+
+TINY = Path(__file__).parent / "data" / "tiny.toml"
+CASES = sorted((Path(__file__).parent.parent / "cases").glob("*.toml"))
+
+
+def test_all_shipped_cases_are_valid():
+    assert len(CASES) >= 5
+    for path in CASES:
+        case = load_case(path)
+        assert case.sensors and case.route.waypoints
+
+
+def _broken(text_from: str, text_to: str) -> str:
+    text = TINY.read_text()
+    assert text_from in text
+    return text.replace(text_from, text_to, 1)
+
+
+def _line_of(text: str, needle: str) -> int:
+    return next(i for i, line in enumerate(text.splitlines(), start=1) if needle in line)
+
+
+@pytest.mark.parametrize(
+    "old, new, field, message, marker",
+    [
+        ("width_m = 10.0", 'width_m = "ten"', "site.width_m", "must be a number", "width_m"),
+        ('kind = "ranging"', 'kind = "sonar"', "sensors[1].kind", "unknown value 'sonar'; choose one of", "sonar"),
+        (
+            "x_m = 0.75",
+            "x_m = 40.0",
+            "site.doors[0]",
+            "door 'bay door' at (40.0 m, 3.0 m) is off the map",
+            "[[site.doors]]",
+        ),
+        (
+            "[8.5, 4.5], [1.5, 4.5]]",
+            "[8.5, 4.5], [1.5, 4.5], [5.0, 1.0], [5.0, 5.0]]",
+            "route.waypoints",
+            "route leg 5 from (5.0, 1.0) to (5.0, 5.0) passes through a wall or rack",
+            "waypoints",
+        ),
+        (
+            "sigma_hit_m = 0.15",
+            "sigma_hit_m = 0.15\nsigma_hit = 0.2",
+            "sensors[1].sigma_hit",
+            "unknown field",
+            "sigma_hit =",
+        ),
+        ('door = "bay door"', 'door = "dock door"', "sensors[3].door", "no door 'dock door'", "dock door"),
+    ],
+)
+def test_malformed_cases_name_file_line_and_field(old, new, field, message, marker):
+    text = _broken(old, new)
+    with pytest.raises(InputFileError) as info:
+        parse_case(text, "bay.toml")
+    err = info.value
+    assert err.path == "bay.toml" and err.field == field, str(err)
+    assert message in err.problem, str(err)
+    assert err.line == _line_of(text, marker), str(err)
+    assert str(err).startswith(f"bay.toml, line {err.line}: {field}: ")
+
+
+def test_missing_fields_and_bad_toml():
+    with pytest.raises(InputFileError, match="the field 'speed_mps'|needs at least two"):
+        parse_case(_broken("waypoints = [[1.5, 1.5], [8.5, 1.5], [8.5, 4.5], [1.5, 4.5]]", "waypoints = []"), "x.toml")
+    with pytest.raises(InputFileError, match=r"line 2: not valid TOML"):
+        parse_case('[case]\nname = "unterminated\n', "y.toml")
+    with pytest.raises(InputFileError, match="the \\[route\\] table is missing"):
+        parse_case(TINY.read_text().split("[route]")[0], "z.toml")
+    with pytest.raises(InputFileError, match="cannot read the case file"):
+        load_case("/nonexistent/case.toml")

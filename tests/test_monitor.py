@@ -1,0 +1,41 @@
+from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
+
+
+def test_one_spurious_tick_triggers_nothing_and_a_lasting_conflict_escalates():
+    m = Monitor("evidential", Policy(alert_after=2, relocalize_after=4, cooldown_ticks=3))
+    assert m.judge(True, False, []).action == CARRY_ON
+    assert m.judge(False, True, []).action == CARRY_ON  # a clear tick ends the episode
+    actions = [m.judge(True, False, [("ranger", 0.4)]).action for _ in range(4)]
+    assert actions == [CARRY_ON, ALERT, CARRY_ON, RELOCALIZE]
+    # cool-down: no second re-localization straight away
+    assert [m.judge(True, False, []).action for _ in range(3)] == [CARRY_ON, ALERT, CARRY_ON]
+
+
+def test_neutral_ticks_neither_start_nor_end_an_episode():
+    m = Monitor("bayes", Policy(alert_after=2))
+    m.judge(True, False, [])
+    assert m.judge(False, False, []).action == CARRY_ON  # neutral: the run of conflicts is kept
+    assert m.judge(True, False, []).action == ALERT
+
+
+def test_a_sensor_that_keeps_disagreeing_alone_is_quarantined_and_released():
+    m = Monitor("evidential", Policy(quarantine_after=3, quarantine_window=5, release_after=2))
+    verdicts = []
+    for _ in range(4):
+        m.record_reading("door", True)
+        m.record_reading("ranger", False)
+        verdicts.append(m.judge(False, False, []))
+    assert QUARANTINE in [v.action for v in verdicts]
+    assert "door" in verdicts[-1].quarantined
+    assert any("door" in r for v in verdicts for r in v.reasons)
+    for _ in range(2):
+        m.record_reading("door", False)
+    assert "door" in m.judge(False, True, []).released
+
+
+def test_no_quarantine_when_everyone_disagrees():
+    m = Monitor("evidential", Policy(quarantine_after=2))
+    for _ in range(4):
+        m.record_reading("door", True)
+        m.record_reading("ranger", True)
+        assert m.judge(True, False, []).action != QUARANTINE
