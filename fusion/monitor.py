@@ -65,6 +65,7 @@ class Monitor:
         self.alerted = False
         self.quarantined: set[str] = set()
         self._history: dict[str, deque] = {}  # sensor -> recent disagree flags
+        self._informed: dict[str, deque] = {}  # sensor -> were those readings informative?
         self._agree_run: dict[str, int] = {}
 
     # ----------------------------------------------------------------- per reading
@@ -75,9 +76,14 @@ class Monitor:
             return figure > p.conflict_k and (extra is None or extra > p.disagreement)
         return figure > p.conflict_k
 
-    def record_reading(self, sensor: str, disagree: bool) -> None:
+    def record_reading(self, sensor: str, disagree: bool, informative: bool = True) -> None:
+        """``informative``: the reading could have refuted part of the belief (a door contact that is
+        quiet far from any door, or a camera that sees nothing, agrees with every belief and so
+        cannot vouch for it)."""
         window = self._history.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))
         window.append(disagree)
+        informed = self._informed.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))
+        informed.append(informative or disagree)
         self._agree_run[sensor] = 0 if disagree else self._agree_run.get(sensor, 0) + 1
 
     # ----------------------------------------------------------------- per tick
@@ -127,8 +133,15 @@ class Monitor:
                 continue
             if sum(window) < p.quarantine_after:
                 continue
-            others = [w for s, w in self._history.items() if s != sensor and s not in self.quarantined and len(w)]
-            if others and all(sum(w) / len(w) <= p.others_agree for w in others):
+            # The others must vouch for the belief with informative readings, and mostly agree.
+            others = []
+            for s, w in self._history.items():
+                if s == sensor or s in self.quarantined:
+                    continue
+                flags = [d for d, i in zip(w, self._informed.get(s, ())) if i]
+                if len(flags) >= 2:
+                    others.append(flags)
+            if others and all(sum(f) / len(f) <= p.others_agree for f in others):
                 self.quarantined.add(sensor)
                 newly.append(sensor)
                 window.clear()
@@ -137,5 +150,5 @@ class Monitor:
 
     def forget_history(self) -> None:
         """After a re-localization the old readings no longer describe the new belief."""
-        for window in self._history.values():
+        for window in (*self._history.values(), *self._informed.values()):
             window.clear()

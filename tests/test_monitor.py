@@ -39,3 +39,13 @@ def test_no_quarantine_when_everyone_disagrees():
         m.record_reading("door", True)
         m.record_reading("ranger", True)
         assert m.judge(True, False, []).action != QUARANTINE
+
+
+def test_uninformative_agreement_cannot_get_a_sensor_quarantined():
+    # A quiet door contact far from any door agrees with every belief: it must not outvote the ranger
+    # when the robot has been carried off and only the ranger notices.
+    m = Monitor("bayes", Policy(quarantine_after=2, quarantine_window=4))
+    for _ in range(4):
+        m.record_reading("ranger", True, informative=True)
+        m.record_reading("door", False, informative=False)
+        assert m.judge(True, False, [("ranger", 0.9)]).action != QUARANTINE
