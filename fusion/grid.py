@@ -48,7 +48,7 @@ class PoseGrid:
         if cells > MAX_CELLS:
             raise ResourceError(
                 f"a {self.width_m} m × {self.height_m} m site at {self.resolution_m} m with {self.headings} "
-                f"headings needs {cells:,} cells, about {cells * _BYTES_PER_CELL_IN_USE / 1024**3:.1f} GiB while "
+                f"headings needs {cells:,} cells, about {self.memory_bytes() / 1024**3:.1f} GiB while "
                 f"running (limit {MAX_CELLS:,} cells); use a coarser resolution or fewer headings"
             )
 

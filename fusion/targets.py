@@ -11,7 +11,6 @@ For each back end and seed:
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -90,7 +89,3 @@ def render(rows: list[TargetRow]):
         table.add_row(case, backend, str(len(mine)), str(good), f"{good / len(mine):.0%}" if mine else "")
     return table
 
-
-def share(rows, case, backend) -> float:
-    mine = [r for r in rows if r.case == case and r.backend == backend]
-    return sum(r.success for r in mine) / len(mine) if mine else math.nan
