@@ -233,6 +233,56 @@ def _bench_evidential(grid: PoseGrid, label: str, rng, repeats: int) -> list[Ben
     ]
 
 
+def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
+    """Latency of ``Localizer.step`` (encode the readings, predict, update, figures, policy, estimate)
+    per tick of a case, as a ratio to the Bayes floor on the case's grid."""
+    from fusion.io.case import load_case
+    from fusion.localizer import Localizer
+    from fusion.simulate import simulate
+
+    case = load_case(case_path)
+    grid = case.site.grid(case.headings)
+    rng = np.random.default_rng(0)
+    p = rng.random(grid.n_cells)
+    p /= p.sum()
+    lik = rng.random(grid.n_cells)
+    buf = np.empty_like(p)
+
+    def floor():
+        np.multiply(p, lik, out=buf)
+        buf.__imul__(1.0 / buf.sum())
+
+    floor_s = _best_seconds(floor, 9)
+    run = simulate(case)[:ticks]
+    rows = []
+    for backend in ("bayes", "evidential"):
+        loc = Localizer.from_case(case, backend)
+        first = run[0].truth
+        loc.start_at(first.x_m, first.y_m, first.heading_deg)
+        times = []
+        for tick in run:
+            odometry = next(o for o in tick.observations if o.kind == "odometry")
+            readings = [o for o in tick.observations if o.kind != "odometry"]
+            start = time.perf_counter()
+            loc.step(odometry, readings)
+            times.append(time.perf_counter() - start)
+        mean = float(np.mean(times[1:]))
+        label = f"{case.name} ({grid.n_cells:,} cells)"
+        rows.append(
+            BenchRow(
+                label,
+                backend,
+                "Localizer.step",
+                mean * 1e3,
+                floor_s * 1e3,
+                mean / floor_s,
+                None,
+                f"mean of {len(times) - 1} ticks; p95 {np.percentile(times[1:], 95) * 1e3:.0f} ms",
+            )
+        )
+    return rows
+
+
 def render(rows: list[BenchRow]):
     from rich.table import Table
 

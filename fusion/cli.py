@@ -79,12 +79,14 @@ def _bench(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.bench import SIZES, render, run_bench
+    from fusion.bench import SIZES, bench_localizer, render, run_bench
 
     console = Console(stderr=args.json)
     sizes = SIZES[:1] if args.quick else SIZES
     with console.status("measuring… (each figure is the fastest of several runs)"):
         rows = run_bench(sizes=sizes, repeats=args.repeats, seed=args.seed)
+        if not args.quick:
+            rows += bench_localizer(_builtin_case("depot.toml"))
     if args.json:
         print(json.dumps([r.as_dict() for r in rows], indent=2))
     else:

@@ -88,4 +88,3 @@ def render(rows: list[TargetRow]):
         good = sum(r.success for r in mine)
         table.add_row(case, backend, str(len(mine)), str(good), f"{good / len(mine):.0%}" if mine else "")
     return table
-
