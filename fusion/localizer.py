@@ -24,10 +24,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fusion.backends.base import REGION_LEVEL
 from fusion.backends.bayes import HistogramFilter
 from fusion.backends.evidential import MassFilter
-from fusion.belief import bitset, rules
+from fusion.belief import rules
 from fusion.conflict import EvidenceAverages, jousselme_distance, pignistic_disagreement, weight_of_conflict
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
@@ -253,7 +252,6 @@ class Localizer:
             own = self._own_figure(original) if evidence is not original else None
             prior = f.belief  # immutable on the mass side; only read below if the update conflicted
             prior_p = f.belief.probabilities if self.backend == "bayes" else None
-            prior_support = self._support(prior_p)
             report = f.update(evidence)
             applied.append((sensor, evidence))
             if self.backend == "evidential":
@@ -283,7 +281,7 @@ class Localizer:
                 clear = figure < self.policy.clear_fraction * self.policy.conflict_k
                 if sensor not in self.monitor.quarantined and ratio > self.policy.lost_ratio:
                     disagree, clear = True, False
-            self.monitor.record_reading(sensor, disagree, self._informative(prior_support, original))
+            self.monitor.record_reading(sensor, disagree, self._informative(original))
             if sensor not in self.monitor.quarantined:
                 tick_conflicting |= disagree
                 tick_clear &= clear
@@ -322,24 +320,12 @@ class Localizer:
     def _snapshot(self):
         return self.filter.belief if self.backend == "evidential" else self.filter.belief.probabilities
 
-    def _support(self, p) -> np.ndarray:
-        """Cells the belief still allows: p ≥ SUPPORT_SHARE · max p (Bayes), or the union of the focal sets
-        holding REGION_LEVEL of the mass (evidential)."""
-        if p is not None:
-            return p >= SUPPORT_SHARE * float(p.max())
-        m = self.filter.belief
-        nonempty = np.flatnonzero(m.cardinalities > 0)
-        if not len(nonempty):
-            return np.zeros(m.n, dtype=bool)
-        order = nonempty[np.argsort(-m.masses[nonempty], kind="stable")]
-        cum = np.cumsum(m.masses[order])
-        top = int(np.searchsorted(cum, REGION_LEVEL * cum[-1] * (1 - 1e-12))) + 1
-        return bitset.unpack(np.bitwise_or.reduce(m.sets[order[:top]], axis=0), m.n)
-
     @staticmethod
-    def _informative(support: np.ndarray, evidence: Evidence) -> bool:
-        """Could the reading have refuted part of the belief?  Some allowed cell has contour < ½."""
-        return bool(support.any()) and float(evidence.contour[support].min()) < 0.5
+    def _informative(evidence: Evidence) -> float:
+        """How much the reading says about where the robot is: the share of cells it rules out (contour
+        < ½).  A quiet door contact rules out almost nothing and so cannot vouch for a belief
+        against a sensor that disagrees with it."""
+        return float(np.mean(evidence.contour < 0.5))
 
     @staticmethod
     def _support_conflict(p: np.ndarray, evidence: Evidence) -> float:

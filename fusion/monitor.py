@@ -76,14 +76,14 @@ class Monitor:
             return figure > p.conflict_k and (extra is None or extra > p.disagreement)
         return figure > p.conflict_k
 
-    def record_reading(self, sensor: str, disagree: bool, informative: bool = True) -> None:
-        """``informative``: the reading could have refuted part of the belief (a door contact that is
-        quiet far from any door, or a camera that sees nothing, agrees with every belief and so
-        cannot vouch for it)."""
+    def record_reading(self, sensor: str, disagree: bool, informative: float = 1.0) -> None:
+        """``informative``: the share of the site the reading rules out (a door contact that is quiet far
+        from any door rules out almost nothing, so it agrees with almost every belief and cannot vouch
+        for one); readings ruling out at least half the site count as informative."""
         window = self._history.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))
         window.append(disagree)
         informed = self._informed.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))
-        informed.append(informative or disagree)
+        informed.append(float(informative) if not disagree else max(float(informative), 0.5))
         self._agree_run[sensor] = 0 if disagree else self._agree_run.get(sensor, 0) + 1
 
     # ----------------------------------------------------------------- per tick
@@ -133,15 +133,20 @@ class Monitor:
                 continue
             if sum(window) < p.quarantine_after:
                 continue
-            # The others must vouch for the belief with informative readings, and mostly agree.
-            others = []
+            # The others must vouch for the belief with informative readings, and mostly agree; and
+            # at least one of them must be as informative as the suspect: when the richest sensor is
+            # the one that disagrees, the belief is more likely wrong than the sensor (the robot was
+            # moved), and the conflict is left to run on to a re-localization.
+            own_share = _share(self._informed.get(sensor, ()))
+            others, strongest = [], 0.0
             for s, w in self._history.items():
                 if s == sensor or s in self.quarantined:
                     continue
-                flags = [d for d, i in zip(w, self._informed.get(s, ())) if i]
+                flags = [d for d, i in zip(w, self._informed.get(s, ())) if i >= 0.5]
                 if len(flags) >= 2:
                     others.append(flags)
-            if others and all(sum(f) / len(f) <= p.others_agree for f in others):
+                    strongest = max(strongest, _share(self._informed.get(s, ())))
+            if others and strongest >= 0.9 * own_share and all(sum(f) / len(f) <= p.others_agree for f in others):
                 self.quarantined.add(sensor)
                 newly.append(sensor)
                 window.clear()
@@ -152,3 +157,9 @@ class Monitor:
         """After a re-localization the old readings no longer describe the new belief."""
         for window in (*self._history.values(), *self._informed.values()):
             window.clear()
+
+
+def _share(values) -> float:
+    """Mean informativeness of a sensor's recent readings."""
+    values = list(values)
+    return sum(values) / len(values) if values else 0.0

@@ -46,6 +46,6 @@ def test_uninformative_agreement_cannot_get_a_sensor_quarantined():
     # when the robot has been carried off and only the ranger notices.
     m = Monitor("bayes", Policy(quarantine_after=2, quarantine_window=4))
     for _ in range(4):
-        m.record_reading("ranger", True, informative=True)
-        m.record_reading("door", False, informative=False)
+        m.record_reading("ranger", True, informative=0.99)
+        m.record_reading("door", False, informative=0.01)
         assert m.judge(True, False, [("ranger", 0.9)]).action != QUARANTINE
