@@ -34,6 +34,7 @@ def test_bench_reports_ratios_as_json(capsys):
         ("bayes", "update"),
         ("bayes", "predict"),
         ("evidential", "update"),
+        ("evidential", "update as run"),
         ("evidential", "predict"),
         ("evidential", "step"),
     }
