@@ -202,10 +202,7 @@ class _Reader:
                 self.fail(where, f"the field '{key}' is missing (an array of numbers)")
             return default
         value = data[key]
-        ok = isinstance(value, list) and all(
-            isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value
-        )
-        if not ok:
+        if not _finite_numbers(value):
             self.fail((*where, key), f"must be an array of finite numbers, got {_kind(value)}")
         if length is not None and len(value) != length:
             self.fail((*where, key), f"must hold {length} numbers, got {len(value)}")
@@ -215,6 +212,15 @@ class _Reader:
         for key in data:
             if key not in allowed:
                 self.fail((*where, key), f"unknown field '{key}'; known fields here: {', '.join(sorted(allowed))}")
+
+
+def _finite_numbers(value, length: int | None = None) -> bool:
+    """An array of finite numbers (booleans are not numbers here), of ``length`` items if given."""
+    return (
+        isinstance(value, list)
+        and (length is None or len(value) == length)
+        and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value)
+    )
 
 
 def _field_name(where: tuple) -> str:
@@ -330,12 +336,7 @@ def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
     if not isinstance(boxes, list):
         r.fail((*w, "boxes"), "must be an array of [x0, y0, x1, y1] boxes in metres")
     for i, box in enumerate(boxes):
-        ok = (
-            isinstance(box, list)
-            and len(box) == 4
-            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in box)
-        )
-        if not ok:
+        if not _finite_numbers(box, 4):
             r.fail((*w, "boxes"), f"box {i + 1} must be [x0, y0, x1, y1] in metres, got {box!r}")
         site = site.with_box(*box)
     return site, headings
@@ -438,12 +439,7 @@ def _route(r: _Reader, d: dict, site: SiteMap) -> RouteSpec:
         r.fail((*w, "waypoints"), "needs at least two [x, y] waypoints in metres")
     points = []
     for i, p in enumerate(raw):
-        ok = (
-            isinstance(p, list)
-            and len(p) == 2
-            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in p)
-        )
-        if not ok:
+        if not _finite_numbers(p, 2):
             r.fail((*w, "waypoints"), f"waypoint {i + 1} must be [x, y] in metres, got {p!r}")
         points.append((float(p[0]), float(p[1])))
     for i, p in enumerate(points):
