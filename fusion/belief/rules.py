@@ -84,6 +84,14 @@ def _empty_rows(rows: np.ndarray, fps: np.ndarray) -> np.ndarray:
     return empty
 
 
+def _products(m1: MassFunction, m2: MassFunction, op: Callable) -> FocalAccumulator:
+    """Every pair's set ``op(B_i, C_j)`` with weight m1(B_i) · m2(C_j), merged: the core of the product rules."""
+    acc = FocalAccumulator(check_same_frame(m1, m2))
+    for rows, ii, jj, fps in _pairs(m1, m2, op):
+        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True, fingerprints=fps)
+    return acc
+
+
 def conflict_mass(m1: MassFunction, m2: MassFunction) -> float:
     """K = Σ m1(B) m2(C) over pairs with B ∩ C = ∅: the conflict, without building the combination."""
     check_same_frame(m1, m2)
@@ -96,11 +104,7 @@ def conflict_mass(m1: MassFunction, m2: MassFunction) -> float:
 
 def conjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     """Unnormalised conjunctive rule: m(A) = Σ_{B∩C=A} m1(B) m2(C); m(∅) keeps the conflict."""
-    n = check_same_frame(m1, m2)
-    acc = FocalAccumulator(n)
-    for rows, ii, jj, fps in _pairs(m1, m2, np.bitwise_and):
-        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True, fingerprints=fps)
-    return acc.result()
+    return _products(m1, m2, np.bitwise_and).result()
 
 
 def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int, merge: str = "union") -> Reduction:
@@ -110,11 +114,7 @@ def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int, merg
     union anyway, so they are never gathered into a table of their own.
     """
     _check_cap(max_focal)
-    n = check_same_frame(m1, m2)
-    acc = FocalAccumulator(n)
-    for rows, ii, jj, fps in _pairs(m1, m2, np.bitwise_and):
-        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True, fingerprints=fps)
-    return Reduction(*acc.reduced(max_focal, merge))
+    return Reduction(*_products(m1, m2, np.bitwise_and).reduced(max_focal, merge))
 
 
 def dempster(m1: MassFunction, m2: MassFunction, *, if_total_conflict: str = "raise") -> MassFunction:
@@ -168,11 +168,7 @@ def dubois_prade(m1: MassFunction, m2: MassFunction) -> MassFunction:
 
 def disjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     """Disjunctive rule: m(A) = Σ_{B∪C=A} m1(B) m2(C), for when one of the sources is right."""
-    n = check_same_frame(m1, m2)
-    acc = FocalAccumulator(n)
-    for rows, ii, jj, fps in _pairs(m1, m2, np.bitwise_or):
-        acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True, fingerprints=fps)
-    return acc.result()
+    return _products(m1, m2, np.bitwise_or).result()
 
 
 def pcr5(m1: MassFunction, m2: MassFunction) -> MassFunction:
