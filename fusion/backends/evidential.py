@@ -62,6 +62,7 @@ class MassFilter:
         self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_cells))
         self._layout = SlicedSets(grid) if isinstance(grid, PoseGrid) else None
         self._residual = SubCellMotion(grid.headings)
+        self._distribution, self._distribution_of = None, None
         self.motion_lost = 0.0  # mass whose focal sets moved wholly off free space at the last prediction
 
     def reset(self, prior) -> None:
@@ -210,11 +211,17 @@ class MassFilter:
         return int(bitset.cardinality(union))
 
     def distribution(self) -> np.ndarray:
-        try:
-            return self.belief.pignistic()
-        except TotalConflictError:  # all mass on ∅ (conjunctive rule after total conflict): no information left
-            free = bitset.unpack(self._free_words, self.grid.n_cells).astype(np.float64)
-            return free / free.sum()
+        """Pignistic probability of the belief; the belief is immutable, so it is computed once per belief
+        (the pose estimate, the monitor and the live view all ask for it in the same tick)."""
+        if self._distribution_of is not self.belief:
+            try:
+                p = self.belief.pignistic()
+            except TotalConflictError:  # all mass on ∅ (conjunctive rule after total conflict): no information
+                free = bitset.unpack(self._free_words, self.grid.n_cells).astype(np.float64)
+                p = free / free.sum()
+            p.flags.writeable = False
+            self._distribution, self._distribution_of = p, self.belief
+        return self._distribution
 
     def pose_estimate(self) -> PoseEstimate:
         return estimate_pose(self.grid, self.distribution())
