@@ -119,6 +119,85 @@ def _targets(args: argparse.Namespace) -> int:
     return 0
 
 
+def _compare(args: argparse.Namespace) -> int:
+    import dataclasses
+    from pathlib import Path
+
+    from rich.console import Console
+    from rich.progress import (
+        BarColumn,
+        MofNCompleteColumn,
+        Progress,
+        TextColumn,
+        TimeElapsedColumn,
+        TimeRemainingColumn,
+    )
+
+    from fusion.compare import SweepInterrupted, bayes_dempster_identity, run_sweep, settings_of, summarise
+    from fusion.compare import verdicts as verdicts_of
+    from fusion.compare_report import identity_words, tables, write_report
+    from fusion.io.case import load_case
+
+    case = load_case(args.case)
+    overrides = {
+        "seeds": args.seeds,
+        "backends": tuple(args.backend) if args.backend else None,
+        "rules": tuple(args.rule) if args.rule else None,
+        "reliabilities": tuple(args.reliability) if args.reliability else None,
+        "fault_rates": tuple(args.fault_rate) if args.fault_rate else None,
+    }
+    spec = dataclasses.replace(case.sweep, **{k: v for k, v in overrides.items() if v is not None})
+    settings = settings_of(spec)  # refuses unknown rules and out-of-range values before any run
+    seeds = range(case.run.seed, case.run.seed + spec.seeds)
+    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.case).stem}-compare"
+    console = Console()
+    console.print(f"[dim]{SAFETY_NOTICE}[/]")
+    console.print(
+        f"{case.name}: {len(settings)} settings × {spec.seeds} seeds = {len(settings) * spec.seeds} runs "
+        f"on the {args.engine} engine; results go to {out_dir}"
+    )
+    progress = Progress(
+        TextColumn("runs"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+        TextColumn("ETA"),
+        TimeRemainingColumn(),
+        console=console,
+        disable=args.quiet,
+    )
+    task = progress.add_task("runs", total=None)
+    try:
+        with progress:
+            records = run_sweep(
+                args.case,
+                settings,
+                seeds,
+                out_dir,
+                workers=args.workers,
+                engine=args.engine,
+                address=args.scheduler,
+                on_start=lambda total, done: progress.update(task, total=total, completed=done),
+                on_done=lambda rec: progress.advance(task),
+            )
+    except SweepInterrupted as err:
+        console.print(f"[yellow]{err}[/]")
+        return 130
+    summary = summarise(records, settings)
+    verdict_list = verdicts_of(records, settings)
+    identity = bayes_dempster_identity(case)
+    files = write_report(out_dir, records, settings, summary, verdict_list, identity, args.rank_by, case.name)
+    for t in tables(summary, settings, args.rank_by, f"{case.name}, {len(records)} runs"):
+        console.print(t)
+    for v in verdict_list:
+        console.print(f"• {v['sentence']}")
+    console.print(
+        f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {identity_words(identity)}"
+    )
+    console.print(f"written to [bold]{out_dir}[/]: {', '.join(files)}, and runs/ (one file per run)")
+    return 0
+
+
 def _stream(args: argparse.Namespace) -> int:
     from fusion.io.case import load_case
     from fusion.localizer import Localizer
@@ -174,6 +253,20 @@ def _parser() -> argparse.ArgumentParser:
     st.add_argument("--backend", choices=("bayes", "evidential"), default="bayes", help="back end (default bayes)")
     st.add_argument("--start", help="known start pose x,y,heading_deg (default: anywhere in free space)")
     st.set_defaults(run=_stream)
+    cmp = commands.add_parser("compare", help="run a grid of fusion settings over many seeds and rank them")
+    cmp.add_argument("case", help="case file (TOML); its [compare] table sets the default sweep")
+    cmp.add_argument("--seeds", type=_positive_int, help="seeds per setting (default: the case's, else 50)")
+    cmp.add_argument("--backend", action="append", help="back end to include (repeatable): bayes, evidential")
+    cmp.add_argument("--rule", action="append", help="evidential combination rule to include (repeatable)")
+    cmp.add_argument("--reliability", action="append", type=_number, help="discount factor in [0, 1] (repeatable)")
+    cmp.add_argument("--fault-rate", action="append", type=_number, help="fault rate in [0, 1] (repeatable)")
+    cmp.add_argument("--rank-by", default="median_error_m", choices=_figure_names(), help="figure to rank by")
+    cmp.add_argument("--workers", type=_positive_int, help="parallel workers (default: one per core)")
+    cmp.add_argument("--engine", choices=("local", "dask"), default="local", help="where runs execute (default local)")
+    cmp.add_argument("--scheduler", help="address of a running Dask scheduler (engine dask; default: a local cluster)")
+    cmp.add_argument("--out", help="output folder (default: fusion-out/<case>-compare); an existing one resumes")
+    cmp.add_argument("--quiet", action="store_true", help="no progress bar")
+    cmp.set_defaults(run=_compare)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
     targets.add_argument("--seeds", type=_positive_int, default=50, help="seeds per case (default 50)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
@@ -186,6 +279,19 @@ def _run_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, help="seed of the simulation (default: the case's)")
     p.add_argument("--out", help="output folder (default: fusion-out/<case>-seed<seed>)")
     p.add_argument("--quiet", action="store_true", help="no live view; print the summary only")
+
+
+def _figure_names() -> tuple[str, ...]:
+    from fusion.compare import FIGURES
+
+    return tuple(FIGURES)
+
+
+def _number(text: str) -> float:
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
 
 
 def _positive_int(text: str) -> int:

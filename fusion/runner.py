@@ -25,7 +25,7 @@ from fusion.localizer import Decision, Localizer, SensorSet
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Policy
 from fusion.simulate import Tick, simulate
 
-__all__ = ["StepRow", "RunResult", "run_case", "write_results", "STEP_COLUMNS"]
+__all__ = ["StepRow", "RunResult", "run_case", "write_results", "atomic_write", "STEP_COLUMNS"]
 
 STEP_COLUMNS = (
     "t",
@@ -134,11 +134,14 @@ class RunResult:
         return out
 
 
-def run_case(case: Case, backends=None, rule: str | None = None, on_tick=None, seed: int | None = None) -> RunResult:
-    """Simulate ``case`` and run the back ends side by side; ``on_tick(tick, decisions)`` is called after each tick."""
+def run_case(
+    case: Case, backends=None, rule: str | None = None, on_tick=None, seed: int | None = None, sensors=None
+) -> RunResult:
+    """Simulate ``case`` and run the back ends side by side; ``on_tick(tick, decisions, localizers)`` is called
+    after each tick.  ``sensors``: a ``SensorSet`` of this case to reuse (building one costs a few seconds)."""
     backends = tuple(backends or case.run.backends)
-    grid = case.site.grid(case.headings)
-    sensors = SensorSet(case.site, grid, case.sensors)
+    if sensors is None:
+        sensors = SensorSet(case.site, case.site.grid(case.headings), case.sensors)
     policy = Policy(**case.run.policy)
     localizers = {
         b: Localizer(b, sensors, policy, rule=rule or case.run.rule, max_focal=case.run.max_focal) for b in backends
@@ -164,11 +167,17 @@ def run_case(case: Case, backends=None, rule: str | None = None, on_tick=None, s
     return result
 
 
-def _atomic_write(path: Path, text: str) -> None:
+def atomic_write(path: Path, data: str | bytes) -> None:
+    """Write ``data`` to a temporary file beside ``path`` and rename it into place: readers see all or nothing."""
+    path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
+        if isinstance(data, bytes):
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(data)
+        else:
+            with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+                fh.write(data)
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -189,10 +198,10 @@ def write_results(result: RunResult, out_dir) -> Path:
         writer.writerow({k: (f"{v:.6g}" if isinstance(v, float) else v) for k, v in r.values.items()})
     summary = result.summary()
     summary["events"] = result.events
-    _atomic_write(out / "observations.jsonl", log)
-    _atomic_write(out / "truth.jsonl", truth)
-    _atomic_write(out / "steps.csv", buf.getvalue())
-    _atomic_write(out / "summary.json", json.dumps(summary, indent=2, allow_nan=False, default=_finite) + "\n")
+    atomic_write(out / "observations.jsonl", log)
+    atomic_write(out / "truth.jsonl", truth)
+    atomic_write(out / "steps.csv", buf.getvalue())
+    atomic_write(out / "summary.json", json.dumps(summary, indent=2, allow_nan=False, default=_finite) + "\n")
     return out
 
 

@@ -35,6 +35,8 @@ __all__ = [
     "RouteSpec",
     "CarryEvent",
     "RunSpec",
+    "SweepSpec",
+    "SWEEP_RULES",
     "load_case",
     "parse_case",
     "SENSOR_KINDS",
@@ -105,6 +107,25 @@ class RunSpec:
     policy: dict = field(default_factory=dict)
 
 
+SWEEP_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy")
+"""Rules a comparison sweeps by default: Dempster's, the unnormalised conjunctive, Yager's,
+Dubois–Prade's, PCR5 and Murphy's averaging."""
+
+
+@dataclass(frozen=True)
+class SweepSpec:
+    """The ``[compare]`` table: which settings ``fusion compare`` runs, each on every seed.
+
+    ``reliabilities``: discount factors applied to every sensor but odometry (empty: as in the case);
+    ``fault_rates``: the ``rate`` of every people/ghost fault (empty: as in the case)."""
+
+    seeds: int = 50
+    backends: tuple[str, ...] = BACKENDS
+    rules: tuple[str, ...] = SWEEP_RULES
+    reliabilities: tuple[float, ...] = ()
+    fault_rates: tuple[float, ...] = ()
+
+
 @dataclass(frozen=True)
 class Case:
     name: str
@@ -115,6 +136,7 @@ class Case:
     route: RouteSpec
     run: RunSpec
     description: str = ""
+    sweep: SweepSpec = field(default_factory=SweepSpec)
 
     def sensor(self, name: str) -> SensorSpec:
         for s in self.sensors:
@@ -275,7 +297,7 @@ def parse_case(text: str, path: str = "<case>") -> Case:
             line = int(found.group(1)) if found else None
         raise InputFileError(path, line, None, f"not valid TOML: {message}") from None
     r = _Reader(path, text)
-    r.only(data, (), {"case", "site", "sensors", "route", "run"})
+    r.only(data, (), {"case", "site", "sensors", "route", "run", "compare"})
     head = r.table(data, (), "case")
     r.only(head, ("case",), {"name", "description"})
     name = r.text(head, ("case",), "name")
@@ -284,7 +306,10 @@ def parse_case(text: str, path: str = "<case>") -> Case:
     sensors = _sensors(r, data, site)
     route = _route(r, r.table(data, (), "route"), site)
     run = _run(r, r.table(data, (), "run", required=False), sensors)
-    return Case(name, path, site, headings, sensors, route, run, description if isinstance(description, str) else "")
+    sweep = _sweep(r, r.table(data, (), "compare", required=False))
+    return Case(
+        name, path, site, headings, sensors, route, run, description if isinstance(description, str) else "", sweep
+    )
 
 
 def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
@@ -514,3 +539,27 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
         else:
             r.number(policy, (*w, "policy"), key, low=0)
     return RunSpec(tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy))
+
+
+def _sweep(r: _Reader, d: dict) -> SweepSpec:
+    from fusion.backends.evidential import FILTER_RULES
+
+    w = ("compare",)
+    r.only(d, w, {"seeds", "backends", "rules", "reliabilities", "fault_rates"})
+    seeds = r.number(d, w, "seeds", 50, whole=True, low=1, high=10_000)
+    out = {}
+    for key, choices in (("backends", BACKENDS), ("rules", FILTER_RULES)):
+        value = d.get(key, list(getattr(SweepSpec, key)))
+        if not isinstance(value, list) or not value or not all(isinstance(v, str) for v in value):
+            r.fail((*w, key), f"must be a non-empty array of names among: {', '.join(choices)}")
+        for v in value:
+            if v not in choices:
+                r.fail((*w, key), f"unknown name {v!r}; choose among: {', '.join(choices)}")
+        out[key] = tuple(dict.fromkeys(value))
+    for key, what in (("reliabilities", "discount factors"), ("fault_rates", "fault rates")):
+        values = r.numbers(d, w, key, default=())
+        for v in values:
+            if not 0 <= v <= 1:
+                r.fail((*w, key), f"{what} must lie in [0, 1], got {v!r}")
+        out[key] = tuple(dict.fromkeys(values))
+    return SweepSpec(int(seeds), **out)

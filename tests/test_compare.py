@@ -1,0 +1,282 @@
+"""The comparison sweep: settings, identical evidence, figures, intervals, verdicts, resume, engines, CLI."""
+
+import dataclasses
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from fusion.cli import main
+from fusion.compare import (
+    Setting,
+    _figures,
+    bayes_dempster_identity,
+    calibration,
+    check_sweep,
+    run_sweep,
+    settings_of,
+    summarise,
+    variant,
+    verdicts,
+)
+from fusion.errors import FusionError, InputFileError
+from fusion.io.case import FaultSpec, SweepSpec, load_case, parse_case
+from fusion.monitor import ALERT, CARRY_ON
+from fusion.simulate import simulate
+
+TINY = Path(__file__).parent / "data" / "tiny.toml"
+TWO = [Setting("bayes"), Setting("evidential", "dempster")]
+
+
+def _figure_free(rec: dict) -> str:
+    """A run's record without its wall-time figure (the only one that may differ between repeats), as text
+    so that NaN (no carry, no alert) compares equal to NaN."""
+    return json.dumps({k: v for k, v in rec.items() if k != "ms_per_step"}, sort_keys=True)
+
+
+# ----------------------------------------------------------------------------- settings
+def test_default_sweep_is_bayes_plus_six_rules():
+    keys = [s.key for s in settings_of(SweepSpec())]
+    assert keys == [
+        "bayes",
+        "evidential-dempster",
+        "evidential-conjunctive",
+        "evidential-yager",
+        "evidential-dubois_prade",
+        "evidential-pcr5",
+        "evidential-murphy",
+    ]
+
+
+def test_grid_of_discounts_and_fault_rates():
+    spec = SweepSpec(
+        backends=("bayes", "evidential"), rules=("dempster", "yager"), reliabilities=(0.8, 1.0), fault_rates=(0.0, 0.5)
+    )
+    settings = settings_of(spec)
+    assert len(settings) == 2 * 2 * 3  # fault rates × discounts × (Bayes + two rules)
+    assert len({s.key for s in settings}) == len(settings)
+
+
+@pytest.mark.parametrize(
+    "spec, words",
+    [
+        (SweepSpec(rules=("dempster", "bogus")), ["bogus", "dempster", "yager", "pcr5"]),
+        (SweepSpec(backends=("kalman",)), ["kalman", "bayes", "evidential"]),
+        (SweepSpec(reliabilities=(1.5,)), ["discount factor", "1.5", "[0, 1]"]),
+        (SweepSpec(fault_rates=(-0.1,)), ["fault rate", "[0, 1]"]),
+    ],
+)
+def test_bad_sweeps_are_refused_with_the_choices(spec, words):
+    with pytest.raises(FusionError) as err:
+        check_sweep(spec)
+    for w in words:
+        assert w in str(err.value)
+
+
+def test_case_compare_table_is_validated_with_its_line():
+    text = TINY.read_text() + '\n[compare]\nseeds = 4\nrules = ["dempster", "guesswork"]\n'
+    with pytest.raises(InputFileError) as err:
+        parse_case(text, "bay.toml")
+    assert err.value.line == text.splitlines().index('rules = ["dempster", "guesswork"]') + 1
+    assert "guesswork" in str(err.value) and "dubois_prade" in str(err.value)
+    ok = parse_case(TINY.read_text() + '\n[compare]\nseeds = 4\nrules = ["yager"]\nreliabilities = [0.7, 0.9]\n')
+    assert ok.sweep == SweepSpec(seeds=4, rules=("yager",), reliabilities=(0.7, 0.9))
+
+
+def test_discounting_leaves_the_readings_identical():
+    case = load_case(TINY)
+    plain = simulate(case, seed=5)
+    discounted = simulate(variant(case, 0.4, None), seed=5)
+    assert [t.observations for t in plain] == [t.observations for t in discounted]
+    assert all(s.params.reliability == 0.4 for s in variant(case, 0.4, None).sensors if s.kind != "odometry")
+
+
+# ----------------------------------------------------------------------------- figures
+def test_calibration_figures_match_their_definitions():
+    rng = np.random.default_rng(2)
+    p = rng.dirichlet(np.ones(200))
+    cell = 17
+    p_true, level, brier = calibration(p, cell)
+    onehot = np.zeros(200)
+    onehot[cell] = 1.0
+    # Brier (1950), Verification of forecasts expressed in terms of probability: Σ (p_i − o_i)².
+    assert brier == pytest.approx(float(((p - onehot) ** 2).sum()), abs=1e-12)
+    assert p_true == p[cell]
+    # The true cell's level: the mass of every cell more probable than it (sorted reference).
+    ranked = np.sort(p)[::-1]
+    assert level == pytest.approx(float(ranked[ranked > p[cell]].sum()), abs=1e-12)
+
+
+def test_alert_precision_recall_and_recovery_on_a_hand_made_run():
+    case = load_case(TINY)
+    contact = dataclasses.replace(case.sensor("contact"), faults=(FaultSpec("stuck", 5.0, 8.0, {"value": True}),))
+    case = dataclasses.replace(case, sensors=tuple(contact if s.name == "contact" else s for s in case.sensors))
+    rows = []
+    for k in range(21):
+        t = float(k)
+        rows.append(
+            {
+                "t": t,
+                "error_m": 0.1,
+                "heading_error_deg": 1.0,
+                "action": ALERT if k in (6, 7, 15) else CARRY_ON,
+                "seconds": 0.01,
+                "carried": False,
+            }
+        )
+    figs = _figures(case, rows, [(0.5, 0.0, 0.25)] * 21)
+    # Two alert episodes: 6–7 s inside the fault (5–8 s, + grace), 15 s outside: precision 1/2, recall 1/1.
+    assert figs["alert_precision"] == 0.5 and figs["alert_recall"] == 1.0 and figs["false_alerts"] == 1
+    assert figs["nll"] == pytest.approx(math.log(2)) and figs["brier"] == 0.25
+    assert math.isnan(figs["recovery_s"])
+
+
+def test_summary_interval_is_the_student_t_interval():
+    # Student (1908), The probable error of a mean: mean ± t(0.975, n−1) · s / √n.
+    # t(0.975, 9) = 2.262 is the tabulated value (from memory); scipy gives it to more digits.
+    values = [0.21, 0.35, 0.18, 0.40, 0.27, 0.30, 0.22, 0.33, 0.25, 0.29]
+    records = [{"key": "bayes", "seed": i, **{name: v for name in ("median_error_m",)}} for i, v in enumerate(values)]
+    for r in records:
+        for name in (
+            "p95_error_m",
+            "median_heading_error_deg",
+            "p95_heading_error_deg",
+            "in_region",
+            "nll",
+            "brier",
+            "recovery_s",
+            "recovered",
+            "alert_precision",
+            "alert_recall",
+            "false_alerts",
+            "ms_per_step",
+        ):
+            r[name] = math.nan
+    table = summarise(records, [Setting("bayes")])
+    row = table[table.figure == "median_error_m"].iloc[0]
+    mean, s = np.mean(values), np.std(values, ddof=1)
+    assert stats.t.ppf(0.975, 9) == pytest.approx(2.262, abs=5e-4)
+    half = stats.t.ppf(0.975, 9) * s / math.sqrt(10)
+    assert row["runs"] == 10 and row["mean"] == pytest.approx(mean)
+    assert row["low"] == pytest.approx(mean - half) and row["high"] == pytest.approx(mean + half)
+    assert table[table.figure == "nll"].iloc[0]["runs"] == 0
+
+
+def _records(a_values, b_values, name="median_error_m"):
+    out = []
+    for key, values in (("bayes", a_values), ("evidential-dempster", b_values)):
+        for seed, v in enumerate(values):
+            out.append({"key": key, "seed": seed, name: v})
+    return out
+
+
+def test_verdict_uses_the_paired_wilcoxon_test():
+    # Wilcoxon (1945), Individual comparisons by ranking methods: with all n = 10 paired
+    # differences of one sign, the exact two-sided p-value is 2 / 2^10.
+    a = [0.2 + 0.01 * i for i in range(10)]
+    b = [v + 0.05 + 0.001 * i for i, v in enumerate(a)]
+    (v,) = verdicts(_records(a, b), TWO, ["median_error_m"])
+    assert v["best"] == "Bayes" and v["wins"] == 10 and v["losses"] == 0
+    assert v["p_value"] == pytest.approx(2 / 2**10)
+    assert v["sureness"] == "clear" and "Bayes is best" in v["sentence"]
+    (few,) = verdicts(_records(a[:3], b[:3]), TWO, ["median_error_m"])
+    assert few["sureness"] == "too few paired seeds to tell"
+    (tie,) = verdicts(_records([1.0] * 8, [1.0] * 8), TWO, ["median_error_m"])
+    assert tie["sureness"] == "a tie"
+
+
+def test_bayes_and_dempster_agree_on_bayesian_masses():
+    # Shafer (1976), A Mathematical Theory of Evidence: Dempster's rule on Bayesian mass
+    # functions is Bayes' rule; the sweep's sanity row checks this on the case's own readings.
+    check = bayes_dempster_identity(load_case(TINY), cells=256, readings=10)
+    assert check["readings"] == 10 and check["cells"] == 256
+    assert check["holds"] and check["max_abs_difference"] < 1e-12
+
+
+# ----------------------------------------------------------------------------- sweeps
+def test_sweep_writes_run_by_run_and_resumes(tmp_path):
+    out = tmp_path / "sweep"
+    started, done = [], []
+    first = run_sweep(
+        TINY, TWO, [1, 2], out, workers=2, on_start=lambda total, d: started.append((total, d)), on_done=done.append
+    )
+    assert started == [(4, 0)] and len(done) == 4 and len(first) == 4
+    assert sorted(p.name for p in (out / "runs").glob("*.json")) == [
+        "bayes-seed1.json",
+        "bayes-seed2.json",
+        "evidential-dempster-seed1.json",
+        "evidential-dempster-seed2.json",
+    ]
+    # An interrupted sweep: one run file missing.  The same call redoes only that run.
+    (out / "runs" / "bayes-seed2.json").unlink()
+    started.clear()
+    done.clear()
+    again = run_sweep(
+        TINY, TWO, [1, 2], out, workers=1, on_start=lambda t, d: started.append((t, d)), on_done=done.append
+    )
+    assert started == [(4, 3)] and [(r["key"], r["seed"]) for r in done] == [("bayes", 2)]
+    # Determinism: the redone run and the parallel first run agree figure for figure.
+    assert [_figure_free(r) for r in again] == [_figure_free(r) for r in first]
+
+
+def test_sweep_refuses_a_folder_of_another_case(tmp_path):
+    out = tmp_path / "sweep"
+    run_sweep(TINY, TWO[:1], [1], out, workers=1)
+    other = tmp_path / "other.toml"
+    other.write_text(TINY.read_text().replace('name = "test bay"', 'name = "other bay"'))
+    with pytest.raises(FusionError, match="different case"):
+        run_sweep(other, TWO[:1], [1], out, workers=1)
+
+
+def test_dask_engine_gives_the_local_results(tmp_path):
+    pytest.importorskip("distributed")
+    local = run_sweep(TINY, TWO[:1], [4], tmp_path / "local", workers=1)
+    dask = run_sweep(TINY, TWO[:1], [4], tmp_path / "dask", workers=1, engine="dask")
+    assert [_figure_free(r) for r in dask] == [_figure_free(r) for r in local]
+
+
+# ----------------------------------------------------------------------------- command line
+def test_compare_command_writes_the_report(tmp_path, capsys):
+    out = tmp_path / "cmp"
+    code = main(
+        [
+            "compare",
+            str(TINY),
+            "--seeds",
+            "2",
+            "--rule",
+            "dempster",
+            "--rule",
+            "yager",
+            "--out",
+            str(out),
+            "--quiet",
+            "--workers",
+            "2",
+        ]
+    )
+    text = capsys.readouterr().out
+    assert code == 0
+    for name in ("runs.csv", "settings.csv", "report.html", "error_over_time.png", "calibration.png", "sweep.json"):
+        assert (out / name).stat().st_size > 0
+    import pandas as pd
+
+    runs = pd.read_csv(out / "runs.csv")
+    assert len(runs) == 3 * 2 and set(runs.key) == {"bayes", "evidential-dempster", "evidential-yager"}
+    assert "not a certified safety function" in text and "Sanity row" in text and "holds" in text
+    page = (out / "report.html").read_text()
+    assert "data:image/png;base64," in page and "not a certified safety function" in page
+    assert json.loads((out / "sweep.json").read_text())["settings"] == list(runs.key.unique())
+
+
+def test_compare_command_refuses_a_bad_rule_before_running(tmp_path, capsys):
+    out = tmp_path / "never"
+    code = main(["compare", str(TINY), "--rule", "majority-vote", "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 2 and "majority-vote" in err and "dempster" in err and "pcr5" in err
+    assert not out.exists()
+    code = main(["compare", str(TINY), "--reliability", "2", "--out", str(out), "--quiet"])
+    assert code == 2 and "[0, 1]" in capsys.readouterr().err and not out.exists()
