@@ -31,7 +31,7 @@ from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import OdometryParams, OdometryReading, OdometrySensor
 
-__all__ = ["BenchRow", "run_bench", "SIZES"]
+__all__ = ["BenchRow", "run_bench", "bench_localizer", "bench_sweep", "SIZES"]
 
 SIZES = ((100, 100, 36), (240, 160, 36))
 RESOLUTION_M = 0.25
@@ -295,6 +295,40 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
             )
         )
     return rows
+
+
+def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
+    """Parallel speed-up of ``fusion compare``: the case's default sweep on ``seeds`` seeds with one
+    worker, then with ``workers``, into fresh folders (nothing resumed).  The ratio is one-worker time
+    over parallel time, both measured in this run."""
+    import os
+    import tempfile
+
+    from fusion.compare import run_sweep, settings_of
+    from fusion.io.case import load_case
+
+    case = load_case(case_path)
+    settings = settings_of(case.sweep)
+    seed_list = list(range(case.run.seed, case.run.seed + seeds))
+    seconds = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        for n in (1, workers):
+            start = time.perf_counter()
+            run_sweep(case_path, settings, seed_list, os.path.join(tmp, f"w{n}"), workers=n)
+            seconds[n] = time.perf_counter() - start
+    runs = len(settings) * len(seed_list)
+    return [
+        BenchRow(
+            f"{case.name}: {len(settings)} settings × {len(seed_list)} seeds",
+            "both",
+            f"compare sweep, {workers} workers",
+            seconds[workers] * 1e3,
+            seconds[1] * 1e3,
+            seconds[1] / seconds[workers],
+            None,
+            f"speed-up over one worker ({runs} runs; 'floor' column: one worker's ms)",
+        )
+    ]
 
 
 def render(rows: list[BenchRow]):

@@ -95,6 +95,7 @@ class Setting:
     rule: str | None = None  # evidential only
     reliability: float | None = None  # None: each sensor's own, as in the case
     fault_rate: float | None = None  # None: each fault's own, as in the case
+    calibrated: bool = False  # sensor parameters from the sweep's calibration file
 
     @property
     def key(self) -> str:
@@ -104,6 +105,8 @@ class Setting:
             parts.append(f"r{self.reliability:g}")
         if self.fault_rate is not None:
             parts.append(f"f{self.fault_rate:g}")
+        if self.calibrated:
+            parts.append("cal")
         return "-".join(parts)
 
     @property
@@ -113,6 +116,8 @@ class Setting:
             out += f" r={self.reliability:g}"
         if self.fault_rate is not None:
             out += f" faults={self.fault_rate:g}"
+        if self.calibrated:
+            out += " calibrated"
         return out
 
     def as_dict(self) -> dict:
@@ -141,7 +146,8 @@ def check_sweep(spec: SweepSpec, where: str = "the sweep") -> None:
         raise FusionError(f"{where}: the evidential back end needs at least one rule: {', '.join(FILTER_RULES)}")
 
 
-def settings_of(spec: SweepSpec) -> list[Setting]:
+def settings_of(spec: SweepSpec, calibrated: bool = False) -> list[Setting]:
+    """Every setting of the sweep; with ``calibrated``, each also with the calibrated sensor parameters."""
     check_sweep(spec)
     reliabilities = spec.reliabilities or (None,)
     fault_rates = spec.fault_rates or (None,)
@@ -152,6 +158,8 @@ def settings_of(spec: SweepSpec) -> list[Setting]:
                 out.append(Setting("bayes", None, r, f))
             if "evidential" in spec.backends:
                 out.extend(Setting("evidential", rule, r, f) for rule in spec.rules)
+    if calibrated:
+        out += [dataclasses.replace(s, calibrated=True) for s in out]
     return out
 
 
@@ -174,19 +182,25 @@ def variant(case: Case, reliability: float | None, fault_rate: float | None) -> 
 
 # ----------------------------------------------------------------------------- one run
 @lru_cache(maxsize=8)
-def _prepared(case_path: str, reliability: float | None):
+def _prepared(case_path: str, reliability: float | None, calibration_file: str | None):
     """Case and sensor set per process: building the sensor models dominates a short run."""
+    from fusion.io.case import apply_calibration
     from fusion.localizer import SensorSet
 
-    case = variant(load_case(case_path), reliability, None)
+    case = load_case(case_path)
+    if calibration_file is not None:
+        case = apply_calibration(case, calibration_file)
+    case = variant(case, reliability, None)
     return case, SensorSet(case.site, case.site.grid(case.headings), case.sensors)
 
 
-def run_one(case_path: str, setting: Setting, seed: int) -> dict:
+def run_one(case_path: str, setting: Setting, seed: int, calibration_file: str | None = None) -> dict:
     """Run one setting on one seed; returns its figures and per-tick series (plain data, picklable)."""
     from fusion.runner import run_case
 
-    base, sensors = _prepared(str(case_path), setting.reliability)
+    if setting.calibrated and calibration_file is None:
+        raise FusionError(f"setting {setting.label} needs a calibration file")
+    base, sensors = _prepared(str(case_path), setting.reliability, calibration_file if setting.calibrated else None)
     case = variant(base, None, setting.fault_rate)
     grid = sensors.grid
     calib = []  # per tick: (p_true, level of the true cell, brier)
@@ -310,6 +324,7 @@ def run_sweep(
     address: str | None = None,
     on_start: Callable[[int, int], None] | None = None,
     on_done: Callable[[dict], None] | None = None,
+    calibration=None,
 ) -> list[dict]:
     """Run every setting on every seed; returns one record per run (finished earlier or now).
 
@@ -322,7 +337,10 @@ def run_sweep(
     case_path = str(case_path)
     seeds = list(seeds)
     folder = Path(out_dir)
+    calibration = None if calibration is None else str(calibration)
     digest = _case_digest(case_path)
+    if calibration is not None:  # results depend on both files
+        digest = hashlib.sha256((digest + _case_digest(calibration)).encode()).hexdigest()
     manifest = folder / "sweep.json"
     if manifest.exists():
         try:
@@ -348,6 +366,9 @@ def run_sweep(
     wanted = [(s, seed) for seed in seeds for s in settings]
     done = _load_done(folder, {(s.key, seed) for s, seed in wanted})
     todo = [(s, seed) for s, seed in wanted if (s.key, seed) not in done]
+    # Longest runs first (the evidential back end costs several Bayes runs), so no worker is
+    # left with one long run at the end while the others idle.
+    todo.sort(key=lambda job: job[0].backend == "bayes")
     if on_start:
         on_start(len(wanted), len(done))
 
@@ -357,15 +378,26 @@ def run_sweep(
         if on_done:
             on_done(rec)
 
+    failures: list[str] = []
+
+    def failed(job, err: BaseException) -> None:
+        failures.append(f"{job[1].label}, seed {job[2]}: {type(err).__name__}: {err}")
+
     workers = max(1, workers or os.cpu_count() or 1)
     try:
         if todo:
-            (_run_dask if engine == "dask" else _run_local)(case_path, todo, workers, address, finished)
+            jobs = [(case_path, s, seed, calibration) for s, seed in todo]
+            (_run_dask if engine == "dask" else _run_local)(jobs, workers, address, finished, failed)
     except KeyboardInterrupt:
         raise SweepInterrupted(
             f"interrupted: {len(done)} of {len(wanted)} runs are saved in {folder / 'runs'}; "
             "run the same command again to resume"
         ) from None
+    if failures:
+        raise FusionError(
+            f"{len(failures)} of {len(todo)} runs failed (the {len(done)} finished runs are saved in "
+            f"{folder / 'runs'}); first: {failures[0]}"
+        )
     return [done[(s.key, seed)] for s, seed in wanted if (s.key, seed) in done]
 
 
@@ -377,32 +409,43 @@ def _quiet_worker() -> None:
 _ONE_THREAD = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
 
 
-def _run_local(case_path, todo, workers, address, finished) -> None:
+def _run_local(jobs, workers, address, finished, failed) -> None:
     import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
-    # Fresh processes with single-threaded BLAS: one run per core, none fighting over cores.
+    # Fresh processes with single-threaded BLAS: one run per core, none fighting over cores (two
+    # two-threaded workers on two cores ran ~15× slower here).  The pool starts its processes on
+    # submit, so the variables stay set until every job is submitted.
     saved = {k: os.environ.get(k) for k in _ONE_THREAD}
     os.environ.update(_ONE_THREAD)
+    pool = ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn"), initializer=_quiet_worker)
     try:
-        pool = ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn"), initializer=_quiet_worker)
-    finally:
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
-    try:
-        pending = {pool.submit(run_one, case_path, s, seed) for s, seed in todo}
+        pending = {pool.submit(run_one, *job): job for job in jobs}
+        _restore(saved)
         while pending:
-            ready, pending = wait(pending, return_when=FIRST_COMPLETED)
+            ready, _ = wait(pending, return_when=FIRST_COMPLETED)
             for f in ready:
-                finished(f.result())
+                job = pending.pop(f)
+                try:
+                    rec = f.result()
+                except Exception as err:  # one bad run must not lose the others
+                    failed(job, err)
+                else:
+                    finished(rec)
     finally:
+        _restore(saved)
         pool.shutdown(wait=True, cancel_futures=True)
 
 
-def _run_dask(case_path, todo, workers, address, finished) -> None:
+def _restore(saved: dict) -> None:
+    for k, v in saved.items():
+        if v is None:
+            os.environ.pop(k, None)
+        else:
+            os.environ[k] = v
+
+
+def _run_dask(jobs, workers, address, finished, failed) -> None:
     try:
         from distributed import Client, LocalCluster, as_completed
     except ImportError:
@@ -416,9 +459,14 @@ def _run_dask(case_path, todo, workers, address, finished) -> None:
         )
         client = Client(cluster)
     try:
-        futures = [client.submit(run_one, case_path, s, seed, pure=False) for s, seed in todo]
-        for f in as_completed(futures):
-            finished(f.result())
+        futures = {client.submit(run_one, *job, pure=False): job for job in jobs}
+        for f in as_completed(list(futures)):
+            try:
+                rec = f.result()
+            except Exception as err:  # one bad run must not lose the others
+                failed(futures[f], err)
+            else:
+                finished(rec)
     finally:
         client.close()
         if cluster is not None:

@@ -280,3 +280,12 @@ def test_compare_command_refuses_a_bad_rule_before_running(tmp_path, capsys):
     assert not out.exists()
     code = main(["compare", str(TINY), "--reliability", "2", "--out", str(out), "--quiet"])
     assert code == 2 and "[0, 1]" in capsys.readouterr().err and not out.exists()
+
+
+def test_a_failing_run_is_reported_and_the_others_are_kept(tmp_path):
+    out = tmp_path / "sweep"
+    broken = Setting("bayes", calibrated=True)  # asks for a calibration file the sweep does not have
+    with pytest.raises(FusionError) as err:
+        run_sweep(TINY, [Setting("bayes"), broken], [1], out, workers=1)
+    assert "1 of 2 runs failed" in str(err.value) and "calibration file" in str(err.value)
+    assert [p.name for p in (out / "runs").glob("*.json")] == ["bayes-seed1.json"]
