@@ -35,6 +35,10 @@ def _run(args: argparse.Namespace) -> int:
     from fusion.tui import RunView, summary_table
 
     case = load_case(args.case)  # validated before anything is written
+    if getattr(args, "calibration", None):
+        from fusion.io.case import apply_calibration
+
+        case = apply_calibration(case, args.calibration)
     if args.seed is not None:
         import dataclasses
 
@@ -79,7 +83,7 @@ def _bench(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.bench import SIZES, bench_localizer, render, run_bench
+    from fusion.bench import SIZES, bench_localizer, bench_sweep, render, run_bench
 
     console = Console(stderr=args.json)
     sizes = SIZES[:1] if args.quick else SIZES
@@ -87,6 +91,9 @@ def _bench(args: argparse.Namespace) -> int:
         rows = run_bench(sizes=sizes, repeats=args.repeats, seed=args.seed)
         if not args.quick:
             rows += bench_localizer(_builtin_case("depot.toml"))
+    if args.sweep:
+        with console.status(f"timing the demo case's compare sweep on {args.sweep} seeds, 1 worker then 2…"):
+            rows += bench_sweep(_builtin_case("depot.toml"), seeds=args.sweep, workers=2)
     if args.json:
         print(json.dumps([r.as_dict() for r in rows], indent=2))
     else:
@@ -136,7 +143,7 @@ def _compare(args: argparse.Namespace) -> int:
     from fusion.compare import SweepInterrupted, bayes_dempster_identity, run_sweep, settings_of, summarise
     from fusion.compare import verdicts as verdicts_of
     from fusion.compare_report import identity_words, tables, write_report
-    from fusion.io.case import load_case
+    from fusion.io.case import apply_calibration, load_case
 
     case = load_case(args.case)
     overrides = {
@@ -147,7 +154,9 @@ def _compare(args: argparse.Namespace) -> int:
         "fault_rates": tuple(args.fault_rate) if args.fault_rate else None,
     }
     spec = dataclasses.replace(case.sweep, **{k: v for k, v in overrides.items() if v is not None})
-    settings = settings_of(spec)  # refuses unknown rules and out-of-range values before any run
+    if args.calibration:
+        apply_calibration(case, args.calibration)  # a bad calibration file is refused before any run
+    settings = settings_of(spec, calibrated=bool(args.calibration))  # refuses unknown rules, out-of-range values
     seeds = range(case.run.seed, case.run.seed + spec.seeds)
     out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.case).stem}-compare"
     console = Console()
@@ -177,6 +186,7 @@ def _compare(args: argparse.Namespace) -> int:
                 workers=args.workers,
                 engine=args.engine,
                 address=args.scheduler,
+                calibration=args.calibration,
                 on_start=lambda total, done: progress.update(task, total=total, completed=done),
                 on_done=lambda rec: progress.advance(task),
             )
@@ -198,12 +208,82 @@ def _compare(args: argparse.Namespace) -> int:
     return 0
 
 
+def _calibrate(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from rich.console import Console
+    from rich.table import Table
+
+    from fusion.calibration.models import FitSettings
+    from fusion.calibration.output import calibration_toml
+    from fusion.calibration.pipeline import calibrate
+    from fusion.io.case import load_case
+    from fusion.runner import atomic_write
+
+    case = load_case(args.site)
+    out = Path(args.out) if args.out else Path(args.log).with_name("calibrated.toml")
+    settings = FitSettings(
+        method=args.method,
+        samples=args.samples,
+        warmup=args.warmup,
+        chains=args.chains,
+        svi_steps=args.svi_steps,
+        seed=args.seed,
+    )
+    console = Console()
+    console.print(f"[dim]{SAFETY_NOTICE}[/]")
+    with console.status("fitting…") as status:
+        result = calibrate(case, args.log, args.truth, settings, progress=lambda s: status.update(f"fitting {s}…"))
+    table = Table(title=f"Calibrated sensor parameters ({result.observations:,} readings, {result.poses:,} true poses)")
+    for col in ("sensor", "parameter", "in the case", "posterior mean", "90% interval", "R-hat", "ESS", "method"):
+        table.add_column(col, justify="left" if col in ("sensor", "parameter", "method") else "right")
+    for entry in result.summary:
+        spec = case.sensor(entry["sensor"])
+        rows = list(entry["parameters"].items())
+        if entry["reliability"] is not None:
+            rows.append(("reliability", {"mean": entry["reliability"], "low": None, "high": None}))
+        for i, (name, s) in enumerate(rows):
+            table.add_row(
+                entry["sensor"] if i == 0 else "",
+                name,
+                f"{getattr(spec.params, name):.4g}",
+                f"{s['mean']:.4g}" + (" (5% bound)" if name == "reliability" else ""),
+                "" if s["low"] is None else f"{s['low']:.4g} – {s['high']:.4g}",
+                _maybe(s.get("r_hat"), "{:.3f}"),
+                _maybe(s.get("ess"), "{:.0f}"),
+                "/".join(dict.fromkeys(entry["methods"])) if i == 0 else "",
+            )
+    console.print(table)
+    for entry in result.summary:
+        for w in entry["warnings"]:
+            console.print(f"[yellow]warning[/] {entry['sensor']}: {w}")
+    if result.skipped:
+        console.print(f"no readings in the log for: {', '.join(result.skipped)} (their parameters are unchanged)")
+    if result.set_aside:
+        console.print(f"{len(result.set_aside):,} rows set aside, first ones:")
+        for path, s in result.set_aside[:5]:
+            console.print(f"  {path}:{s.line}: {s.reason}")
+    atomic_write(out, calibration_toml(result.summary, case.site.name, str(args.log), str(args.truth)))
+    console.print(f"written to [bold]{out}[/]; use it with --calibration {out} (run, compare, stream)")
+    return 0
+
+
+def _maybe(value, fmt: str) -> str:
+    import math
+
+    return "" if value is None or not math.isfinite(value) else fmt.format(value)
+
+
 def _stream(args: argparse.Namespace) -> int:
     from fusion.io.case import load_case
     from fusion.localizer import Localizer
     from fusion.stream import stream
 
     case = load_case(args.site)
+    if args.calibration:
+        from fusion.io.case import apply_calibration
+
+        case = apply_calibration(case, args.calibration)
     loc = Localizer.from_case(case, args.backend)
     if args.start:
         try:
@@ -247,10 +327,17 @@ def _parser() -> argparse.ArgumentParser:
     bench.add_argument("--seed", type=int, default=0, help="seed of the synthetic beliefs and evidence (default 0)")
     bench.add_argument("--quick", action="store_true", help="only the smaller grid (100×100×36)")
     bench.add_argument("--json", action="store_true", help="print the figures as JSON on standard output")
+    bench.add_argument(
+        "--sweep",
+        type=_positive_int,
+        metavar="SEEDS",
+        help="also time the demo case's default compare sweep on SEEDS seeds, 1 worker vs 2 (minutes)",
+    )
     bench.set_defaults(run=_bench)
     st = commands.add_parser("stream", help="read observations as JSON lines on stdin, write one decision per line")
     st.add_argument("--site", required=True, help="case file whose site and sensors to use")
     st.add_argument("--backend", choices=("bayes", "evidential"), default="bayes", help="back end (default bayes)")
+    st.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
     st.add_argument("--start", help="known start pose x,y,heading_deg (default: anywhere in free space)")
     st.set_defaults(run=_stream)
     cmp = commands.add_parser("compare", help="run a grid of fusion settings over many seeds and rank them")
@@ -266,7 +353,20 @@ def _parser() -> argparse.ArgumentParser:
     cmp.add_argument("--scheduler", help="address of a running Dask scheduler (engine dask; default: a local cluster)")
     cmp.add_argument("--out", help="output folder (default: fusion-out/<case>-compare); an existing one resumes")
     cmp.add_argument("--quiet", action="store_true", help="no progress bar")
+    cmp.add_argument("--calibration", help="calibration file: also run every setting with its sensor parameters")
     cmp.set_defaults(run=_compare)
+    cal = commands.add_parser("calibrate", help="fit the sensor models' parameters to a log with known poses (pyro)")
+    cal.add_argument("log", help="observations, JSON lines (as fusion run writes them)")
+    cal.add_argument("--truth", required=True, help="true poses, JSON lines (t, x_m, y_m, heading_deg)")
+    cal.add_argument("--site", required=True, help="case file whose site and sensors to calibrate")
+    cal.add_argument("--out", help="calibration file to write (default: calibrated.toml beside the log)")
+    cal.add_argument("--method", choices=("auto", "nuts", "svi"), default="auto", help="inference (default auto)")
+    cal.add_argument("--samples", type=_positive_int, default=500, help="posterior draws per chain (default 500)")
+    cal.add_argument("--warmup", type=_positive_int, default=300, help="NUTS warm-up steps (default 300)")
+    cal.add_argument("--chains", type=_positive_int, default=2, help="NUTS chains; R-hat needs ≥ 2 (default 2)")
+    cal.add_argument("--svi-steps", type=_positive_int, default=2000, help="SVI optimisation steps (default 2000)")
+    cal.add_argument("--seed", type=int, default=0, help="seed of the inference (default 0)")
+    cal.set_defaults(run=_calibrate)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
     targets.add_argument("--seeds", type=_positive_int, default=50, help="seeds per case (default 50)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
@@ -279,6 +379,7 @@ def _run_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, help="seed of the simulation (default: the case's)")
     p.add_argument("--out", help="output folder (default: fusion-out/<case>-seed<seed>)")
     p.add_argument("--quiet", action="store_true", help="no live view; print the summary only")
+    p.add_argument("--calibration", help="calibration file (from fusion calibrate) replacing the sensors' parameters")
 
 
 def _figure_names() -> tuple[str, ...]:

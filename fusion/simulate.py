@@ -23,7 +23,7 @@ import numpy as np
 from fusion.io.case import Case, SensorSpec
 from fusion.io.observations import Observation
 from fusion.sensors.doors import DoorReading
-from fusion.sensors.markers import MarkerMiss, MarkerSighting
+from fusion.sensors.markers import MarkerMiss, MarkerSighting, visible_markers
 from fusion.sensors.odometry import OdometryReading
 from fusion.sensors.ranging import RangeScan
 
@@ -198,15 +198,9 @@ def _markers(case: Case, spec: SensorSpec, truth: TruePose, rng):
                     str(f.options["marker"]), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg)
                 )
     seen = []
-    for m in site.markers:
-        r, b = _bearing_to(truth, m.x, m.y)
-        if r > p.max_range_m or abs(b) > p.fov_deg / 2:
-            continue
-        clear = site.ray_range(truth.x_m, truth.y_m, math.radians(truth.heading_deg + b), r)
-        if clear < r - 1.5 * site.resolution_m:  # a rack is in the way
-            continue
+    for r, b, marker_id in visible_markers(site, p, truth.x_m, truth.y_m, truth.heading_deg):
         if rng.random() < p.p_detect:
-            seen.append((r, b, m.marker_id))
+            seen.append((r, b, marker_id))
     if rng.random() < p.false_rate:  # a look-alike print somewhere in view
         fake = site.markers[int(rng.integers(len(site.markers)))].marker_id
         return MarkerSighting(

@@ -38,6 +38,7 @@ __all__ = [
     "SweepSpec",
     "SWEEP_RULES",
     "load_case",
+    "apply_calibration",
     "parse_case",
     "SENSOR_KINDS",
     "FAULT_KINDS",
@@ -563,3 +564,72 @@ def _sweep(r: _Reader, d: dict) -> SweepSpec:
                 r.fail((*w, key), f"{what} must lie in [0, 1], got {v!r}")
         out[key] = tuple(dict.fromkeys(values))
     return SweepSpec(int(seeds), **out)
+
+
+_PROBABILITIES = {
+    "hit_rate",
+    "false_alarm_rate",
+    "p_detect",
+    "false_rate",
+    "confusion",
+    "z_hit",
+    "z_short",
+    "z_max",
+    "z_rand",
+    "reliability",
+}
+_POSITIVE = {"sigma_hit_m", "sigma_range_m", "sigma_bearing_deg", "lambda_short", "max_range_m"}
+
+
+def apply_calibration(case: Case, path) -> Case:
+    """The case with the sensor parameters of a calibration file (written by ``fusion calibrate``) in place
+    of its own; every error names the calibration file, line and field."""
+    path = Path(path)
+    try:
+        size = os.path.getsize(path)
+        text = path.read_text(encoding="utf-8") if size <= MAX_CASE_BYTES else None
+    except (OSError, UnicodeDecodeError) as err:
+        raise InputFileError(path, None, None, f"cannot read the calibration file: {err}") from None
+    if text is None:
+        raise InputFileError(path, None, None, f"the file is {size:,} bytes; the limit is {MAX_CASE_BYTES:,}")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise InputFileError(path, getattr(err, "lineno", None), None, f"not valid TOML: {err}") from None
+    r = _Reader(str(path), text)
+    r.only(data, (), {"calibration", "sensors"})
+    r.table(data, (), "calibration")
+    by_name = {s.name: s for s in case.sensors}
+    replaced = {}
+    for i, d in enumerate(r.tables(data, (), "sensors")):
+        w = ("sensors", i)
+        name = r.text(d, w, "name")
+        if name not in by_name:
+            r.fail((*w, "name"), f"the case has no sensor {name!r} (its sensors: {', '.join(by_name)})")
+        spec = by_name[name]
+        kind = r.text(d, w, "kind")
+        if kind != spec.kind:
+            r.fail((*w, "kind"), f"sensor {name!r} is a {spec.kind} sensor in the case, not {kind}")
+        interval = r.table(d, w, "interval", required=False)
+        values = {k: v for k, v in d.items() if k not in ("name", "kind", "interval")}
+        params = _params(r, values, w, SENSOR_KINDS[kind], set())
+        for key in values:
+            v = getattr(params, key)
+            if key in _PROBABILITIES and not 0 <= v <= 1:
+                r.fail((*w, key), f"must lie in [0, 1], got {v!r}")
+            if key in _POSITIVE and v <= 0:
+                r.fail((*w, key), f"must be greater than 0, got {v!r}")
+        for key, bounds in interval.items():
+            if not _finite_numbers(bounds, 2) or bounds[0] > bounds[1]:
+                r.fail((*w, "interval", key), f"must be [low, high] with low ≤ high, got {bounds!r}")
+        merged = dataclasses.replace(spec.params, **{k: getattr(params, k) for k in values})
+        if kind == "ranging":
+            total = merged.z_hit + merged.z_short + merged.z_max + merged.z_rand
+            if abs(total - 1.0) > 1e-6:
+                r.fail(w, f"z_hit + z_short + z_max + z_rand must sum to 1, got {total:.6g}")
+            # The file rounds to 6 digits; the model wants the sum exact.
+            merged = dataclasses.replace(
+                merged, **{k: getattr(merged, k) / total for k in ("z_hit", "z_short", "z_max", "z_rand")}
+            )
+        replaced[name] = dataclasses.replace(spec, params=merged)
+    return dataclasses.replace(case, sensors=tuple(replaced.get(s.name, s) for s in case.sensors))

@@ -30,7 +30,7 @@ from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence, check_positive, check_probability, check_reliability
 from fusion.site import SiteMap
 
-__all__ = ["MarkerParams", "MarkerSighting", "MarkerMiss", "MarkerSensor"]
+__all__ = ["visible_markers", "MarkerParams", "MarkerSighting", "MarkerMiss", "MarkerSensor"]
 
 
 @dataclass(frozen=True)
@@ -168,6 +168,22 @@ class MarkerSensor:
         top = lik.max()
         contour = lik / top if top > 0 else np.zeros_like(lik)
         return Evidence(self.name, contour, self.params.reliability, self.params.levels)
+
+
+def visible_markers(site: SiteMap, params: MarkerParams, x: float, y: float, heading_deg: float):
+    """Markers a working camera at pose (x, y, heading) can see: in range, in the field of view, no rack
+    in the way.  Returns (range m, bearing deg, marker id) per marker, in the site's order."""
+    seen = []
+    for m in site.markers:
+        r = math.hypot(m.x - x, m.y - y)
+        b = (math.degrees(math.atan2(m.y - y, m.x - x)) - heading_deg + 180.0) % 360.0 - 180.0
+        if r > params.max_range_m or abs(b) > params.fov_deg / 2:
+            continue
+        clear = site.ray_range(x, y, math.radians(heading_deg + b), r)
+        if clear < r - 1.5 * site.resolution_m:  # a rack is in the way
+            continue
+        seen.append((r, b, m.marker_id))
+    return seen
 
 
 def _wrap(angle):

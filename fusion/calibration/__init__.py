@@ -1,0 +1,1 @@
+"""Fitting sensor models to labelled logs (the optional ``calibrate`` extra does the inference)."""

@@ -1,0 +1,41 @@
+"""Calibrate a case's sensors from a labelled log: read, pair with the truth, fit, summarise."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from fusion.calibration.data import datasets
+from fusion.calibration.models import FitSettings, fit_sensor, require_pyro
+from fusion.calibration.output import summarise_fits
+from fusion.io.case import Case
+from fusion.io.logs import SetAside, read_observations, read_truth, require_records
+
+__all__ = ["Calibration", "calibrate"]
+
+
+@dataclass
+class Calibration:
+    summary: list[dict]  # per sensor, see fusion.calibration.output.summarise_fits
+    set_aside: list[tuple[str, SetAside]]  # (file, row) of every row not used
+    observations: int
+    poses: int
+    skipped: list[str]  # sensors with no reading in the log
+
+
+def calibrate(case: Case, log_path, truth_path, settings: FitSettings | None = None, progress=None) -> Calibration:
+    settings = settings or FitSettings()
+    require_pyro()  # fail before reading a large log
+    log, truth = read_observations(log_path), read_truth(truth_path)
+    require_records(log, "observations")
+    require_records(truth, "true poses")
+    data = datasets(case, log.records, truth.records)
+    fits = []
+    for spec in case.sensors:
+        if spec.name not in data.by_sensor:
+            continue
+        if progress:
+            progress(spec.name)
+        fits += fit_sensor(spec.name, spec.kind, data.by_sensor[spec.name], settings)
+    aside = [(log.path, s) for s in log.set_aside + data.set_aside] + [(truth.path, s) for s in truth.set_aside]
+    skipped = [s.name for s in case.sensors if s.name not in data.by_sensor]
+    return Calibration(summarise_fits(fits), aside, len(log.records), len(truth.records), skipped)
