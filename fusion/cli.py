@@ -58,7 +58,9 @@ def _run(args: argparse.Namespace) -> int:
     console.print(summary_table(result.summary()))
     if result.events:
         console.print(f"{len(result.events)} monitor actions; see summary.json for each with its reasons.")
-    console.print(f"results written to [bold]{folder}[/] (observations.jsonl, truth.jsonl, steps.csv, summary.json)")
+    console.print(
+        f"results written to [bold]{folder}[/] (observations.jsonl, truth.jsonl, steps.csv, summary.json, timing.json)"
+    )
     return 0
 
 

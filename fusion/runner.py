@@ -1,7 +1,8 @@
 """Run a case: simulate it, drive one ``Localizer`` per back end on identical readings, record every tick.
 
 Results go to an output folder: ``observations.jsonl`` (the log, one reading a line),
-``truth.jsonl``, ``steps.csv`` (one row per tick and back end) and ``summary.json``.
+``truth.jsonl``, ``steps.csv`` (one row per tick and back end), ``summary.json`` (the same for the
+same case and seed, byte for byte) and ``timing.json`` (wall times, which vary from run to run).
 Each file is written to a temporary name and renamed into place, so a reader never
 sees half a file, and the folder is created only once the case has been validated.
 """
@@ -53,6 +54,10 @@ STEP_COLUMNS = (
     "carried",
     "seconds",
 )
+
+
+TIMING_KEYS = ("mean_step_ms", "p95_step_ms")
+"""Summary figures that are wall times: written to timing.json, not summary.json."""
 
 
 @dataclass
@@ -198,10 +203,16 @@ def write_results(result: RunResult, out_dir) -> Path:
         writer.writerow({k: (f"{v:.6g}" if isinstance(v, float) else v) for k, v in r.values.items()})
     summary = result.summary()
     summary["events"] = result.events
+    # Wall times go to their own file, so that summary.json is byte-identical for the same case and seed.
+    timing = {
+        "tool": summary["tool"],
+        "backends": {b: {k: fig.pop(k) for k in TIMING_KEYS} for b, fig in summary["backends"].items()},
+    }
     atomic_write(out / "observations.jsonl", log)
     atomic_write(out / "truth.jsonl", truth)
     atomic_write(out / "steps.csv", buf.getvalue())
     atomic_write(out / "summary.json", json.dumps(summary, indent=2, allow_nan=False, default=_finite) + "\n")
+    atomic_write(out / "timing.json", json.dumps(timing, indent=2) + "\n")
     return out
 
 

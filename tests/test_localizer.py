@@ -61,7 +61,7 @@ def test_runner_writes_complete_results(case, tmp_path):
     result = run_case(case)
     folder = write_results(result, tmp_path / "out")
     names = sorted(p.name for p in folder.iterdir())
-    assert names == ["observations.jsonl", "steps.csv", "summary.json", "truth.jsonl"]
+    assert names == ["observations.jsonl", "steps.csv", "summary.json", "timing.json", "truth.jsonl"]
     summary = json.loads((folder / "summary.json").read_text())
     assert set(summary["backends"]) == {"bayes", "evidential"}
     assert "not a certified safety function" in summary["notice"]
@@ -69,6 +69,15 @@ def test_runner_writes_complete_results(case, tmp_path):
     assert tuple(header) == STEP_COLUMNS
     lines = (folder / "observations.jsonl").read_text().splitlines()
     assert len(lines) == sum(len(t.observations) for t in result.ticks)
+
+
+def test_same_case_and_seed_give_byte_identical_summaries(case, tmp_path):
+    first = write_results(run_case(case), tmp_path / "a")
+    second = write_results(run_case(case), tmp_path / "b")
+    for name in ("summary.json", "observations.jsonl", "truth.jsonl"):
+        assert (first / name).read_bytes() == (second / name).read_bytes(), name
+    timing = json.loads((first / "timing.json").read_text())
+    assert set(timing["backends"]["bayes"]) == {"mean_step_ms", "p95_step_ms"}
 
 
 def test_cli_run_check_and_bad_case(tmp_path, capsys):
