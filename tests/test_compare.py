@@ -289,3 +289,33 @@ def test_a_failing_run_is_reported_and_the_others_are_kept(tmp_path):
         run_sweep(TINY, [Setting("bayes"), broken], [1], out, workers=1)
     assert "1 of 2 runs failed" in str(err.value) and "calibration file" in str(err.value)
     assert [p.name for p in (out / "runs").glob("*.json")] == ["bayes-seed1.json"]
+
+
+def test_compare_ranks_the_schemes_under_calibrated_parameters_too(tmp_path, capsys):
+    cal = tmp_path / "cal.toml"
+    cal.write_text(
+        '[calibration]\nsite = "test bay"\n\n[[sensors]]\nname = "contact"\nkind = "door"\n'
+        "hit_rate = 0.8\nfalse_alarm_rate = 0.05\nreliability = 0.9\n"
+    )
+    out = tmp_path / "cmp"
+    code = main(
+        [
+            "compare",
+            str(TINY),
+            "--seeds",
+            "1",
+            "--backend",
+            "bayes",
+            "--calibration",
+            str(cal),
+            "--out",
+            str(out),
+            "--quiet",
+            "--workers",
+            "1",
+        ]
+    )
+    assert code == 0 and "calibrated" in capsys.readouterr().out
+    import pandas as pd
+
+    assert sorted(pd.read_csv(out / "runs.csv").key) == ["bayes", "bayes-cal"]
