@@ -1,4 +1,4 @@
-"""Reading recorded logs tolerantly: observations and true poses as JSON lines.
+"""Reading recorded logs tolerantly: observations (JSON lines or CSV) and true poses (JSON lines).
 
 A bad line (not JSON, a field missing or not finite, time running backwards) is
 set aside with its line number and the reason, and reading goes on: a log from a
@@ -23,7 +23,17 @@ from pathlib import Path
 from fusion.errors import FusionError, InputFileError, ObservationError
 from fusion.io.observations import Observation, from_record
 
-__all__ = ["SetAside", "LogRead", "read_observations", "read_truth", "TruthPose", "MAX_LINE_BYTES"]
+__all__ = [
+    "SetAside",
+    "LogRead",
+    "iter_observations",
+    "read_observations",
+    "read_truth",
+    "iter_truth",
+    "TruthPose",
+    "MAX_LINE_BYTES",
+    "CSV_COLUMNS",
+]
 
 MAX_LINE_BYTES = 64 * 1024
 """A log line longer than this is set aside unread (a real record is a few hundred bytes)."""
@@ -93,32 +103,170 @@ def _no_constant(name: str):
     raise FusionError(f"{name} is not a number a log may hold")
 
 
-def read_observations(path) -> LogRead:
-    """Every observation of a JSON-lines log, in file order; bad lines are set aside."""
-    records, set_aside, last_t, count = [], [], -math.inf, 0
-    for number, text in _lines(path):
-        count = number
-        rec = _decode(number, text, set_aside)
-        if rec is None:
-            continue
+def iter_observations(
+    path, set_aside: list[SetAside] | None = None, on_set_aside=None
+) -> Iterator[tuple[int, Observation]]:
+    """Stream ``(line, observation)`` from a JSON-lines or CSV log (by the file's suffix), in file order.
+
+    Nothing is held but the current line.  A bad line is handed to ``on_set_aside(SetAside)``
+    (and appended to ``set_aside`` when given) and reading goes on.
+    """
+
+    def aside(row: SetAside) -> None:
+        if set_aside is not None:
+            set_aside.append(row)
+        if on_set_aside is not None:
+            on_set_aside(row)
+
+    last_t = -math.inf
+    rows = _csv_records(path, aside) if str(path).lower().endswith(".csv") else _json_records(path, aside)
+    for number, rec, text in rows:
         try:
             obs: Observation = from_record(rec)
         except ObservationError as err:
-            set_aside.append(SetAside(number, str(err), text.strip()[:80]))
+            aside(SetAside(number, str(err), text[:80]))
             continue
         if obs.t < last_t:
-            set_aside.append(SetAside(number, f"time {obs.t:g} s is before the previous record's {last_t:g} s", ""))
+            aside(SetAside(number, f"time {obs.t:g} s is before the previous record's {last_t:g} s", text[:80]))
             continue
         last_t = obs.t
-        records.append((number, obs))
-    return LogRead(str(path), records, set_aside, count)
+        yield number, obs
 
 
-def read_truth(path) -> LogRead:
-    """True poses of a JSON-lines truth file, in time order; bad lines are set aside."""
-    records, set_aside, last_t, count = [], [], -math.inf, 0
+def _json_records(path, aside) -> Iterator[tuple[int, object, str]]:
     for number, text in _lines(path):
-        count = number
+        rejected: list[SetAside] = []
+        rec = _decode(number, text, rejected)
+        for row in rejected:
+            aside(row)
+        if rec is not None:
+            yield number, rec, text.strip()
+
+
+CSV_COLUMNS = (
+    "t",
+    "sensor",
+    "kind",
+    "ranges_m",
+    "marker",
+    "range_m",
+    "bearing_deg",
+    "active",
+    "forward_m",
+    "left_m",
+    "turn_deg",
+)
+"""Columns of a CSV log (a header row names them, in any order; unused cells stay empty).
+``ranges_m`` holds the beams separated by ``;``, an empty ``marker`` cell of a markers row means
+"looked, saw nothing", ``active`` is true/false (or 1/0)."""
+_CSV_NUMBERS = ("t", "range_m", "bearing_deg", "forward_m", "left_m", "turn_deg")
+
+
+def _csv_records(path, aside) -> Iterator[tuple[int, object, str]]:
+    """Rows of a CSV log as observation records; the stdlib reader streams and knows each row's line."""
+    import csv
+
+    try:
+        fh = open(path, encoding="utf-8", errors="replace", newline="")  # noqa: SIM115 - closed below
+    except OSError as err:
+        raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
+    with fh:
+        reader = csv.reader(_bounded(fh, aside))
+        try:
+            header = [h.strip() for h in next(reader)]
+        except StopIteration:
+            return
+        except csv.Error as err:
+            raise InputFileError(path, 1, None, f"the header row is not CSV: {err}") from None
+        missing = [c for c in ("t", "sensor", "kind") if c not in header]
+        if missing:
+            raise InputFileError(
+                path,
+                1,
+                None,
+                f"the header lacks the column(s) {', '.join(missing)}; columns are {', '.join(CSV_COLUMNS)}",
+            )
+        unknown = [c for c in header if c not in CSV_COLUMNS and c]
+        while True:
+            try:
+                cells = next(reader)
+            except StopIteration:
+                return
+            except csv.Error as err:
+                aside(SetAside(reader.line_num, f"not a CSV row: {err}", ""))
+                continue
+            number = reader.line_num
+            text = ",".join(cells)
+            if not any(c.strip() for c in cells):
+                continue
+            if len(cells) != len(header):
+                aside(SetAside(number, f"{len(cells)} cells where the header has {len(header)}", text[:80]))
+                continue
+            try:
+                yield number, _csv_record(dict(zip(header, cells)), unknown), text
+            except ObservationError as err:
+                aside(SetAside(number, str(err), text[:80]))
+
+
+def _bounded(fh, aside) -> Iterator[str]:
+    """The file's lines, each over-long line replaced by an empty one (and set aside)."""
+    for number, line in enumerate(fh, 1):
+        if len(line) > MAX_LINE_BYTES:
+            aside(SetAside(number, f"longer than {MAX_LINE_BYTES:,} bytes", ""))
+            yield "\n"
+        else:
+            yield line
+
+
+def _csv_record(row: dict, unknown: list[str]) -> dict:
+    rec: dict = {}
+    for key, raw in row.items():
+        if key in unknown or not key:
+            continue
+        cell = raw.strip()
+        if key in ("sensor", "kind"):
+            rec[key] = cell
+        elif key == "marker":
+            if rec.get("kind", row.get("kind", "").strip()) == "markers":
+                rec[key] = cell or None
+        elif not cell:
+            continue
+        elif key == "ranges_m":
+            rec[key] = [_csv_number(key, part) for part in cell.split(";")]
+        elif key == "active":
+            flag = cell.lower()
+            if flag not in ("true", "false", "1", "0"):
+                raise ObservationError(f"field 'active' must be true or false, got {cell!r}")
+            rec[key] = flag in ("true", "1")
+        else:
+            rec[key] = _csv_number(key, cell)
+    return rec
+
+
+def _csv_number(key: str, cell: str) -> float:
+    try:
+        return float(cell)
+    except ValueError:
+        raise ObservationError(f"field {key!r} must be a number, got {cell!r}") from None
+
+
+def read_observations(path) -> LogRead:
+    """Every observation of a log (JSON lines or CSV), in file order; bad lines are set aside."""
+    set_aside: list[SetAside] = []
+    records = list(iter_observations(path, set_aside))
+    return LogRead(str(path), records, set_aside, _line_count(path))
+
+
+def _line_count(path) -> int:
+    with open(path, "rb") as fh:
+        return sum(1 for _ in fh)
+
+
+def iter_truth(path, set_aside: list[SetAside] | None = None) -> Iterator[tuple[int, TruthPose]]:
+    """Stream ``(line, pose)`` from a JSON-lines truth file in time order; bad lines are set aside."""
+    set_aside = [] if set_aside is None else set_aside
+    last_t = -math.inf
+    for number, text in _lines(path):
         rec = _decode(number, text, set_aside)
         if rec is None:
             continue
@@ -131,8 +279,14 @@ def read_truth(path) -> LogRead:
             set_aside.append(SetAside(number, f"time {pose.t:g} s does not follow the previous {last_t:g} s", ""))
             continue
         last_t = pose.t
-        records.append((number, pose))
-    return LogRead(str(path), records, set_aside, count)
+        yield number, pose
+
+
+def read_truth(path) -> LogRead:
+    """True poses of a JSON-lines truth file, in time order; bad lines are set aside."""
+    set_aside: list[SetAside] = []
+    records = list(iter_truth(path, set_aside))
+    return LogRead(str(path), records, set_aside, _line_count(path))
 
 
 def _truth(rec) -> TruthPose:
