@@ -9,7 +9,6 @@ table, the verdicts and the plots in one self-contained file).
 
 from __future__ import annotations
 
-import base64
 import html
 import io
 import math
@@ -17,8 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
-from fusion import SAFETY_NOTICE
 from fusion.compare import FIGURES, Setting
+from fusion.html_page import figures_html, page, png_of
 from fusion.runner import atomic_write
 
 __all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame", "identity_words"]
@@ -132,7 +131,7 @@ def _plots(records, order: list[Setting]) -> dict[str, bytes]:
     ax.set_title("Position error over time: median over seeds, band 25–75%")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8, loc="upper left")
-    out["error_over_time.png"] = _png(fig)
+    out["error_over_time.png"] = png_of(fig)
     plt.close(fig)
 
     fig, ax = plt.subplots(figsize=(5.5, 5.5), dpi=110)
@@ -147,16 +146,9 @@ def _plots(records, order: list[Setting]) -> dict[str, bytes]:
     ax.set_title("Calibration of the most-probable regions")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8, loc="lower right")
-    out["calibration.png"] = _png(fig)
+    out["calibration.png"] = png_of(fig)
     plt.close(fig)
     return out
-
-
-def _png(fig) -> bytes:
-    buf = io.BytesIO()
-    fig.tight_layout()
-    fig.savefig(buf, format="png")
-    return buf.getvalue()
 
 
 # ----------------------------------------------------------------------------- files
@@ -204,32 +196,15 @@ def _html(records, order, summary, verdict_list, identity, rank_by, case_name, i
     )
     words = "".join(f"<li>{e(v['sentence'])}</li>" for v in verdict_list)
     legend = "".join(f"<li><b>{e(f.label)}</b>: {e(f.explain)}</li>" for f in FIGURES.values())
-    pics = "".join(
-        f'<figure><img alt="{e(name)}" src="data:image/png;base64,{base64.b64encode(data).decode()}"></figure>'
-        for name, data in images.items()
-    )
-    return f"""<!doctype html>
-<html lang="en"><head><meta charset="utf-8"><title>Fusion comparison: {e(case_name)}</title>
-<style>
-body {{ font-family: system-ui, sans-serif; margin: 2em; max-width: 1200px; }}
-table {{ border-collapse: collapse; font-size: 0.85em; }}
-th, td {{ border: 1px solid #ccc; padding: 0.25em 0.5em; text-align: right; }}
-td:nth-child(2) {{ text-align: left; }}
-.notice {{ background: #fff4e0; padding: 0.6em; border-left: 4px solid #e0a000; }}
-img {{ max-width: 100%; }}
-</style></head><body>
-<h1>Fusion comparison: {e(case_name)}</h1>
-<p class="notice">{e(SAFETY_NOTICE)}</p>
-<p>{len(records)} runs: {len(order)} settings × {len(seeds)} seeds. Ranked by <b>{e(rank_by)}</b>.
+    body_html = f"""<p>{len(records)} runs: {len(order)} settings × {len(seeds)} seeds. Ranked by <b>{e(rank_by)}</b>.
 Each figure is the mean over seeds ± the half-width of its 95% Student-t interval.</p>
 <table><tr><th>#</th><th>setting</th>{head}</tr>{body}</table>
 <h2>Verdicts</h2><ul>{words}</ul>
 <p>Sanity check (Shafer 1976, Dempster's rule on Bayesian mass functions is Bayes' rule):
 {e(identity_words(identity))}</p>
-<h2>Plots</h2>{pics}
-<h2>Figures</h2><ul>{legend}</ul>
-</body></html>
-"""
+<h2>Plots</h2>{figures_html(images)}
+<h2>Figures</h2><ul>{legend}</ul>"""
+    return page(f"Fusion comparison: {case_name}", body_html)
 
 
 def identity_words(identity: dict) -> str:
