@@ -140,12 +140,15 @@ class Localizer:
         rule: str = "dempster",
         max_focal: int = 32,
         full_figures: bool = False,
+        explain: bool = False,
     ):
-        """``full_figures``: compute the Jousselme distance on every tick, not only on conflicting ones."""
+        """``full_figures``: compute the Jousselme distance on every tick, not only on conflicting ones.
+        ``explain``: compute the leave-one-out blame on every tick whose conflict reaches the clear level
+        (what an investigation needs), not only on the ticks the monitor counts as conflicting."""
         if backend not in ("bayes", "evidential"):
             raise ObservationError(f"unknown back end {backend!r}; choose 'bayes' or 'evidential'")
         policy = Policy() if policy is None else policy
-        self.sensors, self.policy, self.full_figures = sensors, policy, full_figures
+        self.sensors, self.policy, self.full_figures, self.explain = sensors, policy, full_figures, explain
         grid, free = sensors.grid, sensors.site.free
         # The best region is computed once per tick by the pose estimate, not after every update.
         self.filter = (
@@ -291,7 +294,7 @@ class Localizer:
             # The distance costs a pairwise count over all focal sets; on calm ticks it is skipped
             # unless full figures were asked for (the belief barely moved, and nothing acts on it).
             figures["jousselme"] = jousselme_distance(before, f.belief)
-        blame = self._leave_one_out(before, applied) if tick_conflicting else []
+        blame = self._leave_one_out(before, applied) if tick_conflicting or (self.explain and busy) else []
         self._episode.append((motion, applied))
         verdict = self.monitor.judge(tick_conflicting, tick_clear and not tick_conflicting, blame)
         if tick_clear and not tick_conflicting:

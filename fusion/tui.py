@@ -20,18 +20,17 @@ from rich.text import Text
 
 from fusion import SAFETY_NOTICE
 
-__all__ = ["RunView", "belief_map", "sparkline", "summary_table"]
+__all__ = ["RunView", "belief_map", "coarse_plane", "draw_plane", "sparkline", "summary_table", "BACKEND_TITLES"]
 
 _SHADES = " ·░▒▓█"
 _SPARKS = "▁▂▃▄▅▆▇█"
-_BACKEND_TITLES = {"bayes": "Bayesian histogram filter", "evidential": "Dempster–Shafer mass filter"}
+BACKEND_TITLES = {"bayes": "Bayesian histogram filter", "evidential": "Dempster–Shafer mass filter"}
 _FIGURE = {"bayes": ("surprise", "surprise −log p(z|past), nats"), "evidential": ("conflict", "conflict K = m(∅)")}
 
 
-def belief_map(
-    probability: np.ndarray, occupied: np.ndarray, truth_xy, estimate_xy, resolution_m: float, width: int = 44
-) -> Text:
-    """Block-character map of a (ny, nx) probability plane; north is up."""
+def coarse_plane(probability: np.ndarray, occupied: np.ndarray, width: int = 44) -> tuple[np.ndarray, np.ndarray, int]:
+    """A (ny, nx) probability plane reduced to character cells: (intensity 0–255 per cell, wall per cell,
+    metres-cells per character column).  The intensity is √(p / max p), so faint alternatives still show."""
     ny, nx = occupied.shape
     step = max(1, math.ceil(nx / width))
     rows_step = step * 2  # a character is about twice as tall as wide
@@ -41,13 +40,20 @@ def belief_map(
     occ = np.pad(occupied, ((0, pad_y), (0, pad_x)), constant_values=True).reshape(rows, rows_step, cols, step)
     wall = occ.mean(axis=(1, 3)) > 0.5
     top = p.max() if p.max() > 0 else 1.0
-    level = np.clip(np.ceil(np.sqrt(p / top) * (len(_SHADES) - 1)), 0, len(_SHADES) - 1).astype(int)
+    intensity = np.clip(np.ceil(np.sqrt(np.clip(p, 0, None) / top) * 255), 0, 255).astype(np.uint8)
+    return intensity, wall, step
+
+
+def draw_plane(intensity: np.ndarray, wall: np.ndarray, step: int, truth_xy, estimate_xy, resolution_m: float) -> Text:
+    """Block characters of a coarse plane (``coarse_plane``); north is up; ◆ truth, ✚ estimate."""
+    rows, cols = intensity.shape
+    level = np.ceil(intensity.astype(np.float64) / 255 * (len(_SHADES) - 1)).astype(int)
 
     def cell_of(xy):
         if xy is None:
             return None
         x, y = xy
-        return (min(rows - 1, int(y / resolution_m / rows_step)), min(cols - 1, int(x / resolution_m / step)))
+        return (min(rows - 1, int(y / resolution_m / (2 * step))), min(cols - 1, int(x / resolution_m / step)))
 
     t_cell, e_cell = cell_of(truth_xy), cell_of(estimate_xy)
     text = Text()
@@ -63,6 +69,14 @@ def belief_map(
                 text.append(_SHADES[level[r, c]], style="cyan" if level[r, c] else "")
         text.append("\n")
     return text
+
+
+def belief_map(
+    probability: np.ndarray, occupied: np.ndarray, truth_xy, estimate_xy, resolution_m: float, width: int = 44
+) -> Text:
+    """Block-character map of a (ny, nx) probability plane; north is up."""
+    intensity, wall, step = coarse_plane(probability, occupied, width)
+    return draw_plane(intensity, wall, step, truth_xy, estimate_xy, resolution_m)
 
 
 def sparkline(values, width: int = 44, top: float | None = None) -> str:
@@ -107,7 +121,7 @@ class RunView:
 
     def _panel(self, name: str) -> Panel:
         if name not in self.latest:
-            return Panel("waiting for the first tick…", title=_BACKEND_TITLES[name])
+            return Panel("waiting for the first tick…", title=BACKEND_TITLES[name])
         d, plane = self.latest[name]
         tr = self.truth
         site = self.case.site
@@ -125,7 +139,7 @@ class RunView:
             Text(f"{label} over the last ticks (▁ low, █ high)", style="dim"),
             figures,
         )
-        return Panel(body, title=_BACKEND_TITLES[name], border_style="blue")
+        return Panel(body, title=BACKEND_TITLES[name], border_style="blue")
 
     def __rich__(self):
         maps = Table.grid(expand=True, padding=(0, 1))
@@ -153,7 +167,7 @@ def summary_table(summary: dict) -> Table:
     )
     table.add_column("figure")
     for b in summary["backends"]:
-        table.add_column(_BACKEND_TITLES.get(b, b), justify="right")
+        table.add_column(BACKEND_TITLES.get(b, b), justify="right")
     rows = [
         ("median position error", "median_error_m", "{:.2f} m"),
         ("95th percentile position error", "p95_error_m", "{:.2f} m"),
