@@ -26,7 +26,7 @@ from fusion.localizer import Decision, Localizer, SensorSet
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Policy
 from fusion.simulate import Tick, simulate
 
-__all__ = ["StepRow", "RunResult", "run_case", "write_results", "atomic_write", "STEP_COLUMNS"]
+__all__ = ["StepRow", "RunResult", "run_case", "write_results", "atomic_write", "log_text", "STEP_COLUMNS"]
 
 STEP_COLUMNS = (
     "t",
@@ -190,12 +190,18 @@ def atomic_write(path: Path, data: str | bytes) -> None:
         raise
 
 
+def log_text(ticks: list[Tick]) -> tuple[str, str]:
+    """The observation log and the truth file of simulated ticks, as JSON lines."""
+    log = "".join(json.dumps(o.to_record()) + "\n" for t in ticks for o in t.observations)
+    truth = "".join(json.dumps(t.truth.to_record()) + "\n" for t in ticks)
+    return log, truth
+
+
 def write_results(result: RunResult, out_dir) -> Path:
     """Write the log, truth, per-tick table and summary into ``out_dir`` (created if needed)."""
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    log = "".join(json.dumps(o.to_record()) + "\n" for t in result.ticks for o in t.observations)
-    truth = "".join(json.dumps(t.truth.to_record()) + "\n" for t in result.ticks)
+    log, truth = log_text(result.ticks)
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=STEP_COLUMNS)
     writer.writeheader()
