@@ -245,7 +245,7 @@ class Localizer:
         }
         tick_conflicting = False
         tick_clear = True
-        applied = []
+        applied, undiscounted = [], []
         for sensor, evidence in encoded:
             original = evidence
             if sensor in self.monitor.quarantined:
@@ -257,6 +257,7 @@ class Localizer:
             prior_p = f.belief.probabilities if self.backend == "bayes" else None
             report = f.update(evidence)
             applied.append((sensor, evidence))
+            undiscounted.append((sensor, original))
             if self.backend == "evidential":
                 k = report.conflict
                 figure = k if own is None else own
@@ -294,7 +295,8 @@ class Localizer:
             # The distance costs a pairwise count over all focal sets; on calm ticks it is skipped
             # unless full figures were asked for (the belief barely moved, and nothing acts on it).
             figures["jousselme"] = jousselme_distance(before, f.belief)
-        blame = self._leave_one_out(before, applied) if tick_conflicting or (self.explain and busy) else []
+        # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
+        blame = self._leave_one_out(before, undiscounted) if tick_conflicting or (self.explain and busy) else []
         self._episode.append((motion, applied))
         verdict = self.monitor.judge(tick_conflicting, tick_clear and not tick_conflicting, blame)
         if tick_clear and not tick_conflicting:
@@ -356,7 +358,7 @@ class Localizer:
         return sorted(out, key=lambda sv: -sv[1])
 
     def _tick_conflict(self, before, applied) -> float:
-        """Conflict of absorbing ``applied`` into ``before`` at once: K, or 1 − p(z | past) for Bayes."""
+        """Conflict of absorbing ``applied`` into ``before`` at once: K, or the support conflict for Bayes."""
         if not applied:
             return 0.0
         if self.backend == "evidential":
@@ -369,10 +371,14 @@ class Localizer:
                     return 1.0
                 m = red.mass_function.normalised()
             return 1.0 - keep
-        lik = np.ones_like(before)
+        # The same support conflict as a single reading's figure (see ``_support_conflict``): the best
+        # the readings' joint likelihood (each r·c + 1 − r, at most 1) does on the cells still possible.
+        # 1 − p(z | past) would blame the sharpest sensor for being informative.
+        support = before >= SUPPORT_SHARE * float(before.max()) if before.max() > 0 else np.ones(len(before), bool)
+        lik = np.ones(int(support.sum()))
         for _, e in applied:
-            lik = lik * e.likelihood
-        return 1.0 - min(float(before @ lik), 1.0)
+            lik = lik * e.likelihood[support]
+        return 1.0 - min(float(lik.max()), 1.0)
 
     def _relocalize(self) -> None:
         """Reset to ignorance over free space, then replay this episode's readings (re-seed from them)."""
