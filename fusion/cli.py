@@ -108,14 +108,15 @@ def _targets(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.targets import FAULT_CASES, measure_targets, render
+    from fusion.targets import ATTRIBUTION_CASES, FAULT_CASES, measure_attribution, measure_targets, render
 
     console = Console(stderr=args.json)
-    cases = args.case or list(FAULT_CASES)
-    unknown = [c for c in cases if c not in FAULT_CASES]
+    known = ATTRIBUTION_CASES if args.attribution else FAULT_CASES
+    cases = args.case or list(known)
+    unknown = [c for c in cases if c not in known]
     if unknown:
-        raise FusionError(f"unknown fault case {unknown[0]!r}; choose among: {', '.join(FAULT_CASES)}")
-    rows = measure_targets(
+        raise FusionError(f"unknown fault case {unknown[0]!r}; choose among: {', '.join(known)}")
+    rows = (measure_attribution if args.attribution else measure_targets)(
         _builtin_case(""),
         range(1, args.seeds + 1),
         cases,
@@ -288,14 +289,70 @@ def _stream(args: argparse.Namespace) -> int:
         case = apply_calibration(case, args.calibration)
     loc = Localizer.from_case(case, args.backend)
     if args.start:
-        try:
-            x, y, heading = (float(v) for v in args.start.split(","))
-        except ValueError:
-            raise FusionError(f"--start must be x,y,heading_deg in metres and degrees, got {args.start!r}") from None
-        loc.start_at(x, y, heading)
+        from fusion.inspect import parse_start
+
+        loc.start_at(*parse_start(args.start))
     print(f"fusion stream: {args.backend} back end on {case.site.name}; {SAFETY_NOTICE}", file=sys.stderr)
     written, rejected = stream(loc)
     print(f"fusion stream: {written} decisions, {rejected} lines rejected", file=sys.stderr)
+    return 0
+
+
+def _inspect(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from rich.console import Console
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+
+    from fusion.inspect import inspect_log, parse_start
+    from fusion.io.case import apply_calibration, load_case
+    from fusion.io.logs import count_lines
+
+    case = load_case(args.site)
+    if args.calibration:
+        case = apply_calibration(case, args.calibration)
+    start = parse_start(args.start) if args.start else None
+    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.log).stem}-inspect"
+    console = Console()
+    console.print(f"[dim]{SAFETY_NOTICE}[/]")
+    progress = Progress(
+        TextColumn("replaying"),
+        BarColumn(),
+        TextColumn("line {task.completed:,.0f}/{task.total:,.0f}"),
+        TimeElapsedColumn(),
+        TextColumn("ETA"),
+        TimeRemainingColumn(),
+        console=console,
+        disable=args.quiet,
+    )
+    task = progress.add_task("replay", total=count_lines(args.log))  # also refuses an unreadable log up front
+    with progress:
+        found = inspect_log(
+            case,
+            args.log,
+            out_dir,
+            truth_path=args.truth,
+            start=start,
+            frames=not args.no_frames,
+            progress=lambda line, total: progress.update(task, completed=line, total=total),
+        )
+    console.print(found)
+    console.print(f"written to [bold]{out_dir}[/]: {', '.join(found.files)}")
+    if args.scrub and not args.no_frames:
+        from fusion.scrub import scrub
+
+        scrub(out_dir, console)
+    elif not args.no_frames:
+        console.print(f"step through the replay with: fusion scrub {out_dir}")
+    return 130 if found.interrupted else 0
+
+
+def _scrub(args: argparse.Namespace) -> int:
+    from rich.console import Console
+
+    from fusion.scrub import scrub
+
+    scrub(args.folder, Console())
     return 0
 
 
@@ -369,10 +426,29 @@ def _parser() -> argparse.ArgumentParser:
     cal.add_argument("--svi-steps", type=_positive_int, default=2000, help="SVI optimisation steps (default 2000)")
     cal.add_argument("--seed", type=int, default=0, help="seed of the inference (default 0)")
     cal.set_defaults(run=_calibrate)
+    ins = commands.add_parser("inspect", help="replay a recorded log on both back ends and explain its conflict")
+    ins.add_argument("log", help="observations, JSON lines or CSV (see docs/inspect.md)")
+    ins.add_argument("--site", required=True, help="case file whose site map and sensors the log was recorded with")
+    ins.add_argument("--truth", help="true poses, JSON lines (optional; adds the true error)")
+    ins.add_argument("--start", help="start pose x,y,heading_deg (default: the first true pose, else anywhere)")
+    ins.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
+    ins.add_argument("--out", help="output folder (default: fusion-out/<log>-inspect)")
+    ins.add_argument("--no-frames", action="store_true", help="do not store the per-tick maps (no scrubbing)")
+    ins.add_argument("--scrub", action="store_true", help="step through the replay in the terminal when it ends")
+    ins.add_argument("--quiet", action="store_true", help="no progress bar")
+    ins.set_defaults(run=_inspect)
+    scr = commands.add_parser("scrub", help="step through a replay written by fusion inspect (keyboard)")
+    scr.add_argument("folder", help="output folder of fusion inspect")
+    scr.set_defaults(run=_scrub)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
     targets.add_argument("--seeds", type=_positive_int, default=50, help="seeds per case (default 50)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
     targets.add_argument("--json", action="store_true", help="print every run's verdict as JSON")
+    targets.add_argument(
+        "--attribution",
+        action="store_true",
+        help="measure instead whether fusion inspect ranks the faulty sensor first",
+    )
     targets.set_defaults(run=_targets)
     return parser
 

@@ -6,6 +6,9 @@ For each back end and seed:
 - ``stuck_door.toml`` / ``ghost.toml``: the faulty sensor is named in an alert or quarantine
   and is quarantined during the fault, and no re-localization happens during the fault;
 - ``calm.toml``: no action other than "carry on" in the whole run.
+
+``measure_attribution``: the incident replay (``fusion inspect``) of each seed's log ranks the
+injected faulty sensor first by its share of the blame over all conflict episodes.
 """
 
 from __future__ import annotations
@@ -18,9 +21,10 @@ from fusion.io.case import load_case
 from fusion.monitor import CARRY_ON, QUARANTINE, RELOCALIZE
 from fusion.runner import run_case
 
-__all__ = ["TargetRow", "measure_targets", "FAULT_CASES"]
+__all__ = ["TargetRow", "measure_targets", "measure_attribution", "FAULT_CASES", "ATTRIBUTION_CASES"]
 
 FAULT_CASES = {"carried": None, "stuck_door": "chiller contact", "ghost": "rack camera", "calm": None}
+ATTRIBUTION_CASES = {"stuck_door": "chiller contact", "ghost": "rack camera", "people": "bumper ranger"}
 RECOVERY_TICKS = 10
 RECOVERY_M, RECOVERY_DEG = 0.5, 15.0
 
@@ -88,3 +92,42 @@ def render(rows: list[TargetRow]):
         good = sum(r.success for r in mine)
         table.add_row(case, backend, str(len(mine)), str(good), f"{good / len(mine):.0%}" if mine else "")
     return table
+
+
+def measure_attribution(cases_dir, seeds, cases=tuple(ATTRIBUTION_CASES), progress=None) -> list[TargetRow]:
+    """Simulate each case and seed, replay its log with ``inspect_log`` and check who is ranked first."""
+    import tempfile
+
+    from fusion.inspect import inspect_log
+    from fusion.runner import atomic_write, log_text
+    from fusion.simulate import simulate
+
+    out = []
+    for name in cases:
+        base = load_case(Path(cases_dir) / f"{name}.toml")
+        for seed in seeds:
+            case = dataclasses.replace(base, run=dataclasses.replace(base.run, seed=seed))
+            with tempfile.TemporaryDirectory(prefix="fusion-attribution-") as tmp:
+                log, truth = log_text(simulate(case))
+                atomic_write(Path(tmp) / "log.jsonl", log)
+                atomic_write(Path(tmp) / "truth.jsonl", truth)
+                found = inspect_log(
+                    case,
+                    Path(tmp) / "log.jsonl",
+                    Path(tmp) / "out",
+                    truth_path=Path(tmp) / "truth.jsonl",
+                    frames=False,
+                    report=False,
+                )
+            ranking = found.ranking()
+            first = ranking[0][0] if ranking else "nobody"
+            share = ranking[0][1] if ranking else 0.0
+            ok = first == ATTRIBUTION_CASES[name]
+            out.append(
+                TargetRow(
+                    name, "both", seed, ok, f"ranked first: {first} ({share:.0%}); {len(found.episodes)} episodes"
+                )
+            )
+            if progress:
+                progress(name, seed)
+    return out

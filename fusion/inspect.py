@@ -1,0 +1,584 @@
+"""Incident investigation: replay a recorded log on both back ends and explain where and why it conflicted.
+
+The log is streamed (JSON lines or CSV, see ``fusion.io.logs``), never loaded whole.  Records
+are grouped into ticks: a tick starts at each odometry record (the motion since the last one)
+and holds the readings up to the next, or at most ``MAX_TICK_S`` seconds of them when a log has
+no odometry.  A reading the site cannot use (unknown sensor, a marker not on its map, a bad
+payload) is set aside with its line and reason, like a malformed row; nothing is dropped silently.
+
+Both back ends absorb identical readings tick by tick (one shared sensor set, so each reading is
+encoded once).  Conflict episodes are found on the larger of the two conflict figures
+(``fusion.episodes``); on every busy tick each back end computes leave-one-out blame, and the
+pairwise conflict between the sensors' readings is computed too.  If a truth file is given the
+true error is added.
+
+Written to the output folder, each under a temporary name renamed into place when the replay
+ends — also when it is interrupted (Ctrl-C), in which case the report covers what was read:
+``steps.csv`` (a row per tick and back end), ``set_aside.jsonl`` (every row not used, with its
+reason), ``episodes.json``, ``summary.json``, ``frames.u8`` + ``frames.json`` (coarse belief
+maps of every tick, for ``fusion scrub``) and ``report.html``.
+
+Decision support and monitoring only: not a certified safety function.
+"""
+
+from __future__ import annotations
+
+import csv
+import heapq
+import json
+import math
+import os
+import time
+from array import array
+from collections import Counter, defaultdict
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from fusion import SAFETY_NOTICE, __version__
+from fusion.belief import rules
+from fusion.episodes import Episode, EpisodeFinder, blame_shares
+from fusion.errors import FusionError, ObservationError
+from fusion.io.case import Case
+from fusion.io.logs import SetAside, count_lines, iter_observations, iter_truth
+from fusion.io.observations import Observation
+from fusion.localizer import Localizer, SensorSet
+from fusion.monitor import CARRY_ON, Policy
+from fusion.runner import atomic_write
+from fusion.sensors.markers import MarkerSighting
+from fusion.tui import coarse_plane
+
+__all__ = ["Inspection", "inspect_log", "parse_start", "MAX_TICK_S", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
+
+MAX_TICK_S = 1.0
+"""Longest span of readings grouped into one tick when no odometry record starts a new one (our choice)."""
+MISMATCH_SHARE = 0.2
+"""A log whose unknown sensors, or whose sightings of markers not on the map, reach this share is
+reported as probably recorded on another site (our choice; a few stray ids are noise, a fifth is not)."""
+FRAME_WIDTH = 44
+"""Character columns of the stored belief maps (what the scrubber draws)."""
+KEEP_MAPS = 12
+"""Full-resolution maps (before, peak, end) are kept for this many of the most severe episodes."""
+PAIR_TICKS = 16
+"""Ticks per episode on which the pairwise conflict between sensors is computed (it costs a pass per pair)."""
+
+STEP_COLUMNS = (
+    "tick",
+    "t",
+    "line",
+    "backend",
+    "readings",
+    "x_m",
+    "y_m",
+    "heading_deg",
+    "spread_m",
+    "region_cells",
+    "conflict",
+    "weight_of_conflict",
+    "disagreement",
+    "jousselme",
+    "surprise",
+    "evidence_ratio",
+    "action",
+    "reason",
+    "blame",
+    "quarantined",
+    "episode",
+    "true_x_m",
+    "true_y_m",
+    "error_m",
+    "heading_error_deg",
+)
+
+
+@dataclass
+class Inspection:
+    """What a replay found; renders itself for rich (the terminal summary)."""
+
+    log: str
+    site: str
+    backends: tuple[str, ...]
+    lines: int = 0
+    records: int = 0  # observations that parsed
+    used: int = 0  # readings both back ends absorbed
+    ticks: int = 0
+    duration_s: float = 0.0
+    set_aside: int = 0
+    reasons: Counter = field(default_factory=Counter)
+    first_set_aside: list = field(default_factory=list)  # first rows set aside, for the summary
+    episodes: list[Episode] = field(default_factory=list)
+    blame: dict = field(default_factory=lambda: defaultdict(lambda: defaultdict(float)))  # over all episodes
+    actions: list = field(default_factory=list)  # (t, back end, action, reason) of every non-"carry on" tick
+    warnings: list[str] = field(default_factory=list)
+    truth: bool = False
+    errors: dict = field(default_factory=dict)  # back end -> (median, p95) true error, m
+    interrupted: bool = False
+    seconds: float = 0.0
+    files: list[str] = field(default_factory=list)
+    start: str = ""
+    series: dict = field(default_factory=dict)  # per-tick arrays for the plots (t, conflict per back end, …)
+    maps: dict = field(default_factory=dict)  # episode number -> {"before"|"peak"|"end": {back end: plane}}
+
+    def ranking(self) -> list[tuple[str, float]]:
+        """Sensors by their share of the blame over all episodes, averaged over the back ends."""
+        return blame_shares(self.blame)
+
+    def summary(self) -> dict:
+        return {
+            "tool": f"fusion {__version__}",
+            "notice": SAFETY_NOTICE,
+            "log": self.log,
+            "site": self.site,
+            "backends": list(self.backends),
+            "start": self.start,
+            "lines": self.lines,
+            "records": self.records,
+            "readings_used": self.used,
+            "ticks": self.ticks,
+            "duration_s": round(self.duration_s, 6),
+            "set_aside": self.set_aside,
+            "set_aside_reasons": dict(self.reasons.most_common()),
+            "episodes": len(self.episodes),
+            "blame_share": [[s, round(v, 4)] for s, v in self.ranking()],
+            "actions": {
+                b: dict(Counter(a for _, bb, a, _ in self.actions if bb == b).most_common()) for b in self.backends
+            },
+            "true_error_m": {b: {"median": round(m, 4), "p95": round(p, 4)} for b, (m, p) in self.errors.items()}
+            or None,
+            "warnings": self.warnings,
+            "interrupted": self.interrupted,
+        }
+
+    def __rich_console__(self, console, options):
+        from fusion.inspect_view import summary_renderables
+
+        yield from summary_renderables(self)
+
+
+class _Outputs:
+    """The replay's files, written as it goes under temporary names and renamed into place by ``close``."""
+
+    def __init__(self, out_dir: Path, frames: bool):
+        self.dir = out_dir
+        out_dir.mkdir(parents=True, exist_ok=True)
+        self._tmp: dict[str, Path] = {}
+        self.steps = self._open("steps.csv", "w")
+        self.steps_csv = csv.DictWriter(self.steps, fieldnames=STEP_COLUMNS)
+        self.steps_csv.writeheader()
+        self.aside = self._open("set_aside.jsonl", "w")
+        self.frames = self._open("frames.u8", "wb") if frames else None
+
+    def _open(self, name: str, mode: str):
+        tmp = self.dir / f".{name}.partial"
+        self._tmp[name] = tmp
+        return open(tmp, mode, **({} if "b" in mode else {"encoding": "utf-8", "newline": ""}))  # noqa: SIM115
+
+    def abandon(self) -> None:
+        """Close and remove the temporary files (the replay failed; nothing half-written is left)."""
+        for fh in (self.steps, self.aside, self.frames):
+            if fh is not None:
+                fh.close()
+        for tmp in self._tmp.values():
+            tmp.unlink(missing_ok=True)
+
+    def close(self) -> list[str]:
+        for fh in (self.steps, self.aside, self.frames):
+            if fh is not None:
+                fh.close()
+        for name, tmp in self._tmp.items():
+            os.replace(tmp, self.dir / name)
+        return list(self._tmp)
+
+
+def inspect_log(
+    case: Case,
+    log_path,
+    out_dir,
+    *,
+    truth_path=None,
+    start: tuple[float, float, float] | None = None,
+    backends=("bayes", "evidential"),
+    frames: bool = True,
+    report: bool = True,
+    progress=None,
+) -> Inspection:
+    """Replay ``log_path`` on ``case``'s site and sensors; write the findings into ``out_dir``.
+
+    ``progress(line, total_lines)`` is called every few ticks.  Ctrl-C ends the replay early: the
+    files and the report then cover the lines read so far (``Inspection.interrupted``)."""
+    began = time.perf_counter()
+    log_path, out_dir = Path(log_path), Path(out_dir)
+    total_lines = count_lines(log_path)  # also refuses a missing or unreadable log before anything is written
+    if truth_path is not None:
+        count_lines(truth_path)
+    grid = case.site.grid(case.headings)
+    sensors = SensorSet(case.site, grid, case.sensors)
+    policy = Policy(**case.run.policy)
+    locs = {
+        b: Localizer(b, sensors, policy, rule=case.run.rule, max_focal=case.run.max_focal, explain=True)
+        for b in backends
+    }
+    found = Inspection(str(log_path), case.site.name, tuple(backends), lines=total_lines, truth=truth_path is not None)
+    truth_rows: list[SetAside] = []
+    truth = _TruthCursor(iter_truth(truth_path, truth_rows)) if truth_path is not None else None
+    found.start = _place_start(locs, start, truth)  # a start off the site is refused before anything is written
+    out = _Outputs(out_dir, frames)
+    replay = _Replay(case, sensors, locs, policy, found, out)
+    try:
+        records = iter_observations(log_path, on_set_aside=replay.set_aside)
+        for group in _ticks(records, found):
+            replay.tick(group, truth)
+            if progress is not None and found.ticks % 8 == 0:
+                progress(group[-1][0], total_lines)
+    except KeyboardInterrupt:
+        found.interrupted = True
+        found.warnings.append(f"the replay was interrupted after {found.ticks:,} ticks: the report covers those only")
+    except BaseException:
+        out.abandon()
+        raise
+    replay.finish()
+    for row in truth_rows:
+        found.warnings.append(f"truth file line {row.line} set aside: {row.reason}")
+        if len(found.warnings) > 20:
+            break
+    found.files = out.close()
+    found.files += replay.write_frames_index(out_dir) if frames else []
+    found.seconds = time.perf_counter() - began
+    _write_summary(found, out_dir)
+    if report:
+        from fusion.inspect_report import write_report
+
+        found.files.append(write_report(found, case, out_dir))
+    found.files.sort()
+    if progress is not None:
+        progress(total_lines, total_lines)
+    return found
+
+
+def _ticks(records, found: Inspection):
+    """Group ``(line, observation)`` into ticks: a new tick at each odometry record, or after MAX_TICK_S."""
+    group: list[tuple[int, Observation]] = []
+    for line, obs in records:
+        found.records += 1
+        if group and (obs.kind == "odometry" or obs.t - group[0][1].t > MAX_TICK_S):
+            yield group
+            group = []
+        group.append((line, obs))
+    if group:
+        yield group
+
+
+def _place_start(locs: dict, start, truth) -> str:
+    """Start every back end at the given pose, else at the first true pose, else anywhere in free space."""
+    first = truth.first() if truth is not None else None
+    if start is not None:
+        for loc in locs.values():
+            loc.start_at(*start)
+        return f"given pose ({start[0]:g}, {start[1]:g}) m, {start[2]:g}°"
+    if first is not None:
+        for loc in locs.values():
+            loc.start_at(first.x_m, first.y_m, first.heading_deg)
+        return f"first true pose ({first.x_m:g}, {first.y_m:g}) m, {first.heading_deg:g}°"
+    for loc in locs.values():
+        loc.start_anywhere()
+    return "anywhere in free space (no start pose and no truth file given)"
+
+
+class _TruthCursor:
+    """The latest true pose at or before a time, from a streamed truth file."""
+
+    def __init__(self, poses):
+        self._poses = poses
+        self._next = next(poses, None)
+        self.current = None
+
+    def first(self):
+        return self._next[1] if self._next is not None else None
+
+    def at(self, t: float):
+        while self._next is not None and self._next[1].t <= t + 1e-6:
+            self.current = self._next[1]
+            self._next = next(self._poses, None)
+        return self.current
+
+
+class _Replay:
+    def __init__(self, case: Case, sensors: SensorSet, locs: dict, policy: Policy, found: Inspection, out: _Outputs):
+        self.case, self.sensors, self.locs, self.found, self.out = case, sensors, locs, found, out
+        self.finder = EpisodeFinder(policy.conflict_k, policy.clear_fraction * policy.conflict_k)
+        self.site_markers = {m.marker_id for m in case.site.markers}
+        self.unknown_sensor, self.sightings, self.unknown_marker = 0, 0, 0
+        self.shape = case.site.occupied.shape
+        self.prev_planes: dict[str, np.ndarray] = {}
+        self.open_maps: dict | None = None
+        self.kept: list[tuple[float, int]] = []  # min-heap of (severity, episode) whose maps are kept
+        self.index: dict = {"t": [], "line": [], "truth": [], "est": defaultdict(list), "action": defaultdict(list)}
+        self.series = {"t": array("d"), "episode": array("l")}
+        for b in locs:
+            for key in ("conflict", "surprise", "jousselme", "error"):
+                self.series[f"{key}:{b}"] = array("d")
+        self.wall = None
+        self.frame_shape = None
+
+    def set_aside(self, row: SetAside) -> None:
+        f = self.found
+        f.set_aside += 1
+        f.reasons[_reason_kind(row.reason)] += 1
+        if len(f.first_set_aside) < 200:
+            f.first_set_aside.append(row)
+        self.out.aside.write(json.dumps({"line": row.line, "reason": row.reason, "text": row.text}) + "\n")
+
+    # ---------------------------------------------------------------- one tick
+    def tick(self, group, truth) -> None:
+        f = self.found
+        odometry, readings, lines = None, [], {}
+        for line, obs in group:
+            try:
+                self._usable(obs)
+            except FusionError as err:
+                self.set_aside(SetAside(line, str(err), json.dumps(obs.to_record())[:80]))
+                continue
+            if obs.kind == "odometry":
+                odometry = obs
+            else:
+                readings.append(obs)
+                lines[id(obs)] = line
+        t = max(obs.t for _, obs in group)
+        tick = f.ticks
+        f.ticks += 1
+        f.used += len(readings)
+        f.duration_s = t
+        pose = truth.at(t) if truth is not None else None
+        decisions = {b: loc.step(odometry, readings) for b, loc in self.locs.items()}
+        conflict = {b: float(d.figures.get("conflict", 0.0)) for b, d in decisions.items()}
+        episode, closed = self.finder.add(tick, t, group[0][0], conflict)
+        planes = {b: self._plane(loc) for b, loc in self.locs.items()}
+        if closed is not None:
+            self._close(closed)
+        if episode is not None:
+            self._in_episode(episode, tick, decisions, readings, planes, pose)
+        for b, d in decisions.items():
+            self._row(tick, t, group[0][0], b, d, len(readings), episode, pose)
+            if d.action != CARRY_ON:
+                act = (t, b, d.action, d.reasons[0] if d.reasons else "")
+                f.actions.append(act)
+                if episode is not None:
+                    episode.actions.append(act)
+        self._frame(t, group[0][0], decisions, planes, pose)
+        self.prev_planes = planes
+
+    def _usable(self, obs: Observation) -> None:
+        """Refuse what the site cannot use, counting what suggests the log is from another site."""
+        if obs.sensor not in self.sensors.kinds:
+            self.unknown_sensor += 1
+            self.sensors.check(obs)  # raises, naming the site's sensors
+        self.sensors.check(obs)
+        if obs.kind == "odometry":
+            return
+        if isinstance(obs.reading, MarkerSighting):
+            self.sightings += 1
+            if obs.reading.marker_id not in self.site_markers:
+                self.unknown_marker += 1
+        self.sensors.encode(obs)  # raises on a payload the model cannot use (e.g. a marker not on the map)
+
+    def _plane(self, loc: Localizer) -> np.ndarray:
+        return loc.filter.distribution().reshape(loc.sensors.grid.shape).sum(axis=0)
+
+    def _in_episode(self, ep: Episode, tick: int, decisions, readings, planes, pose) -> None:
+        if ep.start_tick == tick:
+            self.open_maps = {"before": self.prev_planes or planes, "peak": planes, "end": planes}
+        elif self.open_maps is not None:
+            if ep.peak_tick == tick:
+                self.open_maps["peak"] = planes
+            if ep.end_tick == tick:
+                self.open_maps["end"] = planes
+        busy = ep.end_tick == tick  # a tick above the clear level (calm ticks inside an episode add nothing)
+        if not busy:
+            return
+        for b, d in decisions.items():
+            for sensor, v in d.blame:
+                ep.blame[b][sensor] += v
+                self.found.blame[b][sensor] += v
+            if pose is not None:
+                ep.errors[b] = max(ep.errors[b], math.hypot(d.x_m - pose.x_m, d.y_m - pose.y_m))
+        if ep.ticks <= PAIR_TICKS:
+            self._pairs(ep, readings)
+
+    def _pairs(self, ep: Episode, readings) -> None:
+        """Conflict K between each two sensors' readings of this tick (first reading of each sensor)."""
+        by_sensor: dict[str, object] = {}
+        for obs in readings:
+            by_sensor.setdefault(obs.sensor, obs)
+        names = sorted(by_sensor)
+        for i, a in enumerate(names):
+            for b in names[i + 1 :]:
+                ea, eb = self.sensors.encode(by_sensor[a]), self.sensors.encode(by_sensor[b])
+                ep.pairs[(a, b)].append(rules.conflict_mass(ea.masses, eb.masses))
+
+    def _close(self, ep: Episode) -> None:
+        self.found.episodes.append(ep)
+        maps, self.open_maps = self.open_maps, None
+        if maps is None:
+            return
+        heapq.heappush(self.kept, (ep.severity, ep.number))
+        self.found.maps[ep.number] = {k: {b: p.astype(np.float32) for b, p in v.items()} for k, v in maps.items()}
+        if len(self.kept) > KEEP_MAPS:
+            _, dropped = heapq.heappop(self.kept)
+            self.found.maps.pop(dropped, None)
+
+    def _row(self, tick, t, line, backend, d, n_readings, episode, pose) -> None:
+        fig = d.figures
+        err = herr = None
+        if pose is not None:
+            err = math.hypot(d.x_m - pose.x_m, d.y_m - pose.y_m)
+            herr = abs((d.heading_deg - pose.heading_deg + 180.0) % 360.0 - 180.0)
+        row = {
+            "tick": tick,
+            "t": t,
+            "line": line,
+            "backend": backend,
+            "readings": n_readings,
+            "x_m": d.x_m,
+            "y_m": d.y_m,
+            "heading_deg": d.heading_deg,
+            "spread_m": d.spread_m,
+            "region_cells": d.region_cells,
+            "conflict": fig.get("conflict", 0.0),
+            "weight_of_conflict": fig.get("weight_of_conflict", 0.0),
+            "disagreement": fig.get("disagreement", 0.0),
+            "jousselme": fig.get("jousselme", 0.0),
+            "surprise": fig.get("surprise", 0.0),
+            "evidence_ratio": fig.get("evidence_ratio", 1.0),
+            "action": d.action,
+            "reason": d.reasons[0] if d.reasons else "",
+            "blame": ";".join(f"{s}={v:.3f}" for s, v in d.blame[:3]),
+            "quarantined": ";".join(d.quarantined),
+            "episode": episode.number if episode is not None else "",
+            "true_x_m": pose.x_m if pose is not None else "",
+            "true_y_m": pose.y_m if pose is not None else "",
+            "error_m": err if err is not None else "",
+            "heading_error_deg": herr if herr is not None else "",
+        }
+        self.out.steps_csv.writerow({k: (_fmt(v) if isinstance(v, float) else v) for k, v in row.items()})
+        s = self.series
+        if backend == next(iter(self.locs)):
+            s["t"].append(t)
+            s["episode"].append(episode.number if episode is not None else 0)
+        s[f"conflict:{backend}"].append(float(fig.get("conflict", 0.0)))
+        s[f"surprise:{backend}"].append(float(fig.get("surprise", 0.0)))
+        s[f"jousselme:{backend}"].append(float(fig.get("jousselme", 0.0)))
+        s[f"error:{backend}"].append(err if err is not None else math.nan)
+
+    def _frame(self, t, line, decisions, planes, pose) -> None:
+        idx = self.index
+        idx["t"].append(round(t, 6))
+        idx["line"].append(line)
+        idx["truth"].append([round(pose.x_m, 3), round(pose.y_m, 3)] if pose is not None else None)
+        for b, d in decisions.items():
+            idx["est"][b].append([round(d.x_m, 3), round(d.y_m, 3)])
+            idx["action"][b].append(d.action)
+        if self.out.frames is None:
+            return
+        for b in self.locs:
+            intensity, wall, step = coarse_plane(planes[b], self.case.site.occupied, FRAME_WIDTH)
+            if self.wall is None:
+                self.wall, self.frame_shape, self.frame_step = wall, intensity.shape, step
+            self.out.frames.write(intensity.tobytes())
+
+    # ---------------------------------------------------------------- the end
+    def finish(self) -> None:
+        last = self.finder.finish()
+        if last is not None:
+            self._close(last)
+        f = self.found
+        f.series = {k: np.array(v) for k, v in self.series.items()}
+        if f.truth:
+            for b in self.locs:
+                e = f.series[f"error:{b}"]
+                e = e[np.isfinite(e)]
+                if len(e):
+                    f.errors[b] = (float(np.median(e)), float(np.percentile(e, 95)))
+        self._site_check()
+
+    def _site_check(self) -> None:
+        f = self.found
+        if f.records and self.unknown_sensor / f.records >= MISMATCH_SHARE:
+            f.warnings.insert(
+                0,
+                f"{self.unknown_sensor:,} of {f.records:,} records ({self.unknown_sensor / f.records:.0%}) come from "
+                f"sensors site {self.case.site.name!r} does not have: the log is probably from another site or robot",
+            )
+        if self.sightings >= 5 and self.unknown_marker / self.sightings >= MISMATCH_SHARE:
+            f.warnings.insert(
+                0,
+                f"{self.unknown_marker:,} of {self.sightings:,} marker sightings ({self.unknown_marker / self.sightings:.0%}) "
+                f"name markers that are not on the map of site {self.case.site.name!r}: the log is probably "
+                "from another site (or the map is out of date)",
+            )
+        if f.records == 0:
+            f.warnings.insert(0, "no usable observation in the log: every line was set aside")
+
+    def write_frames_index(self, out_dir: Path) -> list[str]:
+        ep = [[e.start_tick, e.peak_tick, e.end_tick, e.number] for e in self.found.episodes]
+        index = {
+            "tool": f"fusion {__version__}",
+            "site": self.case.site.name,
+            "backends": list(self.locs),
+            "shape": list(self.frame_shape) if self.frame_shape else [0, 0],
+            "step": getattr(self, "frame_step", 1),
+            "resolution_m": self.case.site.resolution_m,
+            "wall": self.wall.astype(int).tolist() if self.wall is not None else [],
+            "ticks": len(self.index["t"]),
+            "t": self.index["t"],
+            "line": self.index["line"],
+            "truth": self.index["truth"],
+            "estimate": dict(self.index["est"]),
+            "action": dict(self.index["action"]),
+            "conflict": {b: [round(v, 4) for v in self.series[f"conflict:{b}"]] for b in self.locs},
+            "episodes": ep,
+        }
+        atomic_write(out_dir / "frames.json", json.dumps(index, allow_nan=False) + "\n")
+        return ["frames.json"]
+
+
+def _write_summary(found: Inspection, out_dir: Path) -> None:
+    atomic_write(out_dir / "episodes.json", json.dumps([e.to_record() for e in found.episodes], indent=1) + "\n")
+    atomic_write(out_dir / "summary.json", json.dumps(found.summary(), indent=2, allow_nan=False) + "\n")
+    found.files += ["episodes.json", "summary.json"]
+
+
+def _fmt(v: float) -> str:
+    return f"{v:.6g}" if math.isfinite(v) else ""
+
+
+_REASON_KINDS = (
+    ("unknown sensor", "unknown sensor"),
+    ("not on the map", "marker not on the map"),
+    ("is before the previous", "out of time order"),
+    ("out of time order", "out of time order"),
+    ("not a JSON", "not JSON"),
+    ("not a CSV", "not CSV"),
+    ("cells where the header", "wrong number of CSV cells"),
+    ("longer than", "line too long"),
+    ("not UTF-8", "not UTF-8"),
+    ("missing", "field missing"),
+    ("finite", "not a finite number"),
+    ("must be", "field of the wrong type or range"),
+)
+
+
+def _reason_kind(reason: str) -> str:
+    """A short name for a set-aside reason, to count them by kind in the report."""
+    return next((kind for needle, kind in _REASON_KINDS if needle in reason), "other")
+
+
+def parse_start(text: str) -> tuple[float, float, float]:
+    """``x,y,heading_deg`` (metres, degrees) from the command line."""
+    try:
+        x, y, h = (float(v) for v in text.split(","))
+    except ValueError:
+        raise ObservationError(f"--start must be x,y,heading_deg in metres and degrees, got {text!r}") from None
+    if not all(math.isfinite(v) for v in (x, y, h)):
+        raise ObservationError(f"--start must be finite numbers, got {text!r}")
+    return x, y, h

@@ -1,0 +1,219 @@
+"""The single-file HTML incident report of a replay: conflict over time, episode timeline, blame, maps.
+
+Plots (PNG, embedded and also written beside the report):
+- ``conflict.png``: each back end's conflict per tick, episodes shaded, monitor actions marked;
+- ``blame.png``: each sensor's share of the blame over all episodes, per back end;
+- ``maps_episode<N>.png``: both back ends' beliefs before, at the peak of and at the end of the
+  most severe episodes (true pose and estimate marked when known);
+- ``error.png``: the true position error per back end (only with a truth file).
+"""
+
+from __future__ import annotations
+
+import html
+from pathlib import Path
+
+import numpy as np
+
+from fusion.episodes import QUIET_TICKS
+from fusion.html_page import figures_html, page, png_of
+from fusion.inspect_view import EPISODE_ROWS
+from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
+from fusion.runner import atomic_write
+from fusion.tui import BACKEND_TITLES
+
+__all__ = ["write_report", "MAP_EPISODES"]
+
+MAP_EPISODES = 3
+"""Episodes whose belief maps are drawn in the report (the most severe)."""
+
+_ACTION_MARKS = {
+    ALERT: ("^", "#d98c00", "alert"),
+    RELOCALIZE: ("X", "#b00020", "re-localize"),
+    QUARANTINE: ("s", "#5a3fa0", "quarantine"),
+}
+_BACKEND_COLOURS = {"bayes": "#1f6f8b", "evidential": "#b5523b"}
+
+
+def write_report(found, case, out_dir) -> str:
+    """Write report.html (and its PNGs) into ``out_dir``; returns the report's file name."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    images = _plots(found, case)
+    for name, data in images.items():
+        atomic_write(Path(out_dir) / name, data)
+    atomic_write(Path(out_dir) / "report.html", _html(found, images))
+    found.files += list(images)
+    return "report.html"
+
+
+def _plots(found, case) -> dict[str, bytes]:
+    import matplotlib.pyplot as plt
+
+    out: dict[str, bytes] = {}
+    s = found.series
+    t = s.get("t", np.zeros(0))
+    if len(t):
+        fig, axes = plt.subplots(
+            len(found.backends), 1, figsize=(10, 2.4 * len(found.backends) + 0.6), dpi=110, sharex=True
+        )
+        axes = np.atleast_1d(axes)
+        for ax, b in zip(axes, found.backends):
+            ax.plot(t, s[f"conflict:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"))
+            for e in found.episodes:
+                ax.axvspan(e.start_t, max(e.end_t, e.start_t + 1e-3), color="#f2c14e", alpha=0.3, lw=0)
+            for action, (marker, colour, label) in _ACTION_MARKS.items():
+                when = [a[0] for a in found.actions if a[1] == b and a[2] == action]
+                if when:
+                    ax.scatter(when, [1.04] * len(when), marker=marker, color=colour, s=28, label=label, clip_on=False)
+            ax.set_ylim(0, 1.08)
+            ax.set_ylabel("conflict K")
+            ax.set_title(BACKEND_TITLES.get(b, b), fontsize=10, loc="left")
+            ax.grid(alpha=0.3)
+            if any(a[1] == b for a in found.actions):
+                ax.legend(fontsize=7, loc="upper right", ncol=3)
+        axes[-1].set_xlabel("time in the log (s); shaded: conflict episodes")
+        out["conflict.png"] = png_of(fig)
+        plt.close(fig)
+    ranking = found.ranking()
+    if ranking:
+        names = [n for n, _ in ranking]
+        fig, ax = plt.subplots(figsize=(7, 0.5 * len(names) + 1.4), dpi=110)
+        height = 0.8 / max(len(found.backends), 1)
+        for i, b in enumerate(found.backends):
+            per = found.blame[b]
+            total = sum(max(v, 0.0) for v in per.values()) or 1.0
+            ax.barh(
+                np.arange(len(names)) + i * height,
+                [max(per.get(n, 0.0), 0.0) / total for n in names],
+                height=height,
+                color=_BACKEND_COLOURS.get(b, "0.4"),
+                label=b,
+            )
+        ax.set_yticks(np.arange(len(names)) + height * (len(found.backends) - 1) / 2, names)
+        ax.invert_yaxis()
+        ax.set_xlabel("share of the leave-one-out blame over all episodes")
+        ax.legend(fontsize=8)
+        ax.grid(alpha=0.3, axis="x")
+        out["blame.png"] = png_of(fig)
+        plt.close(fig)
+    worst = sorted(found.episodes, key=lambda e: -e.severity)
+    for e in [e for e in worst if e.number in found.maps][:MAP_EPISODES]:
+        out[f"maps_episode{e.number}.png"] = _maps(found, case, e)
+    if found.truth and len(t):
+        fig, ax = plt.subplots(figsize=(10, 3), dpi=110)
+        for b in found.backends:
+            ax.plot(t, s[f"error:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"), label=b)
+        for e in found.episodes:
+            ax.axvspan(e.start_t, max(e.end_t, e.start_t + 1e-3), color="#f2c14e", alpha=0.3, lw=0)
+        ax.set_yscale("symlog", linthresh=0.5)
+        ax.set_xlabel("time in the log (s)")
+        ax.set_ylabel("true position error (m)")
+        ax.grid(alpha=0.3)
+        ax.legend(fontsize=8)
+        out["error.png"] = png_of(fig)
+        plt.close(fig)
+    return out
+
+
+def _maps(found, case, e) -> bytes:
+    import matplotlib.pyplot as plt
+
+    site = case.site
+    maps = found.maps[e.number]
+    moments = [
+        ("before", f"before (t < {e.start_t:.2f} s)"),
+        ("peak", f"peak ({e.peak_t:.2f} s)"),
+        ("end", f"end ({e.end_t:.2f} s)"),
+    ]
+    fig, axes = plt.subplots(
+        len(found.backends), 3, figsize=(11, 2.6 * len(found.backends) + 0.8), dpi=100, squeeze=False
+    )
+    extent = (0, site.width_m, 0, site.height_m)
+    for r, b in enumerate(found.backends):
+        for c, (key, label) in enumerate(moments):
+            ax = axes[r, c]
+            plane = maps[key][b]
+            ax.imshow(
+                np.sqrt(plane / max(plane.max(), 1e-300)), origin="lower", extent=extent, cmap="Blues", vmin=0, vmax=1
+            )
+            ax.imshow(
+                np.ma.masked_where(~site.occupied, site.occupied),
+                origin="lower",
+                extent=extent,
+                cmap="Greys",
+                vmin=0,
+                vmax=1.5,
+                alpha=0.8,
+            )
+            ax.set_title(f"{b}: {label}", fontsize=8)
+            ax.set_xticks([])
+            ax.set_yticks([])
+    fig.suptitle(
+        f"Episode {e.number}: belief (√ of the probability of each place, all headings); grey: racks and walls",
+        fontsize=9,
+    )
+    data = png_of(fig)
+    plt.close(fig)
+    return data
+
+
+def _html(found, images: dict[str, bytes]) -> str:
+    e = html.escape
+    warn = "".join(f'<p class="warning">{e(w)}</p>' for w in found.warnings)
+    aside = ", ".join(f"{n:,} {e(kind)}" for kind, n in found.reasons.most_common()) or "none"
+    errors = "".join(
+        f"<li>{e(b)}: median {m:.2f} m, 95th percentile {p:.2f} m</li>" for b, (m, p) in found.errors.items()
+    )
+    rows = []
+    eps = sorted(found.episodes, key=lambda ep: -ep.severity)
+    for ep in sorted(eps, key=lambda ep: ep.start_t):
+        shares = ", ".join(f"{e(s)} {v:.0%}" for s, v in ep.shares()[:3]) or "—"
+        pairs = ", ".join(f"{e(a)}↔{e(b)} {k:.2f}" for a, b, k in ep.pairwise()[:2]) or "—"
+        acts = "<br>".join(
+            f"{e(b)}: "
+            + ", ".join(
+                f"{e(a.split()[0])} {ep.acted(b, a):.2f} s"
+                for a in (ALERT, RELOCALIZE, QUARANTINE)
+                if ep.acted(b, a) is not None
+            )
+            or f"{e(b)}: none"
+            for b in found.backends
+        )
+        peaks = "".join(f"<td>{ep.peak.get(b, 0.0):.3f}</td>" for b in found.backends)
+        rows.append(
+            f"<tr><td>{ep.number}</td><td>{ep.start_t:.2f}</td><td>{ep.peak_t:.2f}</td><td>{ep.end_t:.2f}</td>"
+            f"<td>{ep.start_line}</td><td>{ep.ticks}</td>{peaks}<td>{shares}</td><td>{pairs}</td><td>{acts}</td></tr>"
+        )
+    peak_head = "".join(f"<th>peak K {e(b)}</th>" for b in found.backends)
+    ranking = "".join(
+        f"<tr><td>{i}</td><td>{e(s)}</td><td>{v:.0%}</td></tr>" for i, (s, v) in enumerate(found.ranking(), 1)
+    )
+    listed = "".join(
+        f"<tr><td>{r.line}</td><td>{e(r.reason)}</td><td><code>{e(r.text)}</code></td></tr>"
+        for r in found.first_set_aside
+    )
+    more = (
+        f"<p>First {len(found.first_set_aside)} of {found.set_aside:,} shown; all are in set_aside.jsonl.</p>"
+        if found.set_aside > len(found.first_set_aside)
+        else ""
+    )
+    body = f"""{warn}
+<p>Log <code>{e(found.log)}</code> on site <b>{e(found.site)}</b>: {found.lines:,} lines, {found.records:,} observations,
+{found.ticks:,} ticks ({found.duration_s:.1f} s of log); {found.used:,} readings absorbed by both back ends.
+Start: {e(found.start)}. Rows set aside: {found.set_aside:,} ({aside}).{" <b>Interrupted</b>: the report covers the ticks read." if found.interrupted else ""}</p>
+{"<h2>True error</h2><ul>" + errors + "</ul>" if errors else ""}
+<h2>Conflict episodes ({len(found.episodes)})</h2>
+<p>An episode opens when a back end's conflict K reaches the policy's threshold and closes after
+{QUIET_TICKS} calm ticks. Blame: how much leaving a sensor's reading out lowers the tick's conflict, summed over the
+episode, as a share per back end, averaged. Pairwise: mean conflict K between two sensors' readings.
+The terminal shows the {EPISODE_ROWS} most severe.</p>
+<table><tr><th>#</th><th>start (s)</th><th>peak (s)</th><th>end (s)</th><th>log line</th><th>ticks</th>{peak_head}
+<th>most to blame</th><th>pairwise conflict</th><th>first action (s)</th></tr>{"".join(rows)}</table>
+<h2>Sensors ranked by blame over all episodes</h2>
+<table><tr><th>rank</th><th>sensor</th><th>share</th></tr>{ranking}</table>
+<h2>Plots</h2>{figures_html(images)}
+<h2>Rows set aside</h2>
+<table><tr><th>line</th><th>reason</th><th>start of the row</th></tr>{listed}</table>{more}"""
+    return page(f"Incident replay: {Path(found.log).name} on {found.site}", body)
