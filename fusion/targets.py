@@ -65,12 +65,17 @@ def _judge(name: str, result, backend: str) -> tuple[bool, str]:
     return ok, f"named={named} quarantined={quarantined} re-localizations={relocs}"
 
 
+def _seeded(case, seed: int):
+    """The case with its run's seed replaced."""
+    return dataclasses.replace(case, run=dataclasses.replace(case.run, seed=seed))
+
+
 def measure_targets(cases_dir, seeds, cases=tuple(FAULT_CASES), progress=None) -> list[TargetRow]:
     out = []
     for name in cases:
         base = load_case(Path(cases_dir) / f"{name}.toml")
         for seed in seeds:
-            case = dataclasses.replace(base, run=dataclasses.replace(base.run, seed=seed))
+            case = _seeded(base, seed)
             result = run_case(case)
             for backend in case.run.backends:
                 ok, detail = _judge(name, result, backend)
@@ -106,7 +111,7 @@ def measure_attribution(cases_dir, seeds, cases=tuple(ATTRIBUTION_CASES), progre
     for name in cases:
         base = load_case(Path(cases_dir) / f"{name}.toml")
         for seed in seeds:
-            case = dataclasses.replace(base, run=dataclasses.replace(base.run, seed=seed))
+            case = _seeded(base, seed)
             with tempfile.TemporaryDirectory(prefix="fusion-attribution-") as tmp:
                 log, truth = log_text(simulate(case))
                 atomic_write(Path(tmp) / "log.jsonl", log)
