@@ -320,6 +320,7 @@ class _Replay:
                 self.series[f"{key}:{b}"] = array("d")
         self.wall = None
         self.frame_shape = None
+        self.frame_step = 1
 
     def set_aside(self, row: SetAside) -> None:
         f = self.found
@@ -372,8 +373,7 @@ class _Replay:
         """Refuse what the site cannot use, counting what suggests the log is from another site."""
         if obs.sensor not in self.sensors.kinds:
             self.unknown_sensor += 1
-            self.sensors.check(obs)  # raises, naming the site's sensors
-        self.sensors.check(obs)
+        self.sensors.check(obs)  # raises on an unknown sensor (naming the site's) or the wrong kind
         if obs.kind == "odometry":
             return
         if isinstance(obs.reading, MarkerSighting):
@@ -526,7 +526,7 @@ class _Replay:
             "site": self.case.site.name,
             "backends": list(self.locs),
             "shape": list(self.frame_shape) if self.frame_shape else [0, 0],
-            "step": getattr(self, "frame_step", 1),
+            "step": self.frame_step,
             "resolution_m": self.case.site.resolution_m,
             "wall": self.wall.astype(int).tolist() if self.wall is not None else [],
             "ticks": len(self.index["t"]),
