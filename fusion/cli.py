@@ -9,6 +9,7 @@ from fusion import SAFETY_NOTICE, __version__
 from fusion.errors import FusionError
 
 EXIT_BAD_INPUT = 2
+EXIT_DEFECT = 70  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
 
 
 def _builtin_case(name: str):
@@ -497,6 +498,33 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("fusion: interrupted; results already written are complete", file=sys.stderr)
         return 130
+    except OSError as err:  # disk full, permission denied, a folder where a file should be ...
+        where = f" ({err.filename})" if err.filename else ""
+        print(f"fusion: error: {err.strerror or err}{where}; results already written are complete", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except Exception as err:  # noqa: BLE001 - last resort: a defect must not reach the user as a traceback
+        trace = _keep_trace()
+        print(
+            f"fusion: internal error ({type(err).__name__}: {str(err)[:200]}). This is a defect in fusion, "
+            f"not in your input; results already written are complete. The trace is in {trace}; "
+            "please send it with the command line.",
+            file=sys.stderr,
+        )
+        return EXIT_DEFECT
+
+
+def _keep_trace() -> str:
+    """Write the current exception's trace to a temporary file; its path (or 'standard error' if that fails)."""
+    import tempfile
+    import traceback
+
+    try:
+        with tempfile.NamedTemporaryFile("w", prefix="fusion-trace-", suffix=".txt", delete=False) as fh:
+            traceback.print_exc(file=fh)
+            return fh.name
+    except OSError:
+        traceback.print_exc()
+        return "standard error above"
 
 
 if __name__ == "__main__":

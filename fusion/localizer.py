@@ -31,7 +31,7 @@ from fusion.conflict import EvidenceAverages, jousselme_distance, pignistic_disa
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
-from fusion.monitor import RELOCALIZE, Monitor, Policy
+from fusion.monitor import CARRY_ON, RELOCALIZE, Monitor, Policy
 from fusion.sensors.base import Evidence
 from fusion.sensors.doors import DoorSensor
 from fusion.sensors.markers import MarkerSensor
@@ -201,12 +201,14 @@ class Localizer:
         if odometry is not None:
             try:
                 reading = odometry.reading if isinstance(odometry, Observation) else odometry
+                when = t
                 if isinstance(odometry, Observation):
                     self.sensors.check(odometry)
-                    t = self._check_time(odometry.t)
+                    when = self._check_time(odometry.t)
                 if not isinstance(reading, OdometryReading):
                     raise ObservationError("the odometry argument must be an odometry reading")
                 motion = self.sensors.odometry.motion(reading)
+                t = when  # only an accepted record moves the clock
             except FusionError as err:
                 rejected.append((getattr(odometry, "sensor", "odometry"), str(err)))
         encoded = []
@@ -221,6 +223,8 @@ class Localizer:
                 t = max(t, when)
             except FusionError as err:
                 rejected.append((getattr(obs, "sensor", "?"), str(err)))
+        if rejected and motion is None and not encoded:
+            return self._unchanged(t, rejected, start)
         self.last_t = max(self.last_t, t)
         return self._absorb(t, motion, encoded, rejected, start)
 
@@ -236,13 +240,7 @@ class Localizer:
         if motion is not None:
             f.predict(motion)
         before = self._snapshot()
-        figures = {
-            "conflict": 0.0,
-            "weight_of_conflict": 0.0,
-            "disagreement": 0.0,
-            "surprise": 0.0,
-            "evidence_ratio": self.averages.ratio,
-        }
+        figures = self._calm_figures()
         tick_conflicting = False
         tick_clear = True
         applied, undiscounted = [], []
@@ -303,7 +301,10 @@ class Localizer:
             self._episode.clear()
         if verdict.action == RELOCALIZE:
             self._relocalize()
-        est = f.pose_estimate()
+        return self._decision(t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start)
+
+    def _decision(self, t, action, reasons, figures, blame, quarantined, rejected, start) -> Decision:
+        est = self.filter.pose_estimate()
         return Decision(
             t,
             self.backend,
@@ -312,16 +313,34 @@ class Localizer:
             math.degrees(est.heading_rad) % 360,
             est.spread_m,
             est.region_cells,
-            verdict.action,
-            verdict.reasons,
+            action,
+            reasons,
             figures,
             blame,
-            verdict.quarantined,
+            quarantined,
             rejected,
             time.perf_counter() - start,
         )
 
+    def _unchanged(self, t, rejected, start) -> Decision:
+        """The decision for a tick whose every input was rejected: the belief, the clock and the
+        monitor stay as they were (a rejected observation must not count as a calm tick either)."""
+        figures = self._calm_figures()
+        reasons = ["every input of this tick was rejected; nothing was applied"]
+        return self._decision(
+            t, CARRY_ON, reasons, figures, [], tuple(sorted(self.monitor.quarantined)), rejected, start
+        )
+
     # ----------------------------------------------------------------- helpers
+    def _calm_figures(self) -> dict:
+        return {
+            "conflict": 0.0,
+            "weight_of_conflict": 0.0,
+            "disagreement": 0.0,
+            "surprise": 0.0,
+            "evidence_ratio": self.averages.ratio,
+        }
+
     def _snapshot(self):
         return self.filter.belief if self.backend == "evidential" else self.filter.belief.probabilities
 

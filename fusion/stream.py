@@ -14,6 +14,7 @@ import json
 import sys
 
 from fusion.errors import FusionError
+from fusion.io.json_line import decode_line
 from fusion.io.observations import from_record
 from fusion.localizer import Localizer
 
@@ -55,11 +56,7 @@ def stream(localizer: Localizer, source=None, out=None, err=None) -> tuple[int, 
             rejected += 1
             break
         try:
-            obs = from_record(json.loads(text))
-        except json.JSONDecodeError as e:
-            _error(number, f"not JSON ({e.msg} at column {e.colno})", out, err)
-            rejected += 1
-            continue
+            obs = from_record(decode_line(text))
         except FusionError as e:
             _error(number, str(e), out, err)
             rejected += 1

@@ -14,13 +14,13 @@ The observation format is ``fusion.io.observations``; a truth line is
 
 from __future__ import annotations
 
-import json
 import math
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
-from fusion.errors import FusionError, InputFileError, ObservationError
+from fusion.errors import InputFileError, ObservationError
+from fusion.io.json_line import decode_line, finite_number
 from fusion.io.observations import Observation, from_record
 
 __all__ = [
@@ -67,20 +67,39 @@ class LogRead:
         return f"{self.path}: {len(self.records):,} records read, {len(self.set_aside):,} of {self.lines:,} lines set aside"
 
 
-def _lines(path) -> Iterator[tuple[int, str]]:
+def _lines(path) -> Iterator[tuple[int, str | None]]:
+    """``(line number, text)``; text is None for an over-long line, which is skipped unread in blocks."""
     try:
         fh = open(path, "rb")  # noqa: SIM115 - closed by the with below
     except OSError as err:
         raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
     with fh:
-        for number, raw in enumerate(fh, 1):
-            if len(raw) > MAX_LINE_BYTES:
+        for number, raw in enumerate(_bounded_lines(fh), 1):
+            if raw is None:
                 yield number, None
                 continue
             try:
                 yield number, raw.decode("utf-8")
             except UnicodeDecodeError as err:
                 yield number, f"\0not UTF-8 (byte {err.start})"
+
+
+def _bounded_lines(fh) -> Iterator:
+    """The lines of ``fh`` (binary or text), None for each line longer than ``MAX_LINE_BYTES``.
+
+    Iterating a file reads a whole line into memory, so one line of a gigabyte with no newline
+    would take a gigabyte; reading at most ``MAX_LINE_BYTES + 1`` at a time keeps memory bounded."""
+    newline = b"\n" if "b" in getattr(fh, "mode", "b") else "\n"
+    while True:
+        line = fh.readline(MAX_LINE_BYTES + 1)
+        if not line:
+            return
+        if len(line) > MAX_LINE_BYTES:
+            while line and not line.endswith(newline):
+                line = fh.readline(MAX_LINE_BYTES + 1)
+            yield None
+        else:
+            yield line
 
 
 def _decode(number: int, text: str | None, set_aside: list[SetAside]):
@@ -94,14 +113,10 @@ def _decode(number: int, text: str | None, set_aside: list[SetAside]):
     if not stripped:
         return None
     try:
-        return json.loads(stripped, parse_constant=_no_constant)
-    except (ValueError, FusionError) as err:
-        set_aside.append(SetAside(number, f"not a JSON object: {err}", stripped[:80]))
+        return decode_line(stripped)
+    except ObservationError as err:
+        set_aside.append(SetAside(number, str(err), stripped[:80]))
         return None
-
-
-def _no_constant(name: str):
-    raise FusionError(f"{name} is not a number a log may hold")
 
 
 def iter_observations(
@@ -211,8 +226,8 @@ def _csv_records(path, aside) -> Iterator[tuple[int, object, str]]:
 
 def _bounded(fh, aside) -> Iterator[str]:
     """The file's lines, each over-long line replaced by an empty one (and set aside)."""
-    for number, line in enumerate(fh, 1):
-        if len(line) > MAX_LINE_BYTES:
+    for number, line in enumerate(_bounded_lines(fh), 1):
+        if line is None:
             aside(SetAside(number, f"longer than {MAX_LINE_BYTES:,} bytes", ""))
             yield "\n"
         else:
@@ -302,10 +317,10 @@ def _truth(rec) -> TruthPose:
         raise ObservationError(f"a truth record must be a JSON object, got {type(rec).__name__}")
     values = []
     for key in ("t", "x_m", "y_m", "heading_deg"):
-        v = rec.get(key)
-        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-            raise ObservationError(f"truth: field '{key}' must be a finite number, got {v!r}")
-        values.append(float(v))
+        v = finite_number(rec.get(key))
+        if v is None:
+            raise ObservationError(f"truth: field '{key}' must be a finite number, got {str(rec.get(key))[:40]!r}")
+        values.append(v)
     carried = rec.get("carried", False)
     if not isinstance(carried, bool):
         raise ObservationError(f"truth: field 'carried' must be true or false, got {carried!r}")

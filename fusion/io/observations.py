@@ -18,6 +18,7 @@ import math
 from dataclasses import dataclass
 
 from fusion.errors import ObservationError
+from fusion.io.json_line import finite_number
 from fusion.sensors.doors import DoorReading
 from fusion.sensors.markers import MarkerMiss, MarkerSighting
 from fusion.sensors.odometry import OdometryReading
@@ -26,6 +27,8 @@ from fusion.sensors.ranging import RangeScan
 __all__ = ["Observation", "from_record", "KINDS"]
 
 KINDS = ("ranging", "markers", "door", "odometry")
+MAX_NAME = 200
+"""Longest sensor or marker name a record may hold."""
 
 
 @dataclass(frozen=True)
@@ -54,10 +57,16 @@ class Observation:
 def _number(rec: dict, key: str, where: str) -> float:
     if key not in rec:
         raise ObservationError(f"{where}: the field '{key}' is missing")
-    v = rec[key]
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-        raise ObservationError(f"{where}: field '{key}' must be a finite number, got {v!r}")
-    return float(v)
+    v = finite_number(rec[key])
+    if v is None:
+        raise ObservationError(f"{where}: field '{key}' must be a finite number, got {_shown(rec[key])}")
+    return v
+
+
+def _shown(value) -> str:
+    """A value for an error message, cut short (a hostile line may hold a megabyte in one field)."""
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
 
 
 def from_record(rec) -> Observation:
@@ -68,27 +77,31 @@ def from_record(rec) -> Observation:
     if t < 0:
         raise ObservationError(f"observation: field 't' must be ≥ 0 seconds, got {t!r}")
     sensor = rec.get("sensor")
-    if not isinstance(sensor, str) or not sensor:
-        raise ObservationError(f"observation: field 'sensor' must name a sensor, got {sensor!r}")
+    if not isinstance(sensor, str) or not sensor.strip() or len(sensor) > MAX_NAME:
+        raise ObservationError(
+            f"observation: field 'sensor' must name a sensor (1 to {MAX_NAME} characters), got {_shown(sensor)}"
+        )
     kind = rec.get("kind")
     where = f"observation of {sensor!r} at t={t:g}"
     if kind not in KINDS:
-        raise ObservationError(f"{where}: field 'kind' must be one of {', '.join(KINDS)}, got {kind!r}")
+        raise ObservationError(f"{where}: field 'kind' must be one of {', '.join(KINDS)}, got {_shown(kind)}")
     if kind == "ranging":
         ranges = rec.get("ranges_m")
         if not isinstance(ranges, list) or not ranges:
             raise ObservationError(f"{where}: field 'ranges_m' must be a non-empty array of numbers")
         values = []
         for i, z in enumerate(ranges):
-            if isinstance(z, bool) or not isinstance(z, (int, float)) or math.isnan(z) or z < 0:
-                raise ObservationError(f"{where}: ranges_m[{i}] must be a number ≥ 0, got {z!r}")
-            values.append(float(z))
+            # +inf is allowed: a beam with no return
+            value = math.inf if isinstance(z, float) and z == math.inf else finite_number(z)
+            if value is None or value < 0:
+                raise ObservationError(f"{where}: ranges_m[{i}] must be a number ≥ 0, got {_shown(z)}")
+            values.append(value)
         reading = RangeScan(tuple(values))
     elif kind == "markers":
         marker = rec.get("marker", "missing")
         if marker is None:
             reading = MarkerMiss()
-        elif not isinstance(marker, str) or not marker:
+        elif not isinstance(marker, str) or not marker or len(marker) > MAX_NAME:
             raise ObservationError(f"{where}: field 'marker' must be a marker id, or null for no sighting")
         else:
             reading = MarkerSighting(marker, _number(rec, "range_m", where), _number(rec, "bearing_deg", where))
@@ -97,12 +110,9 @@ def from_record(rec) -> Observation:
     elif kind == "door":
         active = rec.get("active")
         if not isinstance(active, bool):
-            raise ObservationError(f"{where}: field 'active' must be true or false, got {active!r}")
+            raise ObservationError(f"{where}: field 'active' must be true or false, got {_shown(active)}")
         reading = DoorReading(active)
     else:
-        reading = OdometryReading(
-            _number(rec, "forward_m", where), float(rec.get("left_m", 0.0) or 0.0), _number(rec, "turn_deg", where)
-        )
-        if not math.isfinite(reading.left_m):
-            raise ObservationError(f"{where}: field 'left_m' must be a finite number")
+        left = _number(rec, "left_m", where) if rec.get("left_m") is not None else 0.0
+        reading = OdometryReading(_number(rec, "forward_m", where), left, _number(rec, "turn_deg", where))
     return Observation(t, sensor, kind, reading)

@@ -20,7 +20,7 @@ from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import check_reliability
 
-__all__ = ["OdometryParams", "OdometryReading", "Motion", "OdometrySensor"]
+__all__ = ["OdometryParams", "OdometryReading", "Motion", "OdometrySensor", "MAX_TURN_DEG"]
 
 
 @dataclass(frozen=True)
@@ -61,6 +61,10 @@ class Motion:
     bound_bins: float = 0.0
 
 
+MAX_TURN_DEG = 360.0
+"""The largest turn one odometry record may report."""
+
+
 class OdometrySensor:
     def __init__(self, name: str, grid: PoseGrid, params: OdometryParams = OdometryParams()):
         self.name, self.grid, self.params = name, grid, params
@@ -85,6 +89,19 @@ class OdometrySensor:
             if not isinstance(v, (int, float)) or not math.isfinite(v):
                 raise ObservationError(f"sensor {self.name!r}: odometry {field} must be a finite number, got {v!r}")
         g, p, res = self.grid, self.params, self.grid.resolution_m
+        # One record cannot move the robot off the site or turn it round more than once; such a value
+        # is a unit or logging fault, and taken as given it would build a motion kernel of any size.
+        diagonal = math.hypot(g.width_m, g.height_m)
+        if math.hypot(reading.forward_m, reading.left_m) > diagonal:
+            raise ObservationError(
+                f"sensor {self.name!r}: odometry moves {math.hypot(reading.forward_m, reading.left_m):.4g} m in one "
+                f"record, more than the site's diagonal ({diagonal:.1f} m); check the log's units (metres)"
+            )
+        if abs(reading.turn_deg) > MAX_TURN_DEG:
+            raise ObservationError(
+                f"sensor {self.name!r}: odometry turns {reading.turn_deg:.4g}° in one record, more than "
+                f"{MAX_TURN_DEG:g}°; check the log's units (degrees)"
+            )
         theta = g.heading_centres()
         fwd, left = reading.forward_m, reading.left_m
         dx = (fwd * np.cos(theta) - left * np.sin(theta)) / res
