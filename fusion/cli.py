@@ -135,14 +135,6 @@ def _compare(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from rich.console import Console
-    from rich.progress import (
-        BarColumn,
-        MofNCompleteColumn,
-        Progress,
-        TextColumn,
-        TimeElapsedColumn,
-        TimeRemainingColumn,
-    )
 
     from fusion.compare import SweepInterrupted, bayes_dempster_identity, run_sweep, settings_of, summarise
     from fusion.compare import verdicts as verdicts_of
@@ -169,16 +161,7 @@ def _compare(args: argparse.Namespace) -> int:
         f"{case.name}: {len(settings)} settings × {spec.seeds} seeds = {len(settings) * spec.seeds} runs "
         f"on the {args.engine} engine; results go to {out_dir}"
     )
-    progress = Progress(
-        TextColumn("runs"),
-        BarColumn(),
-        MofNCompleteColumn(),
-        TimeElapsedColumn(),
-        TextColumn("ETA"),
-        TimeRemainingColumn(),
-        console=console,
-        disable=args.quiet,
-    )
+    progress = _progress(console, "runs", args.quiet, "{task.completed}/{task.total}")
     task = progress.add_task("runs", total=None)
     try:
         with progress:
@@ -303,7 +286,6 @@ def _inspect(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from rich.console import Console
-    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
     from fusion.inspect import inspect_log, parse_start
     from fusion.io.case import apply_calibration, load_case
@@ -316,16 +298,7 @@ def _inspect(args: argparse.Namespace) -> int:
     out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.log).stem}-inspect"
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
-    progress = Progress(
-        TextColumn("replaying"),
-        BarColumn(),
-        TextColumn("line {task.completed:,.0f}/{task.total:,.0f}"),
-        TimeElapsedColumn(),
-        TextColumn("ETA"),
-        TimeRemainingColumn(),
-        console=console,
-        disable=args.quiet,
-    )
+    progress = _progress(console, "replaying", args.quiet, "line {task.completed:,.0f}/{task.total:,.0f}")
     task = progress.add_task("replay", total=count_lines(args.log))  # also refuses an unreadable log up front
     with progress:
         found = inspect_log(
@@ -355,6 +328,98 @@ def _scrub(args: argparse.Namespace) -> int:
 
     scrub(args.folder, Console())
     return 0
+
+
+def _soak(args: argparse.Namespace) -> int:
+    import functools
+    import json
+    from pathlib import Path
+
+    from rich.console import Console
+    from rich.table import Table
+
+    from fusion.io.case import load_case
+    from fusion.runner import atomic_write
+    from fusion.soak import MEMORY_EVERY, SUM_TOLERANCE, soak_steps, soak_stream
+
+    case = load_case(args.case)
+    if not 0 <= args.corrupt <= 1:
+        raise FusionError(f"--corrupt is a share of lines in [0, 1], got {args.corrupt}")
+    backends = args.backend or list(case.run.backends)
+    lines = args.stream_lines
+    total = lines or args.steps
+    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.case).stem}-soak"
+    out_dir.mkdir(parents=True, exist_ok=True)
+    console = Console()
+    console.print(f"[dim]{SAFETY_NOTICE}[/]")
+    records, corruptions = [], {}
+    for backend in backends:
+        progress = _progress(console, f"{backend} {'lines' if lines else 'steps'}", args.quiet)
+        task = progress.add_task(backend, total=total)
+        with progress:
+            tick = functools.partial(_advance_to, progress, task)
+            if lines:
+                report, tally = soak_stream(case, backend, lines, args.corrupt, args.seed, tick)
+                corruptions[backend] = dict(tally)
+            else:
+                report = soak_steps(case, backend, args.steps, args.seed, tick)
+            progress.update(task, completed=report.steps)
+        records.append(report)
+        atomic_write(  # after each back end, so an interrupted soak keeps what it finished
+            out_dir / "soak.json",
+            json.dumps(
+                {"case": args.case, "runs": [r.to_record() for r in records], "corruptions": corruptions}, indent=1
+            ),
+        )
+        if report.interrupted:
+            break
+    table = Table(title=f"soak of {case.name}: {'stream lines' if lines else 'localizer steps'}")
+    for col in ("back end", "steps", "ms/step", "|Σ−1|", "min", "focal", "NaN", "rej.", "MiB"):
+        table.add_column(col, justify="right", no_wrap=True)
+    for r in records:
+        mem = r.memory_mb
+        table.add_row(
+            r.backend,
+            f"{r.steps:,}" + ("*" if r.interrupted else ""),
+            f"{r.seconds / max(r.steps, 1) * 1e3:.2f}",
+            f"{r.worst_sum_error:.0e}",
+            f"{r.lowest_value:.0e}",
+            f"{r.most_focal_sets}/{r.focal_bound}" if r.focal_bound else "–",
+            str(r.nan_decisions),
+            f"{r.rejected:,}",
+            f"{mem[1][1] if len(mem) > 2 else mem[0][1]:.0f}→{mem[-1][1]:.0f}",
+        )
+    console.print(table)
+    console.print(
+        f"|Σ−1|: worst distance of the belief's total from 1 (limit {SUM_TOLERANCE:g}); min: lowest mass or "
+        f"probability; focal: most focal sets / bound; rej.: rejected steps or lines; MiB: resident memory after the first {MEMORY_EVERY:,} "
+        f"steps (warm-up) → at the end{'; * interrupted' if any(r.interrupted for r in records) else ''}. "
+        f"Written to {out_dir / 'soak.json'}"
+    )
+    bad = [r for r in records if not r.ok]
+    for r in bad:
+        console.print(f"[red]{r.backend}: {r.violations} violations; first at {r.first_violation}[/]")
+    return 1 if bad else 0
+
+
+def _advance_to(progress, task, n: int) -> None:
+    progress.update(task, completed=n)
+
+
+def _progress(console, label: str, quiet: bool, counter: str = "{task.completed:,.0f}/{task.total:,.0f}"):
+    """The progress bar of every long command: label, bar, count, elapsed time and ETA."""
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+
+    return Progress(
+        TextColumn(label),
+        BarColumn(),
+        TextColumn(counter),
+        TimeElapsedColumn(),
+        TextColumn("ETA"),
+        TimeRemainingColumn(),
+        console=console,
+        disable=quiet,
+    )
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -441,6 +506,18 @@ def _parser() -> argparse.ArgumentParser:
     scr = commands.add_parser("scrub", help="step through a replay written by fusion inspect (keyboard)")
     scr.add_argument("folder", help="output folder of fusion inspect")
     scr.set_defaults(run=_scrub)
+    soak = commands.add_parser("soak", help="run many steps (or stream lines) and check the belief's invariants")
+    soak.add_argument("case", help="case file whose site, sensors and faults to run")
+    soak.add_argument(
+        "--steps", type=_positive_int, default=100_000, help="localizer steps per back end (default 100,000)"
+    )
+    soak.add_argument("--stream-lines", type=_positive_int, help="instead push this many lines through the stream")
+    soak.add_argument("--corrupt", type=_number, default=0.1, help="share of stream lines corrupted (default 0.1)")
+    soak.add_argument("--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable)")
+    soak.add_argument("--seed", type=int, help="first seed of the simulated runs (default: the case's)")
+    soak.add_argument("--out", help="folder for soak.json (default: fusion-out/<case>-soak)")
+    soak.add_argument("--quiet", action="store_true", help="no progress bar")
+    soak.set_defaults(run=_soak)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
     targets.add_argument("--seeds", type=_positive_int, default=50, help="seeds per case (default 50)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
