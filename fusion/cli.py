@@ -335,6 +335,7 @@ def _soak(args: argparse.Namespace) -> int:
     import json
     from pathlib import Path
 
+    from rich import box
     from rich.console import Console
     from rich.table import Table
 
@@ -373,7 +374,7 @@ def _soak(args: argparse.Namespace) -> int:
         )
         if report.interrupted:
             break
-    table = Table(title=f"soak of {case.name}: {'stream lines' if lines else 'localizer steps'}")
+    table = Table(title=f"soak of {case.name}: {'stream lines' if lines else 'localizer steps'}", box=box.SIMPLE_HEAD)
     for col in ("back end", "steps", "ms/step", "|Σ−1|", "min", "focal", "NaN", "rej.", "MiB"):
         table.add_column(col, justify="right", no_wrap=True)
     for r in records:
