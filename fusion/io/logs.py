@@ -113,10 +113,13 @@ def _decode(number: int, text: str | None, set_aside: list[SetAside]):
     if not stripped:
         return None
     try:
-        return decode_line(stripped)
+        value = decode_line(stripped)
     except ObservationError as err:
         set_aside.append(SetAside(number, str(err), stripped[:80]))
         return None
+    if value is None:  # a bare `null` is JSON but no record; None below means "nothing on this line"
+        set_aside.append(SetAside(number, "not a JSON object: null", stripped[:80]))
+    return value
 
 
 def iter_observations(
