@@ -45,7 +45,7 @@ def test_bad_log_rows_are_set_aside_with_line_and_reason(tmp_path):
     assert [line for line, _ in read.records] == [1, 7]
     reasons = {s.line: s.reason for s in read.set_aside}
     assert sorted(reasons) == [2, 3, 4, 5, 8]
-    assert "not a JSON object" in reasons[2] and "NaN" in reasons[3] and "NaN" in reasons[4]
+    assert "not JSON (" in reasons[2] and "NaN" in reasons[3] and "NaN" in reasons[4]
     assert "before the previous" in reasons[5] and "longer than" in reasons[8]
 
 
