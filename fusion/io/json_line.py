@@ -12,7 +12,7 @@ import math
 
 from fusion.errors import ObservationError
 
-__all__ = ["decode_line", "finite_number"]
+__all__ = ["decode_line", "finite_number", "shown"]
 
 
 def _no_constant(name: str):
@@ -42,3 +42,9 @@ def finite_number(value) -> float | None:
     except OverflowError:  # an integer beyond the float range
         return None
     return f if math.isfinite(f) else None
+
+
+def shown(value) -> str:
+    """A value for an error message, cut short (a hostile line may hold a megabyte in one field)."""
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from fusion.errors import InputFileError, ObservationError
-from fusion.io.json_line import decode_line, finite_number
+from fusion.io.json_line import decode_line, finite_number, shown
 from fusion.io.observations import Observation, from_record
 
 __all__ = [
@@ -322,7 +322,7 @@ def _truth(rec) -> TruthPose:
     for key in ("t", "x_m", "y_m", "heading_deg"):
         v = finite_number(rec.get(key))
         if v is None:
-            raise ObservationError(f"truth: field '{key}' must be a finite number, got {str(rec.get(key))[:40]!r}")
+            raise ObservationError(f"truth: field '{key}' must be a finite number, got {shown(rec.get(key))}")
         values.append(v)
     carried = rec.get("carried", False)
     if not isinstance(carried, bool):

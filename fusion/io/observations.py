@@ -18,7 +18,7 @@ import math
 from dataclasses import dataclass
 
 from fusion.errors import ObservationError
-from fusion.io.json_line import finite_number
+from fusion.io.json_line import finite_number, shown
 from fusion.sensors.doors import DoorReading
 from fusion.sensors.markers import MarkerMiss, MarkerSighting
 from fusion.sensors.odometry import OdometryReading
@@ -59,14 +59,8 @@ def _number(rec: dict, key: str, where: str) -> float:
         raise ObservationError(f"{where}: the field '{key}' is missing")
     v = finite_number(rec[key])
     if v is None:
-        raise ObservationError(f"{where}: field '{key}' must be a finite number, got {_shown(rec[key])}")
+        raise ObservationError(f"{where}: field '{key}' must be a finite number, got {shown(rec[key])}")
     return v
-
-
-def _shown(value) -> str:
-    """A value for an error message, cut short (a hostile line may hold a megabyte in one field)."""
-    text = repr(value)
-    return text if len(text) <= 60 else text[:57] + "..."
 
 
 def from_record(rec) -> Observation:
@@ -79,12 +73,12 @@ def from_record(rec) -> Observation:
     sensor = rec.get("sensor")
     if not isinstance(sensor, str) or not sensor.strip() or len(sensor) > MAX_NAME:
         raise ObservationError(
-            f"observation: field 'sensor' must name a sensor (1 to {MAX_NAME} characters), got {_shown(sensor)}"
+            f"observation: field 'sensor' must name a sensor (1 to {MAX_NAME} characters), got {shown(sensor)}"
         )
     kind = rec.get("kind")
     where = f"observation of {sensor!r} at t={t:g}"
     if kind not in KINDS:
-        raise ObservationError(f"{where}: field 'kind' must be one of {', '.join(KINDS)}, got {_shown(kind)}")
+        raise ObservationError(f"{where}: field 'kind' must be one of {', '.join(KINDS)}, got {shown(kind)}")
     if kind == "ranging":
         ranges = rec.get("ranges_m")
         if not isinstance(ranges, list) or not ranges:
@@ -94,7 +88,7 @@ def from_record(rec) -> Observation:
             # +inf is allowed: a beam with no return
             value = math.inf if isinstance(z, float) and z == math.inf else finite_number(z)
             if value is None or value < 0:
-                raise ObservationError(f"{where}: ranges_m[{i}] must be a number ≥ 0, got {_shown(z)}")
+                raise ObservationError(f"{where}: ranges_m[{i}] must be a number ≥ 0, got {shown(z)}")
             values.append(value)
         reading = RangeScan(tuple(values))
     elif kind == "markers":
@@ -110,7 +104,7 @@ def from_record(rec) -> Observation:
     elif kind == "door":
         active = rec.get("active")
         if not isinstance(active, bool):
-            raise ObservationError(f"{where}: field 'active' must be true or false, got {_shown(active)}")
+            raise ObservationError(f"{where}: field 'active' must be true or false, got {shown(active)}")
         reading = DoorReading(active)
     else:
         left = _number(rec, "left_m", where) if rec.get("left_m") is not None else 0.0
