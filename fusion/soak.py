@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import math
+import os
 import time
 from collections import Counter
 from collections.abc import Callable, Iterator
@@ -36,8 +36,6 @@ def resident_mb() -> float:
     try:
         with open("/proc/self/statm") as fh:
             pages = int(fh.read().split()[1])
-        import os
-
         return pages * os.sysconf("SC_PAGE_SIZE") / 2**20
     except (OSError, ValueError, IndexError, AttributeError):
         import resource
@@ -83,13 +81,13 @@ class SoakReport:
 
 
 def _observations(case: Case, seed: int) -> Iterator:
-    """The case's readings, run after run with seeds seed, seed+1, ..., on one continuing clock."""
+    """``(tick, observation)`` of the case, run after run with seeds seed, seed+1, ..., on one continuing clock."""
     offset, run = 0.0, 0
     while True:
         ticks = simulate(case, seed + run)
         for tick in ticks:
             for obs in tick.observations:
-                yield dataclasses.replace(obs, t=obs.t + offset)
+                yield tick, dataclasses.replace(obs, t=obs.t + offset)
         offset += (len(ticks) + 1) * case.run.tick_s
         run += 1
 
@@ -104,17 +102,15 @@ def soak_steps(
     """``steps`` localizer steps on ``backend`` with the invariants checked at each (see the module)."""
     seed = case.run.seed if seed is None else seed
     loc = Localizer.from_case(case, backend)
-    first = case.route.waypoints[0]
-    if case.route.start_known:
-        second = case.route.waypoints[1] if len(case.route.waypoints) > 1 else first
-        loc.start_at(first[0], first[1], math.degrees(math.atan2(second[1] - first[1], second[0] - first[0])))
     report = SoakReport("steps", backend, focal_bound=case.run.max_focal if backend == "evidential" else 0)
     report.memory_mb.append((0, resident_mb()))
     began = time.perf_counter()
     try:
-        for n, obs in enumerate(_observations(case, seed), 1):
+        for n, (tick, obs) in enumerate(_observations(case, seed), 1):
             if n > steps:
                 break
+            if n == 1 and case.route.start_known:  # from the dock, as a run of the case starts
+                loc.start_at(tick.truth.x_m, tick.truth.y_m, tick.truth.heading_deg)
             decision = loc.step(obs, []) if obs.kind == "odometry" else loc.step(None, [obs])
             report.steps = n
             report.actions[decision.action] += 1
@@ -218,7 +214,7 @@ class _GeneratedLines:
             self.made += 1
             if self._on_line:
                 self._on_line(self.made)
-            obs = next(self._source)
+            _, obs = next(self._source)
             line = json.dumps(obs.to_record()).encode()
             if self._rng.random() < self._share:
                 line, kind = _corrupt(line, self._rng, self._last_t)
@@ -232,14 +228,13 @@ class _GeneratedLines:
 
 
 class _CountingSink:
-    """Standard output and error for a soak: counts lines, keeps only the last record."""
+    """Standard output and error for a soak: counts the lines, keeps none."""
 
     def __init__(self):
-        self.lines, self.last = 0, ""
+        self.lines = 0
 
     def write(self, text: str) -> int:
         self.lines += text.count("\n")
-        self.last = text
         return len(text)
 
     def flush(self) -> None:
