@@ -23,7 +23,13 @@ from fusion.runner import run_case
 
 __all__ = ["TargetRow", "measure_targets", "measure_attribution", "FAULT_CASES", "ATTRIBUTION_CASES"]
 
-FAULT_CASES = {"carried": None, "stuck_door": "chiller contact", "ghost": "rack camera", "calm": None}
+FAULT_CASES = {
+    "carried": None,
+    "carried_blind": None,
+    "stuck_door": "chiller contact",
+    "ghost": "rack camera",
+    "calm": None,
+}
 ATTRIBUTION_CASES = {"stuck_door": "chiller contact", "ghost": "rack camera", "people": "bumper ranger"}
 RECOVERY_TICKS = 10
 RECOVERY_M, RECOVERY_DEG = 0.5, 15.0
@@ -44,7 +50,7 @@ def _judge(name: str, result, backend: str) -> tuple[bool, str]:
     if name == "calm":
         acted = [e for e in events if e["action"] != CARRY_ON]
         return not acted, f"{len(acted)} actions"
-    if name == "carried":
+    if name.startswith("carried"):
         start = next(i for i, r in enumerate(rows) if r["carried"])
         window = rows[start : start + RECOVERY_TICKS + 1]
         ok = [r for r in window if r["error_m"] <= RECOVERY_M and r["heading_error_deg"] <= RECOVERY_DEG]

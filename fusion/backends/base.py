@@ -73,6 +73,9 @@ class Backend(Protocol):
     def reset(self, prior: np.ndarray) -> None:
         """Start again from a prior: a probability (or 0/1 mask) per cell; mass side: uniform ignorance over it."""
 
+    def fork(self) -> Backend:
+        """A filter on the same grid and map with its own belief, for a trial replay."""
+
     def predict(self, motion: Motion) -> None: ...
 
     def update(self, evidence: Evidence) -> StepReport: ...

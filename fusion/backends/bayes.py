@@ -7,6 +7,7 @@ an update multiplies by the reading's likelihood and renormalises
 
 from __future__ import annotations
 
+import copy
 import time
 
 import numpy as np
@@ -36,6 +37,12 @@ class HistogramFilter:
         if prior.shape != (self.grid.n_cells,):
             raise FrameMismatchError(f"the prior has {prior.size} cells, the grid {self.grid.n_cells}")
         self.belief = Posterior(prior * self.free)
+
+    def fork(self) -> HistogramFilter:
+        """A filter on the same grid and map with its own copy of the belief (for a trial replay)."""
+        other = copy.copy(self)
+        other.belief = self.belief.copy()
+        return other
 
     def predict(self, motion: Motion) -> None:
         cube = self.belief.probabilities.reshape(self.grid.shape)

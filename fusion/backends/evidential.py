@@ -10,6 +10,7 @@ combination of the (normalised) belief with the evidence.
 
 from __future__ import annotations
 
+import copy
 import time
 
 import numpy as np
@@ -64,6 +65,12 @@ class MassFilter:
         self._residual = SubCellMotion(grid.headings)
         self._distribution, self._distribution_of = None, None
         self.motion_lost = 0.0  # mass whose focal sets moved wholly off free space at the last prediction
+
+    def fork(self) -> MassFilter:
+        """A filter on the same grid and map with its own belief and motion state (for a trial replay)."""
+        other = copy.copy(self)
+        other._residual = copy.deepcopy(self._residual)
+        return other
 
     def reset(self, prior) -> None:
         """Start from ignorance over the cells where ``prior`` > 0 (or from a given ``MassFunction``)."""
