@@ -162,6 +162,7 @@ class Localizer:
         self.last_t = -math.inf
         self._episode: deque = deque(maxlen=policy.relocalize_after + 4)
         self._free_prior = grid.broadcast(free).astype(np.float64)
+        self._anchor = None  # see _remember
 
     @classmethod
     def from_case(cls, case, backend: str, **options) -> Localizer:
@@ -295,11 +296,14 @@ class Localizer:
             figures["jousselme"] = jousselme_distance(before, f.belief)
         # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
         blame = self._leave_one_out(before, undiscounted) if tick_conflicting or (self.explain and busy) else []
-        self._episode.append((motion, applied))
-        verdict = self.monitor.judge(tick_conflicting, tick_clear and not tick_conflicting, blame)
+        self._remember(before, motion, applied, undiscounted)
+        dissenters = self._dissenters() if tick_conflicting and self._would_act() else None
+        moved = self._moved_elsewhere(dissenters) if dissenters and len(dissenters) >= 2 else None
+        persistent = dissenters is None or bool(dissenters)
+        verdict = self.monitor.judge(tick_conflicting, tick_clear and not tick_conflicting, blame, moved, persistent)
         if tick_clear and not tick_conflicting:
             self._episode.clear()
-        if verdict.action == RELOCALIZE:
+        if verdict.action == RELOCALIZE and not moved:  # a move found elsewhere has re-seeded already
             self._relocalize()
         return self._decision(t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start)
 
@@ -365,6 +369,47 @@ class Localizer:
             return rules.conflict_mass(self.filter.belief.normalised(), evidence.masses)
         return self._support_conflict(self.filter.belief.probabilities, evidence)
 
+    def _remember(self, before, motion, applied, undiscounted) -> None:
+        """Keep this tick for a re-seed or a trial, and the belief the episode started from, carried
+        along by the odometry alone (``_anchor``: the belief before the oldest kept tick's readings)."""
+        episode = self._episode
+        if not episode:
+            self._anchor = before
+        elif len(episode) == episode.maxlen:  # the oldest tick leaves; the anchor moves on by the next one's motion
+            self._anchor = self._dead_reckoned(self._anchor, [episode[1][0]])
+        episode.append((motion, applied, undiscounted))
+
+    def _dead_reckoned(self, belief, motions):
+        """``belief`` carried along by ``motions`` (no readings), in snapshot form."""
+        ref = self.filter.fork()
+        ref.reset(belief)
+        for motion in motions:
+            if motion is not None:
+                ref.predict(motion)
+        return ref.belief if self.backend == "evidential" else ref.belief.probabilities
+
+    def _dissenters(self) -> set[str]:
+        """The sensors whose readings of this episode, as given, disagree with the belief the episode
+        started from, carried along by the odometry alone: their weights of conflict −log(1 − K) with
+        it, added up (weights of independent conflicts add, Shafer 1976), reach twice the weight of the
+        conflict threshold.  Against the belief of the moment, one faulty reading absorbed would make
+        the next good reading disagree with it; and one odd reading of a good sensor, at the time of
+        another's fault, is not yet a second voice."""
+        weights: dict[str, float] = {}
+        reference = self._anchor
+        for i, (motion, _, given) in enumerate(self._episode):
+            if i:
+                reference = self._dead_reckoned(reference, [motion])
+            for sensor, evidence in given:
+                if self.backend == "evidential":
+                    m = reference.normalised() if reference.conflict < 1 else reference
+                    figure = rules.conflict_mass(m, evidence.masses)
+                else:
+                    figure = self._support_conflict(reference, evidence)
+                weights[sensor] = weights.get(sensor, 0.0) + weight_of_conflict(figure)
+        enough = 2.0 * weight_of_conflict(self.policy.conflict_k)
+        return {sensor for sensor, w in weights.items() if w >= enough}
+
     def _leave_one_out(self, before, applied) -> list[tuple[str, float]]:
         """For each sensor of this tick: how much the tick's conflict falls when its reading is left out."""
         if len(applied) < 2:
@@ -401,16 +446,60 @@ class Localizer:
 
     def _relocalize(self) -> None:
         """Reset to ignorance over free space, then replay this episode's readings (re-seed from them)."""
-        f = self.filter
-        f.reset(self._free_prior)
         self.averages.reset()
-        for motion, applied in list(self._episode):
-            if motion is not None:
-                f.predict(motion)
-            for _, evidence in applied:
-                f.update(evidence)
+        self._replay(self.filter, as_given=False)
         self._episode.clear()
         self.monitor.forget_history()
+
+    def _replay(self, f, as_given: bool) -> float:
+        """Reset ``f`` to ignorance over free space and replay this episode into it (the readings as
+        the sensors gave them, or as applied, quarantine discounts included); returns the worst
+        conflict of a replayed reading with the belief built from the readings before it."""
+        f.reset(self._free_prior)
+        worst = 0.0
+        for motion, applied, undiscounted in list(self._episode):
+            if motion is not None:
+                f.predict(motion)
+            for _, evidence in undiscounted if as_given else applied:
+                prior_p = f.belief.probabilities if self.backend == "bayes" else None
+                report = f.update(evidence)
+                k = report.conflict if prior_p is None else self._support_conflict(prior_p, evidence)
+                worst = max(worst, k)
+        return worst
+
+    def _would_act(self) -> bool:
+        """Would one more conflicting tick reach the alert, or the window for a trial re-seed?"""
+        p, m = self.policy, self.monitor
+        due = m.run + 1 >= p.alert_after
+        return due and (not m.alerted or (not m.cooldown and m.run + 1 <= p.relocalize_after))
+
+    def _moved_elsewhere(self, dissenters: set[str]) -> str | None:
+        """On a conflicting tick from the one that would alert to the one that would re-localize: was
+        the robot moved, rather than a sensor gone wrong?  Yes when at least two sensors disagree with
+        where the robot was (``dissenters``, see ``_dissenters``) and the episode's readings agree with one another
+        somewhere else: a trial belief built from them alone, from ignorance over free space, has no
+        replayed reading that conflicts with it.  The trial then becomes the belief (re-localized now,
+        no sensor quarantined).  A faulty sensor fails one test or the other.  Two conflicting ticks in
+        a row at least, so a single spurious reading never re-localizes."""
+        p = self.policy
+        if self.monitor.cooldown or not p.alert_after <= self.monitor.run + 1 <= p.relocalize_after:
+            return None
+        if len(self._episode) < 2 or len(dissenters) < 2:  # one sensor against the rest: a fault, not a move
+            return None
+        trial = self.filter.fork()
+        worst = self._replay(trial, as_given=True)
+        if worst >= p.clear_fraction * p.conflict_k:  # every replayed reading must be clear, not merely neutral
+            return None
+        self.filter = trial
+        self.averages.reset()
+        ticks = len(self._episode)
+        self._episode.clear()
+        self.monitor.forget_history()
+        return (
+            f"{' and '.join(sorted(dissenters))} disagree with where the robot was, and the readings of the last {ticks} "
+            f"ticks agree with one another at another place (worst conflict {worst:.2f} there): the robot was "
+            "probably moved; the belief is re-seeded from them"
+        )
 
 
 def _pignistic(m) -> np.ndarray:

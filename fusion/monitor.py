@@ -10,8 +10,12 @@ It is *clear* when both figures are below ``clear_fraction`` of their thresholds
 neutral in between (hysteresis: a neutral tick neither starts nor ends an episode).
 
 Actions: ``carry on``; ``alert operator`` after ``alert_after`` conflicting ticks in a row
-(once per episode, naming the sensors most to blame); ``re-localize`` after
+(once per episode, naming the sensors most to blame), once some sensor's readings of the episode
+disagree with where the robot was by twice the weight of conflict of ``conflict_k`` (see
+``Localizer._dissenters``: two lone odd readings of two sensors are no alert); ``re-localize`` after
 ``relocalize_after`` conflicting ticks in a row, then not again for ``cooldown_ticks``;
+``re-localize`` at once, at the alert or the re-localization tick, when the episode's readings
+agree with one another at another place (the robot was moved; see ``Localizer``);
 ``quarantine sensor`` when one sensor keeps disagreeing while the others agree: it is
 then discounted (its reliability multiplied by ``quarantine_reliability``) until it has
 agreed ``release_after`` times in a row.  Thresholds are set per case (``[run.policy]``).
@@ -87,8 +91,22 @@ class Monitor:
         self._agree_run[sensor] = 0 if disagree else self._agree_run.get(sensor, 0) + 1
 
     # ----------------------------------------------------------------- per tick
-    def judge(self, conflicting: bool, clear: bool, blame: list[tuple[str, float]]) -> TickVerdict:
+    def judge(
+        self,
+        conflicting: bool,
+        clear: bool,
+        blame: list[tuple[str, float]],
+        moved: str | None = None,
+        persistent: bool = True,
+    ) -> TickVerdict:
+        """``moved``: the localizer found that this episode's readings agree with one another elsewhere
+        (the reason, in words); the tick then re-localizes at once.  ``persistent``: some sensor has
+        disagreed with where the robot was in more than one reading's worth of conflict; without it
+        no alert is raised (two lone odd readings of two sensors on two ticks are not a fault)."""
         p = self.policy
+        if moved:
+            self.run, self.cooldown, self.alerted = 0, p.cooldown_ticks, False
+            return TickVerdict(RELOCALIZE, [moved], conflicting, tuple(sorted(self.quarantined)))
         verdict = TickVerdict(CARRY_ON, conflicting=conflicting)
         newly, released = self._quarantine_changes()
         if newly:
@@ -116,7 +134,7 @@ class Monitor:
                 "the belief is reset and re-seeded from the readings of this episode"
             )
             self.run, self.cooldown, self.alerted = 0, p.cooldown_ticks, False
-        elif self.run >= p.alert_after and not self.alerted and verdict.action == CARRY_ON:
+        elif self.run >= p.alert_after and not self.alerted and verdict.action == CARRY_ON and persistent:
             verdict.action = ALERT
             verdict.reasons.append(f"{self.run} conflicting ticks in a row; most to blame: {top}")
             self.alerted = True

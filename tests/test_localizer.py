@@ -94,3 +94,69 @@ def test_cli_run_check_and_bad_case(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "broken.toml, line" in err and "sensors[2].kind" in err and "lidar3d" in err
     assert not target.exists()  # nothing half-written
+
+
+@pytest.mark.slow
+def test_a_carried_robot_is_reseeded_from_readings_that_agree_elsewhere():
+    # The depot's carried case, one seed: after the forklift puts the robot down in the west
+    # cross-aisle, the ranger and the camera both disagree with where the robot was, and every
+    # sensor agrees with every other at the new place, so the trial belief built from the episode's
+    # readings alone has no conflicting reading and becomes the belief; the estimate is back within
+    # the target's bounds (0.5 m, 15°) within 10 ticks, and no sensor was quarantined for it.
+    import dataclasses
+
+    from fusion.monitor import QUARANTINE, RELOCALIZE
+    from fusion.targets import _judge, _seeded
+
+    case = _seeded(load_case(Path(__file__).parents[1] / "cases" / "carried.toml"), 7)
+    case = dataclasses.replace(case, run=dataclasses.replace(case.run, backends=("bayes",)))
+    result = run_case(case)
+    ok, detail = _judge("carried", result, "bayes")
+    assert ok, detail
+    rows = [r.values for r in result.rows]
+    start = next(i for i, r in enumerate(rows) if r["carried"])
+    actions = [r["action"] for r in rows[start : start + 4]]
+    assert RELOCALIZE in actions and QUARANTINE not in actions[: actions.index(RELOCALIZE)]
+    events = [e for e in result.events if e["action"] == RELOCALIZE and e["t"] >= rows[start]["t"]]
+    reason = " ".join(events[0]["reasons"])
+    assert "probably moved" in reason and "bumper ranger" in reason and "rack camera" in reason
+
+
+def _replayed(case, backend, extra):
+    """Run the test bay's simulated ticks through a localizer, adding ``extra[i]`` (a list of
+    observations made at tick i's time) to tick i; returns the decisions."""
+    loc = Localizer.from_case(case, backend)
+    ticks = simulate(case)
+    loc.start_at(ticks[0].truth.x_m, ticks[0].truth.y_m, ticks[0].truth.heading_deg)
+    decisions = []
+    for i, tick in enumerate(ticks[:48]):
+        odometry = next(o for o in tick.observations if o.kind == "odometry")
+        readings = [o for o in tick.observations if o.kind != "odometry"]
+        added = [make(odometry.t) for make in extra.get(i, [])]
+        kinds = {o.sensor for o in added}
+        decisions.append(loc.step(odometry, [o for o in readings if o.sensor not in kinds] + added))
+    return decisions
+
+
+@pytest.mark.parametrize("backend", ["bayes", "evidential"])
+def test_two_lone_odd_readings_of_two_sensors_raise_no_alert_but_a_stuck_one_does(case, backend):
+    from fusion.monitor import ALERT, CARRY_ON, QUARANTINE
+    from fusion.sensors.markers import MarkerSighting
+
+    # Ticks 22-23: the robot drives east along y = 1.5 m, far from the bay door at x = 0.75 m.
+    # A door contact false alarm, then on the next tick a camera sighting of the west marker 0.6 m
+    # dead ahead (it is behind the robot): each conflicts with the belief on its own tick, and the
+    # two make two conflicting ticks in a row, but no sensor disagrees more than once.
+    def door(t):
+        return Observation(t, "contact", "door", DoorReading(True))
+
+    def ghost(t):
+        return Observation(t, "camera", "markers", MarkerSighting("R-west", 0.6, 0.0))
+
+    lone = _replayed(case, backend, {22: [door], 23: [ghost]})
+    assert lone[22].figures["conflict"] > 0.8 and lone[23].figures["conflict"] > 0.8  # the premise holds
+    assert [d.action for d in lone] == [CARRY_ON] * len(lone)
+    # The contact stuck active for 2 s (8 ticks): it disagrees again and again, and is named.
+    stuck = _replayed(case, backend, {i: [door] for i in range(22, 30)})
+    acted = [d for d in stuck if d.action in (ALERT, QUARANTINE)]
+    assert acted and all("contact" in " ".join(d.reasons) for d in acted[:1])

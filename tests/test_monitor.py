@@ -49,3 +49,18 @@ def test_uninformative_agreement_cannot_get_a_sensor_quarantined():
         m.record_reading("ranger", True, informative=0.99)
         m.record_reading("door", False, informative=0.01)
         assert m.judge(True, False, [("ranger", 0.9)]).action != QUARANTINE
+
+
+def test_no_alert_until_some_sensor_disagrees_persistently():
+    m = Monitor("bayes", Policy(alert_after=2, relocalize_after=6))
+    assert m.judge(True, False, [], persistent=False).action == CARRY_ON
+    assert m.judge(True, False, [], persistent=False).action == CARRY_ON  # two ticks, but two lone readings
+    assert m.judge(True, False, [("door", 0.9)], persistent=True).action == ALERT
+
+
+def test_a_move_found_elsewhere_re_localizes_at_once_and_cools_down():
+    m = Monitor("evidential", Policy(alert_after=2, cooldown_ticks=3))
+    m.judge(True, False, [])
+    verdict = m.judge(True, False, [], moved="ranger and camera disagree ...: the robot was probably moved")
+    assert verdict.action == RELOCALIZE and "probably moved" in verdict.reasons[0]
+    assert [m.judge(True, False, []).action for _ in range(2)] == [CARRY_ON, ALERT]  # no second re-seed yet
