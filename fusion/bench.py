@@ -300,11 +300,16 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
 def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
     """Parallel speed-up of ``fusion compare``: the case's default sweep on ``seeds`` seeds with one
     worker, then with ``workers``, into fresh folders (nothing resumed).  The ratio is one-worker time
-    over parallel time, both measured in this run."""
+    over parallel time, both measured in this run.
+
+    Beside it, the machine's own ceiling for this work: one run of the sweep's longest setting alone,
+    then ``workers`` copies of it at once in as many processes (no scheduling, no imbalance, nothing
+    shared).  Copies that slow each other down (memory bandwidth, shared cache, turbo clocks) bound
+    the speed-up any scheduler can reach here."""
     import os
     import tempfile
 
-    from fusion.compare import run_sweep, settings_of
+    from fusion.compare import run_in_processes, run_sweep, settings_of
     from fusion.io.case import load_case
 
     case = load_case(case_path)
@@ -316,7 +321,18 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
             start = time.perf_counter()
             run_sweep(case_path, settings, seed_list, os.path.join(tmp, f"w{n}"), workers=n)
             seconds[n] = time.perf_counter() - start
+    longest = next((s for s in settings if s.backend != "bayes"), settings[0])
+    job = (str(case_path), longest, seed_list[0], None)
+    copies, failures = {}, []
+    for n in (1, workers):
+        start = time.perf_counter()
+        run_in_processes([job] * n, n, None, lambda rec: None, lambda j, err: failures.append(err))
+        copies[n] = time.perf_counter() - start
+    if failures:
+        raise failures[0]
     runs = len(settings) * len(seed_list)
+    speed_up = seconds[1] / seconds[workers]
+    ceiling = workers * copies[1] / copies[workers]
     return [
         BenchRow(
             f"{case.name}: {len(settings)} settings × {len(seed_list)} seeds",
@@ -324,10 +340,21 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
             f"compare sweep, {workers} workers",
             seconds[workers] * 1e3,
             seconds[1] * 1e3,
-            seconds[1] / seconds[workers],
+            speed_up,
             None,
-            f"speed-up over one worker ({runs} runs; 'floor' column: one worker's ms)",
-        )
+            f"speed-up over one worker ({runs} runs; 'floor' column: one worker's ms); "
+            f"{speed_up / ceiling:.0%} of this machine's ceiling below",
+        ),
+        BenchRow(
+            f"{case.name}: {longest.label}, seed {seed_list[0]}",
+            longest.backend,
+            f"{workers} copies at once",
+            copies[workers] * 1e3,
+            copies[1] * 1e3,
+            ceiling,
+            None,
+            f"ceiling: {workers} × one copy alone ('floor' column) over {workers} copies at once",
+        ),
     ]
 
 

@@ -387,7 +387,7 @@ def run_sweep(
     try:
         if todo:
             jobs = [(case_path, s, seed, calibration) for s, seed in todo]
-            (_run_dask if engine == "dask" else _run_local)(jobs, workers, address, finished, failed)
+            (_run_dask if engine == "dask" else run_in_processes)(jobs, workers, address, finished, failed)
     except KeyboardInterrupt:
         raise SweepInterrupted(
             f"interrupted: {len(done)} of {len(wanted)} runs are saved in {folder / 'runs'}; "
@@ -409,7 +409,9 @@ def _quiet_worker() -> None:
 _ONE_THREAD = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
 
 
-def _run_local(jobs, workers, address, finished, failed) -> None:
+def run_in_processes(jobs, workers, address, finished, failed) -> None:
+    """Run ``run_one(*job)`` for every job on ``workers`` fresh local processes, reporting each result
+    to ``finished`` (or its exception to ``failed``) as soon as it is ready."""
     import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 

@@ -1,5 +1,8 @@
 import subprocess
 import sys
+from pathlib import Path
+
+import pytest
 
 from fusion import SAFETY_NOTICE
 from fusion.cli import main
@@ -40,3 +43,14 @@ def test_bench_reports_ratios_as_json(capsys):
     }
     for r in rows:  # ratios are computed from the two times of the same run, never hard-coded
         assert abs(r["ratio"] - r["best_ms"] / r["floor_ms"]) < 1e-9 * r["ratio"]
+
+
+@pytest.mark.slow
+def test_the_sweep_benchmark_reports_its_speed_up_beside_the_machines_ceiling():
+    from fusion.bench import bench_sweep
+
+    sweep, ceiling = bench_sweep(Path(__file__).parent / "data" / "tiny.toml", seeds=1, workers=2)
+    assert sweep.operation == "compare sweep, 2 workers" and ceiling.operation == "2 copies at once"
+    assert abs(sweep.ratio - sweep.floor_ms / sweep.best_ms) < 1e-9 * sweep.ratio  # one worker over two
+    assert abs(ceiling.ratio - 2 * ceiling.floor_ms / ceiling.best_ms) < 1e-9 * ceiling.ratio
+    assert f"{sweep.ratio / ceiling.ratio:.0%} of this machine's ceiling" in sweep.note
