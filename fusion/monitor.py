@@ -14,8 +14,9 @@ Actions: ``carry on``; ``alert operator`` after ``alert_after`` conflicting tick
 disagree with where the robot was by twice the weight of conflict of ``conflict_k`` (see
 ``Localizer._dissenters``: two lone odd readings of two sensors are no alert); ``re-localize`` after
 ``relocalize_after`` conflicting ticks in a row, then not again for ``cooldown_ticks``;
-``re-localize`` at once, at the alert or the re-localization tick, when the episode's readings
-agree with one another at another place (the robot was moved; see ``Localizer``);
+``re-localize`` at once, on a conflicting tick from the alert count to the re-localization count,
+when two sensors disagree with where the robot was and the episode's readings agree with one
+another at another place (the robot was moved; see ``Localizer._moved_elsewhere``);
 ``quarantine sensor`` when one sensor keeps disagreeing while the others agree: it is
 then discounted (its reliability multiplied by ``quarantine_reliability``) until it has
 agreed ``release_after`` times in a row.  Thresholds are set per case (``[run.policy]``).
@@ -100,9 +101,9 @@ class Monitor:
         persistent: bool = True,
     ) -> TickVerdict:
         """``moved``: the localizer found that this episode's readings agree with one another elsewhere
-        (the reason, in words); the tick then re-localizes at once.  ``persistent``: some sensor has
-        disagreed with where the robot was in more than one reading's worth of conflict; without it
-        no alert is raised (two lone odd readings of two sensors on two ticks are not a fault)."""
+        (the reason, in words); the tick then re-localizes at once.  ``persistent``: some sensor's readings
+        of the episode disagree with where the robot was by twice the weight of conflict of
+        ``conflict_k``; without it no alert is raised (two lone odd readings of two sensors on two ticks are not a fault)."""
         p = self.policy
         if moved:
             self.run, self.cooldown, self.alerted = 0, p.cooldown_ticks, False

@@ -1,8 +1,9 @@
 """Does the monitor do its job?  Measured on the shipped fault cases over many seeds.
 
 For each back end and seed:
-- ``carried.toml``: the estimate is back within 0.5 m and 15° of the truth within 10 ticks
-  after the robot is put down;
+- ``carried.toml`` / ``carried_blind.toml``: the estimate is back within 0.5 m and 15° of the
+  truth within 10 ticks after the robot is put down (the blind put-down shows where the sensors,
+  not the policy, bound the recovery);
 - ``stuck_door.toml`` / ``ghost.toml``: the faulty sensor is named in an alert or quarantine
   and is quarantined during the fault, and no re-localization happens during the fault;
 - ``calm.toml``: no action other than "carry on" in the whole run.
