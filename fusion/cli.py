@@ -117,16 +117,27 @@ def _targets(args: argparse.Namespace) -> int:
     unknown = [c for c in cases if c not in known]
     if unknown:
         raise FusionError(f"unknown fault case {unknown[0]!r}; choose among: {', '.join(known)}")
-    rows = (measure_attribution if args.attribution else measure_targets)(
-        _builtin_case(""),
-        range(1, args.seeds + 1),
-        cases,
-        progress=lambda c, s: console.print(f"[dim]{c} seed {s} done[/]"),
-    )
+
+    def landed(case: str, seed: int, verdicts) -> None:
+        # Each verdict is printed as it lands, so a run stopped part-way keeps what it measured.
+        said = "; ".join(f"{r.backend} {'met' if r.success else 'missed'} ({r.detail})" for r in verdicts)
+        console.print(f"[dim]{case} seed {seed}: {said}[/]")
+
+    rows: list = []
+    interrupted = False
+    try:
+        (measure_attribution if args.attribution else measure_targets)(
+            _builtin_case(""), range(1, args.seeds + 1), cases, progress=landed, out=rows
+        )
+    except KeyboardInterrupt:
+        interrupted = True
     if args.json:
         print(json.dumps([r.__dict__ for r in rows], indent=1))
     else:
         console.print(render(rows))
+    if interrupted:
+        console.print(f"interrupted: the {len(rows)} verdicts above are the runs that finished")
+        return 130
     return 0
 
 

@@ -77,18 +77,19 @@ def _seeded(case, seed: int):
     return dataclasses.replace(case, run=dataclasses.replace(case.run, seed=seed))
 
 
-def measure_targets(cases_dir, seeds, cases=tuple(FAULT_CASES), progress=None) -> list[TargetRow]:
-    out = []
+def measure_targets(cases_dir, seeds, cases=tuple(FAULT_CASES), progress=None, out=None) -> list[TargetRow]:
+    """Verdicts per case, seed and back end.  ``out``: a list the verdicts are appended to as each run
+    ends (the caller keeps them if the sweep is interrupted); ``progress(case, seed, rows)`` after each."""
+    out = [] if out is None else out
     for name in cases:
         base = load_case(Path(cases_dir) / f"{name}.toml")
         for seed in seeds:
             case = _seeded(base, seed)
             result = run_case(case)
-            for backend in case.run.backends:
-                ok, detail = _judge(name, result, backend)
-                out.append(TargetRow(name, backend, seed, ok, detail))
+            rows = [TargetRow(name, b, seed, *_judge(name, result, b)) for b in case.run.backends]
+            out.extend(rows)
             if progress:
-                progress(name, seed)
+                progress(name, seed, rows)
     return out
 
 
@@ -106,15 +107,16 @@ def render(rows: list[TargetRow]):
     return table
 
 
-def measure_attribution(cases_dir, seeds, cases=tuple(ATTRIBUTION_CASES), progress=None) -> list[TargetRow]:
-    """Simulate each case and seed, replay its log with ``inspect_log`` and check who is ranked first."""
+def measure_attribution(cases_dir, seeds, cases=tuple(ATTRIBUTION_CASES), progress=None, out=None) -> list[TargetRow]:
+    """Simulate each case and seed, replay its log with ``inspect_log`` and check who is ranked first
+    (``out`` and ``progress`` as for ``measure_targets``)."""
     import tempfile
 
     from fusion.inspect import inspect_log
     from fusion.runner import atomic_write, log_text
     from fusion.simulate import simulate
 
-    out = []
+    out = [] if out is None else out
     for name in cases:
         base = load_case(Path(cases_dir) / f"{name}.toml")
         for seed in seeds:
@@ -135,11 +137,10 @@ def measure_attribution(cases_dir, seeds, cases=tuple(ATTRIBUTION_CASES), progre
             first = ranking[0][0] if ranking else "nobody"
             share = ranking[0][1] if ranking else 0.0
             ok = first == ATTRIBUTION_CASES[name]
-            out.append(
-                TargetRow(
-                    name, "both", seed, ok, f"ranked first: {first} ({share:.0%}); {len(found.episodes)} episodes"
-                )
+            row = TargetRow(
+                name, "both", seed, ok, f"ranked first: {first} ({share:.0%}); {len(found.episodes)} episodes"
             )
+            out.append(row)
             if progress:
-                progress(name, seed)
+                progress(name, seed, [row])
     return out

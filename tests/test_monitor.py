@@ -64,3 +64,25 @@ def test_a_move_found_elsewhere_re_localizes_at_once_and_cools_down():
     verdict = m.judge(True, False, [], moved="ranger and camera disagree ...: the robot was probably moved")
     assert verdict.action == RELOCALIZE and "probably moved" in verdict.reasons[0]
     assert [m.judge(True, False, []).action for _ in range(2)] == [CARRY_ON, ALERT]  # no second re-seed yet
+
+
+def test_target_verdicts_land_run_by_run_and_survive_an_interruption(tmp_path):
+    import shutil
+    from pathlib import Path
+
+    import pytest
+
+    from fusion.targets import measure_targets
+
+    # The test bay stands in for the fault-free case; the sweep is stopped after its first seed.
+    shutil.copy(Path(__file__).parent / "data" / "tiny.toml", tmp_path / "calm.toml")
+    rows, seen = [], []
+
+    def stop_after_first(case, seed, verdicts):
+        seen.append((case, seed, [v.backend for v in verdicts]))
+        raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        measure_targets(tmp_path, [1, 2], ["calm"], progress=stop_after_first, out=rows)
+    assert seen == [("calm", 1, ["bayes", "evidential"])]
+    assert [(r.case, r.seed, r.backend) for r in rows] == [("calm", 1, "bayes"), ("calm", 1, "evidential")]
