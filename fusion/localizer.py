@@ -365,9 +365,14 @@ class Localizer:
 
     def _own_figure(self, evidence: Evidence) -> float:
         """The conflict a quarantined sensor's undiscounted reading has with the current belief."""
+        return self._conflict_with(self._snapshot(), evidence)
+
+    def _conflict_with(self, reference, evidence: Evidence) -> float:
+        """The conflict of one reading with a belief in snapshot form: Dempster's K with the normalised
+        mass function, or the support conflict of a probability per cell."""
         if self.backend == "evidential":
-            return rules.conflict_mass(self.filter.belief.normalised(), evidence.masses)
-        return self._support_conflict(self.filter.belief.probabilities, evidence)
+            return rules.conflict_mass(_normalised(reference), evidence.masses)
+        return self._support_conflict(reference, evidence)
 
     def _remember(self, before, motion, applied, undiscounted) -> None:
         """Keep this tick for a re-seed or a trial, and the belief the episode started from, carried
@@ -401,11 +406,7 @@ class Localizer:
             if i:
                 reference = self._dead_reckoned(reference, [motion])
             for sensor, evidence in given:
-                if self.backend == "evidential":
-                    m = reference.normalised() if reference.conflict < 1 else reference
-                    figure = rules.conflict_mass(m, evidence.masses)
-                else:
-                    figure = self._support_conflict(reference, evidence)
+                figure = self._conflict_with(reference, evidence)
                 weights[sensor] = weights.get(sensor, 0.0) + weight_of_conflict(figure)
         enough = 2.0 * weight_of_conflict(self.policy.conflict_k)
         return {sensor for sensor, w in weights.items() if w >= enough}
@@ -426,7 +427,7 @@ class Localizer:
         if not applied:
             return 0.0
         if self.backend == "evidential":
-            m, keep = before.normalised() if before.conflict < 1 else before, 1.0
+            m, keep = _normalised(before), 1.0
             for _, e in applied:
                 red = rules.conjunctive_reduced(m, e.masses, self.filter.max_focal)
                 k = red.mass_function.conflict
@@ -500,6 +501,11 @@ class Localizer:
             f"ticks agree with one another at another place (worst conflict {worst:.2f} there): the robot was "
             "probably moved; the belief is re-seeded from them"
         )
+
+
+def _normalised(m):
+    """``m`` after Dempster normalisation, or as it is when all its mass is on the empty set."""
+    return m.normalised() if m.conflict < 1 else m
 
 
 def _pignistic(m) -> np.ndarray:
