@@ -302,6 +302,9 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
     worker, then with ``workers``, into fresh folders (nothing resumed).  The ratio is one-worker time
     over parallel time, both measured in this run.
 
+    Then how busy the workers were: the runs' own wall times over workers × elapsed, and how much
+    longer the same runs took side by side than with one worker.
+
     Beside it, the machine's own ceiling for this work: one run of the sweep's longest setting alone,
     then ``workers`` copies of it at once in as many processes (no scheduling, no imbalance, nothing
     shared).  Copies that slow each other down (memory bandwidth, shared cache, turbo clocks) bound
@@ -315,13 +318,18 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
     case = load_case(case_path)
     settings = settings_of(case.sweep)
     seed_list = list(range(case.run.seed, case.run.seed + seeds))
-    seconds = {}
+    seconds, records = {}, {}
     with tempfile.TemporaryDirectory() as tmp:
         for n in (1, workers):
             start = time.perf_counter()
-            run_sweep(case_path, settings, seed_list, os.path.join(tmp, f"w{n}"), workers=n)
+            records[n] = run_sweep(case_path, settings, seed_list, os.path.join(tmp, f"w{n}"), workers=n)
             seconds[n] = time.perf_counter() - start
-    longest = next((s for s in settings if s.backend != "bayes"), settings[0])
+    # Where a shortfall goes: workers idle (busy share below 1: start-up, the tail of uneven runs)
+    # or runs slower side by side (the same runs took longer than with one worker).
+    busy = sum(r["wall_s"] for r in records[workers]) / (workers * seconds[workers])
+    slower = sum(r["wall_s"] for r in records[workers]) / sum(r["wall_s"] for r in records[1])
+    cost = {s.key: sum(r["wall_s"] for r in records[1] if r["key"] == s.key) for s in settings}
+    longest = max(settings, key=lambda s: cost[s.key])  # as measured by the one-worker sweep
     job = (str(case_path), longest, seed_list[0], None)
     copies, failures = {}, []
     for n in (1, workers):
@@ -346,6 +354,17 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
             f"{speed_up / ceiling:.0%} of this machine's ceiling below",
         ),
         BenchRow(
+            f"{case.name}: {len(settings)} settings × {len(seed_list)} seeds",
+            "both",
+            f"workers busy, {workers} workers",
+            busy * workers * seconds[workers] * 1e3,
+            workers * seconds[workers] * 1e3,
+            busy,
+            None,
+            f"share of the {workers} workers' time spent in runs ('best': summed run time; 'floor': "
+            f"{workers} × elapsed); the runs took {slower:.2f}× their one-worker time side by side",
+        ),
+        BenchRow(
             f"{case.name}: {longest.label}, seed {seed_list[0]}",
             longest.backend,
             f"{workers} copies at once",
@@ -367,7 +386,14 @@ def render(rows: list[BenchRow]):
     for r in rows:
         peak = "" if r.peak_copies is None else f"{r.peak_copies:.1f} beliefs"
         table.add_row(
-            r.size, r.backend, r.operation, f"{r.best_ms:.1f}", f"{r.floor_ms:.2f}", f"{r.ratio:.1f}×", peak, r.note
+            r.size,
+            r.backend,
+            r.operation,
+            f"{r.best_ms:.1f}",
+            f"{r.floor_ms:.2f}",
+            f"{r.ratio:.2f}×" if r.ratio < 10 else f"{r.ratio:.1f}×",
+            peak,
+            r.note,
         )
     table.caption = (
         "floor: Bayes = one multiply-and-normalise pass; evidential = bare AND of all focal-set word "

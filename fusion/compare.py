@@ -21,6 +21,7 @@ import json
 import math
 import os
 import signal
+import time
 import warnings
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
@@ -200,6 +201,7 @@ def run_one(case_path: str, setting: Setting, seed: int, calibration_file: str |
 
     if setting.calibrated and calibration_file is None:
         raise FusionError(f"setting {setting.label} needs a calibration file")
+    started = time.perf_counter()
     base, sensors = _prepared(str(case_path), setting.reliability, calibration_file if setting.calibrated else None)
     case = variant(base, None, setting.fault_rate)
     grid = sensors.grid
@@ -219,7 +221,10 @@ def run_one(case_path: str, setting: Setting, seed: int, calibration_file: str |
         sensors=sensors,
     )
     rows = [r.values for r in result.rows]
-    return {"setting": setting.as_dict(), "key": setting.key, "seed": seed, **_figures(case, rows, calib)}
+    figures = _figures(case, rows, calib)
+    # Wall time of the whole run (simulation, both filters' work, figures): what the sweep schedules by.
+    wall_s = time.perf_counter() - started
+    return {"setting": setting.as_dict(), "key": setting.key, "seed": seed, "wall_s": wall_s, **figures}
 
 
 def calibration(p: np.ndarray, true_cell: int) -> tuple[float, float, float]:
@@ -366,9 +371,6 @@ def run_sweep(
     wanted = [(s, seed) for seed in seeds for s in settings]
     done = _load_done(folder, {(s.key, seed) for s, seed in wanted})
     todo = [(s, seed) for s, seed in wanted if (s.key, seed) not in done]
-    # Longest runs first (the evidential back end costs several Bayes runs), so no worker is
-    # left with one long run at the end while the others idle.
-    todo.sort(key=lambda job: job[0].backend == "bayes")
     if on_start:
         on_start(len(wanted), len(done))
 
@@ -387,7 +389,8 @@ def run_sweep(
     try:
         if todo:
             jobs = [(case_path, s, seed, calibration) for s, seed in todo]
-            (_run_dask if engine == "dask" else run_in_processes)(jobs, workers, address, finished, failed)
+            order = longest_measured_first(done.values())
+            (_run_dask if engine == "dask" else run_in_processes)(jobs, workers, address, finished, failed, order)
     except KeyboardInterrupt:
         raise SweepInterrupted(
             f"interrupted: {len(done)} of {len(wanted)} runs are saved in {folder / 'runs'}; "
@@ -401,6 +404,23 @@ def run_sweep(
     return [done[(s.key, seed)] for s, seed in wanted if (s.key, seed) in done]
 
 
+def longest_measured_first(records) -> Callable[[list], list]:
+    """The order in which to start the remaining jobs: settings not yet measured first (one run
+    of each tells what it costs), then by the mean wall time of the setting's finished runs, longest
+    first (Graham 1969, "Bounds on multiprocessing timing anomalies": longest processing time first
+    keeps the idle tail at the end short).  ``records`` is a live view: runs that land update it."""
+
+    def cost(job) -> float:
+        times = [r["wall_s"] for r in records if r["key"] == job[1].key and "wall_s" in r]
+        # Unmeasured first; among them the evidential back end, which costs several Bayes runs.
+        return math.inf if not times else float(np.mean(times))
+
+    def order(jobs: list) -> list:
+        return sorted(jobs, key=lambda job: (-cost(job), job[1].backend == "bayes"))
+
+    return order
+
+
 def _quiet_worker() -> None:
     # Ctrl-C is for the parent, which stops the sweep cleanly; workers just end with it.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
@@ -409,20 +429,33 @@ def _quiet_worker() -> None:
 _ONE_THREAD = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
 
 
-def run_in_processes(jobs, workers, address, finished, failed) -> None:
+def run_in_processes(jobs, workers, address, finished, failed, order=None) -> None:
     """Run ``run_one(*job)`` for every job on ``workers`` fresh local processes, reporting each result
-    to ``finished`` (or its exception to ``failed``) as soon as it is ready."""
+    to ``finished`` (or its exception to ``failed``) as soon as it is ready.  ``order(remaining)``, if
+    given, is asked for the next job each time a worker comes free (so it can use the runs that landed)."""
     import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
     # Fresh processes with single-threaded BLAS: one run per core, none fighting over cores (two
-    # two-threaded workers on two cores ran ~15× slower here).  The pool starts its processes on
-    # submit, so the variables stay set until every job is submitted.
+    # two-threaded workers on two cores ran ~15× slower here).
     saved = {k: os.environ.get(k) for k in _ONE_THREAD}
     os.environ.update(_ONE_THREAD)
     pool = ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn"), initializer=_quiet_worker)
     try:
-        pending = {pool.submit(run_one, *job): job for job in jobs}
+        waiting = list(jobs)
+        pending = {}
+
+        def submit_next() -> None:
+            if waiting:
+                if order is not None:
+                    waiting[:] = order(waiting)
+                job = waiting.pop(0)
+                pending[pool.submit(run_one, *job)] = job
+
+        # One job per worker in flight, so each next job is chosen knowing what has landed.  The pool
+        # starts its processes on the first submits, so the variables stay set until then.
+        for _ in range(workers):
+            submit_next()
         _restore(saved)
         while pending:
             ready, _ = wait(pending, return_when=FIRST_COMPLETED)
@@ -434,6 +467,7 @@ def run_in_processes(jobs, workers, address, finished, failed) -> None:
                     failed(job, err)
                 else:
                     finished(rec)
+                submit_next()
     finally:
         _restore(saved)
         pool.shutdown(wait=True, cancel_futures=True)
@@ -447,7 +481,7 @@ def _restore(saved: dict) -> None:
             os.environ[k] = v
 
 
-def _run_dask(jobs, workers, address, finished, failed) -> None:
+def _run_dask(jobs, workers, address, finished, failed, order=None) -> None:
     try:
         from distributed import Client, LocalCluster, as_completed
     except ImportError:
@@ -461,6 +495,8 @@ def _run_dask(jobs, workers, address, finished, failed) -> None:
         )
         client = Client(cluster)
     try:
+        # The cluster schedules by itself; the order only says which runs to hand it first.
+        jobs = order(list(jobs)) if order is not None else jobs
         futures = {client.submit(run_one, *job, pure=False): job for job in jobs}
         for f in as_completed(list(futures)):
             try:

@@ -47,6 +47,7 @@ def runs_frame(records: list[dict]):
     for r in records:
         row = {**r["setting"], "key": r["key"], "seed": r["seed"], "ticks": r["ticks"]}
         row.update({name: r[name] for name in FIGURES})
+        row["wall_s"] = r.get("wall_s", float("nan"))  # runs saved before wall times were kept have none
         rows.append(row)
     return pd.DataFrame(rows)
 

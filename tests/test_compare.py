@@ -16,6 +16,8 @@ from fusion.compare import (
     bayes_dempster_identity,
     calibration,
     check_sweep,
+    longest_measured_first,
+    run_in_processes,
     run_sweep,
     settings_of,
     summarise,
@@ -32,9 +34,9 @@ TWO = [Setting("bayes"), Setting("evidential", "dempster")]
 
 
 def _figure_free(rec: dict) -> str:
-    """A run's record without its wall-time figure (the only one that may differ between repeats), as text
+    """A run's record without its wall times (the only figures that may differ between repeats), as text
     so that NaN (no carry, no alert) compares equal to NaN."""
-    return json.dumps({k: v for k, v in rec.items() if k != "ms_per_step"}, sort_keys=True)
+    return json.dumps({k: v for k, v in rec.items() if k not in ("ms_per_step", "wall_s")}, sort_keys=True)
 
 
 # ----------------------------------------------------------------------------- settings
@@ -220,6 +222,37 @@ def test_sweep_writes_run_by_run_and_resumes(tmp_path):
     assert started == [(4, 3)] and [(r["key"], r["seed"]) for r in done] == [("bayes", 2)]
     # Determinism: the redone run and the parallel first run agree figure for figure.
     assert [_figure_free(r) for r in again] == [_figure_free(r) for r in first]
+
+
+def test_the_sweep_starts_unmeasured_settings_first_then_the_longest_measured():
+    # Longest processing time first (Graham 1969, "Bounds on multiprocessing timing anomalies").
+    slow, fast, new = Setting("evidential", "pcr5"), Setting("bayes"), Setting("evidential", "yager")
+    records = [{"key": slow.key, "wall_s": 30.0}, {"key": slow.key, "wall_s": 50.0}, {"key": fast.key, "wall_s": 9.0}]
+    order = longest_measured_first(records)
+    jobs = [("case", s, seed, None) for s in (fast, slow, new) for seed in (1, 2)]
+    assert [(j[1].key, j[2]) for j in order(jobs)] == [
+        (new.key, 1),
+        (new.key, 2),
+        (slow.key, 1),
+        (slow.key, 2),
+        (fast.key, 1),
+        (fast.key, 2),
+    ]
+    records.append({"key": new.key, "wall_s": 35.0})  # a run lands: the order follows the view
+    assert [j[1].key for j in order(jobs)][:4] == [slow.key, slow.key, new.key, new.key]  # 40 s > 35 s
+
+
+def test_each_next_run_is_chosen_when_a_worker_comes_free(tmp_path):
+    asked, landed = [], []
+
+    def order(remaining):
+        asked.append(len(remaining))
+        return remaining
+
+    jobs = [(str(TINY), TWO[0], seed, None) for seed in (1, 2, 3)]
+    run_in_processes(jobs, 1, None, landed.append, lambda job, err: pytest.fail(str(err)), order)
+    assert asked == [3, 2, 1] and [r["seed"] for r in landed] == [1, 2, 3]
+    assert all(r["wall_s"] > 0 for r in landed)
 
 
 def test_sweep_refuses_a_folder_of_another_case(tmp_path):

@@ -49,8 +49,11 @@ def test_bench_reports_ratios_as_json(capsys):
 def test_the_sweep_benchmark_reports_its_speed_up_beside_the_machines_ceiling():
     from fusion.bench import bench_sweep
 
-    sweep, ceiling = bench_sweep(Path(__file__).parent / "data" / "tiny.toml", seeds=1, workers=2)
+    sweep, busy, ceiling = bench_sweep(Path(__file__).parent / "data" / "tiny.toml", seeds=1, workers=2)
     assert sweep.operation == "compare sweep, 2 workers" and ceiling.operation == "2 copies at once"
+    # Busy share: the runs' own wall times over 2 × elapsed; it cannot exceed 1.
+    assert busy.operation == "workers busy, 2 workers" and 0 < busy.ratio <= 1
+    assert abs(busy.ratio - busy.best_ms / busy.floor_ms) < 1e-9 and "× their one-worker time" in busy.note
     assert abs(sweep.ratio - sweep.floor_ms / sweep.best_ms) < 1e-9 * sweep.ratio  # one worker over two
     assert abs(ceiling.ratio - 2 * ceiling.floor_ms / ceiling.best_ms) < 1e-9 * ceiling.ratio
     assert f"{sweep.ratio / ceiling.ratio:.0%} of this machine's ceiling" in sweep.note
