@@ -127,7 +127,12 @@ def _targets(args: argparse.Namespace) -> int:
     interrupted = False
     try:
         (measure_attribution if args.attribution else measure_targets)(
-            _builtin_case(""), range(1, args.seeds + 1), cases, progress=landed, out=rows
+            _builtin_case(""),
+            range(args.first_seed, args.first_seed + args.seeds),
+            cases,
+            progress=landed,
+            out=rows,
+            **({} if args.attribution else {"backends": args.backend}),
         )
     except KeyboardInterrupt:
         interrupted = True
@@ -532,7 +537,11 @@ def _parser() -> argparse.ArgumentParser:
     soak.set_defaults(run=_soak)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
     targets.add_argument("--seeds", type=_positive_int, default=50, help="seeds per case (default 50)")
+    targets.add_argument("--first-seed", type=_positive_int, default=1, help="first seed (default 1)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
+    targets.add_argument(
+        "--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable; default: both)"
+    )
     targets.add_argument("--json", action="store_true", help="print every run's verdict as JSON")
     targets.add_argument(
         "--attribution",

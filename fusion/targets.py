@@ -15,6 +15,7 @@ injected faulty sensor first by its share of the blame over all conflict episode
 from __future__ import annotations
 
 import dataclasses
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -49,8 +50,9 @@ def _judge(name: str, result, backend: str) -> tuple[bool, str]:
     rows = [r.values for r in result.rows if r.values["backend"] == backend]
     events = [e for e in result.events if e["backend"] == backend]
     if name == "calm":
-        acted = [e for e in events if e["action"] != CARRY_ON]
-        return not acted, f"{len(acted)} actions"
+        acted = Counter(e["action"] for e in events if e["action"] != CARRY_ON)
+        said = ", ".join(f"{action} ×{n}" for action, n in sorted(acted.items()))
+        return not acted, f"{sum(acted.values())} actions" + (f" ({said})" if said else "")
     if name.startswith("carried"):
         start = next(i for i, r in enumerate(rows) if r["carried"])
         window = rows[start : start + RECOVERY_TICKS + 1]
@@ -77,16 +79,20 @@ def _seeded(case, seed: int):
     return dataclasses.replace(case, run=dataclasses.replace(case.run, seed=seed))
 
 
-def measure_targets(cases_dir, seeds, cases=tuple(FAULT_CASES), progress=None, out=None) -> list[TargetRow]:
-    """Verdicts per case, seed and back end.  ``out``: a list the verdicts are appended to as each run
-    ends (the caller keeps them if the sweep is interrupted); ``progress(case, seed, rows)`` after each."""
+def measure_targets(
+    cases_dir, seeds, cases=tuple(FAULT_CASES), progress=None, out=None, backends=None
+) -> list[TargetRow]:
+    """Verdicts per case, seed and back end (``backends``: default the case's).  ``out``: a list the
+    verdicts are appended to as each run ends (the caller keeps them if the sweep is interrupted);
+    ``progress(case, seed, rows)`` after each."""
     out = [] if out is None else out
     for name in cases:
         base = load_case(Path(cases_dir) / f"{name}.toml")
         for seed in seeds:
             case = _seeded(base, seed)
-            result = run_case(case)
-            rows = [TargetRow(name, b, seed, *_judge(name, result, b)) for b in case.run.backends]
+            chosen = list(backends or case.run.backends)
+            result = run_case(case, backends=chosen)
+            rows = [TargetRow(name, b, seed, *_judge(name, result, b)) for b in chosen]
             out.extend(rows)
             if progress:
                 progress(name, seed, rows)

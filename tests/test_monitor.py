@@ -86,3 +86,14 @@ def test_target_verdicts_land_run_by_run_and_survive_an_interruption(tmp_path):
         measure_targets(tmp_path, [1, 2], ["calm"], progress=stop_after_first, out=rows)
     assert seen == [("calm", 1, ["bayes", "evidential"])]
     assert [(r.case, r.seed, r.backend) for r in rows] == [("calm", 1, "bayes"), ("calm", 1, "evidential")]
+
+
+def test_targets_can_be_measured_for_one_back_end_from_a_given_seed(tmp_path):
+    import shutil
+    from pathlib import Path
+
+    from fusion.targets import measure_targets
+
+    shutil.copy(Path(__file__).parent / "data" / "tiny.toml", tmp_path / "calm.toml")
+    rows = measure_targets(tmp_path, range(3, 5), ["calm"], backends=["bayes"])
+    assert [(r.seed, r.backend) for r in rows] == [(3, "bayes"), (4, "bayes")]
