@@ -11,6 +11,11 @@ Evidential side
 Bayesian side
 - predictive surprise −log p(z | past) = −log Σ_x p(x) L(x) for the reading's
   likelihood scaled to a maximum of 1 (0 = the reading is as expected as it can be);
+- the plausibility of a fit: a scan of m beams scores its best supported cell c < 1 of the best
+  cell anywhere, but m Gaussian beam errors make even the true pose fall short of a perfect fit by
+  −2 log c ~ χ²_m; so a reading's conflict counts ``fit_plausibility(c, m)`` = P(χ²_m ≥ −2 log c),
+  the chance that a correct pose fits as badly (the χ² test of normalised residuals used to
+  validate measurements in tracking: Bar-Shalom, Li & Kirubarajan 2001, §5.4, from memory);
 - a slow and a fast running average of the evidence p(z | past), as in augmented
   Monte Carlo localization (Thrun, Burgard & Fox 2005, §8.3.5); their ratio
   slow / fast rises when the readings stop matching the belief (the robot is lost).
@@ -21,16 +26,31 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy.special import gammaincc
 
 from fusion.belief import bitset
 from fusion.belief.mass import FocalAccumulator, MassFunction, check_same_frame
 
-__all__ = ["weight_of_conflict", "jousselme_distance", "pignistic_disagreement", "EvidenceAverages"]
+__all__ = ["fit_plausibility", "weight_of_conflict", "jousselme_distance", "pignistic_disagreement", "EvidenceAverages"]
 
 
 def weight_of_conflict(k: float) -> float:
     """−log(1 − K) in nats; ``inf`` for total conflict."""
     return math.inf if k >= 1.0 else -math.log1p(-k)
+
+
+def fit_plausibility(c: float, dof: int) -> float:
+    """P(χ²_dof ≥ −2 log c): how often a correct pose fits a reading of ``dof`` independent Gaussian
+    errors no better than relative likelihood ``c`` (scale 1 = the best cell anywhere).
+
+    The best cell fits at most perfectly, so this over-states, never under-states, the plausibility
+    of a correct pose (a conservative test).  For dof ≤ 2 it is c itself (χ²₂ survival is e^{−x/2}),
+    so one range-and-bearing sighting or a contour of another kind (dof 0) is scored as given."""
+    if dof <= 2 or c >= 1.0:
+        return float(c)
+    if c <= 0.0:
+        return 0.0
+    return float(gammaincc(dof / 2.0, -math.log(c)))  # χ² survival: Q(k/2, x/2) with x = −2 log c
 
 
 def jousselme_distance(m1: MassFunction, m2: MassFunction) -> float:

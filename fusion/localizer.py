@@ -27,7 +27,13 @@ import numpy as np
 from fusion.backends.bayes import HistogramFilter
 from fusion.backends.evidential import MassFilter
 from fusion.belief import rules
-from fusion.conflict import EvidenceAverages, jousselme_distance, pignistic_disagreement, weight_of_conflict
+from fusion.conflict import (
+    EvidenceAverages,
+    fit_plausibility,
+    jousselme_distance,
+    pignistic_disagreement,
+    weight_of_conflict,
+)
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
@@ -269,10 +275,11 @@ class Localizer:
                 clear = figure < self.policy.clear_fraction * self.policy.conflict_k
             else:
                 # The Bayesian conflict of a reading is the conflict of conditioning it on the cells the
-                # posterior still allows (p ≥ SUPPORT_SHARE · max p): K = r·(1 − max over them of c).  It
-                # is the same figure the mass filter's conditioning carries, so both back ends share
-                # one threshold; and a sharp reading inside a vague belief (information, not
-                # contradiction) scores 0, unlike 1 − p(z | past).
+                # posterior still allows (p ≥ SUPPORT_SHARE · max p): K = r·(1 − pl), pl the plausibility
+                # of the best fit among them (``fit_plausibility``: for a scan of m beams, how often a
+                # correct pose fits as badly; for other readings their contour c itself, the figure the
+                # mass filter's conditioning carries).  A sharp reading inside a vague belief
+                # (information, not contradiction) scores 0, unlike 1 − p(z | past).
                 log_z = report.log_evidence
                 k = self._support_conflict(prior_p, original)
                 figure = k if own is None else own
@@ -361,7 +368,7 @@ class Localizer:
         if top <= 0:
             return 1.0
         best = float(evidence.contour[p >= SUPPORT_SHARE * top].max())
-        return evidence.reliability * (1.0 - best)
+        return evidence.reliability * (1.0 - fit_plausibility(best, evidence.dof))
 
     def _own_figure(self, evidence: Evidence) -> float:
         """The conflict a quarantined sensor's undiscounted reading has with the current belief."""

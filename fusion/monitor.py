@@ -4,8 +4,9 @@ A tick is *conflicting* when its readings disagree with the belief:
 - evidential: Dempster's K above ``conflict_k`` **and** pignistic disagreement above
   ``disagreement`` (two-dimensional conflict, Liu 2006: a large K alone can come from
   sources that agree but are each uncertain);
-- Bayesian: the reading's conflict 1 − p(z | past) above ``conflict_k`` (the same quantity as
-  Dempster's K, see ``fusion.localizer``), or the slow/fast evidence ratio above ``lost_ratio``.
+- Bayesian: the reading's conflict r·(1 − pl) with the cells the belief still allows above
+  ``conflict_k`` (pl: the plausibility of the best fit among them; see ``Localizer`` and
+  ``fusion.conflict.fit_plausibility``), or the slow/fast evidence ratio above ``lost_ratio``.
 It is *clear* when both figures are below ``clear_fraction`` of their thresholds, and
 neutral in between (hysteresis: a neutral tick neither starts nor ends an episode).
 

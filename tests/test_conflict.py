@@ -1,11 +1,18 @@
 import math
 
 import numpy as np
+from scipy import stats
 from support import assert_close
 
 from fusion.belief import rules
 from fusion.belief.mass import MassFunction
-from fusion.conflict import EvidenceAverages, jousselme_distance, pignistic_disagreement, weight_of_conflict
+from fusion.conflict import (
+    EvidenceAverages,
+    fit_plausibility,
+    jousselme_distance,
+    pignistic_disagreement,
+    weight_of_conflict,
+)
 from fusion.monitor import Monitor, Policy
 
 
@@ -17,6 +24,35 @@ def test_zadeh_weight_of_conflict():
     assert_close(weight_of_conflict(k), math.log(1e4), tol=1e-9)
     assert abs(weight_of_conflict(k) - 9.21) < 0.005
     assert weight_of_conflict(1.0) == math.inf
+
+
+def test_fit_plausibility_is_the_chi_square_survival_of_the_relative_likelihood():
+    # χ² test of normalised residuals (Bar-Shalom, Li & Kirubarajan 2001, §5.4; from memory), checked
+    # against scipy's χ² distribution.
+    for dof in (3, 5, 8):
+        for c in (0.9, 0.16, 0.063, 1e-3, 1e-9):
+            assert_close(fit_plausibility(c, dof), stats.chi2.sf(-2 * math.log(c), dof), tol=1e-12)
+    # χ²₂ survival is e^{−x/2}: with two Gaussian errors the relative likelihood is its own plausibility.
+    for c in (0.5, 0.01):
+        assert_close(stats.chi2.sf(-2 * math.log(c), 2), c, tol=1e-12)
+        assert fit_plausibility(c, 2) == c and fit_plausibility(c, 0) == c
+    assert fit_plausibility(1.0, 5) == 1.0 and fit_plausibility(0.0, 5) == 0.0
+    # Five beams each one σ off (−2 log c = 5) is the median-ish fit of a correct pose, not a conflict.
+    assert fit_plausibility(math.exp(-2.5), 5) > 0.4
+
+
+def test_a_five_beam_scan_fitting_as_a_correct_pose_would_is_no_conflict():
+    from fusion.localizer import Localizer
+    from fusion.sensors.base import Evidence
+
+    p = np.array([0.7, 0.3, 0.0, 0.0])
+    contour = np.array([0.06, 0.02, 1.0, 0.5])  # the best cell elsewhere; the belief's cells fit 16× worse
+    plain = Evidence("ranger", contour, reliability=0.95)
+    scan = Evidence("ranger", contour, reliability=0.95, dof=5)
+    assert_close(Localizer._support_conflict(p, plain), 0.95 * (1 - 0.06))  # 0.89: over a 0.8 threshold
+    k = Localizer._support_conflict(p, scan)
+    assert_close(k, 0.95 * (1 - stats.chi2.sf(-2 * math.log(0.06), 5)))
+    assert k < 0.8
 
 
 def test_jousselme_distance_published_values():

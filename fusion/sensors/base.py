@@ -41,6 +41,9 @@ class Evidence:
     levels: int = 6
     form: str = "consonant"
     spacing: str = "geometric"
+    # Independent Gaussian errors behind the contour (beams of a scan); 0 when the contour is not of that
+    # kind.  Lets the conflict figure ask how often a correct pose fits as badly (``fusion.conflict.fit_plausibility``).
+    dof: int = 0
 
     def __post_init__(self):
         if self.form not in MASS_FORMS:

@@ -133,6 +133,11 @@ class RangeSensor:
         return out
 
     def encode(self, scan) -> Evidence:
+        z = self._ranges(scan)
         return Evidence(
-            self.name, contour_from_log(self.log_likelihood(scan)), self.params.reliability, self.params.levels
+            self.name,
+            contour_from_log(self.log_likelihood(z)),
+            self.params.reliability,
+            self.params.levels,
+            dof=int(np.sum(z < self.params.max_range_m)),  # max-range returns carry no position information
         )
