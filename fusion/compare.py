@@ -446,11 +446,15 @@ def run_in_processes(jobs, workers, address, finished, failed, order=None) -> No
         pending = {}
 
         def submit_next() -> None:
-            if waiting:
+            while waiting:
                 if order is not None:
                     waiting[:] = order(waiting)
                 job = waiting.pop(0)
-                pending[pool.submit(run_one, *job)] = job
+                try:
+                    pending[pool.submit(run_one, *job)] = job
+                    return
+                except RuntimeError as err:  # a broken pool (a worker died): every run left fails, none hangs
+                    failed(job, err)
 
         # One job per worker in flight, so each next job is chosen knowing what has landed.  The pool
         # starts its processes on the first submits, so the variables stay set until then.
