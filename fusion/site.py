@@ -114,9 +114,16 @@ class SiteMap:
         The Euclidean distance to the nearest occupied cell centre, less half a cell: a range
         return ends on the face of a wall, half a cell before the centre of its first cell
         (0 inside obstacles)."""
-        if not self.occupied.any():
-            return np.full(self.occupied.shape, np.inf)
-        centres = ndimage.distance_transform_edt(~self.occupied, sampling=self.resolution_m)
+        return self.distance_beyond(0)
+
+    def distance_beyond(self, pad: int) -> np.ndarray:
+        """``distance_m`` over the map and ``pad`` cells of open ground around it, (ny + 2 pad, nx + 2 pad).
+        A return measured a little long off a border wall ends past the map's edge, yet only as far
+        from that wall as its noise put it (an infinite distance there would call it a random return)."""
+        occupied = np.pad(self.occupied, pad, constant_values=False)
+        if not occupied.any():
+            return np.full(occupied.shape, np.inf)
+        centres = ndimage.distance_transform_edt(~occupied, sampling=self.resolution_m)
         return np.maximum(centres - self.resolution_m / 2, 0.0)
 
     def marker(self, marker_id: str) -> Marker:

@@ -53,6 +53,20 @@ def test_distance_field_matches_brute_force():
     np.testing.assert_allclose(site.distance_m, np.maximum(brute - 0.25, 0.0), atol=1e-12)
 
 
+def test_distance_field_beyond_the_map_measures_to_the_border_wall():
+    # Plain geometry: a point i cells past a walled map's edge lies i cells from the wall's outer face
+    # (the face a return ends on is half a cell from the wall cell's centre); inside, the padded field
+    # is the map's own.  Same brute-force reference as above.
+    site = SiteMap.empty(5.0, 4.0, 0.5, border=True)
+    pad = 3
+    beyond = site.distance_beyond(pad)
+    assert beyond.shape == (site.occupied.shape[0] + 2 * pad, site.occupied.shape[1] + 2 * pad)
+    np.testing.assert_allclose(beyond[pad:-pad, pad:-pad], site.distance_m, atol=1e-12)
+    mid = beyond.shape[1] // 2
+    for i in range(1, pad + 1):  # straight up from the top border, away from the corners
+        assert abs(beyond[pad + site.occupied.shape[0] - 1 + i, mid] - (i * 0.5 - 0.25)) < 1e-12
+
+
 def test_doors_and_markers_must_be_on_the_map():
     with pytest.raises(SiteError, match="door 'D9' at \\(30.0 m, 1.0 m\\) is off the map"):
         SiteMap.empty(20.0, 10.0, 0.5, doors=(Door("D9", 30.0, 1.0, 0.0),))

@@ -54,6 +54,24 @@ def test_range_scan_favours_the_true_pose(depot):
     assert ev.contour[truth] >= np.quantile(ev.contour[free], 0.99)
 
 
+def test_a_return_a_little_long_off_a_border_wall_still_fits_the_true_pose():
+    # A return 0.3 m long (about 1.3 grid sigmas) off the walled north edge ends past the map.  It is
+    # 0.3 m from the wall, so the true cell keeps about exp(−½ (0.3/σ)²) of the best fit (Gaussian hit term,
+    # Thrun, Burgard & Fox 2005, §6.4), not the random-return floor an unknown distance would give.
+    from fusion.site import SiteMap
+
+    site = SiteMap.empty(10.0, 6.0, 0.25, border=True)
+    grid = site.grid(36)
+    sensor = RangeSensor("lidar", site, grid, RangeParams(bearings_deg=(0.0,), sigma_hit_m=0.15))
+    x, y, th = 5.125, 3.125, math.radians(90)
+    z = site.ray_range(x, y, th, 8.0) + 0.3
+    assert y + z > 6.0  # the end point lies past the map's edge
+    ev = sensor.encode(RangeScan((z,)))
+    sigma = sensor.grid_sigma(z)
+    c = ev.contour[grid.cell_of(x, y, th)]
+    assert c > 0.5 * math.exp(-0.5 * (0.3 / sigma) ** 2)
+
+
 def test_reliability_maps_to_discounting_and_the_matching_outlier_mixture():
     # Shafer (1976), ch. 11: the contour of the discounted consonant mass function is r·c + (1 − r),
     # which is the Bayesian side's likelihood.

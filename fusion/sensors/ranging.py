@@ -74,12 +74,12 @@ class RangeSensor:
             raise ObservationError(
                 f"sensor {name!r}: mixture weights z_hit + z_short + z_max + z_rand must sum to 1, got {sum(weights):g}"
             )
-        # Distance field padded so that any end point within max range lands inside the array;
-        # outside the map the distance is infinite (no obstacle known there).  Distances on a grid
+        # Distance field padded so that any end point within max range lands inside the array; past
+        # the map's edge it is the distance to the nearest obstacle on the map.  Distances on a grid
         # take few distinct values, so the field is stored as indices into the sorted distinct
         # values and each beam's log-density is computed once per distinct value (a table).
         self._pad = int(math.ceil(p.max_range_m / grid.resolution_m)) + 1
-        field = np.pad(site.distance_m, self._pad, constant_values=np.inf)
+        field = site.distance_beyond(self._pad)
         self._distances, index = np.unique(field, return_inverse=True)
         self._field_index = index.reshape(field.shape).astype(np.int32)
 
