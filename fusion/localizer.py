@@ -72,6 +72,10 @@ class SensorSet:
             elif spec.kind == "door":
                 self.models[spec.name] = DoorSensor(spec.name, spec.door, site, grid, spec.params)
 
+    def odd_rates(self) -> dict[str, float]:
+        """Per sensor, the share of its readings its own error model says contradict the true pose."""
+        return {name: float(model.odd_rate) for name, model in self.models.items()}
+
     def check(self, obs: Observation) -> None:
         kind = self.kinds.get(obs.sensor)
         if kind is None:
@@ -163,7 +167,7 @@ class Localizer:
             else MassFilter(grid, free, rule=rule, max_focal=max_focal, report_region=False)
         )
         self.backend = backend
-        self.monitor = Monitor(backend, policy)
+        self.monitor = Monitor(backend, policy, sensors.odd_rates())
         self.averages = EvidenceAverages()
         self.last_t = -math.inf
         self._episode: deque = deque(maxlen=policy.relocalize_after + 4)

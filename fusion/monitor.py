@@ -20,7 +20,14 @@ when two sensors disagree with where the robot was and the episode's readings ag
 another at another place (the robot was moved; see ``Localizer._moved_elsewhere``);
 ``quarantine sensor`` when one sensor keeps disagreeing while the others agree: it is
 then discounted (its reliability multiplied by ``quarantine_reliability``) until it has
-agreed ``release_after`` times in a row.  Thresholds are set per case (``[run.policy]``).
+agreed ``release_after`` times in a row.  "Keeps disagreeing" is measured against the sensor's
+own error model: a camera whose model allows 2% false sightings and 2% misread identities is
+odd in 4% of its readings when it works, so 3 odd readings in its last 6 (a chance of 1.2e-3)
+happen by luck every few hundred readings, a few times per hour at 2 Hz.  A sensor is
+quarantined once k of its last ``quarantine_window`` readings disagree, k the smallest count,
+at least ``quarantine_after``, whose binomial tail P(X ≥ k) under its declared odd rate is at
+most ``quarantine_alpha`` (all of the window when none is); a sensor that declares no odd
+readings needs ``quarantine_after``.  Thresholds are set per case (``[run.policy]``).
 """
 
 from __future__ import annotations
@@ -49,6 +56,7 @@ class Policy:
     quarantine_window: int = 6
     quarantine_reliability: float = 0.2
     release_after: int = 4
+    quarantine_alpha: float = 1e-4  # chance that a working sensor, by its own error rates, reaches the count
     others_agree: float = 0.25  # others disagree in at most this share of their recent readings
 
 
@@ -64,8 +72,12 @@ class TickVerdict:
 class Monitor:
     """State of the policy for one back end.  Feed it one tick at a time with ``judge``."""
 
-    def __init__(self, backend: str, policy: Policy = Policy()):
+    def __init__(self, backend: str, policy: Policy = Policy(), odd_rates: dict[str, float] | None = None):
+        """``odd_rates``: per sensor, the share of a working one's readings its own error model says
+        contradict the true pose (``SensorModel.odd_rate``); a sensor not named declares none."""
         self.backend, self.policy = backend, policy
+        self.odd_rates = dict(odd_rates or {})
+        self._counts: dict[str, tuple[int, float]] = {}
         self.run = 0  # consecutive conflicting ticks
         self.cooldown = 0
         self.alerted = False
@@ -113,10 +125,18 @@ class Monitor:
         newly, released = self._quarantine_changes()
         if newly:
             verdict.action = QUARANTINE
-            verdict.reasons.append(
-                f"{', '.join(newly)} disagreed with the belief in most of its recent readings while the other "
-                f"sensors agreed; it is discounted until it agrees again"
-            )
+            for sensor, odd, seen in newly:
+                k, chance = self.quarantine_count(sensor)
+                by_luck = (
+                    f"; a working one, by its own error rates, does so with chance {chance:.1g}"
+                    if self.odd_rates.get(sensor, 0.0) > 0
+                    else ""
+                )
+                verdict.reasons.append(
+                    f"{sensor} disagreed with the belief in {odd} of its last {seen} readings (limit {k}{by_luck}) "
+                    f"while the other sensors agreed; it is discounted until it agrees again"
+                )
+            newly = [sensor for sensor, _, _ in newly]
         if released:
             verdict.reasons.append(f"{', '.join(released)} agrees again; its quarantine is lifted")
         verdict.quarantined, verdict.released = tuple(sorted(self.quarantined)), tuple(released)
@@ -142,7 +162,26 @@ class Monitor:
             self.alerted = True
         return verdict
 
-    def _quarantine_changes(self) -> tuple[list[str], list[str]]:
+    def quarantine_count(self, sensor: str) -> tuple[int, float]:
+        """How many of its last ``quarantine_window`` readings must disagree before ``sensor`` is
+        quarantined, and the chance a working one gets there: the binomial tail P(X ≥ k) under its
+        declared odd rate (``scipy.stats.binom.sf``; 0 when it declares none)."""
+        if sensor not in self._counts:
+            p = self.policy
+            n, rate = p.quarantine_window, self.odd_rates.get(sensor, 0.0)
+            k, chance = min(max(p.quarantine_after, 1), n), 0.0
+            if rate > 0:
+                from scipy.stats import binom
+
+                while k < n and binom.sf(k - 1, n, rate) > p.quarantine_alpha:
+                    k += 1
+                chance = float(binom.sf(k - 1, n, rate))
+            self._counts[sensor] = (k, chance)
+        return self._counts[sensor]
+
+    def _quarantine_changes(self) -> tuple[list[tuple[str, int, int]], list[str]]:
+        """Sensors newly quarantined, each with its count of disagreeing readings and the readings
+        counted; sensors released."""
         p = self.policy
         newly, released = [], []
         for sensor, window in self._history.items():
@@ -151,7 +190,7 @@ class Monitor:
                     self.quarantined.discard(sensor)
                     released.append(sensor)
                 continue
-            if sum(window) < p.quarantine_after:
+            if sum(window) < self.quarantine_count(sensor)[0]:
                 continue
             # The others must vouch for the belief with informative readings, and mostly agree; and
             # at least one of them must be as informative as the suspect: when the richest sensor is
@@ -168,7 +207,7 @@ class Monitor:
                     strongest = max(strongest, _share(self._informed.get(s, ())))
             if others and strongest >= 0.9 * own_share and all(sum(f) / len(f) <= p.others_agree for f in others):
                 self.quarantined.add(sensor)
-                newly.append(sensor)
+                newly.append((sensor, sum(window), len(window)))
                 window.clear()
                 self._agree_run[sensor] = 0
         return newly, released

@@ -53,6 +53,13 @@ def _line_of(text: str, needle: str) -> int:
             "sigma_hit =",
         ),
         ('door = "bay door"', 'door = "dock door"', "sensors[3].door", "no door 'dock door'", "dock door"),
+        (
+            "tick_s = 0.25",
+            "tick_s = 0.25\n[run.policy]\nquarantine_alpha = 5.0",
+            "run.policy.quarantine_alpha",
+            "must be at most 1",
+            "quarantine_alpha",
+        ),
     ],
 )
 def test_malformed_cases_name_file_line_and_field(old, new, field, message, marker):

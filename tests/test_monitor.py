@@ -33,6 +33,42 @@ def test_a_sensor_that_keeps_disagreeing_alone_is_quarantined_and_released():
     assert "door" in m.judge(False, True, []).released
 
 
+def test_quarantine_count_is_the_binomial_tail_of_the_sensors_own_error_rates():
+    # A working camera whose model allows 2% false sightings and 2% misread identities is odd in
+    # 0.02 + 0.98·0.02 = 3.96% of its readings.  Binomial tails over a window of 6 (hand-computed from
+    # the binomial formula, cross-checked with scipy.stats.binom.sf): P(X ≥ 3) = 1.15e-3,
+    # P(X ≥ 4) = 3.46e-5, so at the default alpha 1e-4 it takes 4 of 6; a sensor that declares no
+    # odd readings keeps the policy's floor of 3.
+    from scipy.stats import binom
+
+    rate = 0.02 + 0.98 * 0.02
+    tail3 = sum(binom.pmf(k, 6, rate) for k in range(3, 7))
+    assert abs(tail3 - 20 * rate**3 * (1 - rate) ** 3 - 15 * rate**4 * (1 - rate) ** 2 - 6 * rate**5 * (1 - rate) - rate**6) < 1e-15
+    m = Monitor("bayes", Policy(quarantine_window=6, quarantine_after=3), {"camera": rate, "ranger": 0.0})
+    k, chance = m.quarantine_count("camera")
+    assert k == 4 and abs(chance - binom.sf(3, 6, rate)) < 1e-15 and chance < 1e-4 < tail3
+    assert m.quarantine_count("ranger") == (3, 0.0)
+    assert m.quarantine_count("unnamed") == (3, 0.0)
+    # Three odd readings in six are luck for this camera; a fourth gets it quarantined, and the
+    # reason gives the count and the chance.
+    for odd in (True, False, True, False, True):
+        m.record_reading("camera", odd)
+        m.record_reading("ranger", False)
+        assert m.judge(False, False, []).action != QUARANTINE
+    m.record_reading("camera", True)
+    m.record_reading("ranger", False)
+    verdict = m.judge(False, False, [])
+    assert verdict.action == QUARANTINE and "4 of its last 6 readings" in verdict.reasons[0]
+    assert "chance 3e-05" in verdict.reasons[0]
+
+
+def test_a_sensor_declared_too_noisy_for_its_window_needs_the_whole_window():
+    # Odd in 30% of its readings: even 6 of 6 happens with chance 0.3**6 = 7.3e-4 > 1e-4, so the count
+    # is capped at the window (a sensor odd in every reading is quarantined whatever it declares).
+    m = Monitor("bayes", Policy(quarantine_window=6), {"contact": 0.3})
+    assert m.quarantine_count("contact")[0] == 6
+
+
 def test_no_quarantine_when_everyone_disagrees():
     m = Monitor("evidential", Policy(quarantine_after=2))
     for _ in range(4):

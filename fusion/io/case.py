@@ -537,6 +537,8 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
             r.flag(policy, (*w, "policy"), key)
         elif isinstance(default, int):
             r.number(policy, (*w, "policy"), key, whole=True, low=0)
+        elif key == "quarantine_alpha":  # a chance
+            r.number(policy, (*w, "policy"), key, positive=True, high=1)
         else:
             r.number(policy, (*w, "policy"), key, low=0)
     return RunSpec(tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy))

@@ -73,9 +73,13 @@ class Evidence:
 
 
 class SensorModel(Protocol):
-    """What every sensor model offers: a name and ``encode(reading) -> Evidence``."""
+    """What every sensor model offers: a name, ``encode(reading) -> Evidence``, and ``odd_rate``: the
+    share of a working sensor's readings that its own error model says contradict the true pose
+    (false detections, misread identities, false alarms, misses); the monitor does not quarantine a
+    sensor for disagreeing about as often as that (``fusion.monitor``)."""
 
     name: str
+    odd_rate: float
 
     def encode(self, reading) -> Evidence: ...
 

@@ -46,6 +46,11 @@ class DoorSensor:
                 f"sensor {name!r}: the zone of door {door!r} holds no free cell; check its position, facing and radius"
             )
 
+    @property
+    def odd_rate(self) -> float:
+        """A false alarm away from the door or a miss at it, whichever is likelier (the bound for any route)."""
+        return max(self.params.false_alarm_rate, 1 - self.params.hit_rate)
+
     def likelihood(self, reading) -> np.ndarray:
         active = getattr(reading, "active", reading)
         if not isinstance(active, (bool, np.bool_)):

@@ -78,6 +78,12 @@ class MarkerSensor:
         self._clear = np.stack([self._line_of_sight(m.x, m.y, j) for j, m in enumerate(site.markers)])
         self._miss = None
 
+    @property
+    def odd_rate(self) -> float:
+        """A false detection, or a true one with its identity misread."""
+        p = self.params
+        return p.false_rate + (1 - p.false_rate) * p.confusion
+
     def _line_of_sight(self, mx: float, my: float, j: int) -> np.ndarray:
         """(ny, nx): cells within range from which no wall or rack hides the marker (the simulator's rule)."""
         site, res = self.site, self.grid.resolution_m
