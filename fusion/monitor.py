@@ -3,7 +3,10 @@
 A tick is *conflicting* when its readings disagree with the belief:
 - evidential: Dempster's K above ``conflict_k`` **and** pignistic disagreement above
   ``disagreement`` (two-dimensional conflict, Liu 2006: a large K alone can come from
-  sources that agree but are each uncertain);
+  sources that agree but are each uncertain); or, for a reading whose K is between the clear
+  level and ``conflict_k``, its conflict with the belief's core above ``conflict_k`` (the cells
+  of pignistic probability at least a tenth of the peak; Dempster's normalisation moves mass
+  toward a conflicting reading, so a second one like it conflicts less with the belief);
 - Bayesian: the reading's conflict r·(1 − pl) with the cells the belief still allows above
   ``conflict_k`` (pl: the plausibility of the best fit among them; see ``Localizer`` and
   ``fusion.conflict.fit_plausibility``), or the slow/fast evidence ratio above ``lost_ratio``.
@@ -87,11 +90,14 @@ class Monitor:
         self._agree_run: dict[str, int] = {}
 
     # ----------------------------------------------------------------- per reading
-    def disagrees(self, figure: float, extra: float | None = None) -> bool:
-        """Does one reading's conflict figure count as disagreeing with the belief?"""
+    def disagrees(self, figure: float, extra: float | None = None, core: float | None = None) -> bool:
+        """Does one reading's conflict figure count as disagreeing with the belief?  Evidential: ``extra``
+        is the pignistic disagreement, ``core`` the conflict with the belief's core (its likeliest cells),
+        when the reading's K is short of the threshold yet not clear."""
         p = self.policy
         if self.backend == "evidential":
-            return figure > p.conflict_k and (extra is None or extra > p.disagreement)
+            two_dimensional = figure > p.conflict_k and (extra is None or extra > p.disagreement)
+            return two_dimensional or (core is not None and core > p.conflict_k)
         return figure > p.conflict_k
 
     def record_reading(self, sensor: str, disagree: bool, informative: float = 1.0) -> None:

@@ -87,3 +87,35 @@ def test_evidence_ratio_rises_when_readings_stop_matching():
     for _ in range(5):
         avg.add(math.log(0.01))
     assert avg.ratio > 5.0
+
+
+def test_support_conflict_is_dempsters_k_with_the_categorical_core():
+    # For a consonant mass function, pl(A) = max over A of its contour, and its conflict with the
+    # categorical mass function on A is 1 − pl(A) (Shafer 1976, ch. 10); discounting at rate 1 − r
+    # scales it by r.  Contour values on the quantisation levels 1, 1/2, 1/4, ... keep it exact.
+    import numpy as np
+
+    from fusion.belief import rules
+    from fusion.belief.mass import MassFunction
+    from fusion.localizer import CORE_SHARE, Localizer
+    from fusion.sensors.base import Evidence
+
+    rng = np.random.default_rng(5)
+    for _ in range(20):
+        contour = 0.5 ** rng.integers(0, 6, size=40).astype(float)
+        contour[rng.integers(40)] = 1.0
+        ev = Evidence("camera", contour, reliability=float(rng.uniform(0.5, 1.0)), levels=6)
+        p = rng.dirichlet(np.full(40, 0.3))
+        core = np.flatnonzero(p >= CORE_SHARE * p.max())
+        expected = rules.conflict_mass(MassFunction.categorical(40, core), ev.masses)
+        assert abs(Localizer._support_conflict(p, ev, CORE_SHARE) - expected) < 1e-12
+
+
+def test_evidential_reading_disagrees_with_the_core_even_below_the_k_threshold():
+    from fusion.monitor import Monitor, Policy
+
+    m = Monitor("evidential", Policy(conflict_k=0.8, disagreement=0.3))
+    assert m.disagrees(0.63, core=0.9)  # the belief was swayed toward an earlier ghost sighting
+    assert not m.disagrees(0.63, core=0.44)
+    assert not m.disagrees(0.9, extra=0.0)  # Liu (2006): large K, no pignistic disagreement
+    assert m.disagrees(0.9, extra=0.5)
