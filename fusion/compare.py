@@ -429,10 +429,12 @@ def _quiet_worker() -> None:
 _ONE_THREAD = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
 
 
-def run_in_processes(jobs, workers, address, finished, failed, order=None) -> None:
+def run_in_processes(jobs, workers, address, finished, failed, order=None, target=None) -> None:
     """Run ``run_one(*job)`` for every job on ``workers`` fresh local processes, reporting each result
     to ``finished`` (or its exception to ``failed``) as soon as it is ready.  ``order(remaining)``, if
-    given, is asked for the next job each time a worker comes free (so it can use the runs that landed)."""
+    given, is asked for the next job each time a worker comes free (so it can use the runs that landed).
+    ``target``: a module-level function to call instead of ``run_one``."""
+    target = run_one if target is None else target
     import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
@@ -451,7 +453,7 @@ def run_in_processes(jobs, workers, address, finished, failed, order=None) -> No
                     waiting[:] = order(waiting)
                 job = waiting.pop(0)
                 try:
-                    pending[pool.submit(run_one, *job)] = job
+                    pending[pool.submit(target, *job)] = job
                     return
                 except RuntimeError as err:  # a broken pool (a worker died): every run left fails, none hangs
                     failed(job, err)

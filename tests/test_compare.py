@@ -3,6 +3,7 @@
 import dataclasses
 import json
 import math
+import os
 from pathlib import Path
 
 import numpy as np
@@ -253,6 +254,22 @@ def test_each_next_run_is_chosen_when_a_worker_comes_free(tmp_path):
     run_in_processes(jobs, 1, None, landed.append, lambda job, err: pytest.fail(str(err)), order)
     assert asked == [3, 2, 1] and [r["seed"] for r in landed] == [1, 2, 3]
     assert all(r["wall_s"] > 0 for r in landed)
+
+
+def _die_on(word: str) -> dict:
+    """A stand-in run for the pool test: ``"die"`` ends its worker process at once."""
+    if word == "die":
+        os._exit(3)
+    return {"word": word}
+
+
+def test_a_worker_that_dies_fails_the_runs_left_and_nothing_hangs():
+    # The first run takes its worker down: the pool breaks, and the runs not yet handed out can never
+    # start.  Each is reported failed, none is lost silently, and the call returns.
+    landed, failures = [], []
+    jobs = [("die",), ("b",), ("c",)]
+    run_in_processes(jobs, 1, None, landed.append, lambda job, err: failures.append(job), target=_die_on)
+    assert landed == [] and sorted(failures) == sorted(jobs)
 
 
 def test_sweep_refuses_a_folder_of_another_case(tmp_path):
