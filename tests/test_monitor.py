@@ -43,7 +43,12 @@ def test_quarantine_count_is_the_binomial_tail_of_the_sensors_own_error_rates():
 
     rate = 0.02 + 0.98 * 0.02
     tail3 = sum(binom.pmf(k, 6, rate) for k in range(3, 7))
-    assert abs(tail3 - 20 * rate**3 * (1 - rate) ** 3 - 15 * rate**4 * (1 - rate) ** 2 - 6 * rate**5 * (1 - rate) - rate**6) < 1e-15
+    assert (
+        abs(
+            tail3 - 20 * rate**3 * (1 - rate) ** 3 - 15 * rate**4 * (1 - rate) ** 2 - 6 * rate**5 * (1 - rate) - rate**6
+        )
+        < 1e-15
+    )
     m = Monitor("bayes", Policy(quarantine_window=6, quarantine_after=3), {"camera": rate, "ranger": 0.0})
     k, chance = m.quarantine_count("camera")
     assert k == 4 and abs(chance - binom.sf(3, 6, rate)) < 1e-15 and chance < 1e-4 < tail3
