@@ -318,9 +318,9 @@ class Localizer:
         # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
         blame = self._leave_one_out(before, undiscounted) if tick_conflicting or (self.explain and busy) else []
         self._remember(before, motion, applied, undiscounted)
-        dissenters = self._dissenters() if tick_conflicting and self._would_act() else None
-        moved = self._moved_elsewhere(dissenters) if dissenters and len(dissenters) >= 2 else None
-        persistent = dissenters is None or bool(dissenters)
+        voices = self._dissenters() if tick_conflicting and self._would_act() else None
+        moved = self._moved_elsewhere(voices[1]) if voices and len(voices[1]) >= 2 else None
+        persistent = voices is None or bool(voices[0])
         verdict = self.monitor.judge(tick_conflicting, tick_clear and not tick_conflicting, blame, moved, persistent)
         if tick_clear and not tick_conflicting:
             self._episode.clear()
@@ -416,23 +416,39 @@ class Localizer:
                 ref.predict(motion)
         return ref.belief if self.backend == "evidential" else ref.belief.probabilities
 
-    def _dissenters(self) -> set[str]:
-        """The sensors whose readings of this episode, as given, disagree with the belief the episode
-        started from, carried along by the odometry alone: their weights of conflict −log(1 − K) with
-        it, added up (weights of independent conflicts add, Shafer 1976), reach twice the weight of the
-        conflict threshold.  Against the belief of the moment, one faulty reading absorbed would make
-        the next good reading disagree with it; and one odd reading of a good sensor, at the time of
-        another's fault, is not yet a second voice."""
+    def _dissenters(self) -> tuple[set[str], set[str]]:
+        """Who disagrees with where the robot was: this episode's readings, as given, against the belief the
+        episode started from, carried along by the odometry alone (``_anchor``).  Against the belief of the
+        moment, one faulty reading absorbed would make the next good reading disagree with it.  Two sets:
+
+        - persistent: sensors whose weights of conflict −log(1 − K) with it, added up (weights of
+          independent conflicts add, Shafer 1976), reach twice the weight of the conflict threshold; one
+          odd reading of a good sensor, at the time of another's fault, is not yet a second voice;
+        - against: the sensors that testify to a move (``_moved_elsewhere`` wants two).  The persistent
+          ones, and, when exactly one is persistent and no sensor's informative reading (ruling out at
+          least half the site, see ``_informative``) still fits the old place, also the sensors each of
+          whose informative readings disagrees with it.  A camera that sees a marker once in two ticks
+          cannot reach twice the weight with one sighting (its reliability caps K), yet that sighting
+          rules the old place out; while a ranger that still fits the old place says a stuck contact
+          and a lone odd sighting are faults, not a move.
+        """
         weights: dict[str, float] = {}
+        odd: dict[str, list[bool]] = {}
+        single = weight_of_conflict(self.policy.conflict_k)
         reference = self._anchor
         for i, (motion, _, given) in enumerate(self._episode):
             if i:
                 reference = self._dead_reckoned(reference, [motion])
             for sensor, evidence in given:
-                figure = self._conflict_with(reference, evidence)
-                weights[sensor] = weights.get(sensor, 0.0) + weight_of_conflict(figure)
-        enough = 2.0 * weight_of_conflict(self.policy.conflict_k)
-        return {sensor for sensor, w in weights.items() if w >= enough}
+                weight = weight_of_conflict(self._conflict_with(reference, evidence))
+                weights[sensor] = weights.get(sensor, 0.0) + weight
+                if self._informative(evidence) >= 0.5:
+                    odd.setdefault(sensor, []).append(weight > single)
+        persistent = {sensor for sensor, w in weights.items() if w >= 2.0 * single}
+        unanimous = {sensor for sensor, flags in odd.items() if all(flags)}
+        if len(persistent) == 1 and set(odd) <= persistent | unanimous:
+            return persistent, persistent | unanimous
+        return persistent, persistent
 
     def _leave_one_out(self, before, applied) -> list[tuple[str, float]]:
         """For each sensor of this tick: how much the tick's conflict falls when its reading is left out."""

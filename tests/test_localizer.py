@@ -122,6 +122,60 @@ def test_a_carried_robot_is_reseeded_from_readings_that_agree_elsewhere():
     assert "probably moved" in reason and "bumper ranger" in reason and "rack camera" in reason
 
 
+def test_one_camera_sighting_seconds_the_ranger_when_the_robot_is_carried():
+    # Seed 28 of the carried case: the camera sees a marker once in the two ticks after the put-down.
+    # Its K is at most its reliability r = 0.9 (a discounted reading keeps 1 − r on the whole frame,
+    # Shafer 1976), so one sighting weighs at most −log(1 − 0.9) ≈ 2.30, short of twice the weight of
+    # the threshold, 2·(−log(1 − 0.8)) ≈ 3.22: on weights alone it is no second voice.  Every informative
+    # reading it gave disagrees with where the robot was, so it seconds the ranger, the trial agrees at
+    # the new place, and the robot is re-seeded on the second tick after the carry.
+    from fusion.monitor import QUARANTINE, RELOCALIZE
+    from fusion.targets import RECOVERY_DEG, RECOVERY_M, _seeded
+
+    case = _seeded(load_case(Path(__file__).parents[1] / "cases" / "carried.toml"), 28)
+    camera = case.sensor("rack camera").params.reliability
+    assert -math.log(1 - camera) < 2 * -math.log(1 - 0.8)  # the premise: one sighting cannot reach the weight
+    ticks = simulate(case)
+    loc = Localizer.from_case(case, "bayes")
+    loc.start_at(ticks[0].truth.x_m, ticks[0].truth.y_m, ticks[0].truth.heading_deg)
+    start = next(i for i, tick in enumerate(ticks) if tick.truth.carried)
+    decisions = []
+    for tick in ticks[: start + 3]:
+        odometry = next(o for o in tick.observations if o.kind == "odometry")
+        decisions.append(loc.step(odometry, [o for o in tick.observations if o.kind != "odometry"]))
+    after = decisions[start:]
+    sightings = [o for tick in ticks[start : start + 2] for o in tick.observations if o.sensor == "rack camera"]
+    assert len(sightings) == 1
+    assert [d.action for d in after[:2]] == ["carry on", RELOCALIZE] and QUARANTINE not in [d.action for d in after]
+    assert "bumper ranger and rack camera disagree" in after[1].reasons[0]
+    truth = ticks[start + 2].truth
+    assert math.hypot(after[2].x_m - truth.x_m, after[2].y_m - truth.y_m) <= RECOVERY_M
+    assert abs((after[2].heading_deg - truth.heading_deg + 180) % 360 - 180) <= RECOVERY_DEG
+
+
+def test_a_ranger_that_still_fits_the_old_place_vetoes_a_seconded_move():
+    # Seed 5 of the stuck-contact case: the chiller contact sticks at 15 s, and at 15.5 s the camera's
+    # one sighting of the episode also disagrees with where the robot was.  The ranger's readings still
+    # fit that place, so the sighting does not second the contact: the trial re-seed (which would have
+    # settled 12 m away, by the door, where the ranger fits too) is not tried, and the contact is named.
+    from fusion.monitor import ALERT, RELOCALIZE
+    from fusion.targets import _seeded
+
+    case = _seeded(load_case(Path(__file__).parents[1] / "cases" / "stuck_door.toml"), 5)
+    ticks = [tick for tick in simulate(case) if tick.truth.t <= 17.0]
+    loc = Localizer.from_case(case, "bayes")
+    loc.start_at(ticks[0].truth.x_m, ticks[0].truth.y_m, ticks[0].truth.heading_deg)
+    decisions = []
+    for tick in ticks:
+        odometry = next(o for o in tick.observations if o.kind == "odometry")
+        decisions.append(loc.step(odometry, [o for o in tick.observations if o.kind != "odometry"]))
+    assert RELOCALIZE not in [d.action for d in decisions]
+    alerts = [d for d in decisions if d.action == ALERT]
+    assert alerts and "chiller contact" in alerts[0].reasons[0]
+    truth = ticks[-1].truth
+    assert math.hypot(decisions[-1].x_m - truth.x_m, decisions[-1].y_m - truth.y_m) <= 0.5
+
+
 def _replayed(case, backend, extra):
     """Run the test bay's simulated ticks through a localizer, adding ``extra[i]`` (a list of
     observations made at tick i's time) to tick i; returns the decisions."""
