@@ -6,7 +6,9 @@ Evidential side
 - Jousselme distance between two mass functions (Jousselme, Grenier & Bossé 2001);
 - pignistic disagreement max_A |BetP1(A) − BetP2(A)| = ½ Σ_x |BetP1(x) − BetP2(x)|
   (Liu 2006, "Analyzing the degree of conflict among belief functions": K alone
-  can be large for agreeing sources; conflict needs both K and this to be large).
+  can be large for agreeing sources; conflict needs both K and this to be large);
+- pairwise conflict: K between each two sensors' readings of one tick, with no belief involved
+  (do the sensors themselves point to different places?).
 
 Bayesian side
 - predictive surprise −log p(z | past) = −log Σ_x p(x) L(x) for the reading's
@@ -28,10 +30,17 @@ import math
 import numpy as np
 from scipy.special import gammaincc
 
-from fusion.belief import bitset
+from fusion.belief import bitset, rules
 from fusion.belief.mass import FocalAccumulator, MassFunction, check_same_frame
 
-__all__ = ["fit_plausibility", "weight_of_conflict", "jousselme_distance", "pignistic_disagreement", "EvidenceAverages"]
+__all__ = [
+    "fit_plausibility",
+    "weight_of_conflict",
+    "jousselme_distance",
+    "pignistic_disagreement",
+    "pairwise_conflict",
+    "EvidenceAverages",
+]
 
 
 def weight_of_conflict(k: float) -> float:
@@ -76,6 +85,21 @@ def jousselme_distance(m1: MassFunction, m2: MassFunction) -> float:
 def pignistic_disagreement(p1: np.ndarray, p2: np.ndarray) -> float:
     """max over sets A of |P1(A) − P2(A)| for two probability vectors: half their L1 distance."""
     return float(0.5 * np.abs(np.asarray(p1) - np.asarray(p2)).sum())
+
+
+def pairwise_conflict(readings) -> list[tuple[str, str, float]]:
+    """Dempster's K between each two sensors' mass functions, ``readings`` being (sensor, Evidence)
+    pairs (a sensor's first reading counts), largest first."""
+    first: dict[str, object] = {}
+    for sensor, evidence in readings:
+        first.setdefault(sensor, evidence)
+    names = sorted(first)
+    pairs = [
+        (a, b, rules.conflict_mass(first[a].masses, first[b].masses))
+        for i, a in enumerate(names)
+        for b in names[i + 1 :]
+    ]
+    return sorted(pairs, key=lambda pair: -pair[2])
 
 
 class EvidenceAverages:

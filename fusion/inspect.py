@@ -37,7 +37,7 @@ from pathlib import Path
 import numpy as np
 
 from fusion import SAFETY_NOTICE, __version__
-from fusion.belief import rules
+from fusion.conflict import pairwise_conflict
 from fusion.episodes import Episode, EpisodeFinder, blame_shares
 from fusion.errors import FusionError, ObservationError
 from fusion.io.case import Case
@@ -407,14 +407,11 @@ class _Replay:
 
     def _pairs(self, ep: Episode, readings) -> None:
         """Conflict K between each two sensors' readings of this tick (first reading of each sensor)."""
-        by_sensor: dict[str, object] = {}
+        first: dict[str, Observation] = {}
         for obs in readings:
-            by_sensor.setdefault(obs.sensor, obs)
-        names = sorted(by_sensor)
-        for i, a in enumerate(names):
-            for b in names[i + 1 :]:
-                ea, eb = self.sensors.encode(by_sensor[a]), self.sensors.encode(by_sensor[b])
-                ep.pairs[(a, b)].append(rules.conflict_mass(ea.masses, eb.masses))
+            first.setdefault(obs.sensor, obs)
+        for a, b, k in pairwise_conflict([(sensor, self.sensors.encode(obs)) for sensor, obs in first.items()]):
+            ep.pairs[(a, b)].append(k)
 
     def _close(self, ep: Episode) -> None:
         self.found.episodes.append(ep)

@@ -31,13 +31,14 @@ from fusion.conflict import (
     EvidenceAverages,
     fit_plausibility,
     jousselme_distance,
+    pairwise_conflict,
     pignistic_disagreement,
     weight_of_conflict,
 )
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
-from fusion.monitor import CARRY_ON, RELOCALIZE, Monitor, Policy
+from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
 from fusion.sensors.base import Evidence
 from fusion.sensors.doors import DoorSensor
 from fusion.sensors.markers import MarkerSensor
@@ -119,6 +120,9 @@ class Decision:
     quarantined: tuple[str, ...]
     rejected: list[tuple[str, str]] = field(default_factory=list)  # (sensor, reason)
     seconds: float = 0.0
+    pairs: list[tuple[str, str, float]] = field(
+        default_factory=list
+    )  # at an alert or quarantine: K between two sensors' readings
 
     def to_record(self) -> dict:
         def clean(v):
@@ -141,6 +145,7 @@ class Decision:
             "quarantined": list(self.quarantined),
             "rejected": [{"sensor": s, "reason": r} for s, r in self.rejected],
             "seconds": round(self.seconds, 6),
+            "pairwise_conflict": [[a, b, round(k, 6)] for a, b, k in self.pairs],
         }
 
 
@@ -326,7 +331,15 @@ class Localizer:
             self._episode.clear()
         if verdict.action == RELOCALIZE and not moved:  # a move found elsewhere has re-seeded already
             self._relocalize()
-        return self._decision(t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start)
+        pairs = pairwise_conflict(undiscounted) if verdict.action in (ALERT, QUARANTINE) else []
+        if pairs and pairs[0][2] > 0:
+            a, b, k = pairs[0]
+            verdict.reasons.append(f"of this tick's readings, {a} and {b} conflict most with each other (K {k:.2f})")
+        decision = self._decision(
+            t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start
+        )
+        decision.pairs = pairs
+        return decision
 
     def _decision(self, t, action, reasons, figures, blame, quarantined, rejected, start) -> Decision:
         est = self.filter.pose_estimate()

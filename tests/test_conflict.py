@@ -10,6 +10,7 @@ from fusion.conflict import (
     EvidenceAverages,
     fit_plausibility,
     jousselme_distance,
+    pairwise_conflict,
     pignistic_disagreement,
     weight_of_conflict,
 )
@@ -24,6 +25,20 @@ def test_zadeh_weight_of_conflict():
     assert_close(weight_of_conflict(k), math.log(1e4), tol=1e-9)
     assert abs(weight_of_conflict(k) - 9.21) < 0.005
     assert weight_of_conflict(1.0) == math.inf
+
+
+def test_pairwise_conflict_of_zadehs_two_experts_and_of_sources_that_agree():
+    # Zadeh (1984): the two experts' diagnoses conflict with K = 0.9999, whichever comes first; a source
+    # conflicts with nobody it agrees with (a vacuous third source: K = 0, Shafer 1976).
+    from types import SimpleNamespace
+
+    first = SimpleNamespace(masses=MassFunction.from_focal(3, {(0,): 0.99, (2,): 0.01}))
+    second = SimpleNamespace(masses=MassFunction.from_focal(3, {(1,): 0.99, (2,): 0.01}))
+    vacuous = SimpleNamespace(masses=MassFunction.from_focal(3, {(0, 1, 2): 1.0}))
+    pairs = pairwise_conflict([("second", second), ("first", first), ("vague", vacuous), ("first", vacuous)])
+    assert [(a, b) for a, b, _ in pairs] == [("first", "second"), ("first", "vague"), ("second", "vague")]
+    assert_close(pairs[0][2], 0.9999, tol=1e-12)  # a sensor's first reading counts: "first" is not vacuous
+    assert pairs[1][2] == pairs[2][2] == 0.0
 
 
 def test_fit_plausibility_is_the_chi_square_survival_of_the_relative_likelihood():

@@ -172,6 +172,11 @@ def test_a_ranger_that_still_fits_the_old_place_vetoes_a_seconded_move():
     assert RELOCALIZE not in [d.action for d in decisions]
     alerts = [d for d in decisions if d.action == ALERT]
     assert alerts and "chiller contact" in alerts[0].reasons[0]
+    # The alert also gives the pairwise conflict of the tick's own readings: the contact saying "here,
+    # by the door" against the ranger's view of an aisle away from it (K 0.40 on this seed).
+    top = alerts[0].to_record()["pairwise_conflict"][0]
+    assert "chiller contact" in top[:2] and top[2] > 0.3, top
+    assert "conflict most with each other" in alerts[0].reasons[-1]
     truth = ticks[-1].truth
     assert math.hypot(decisions[-1].x_m - truth.x_m, decisions[-1].y_m - truth.y_m) <= 0.5
 
