@@ -38,7 +38,7 @@ from fusion.conflict import (
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
-from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
+from fusion.monitor import ALERT, CARRY_ON, INFORMATIVE, QUARANTINE, RELOCALIZE, Monitor, Policy
 from fusion.sensors.base import Evidence
 from fusion.sensors.doors import DoorSensor
 from fusion.sensors.markers import MarkerSensor
@@ -120,9 +120,8 @@ class Decision:
     quarantined: tuple[str, ...]
     rejected: list[tuple[str, str]] = field(default_factory=list)  # (sensor, reason)
     seconds: float = 0.0
-    pairs: list[tuple[str, str, float]] = field(
-        default_factory=list
-    )  # at an alert or quarantine: K between two sensors' readings
+    # At an alert or a quarantine: Dempster's K between each two sensors' readings of the tick.
+    pairs: list[tuple[str, str, float]] = field(default_factory=list)
 
     def to_record(self) -> dict:
         def clean(v):
@@ -323,11 +322,11 @@ class Localizer:
         # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
         blame = self._leave_one_out(before, undiscounted) if tick_conflicting or (self.explain and busy) else []
         self._remember(before, motion, applied, undiscounted)
-        voices = self._dissenters() if tick_conflicting and self._would_act() else None
-        moved = self._moved_elsewhere(voices[1]) if voices and len(voices[1]) >= 2 else None
-        persistent = voices is None or bool(voices[0])
-        verdict = self.monitor.judge(tick_conflicting, tick_clear and not tick_conflicting, blame, moved, persistent)
-        if tick_clear and not tick_conflicting:
+        persistent, against = self._dissenters() if tick_conflicting and self._would_act() else (None, set())
+        moved = self._moved_elsewhere(against) if len(against) >= 2 else None
+        calm = tick_clear and not tick_conflicting
+        verdict = self.monitor.judge(tick_conflicting, calm, blame, moved, persistent is None or bool(persistent))
+        if calm:
             self._episode.clear()
         if verdict.action == RELOCALIZE and not moved:  # a move found elsewhere has re-seeded already
             self._relocalize()
@@ -335,13 +334,11 @@ class Localizer:
         if pairs and pairs[0][2] > 0:
             a, b, k = pairs[0]
             verdict.reasons.append(f"of this tick's readings, {a} and {b} conflict most with each other (K {k:.2f})")
-        decision = self._decision(
-            t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start
+        return self._decision(
+            t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start, pairs
         )
-        decision.pairs = pairs
-        return decision
 
-    def _decision(self, t, action, reasons, figures, blame, quarantined, rejected, start) -> Decision:
+    def _decision(self, t, action, reasons, figures, blame, quarantined, rejected, start, pairs=()) -> Decision:
         est = self.filter.pose_estimate()
         return Decision(
             t,
@@ -358,6 +355,7 @@ class Localizer:
             quarantined,
             rejected,
             time.perf_counter() - start,
+            list(pairs),
         )
 
     def _unchanged(self, t, rejected, start) -> Decision:
@@ -455,7 +453,7 @@ class Localizer:
             for sensor, evidence in given:
                 weight = weight_of_conflict(self._conflict_with(reference, evidence))
                 weights[sensor] = weights.get(sensor, 0.0) + weight
-                if self._informative(evidence) >= 0.5:
+                if self._informative(evidence) >= INFORMATIVE:
                     odd.setdefault(sensor, []).append(weight > single)
         persistent = {sensor for sensor, w in weights.items() if w >= 2.0 * single}
         unanimous = {sensor for sensor, flags in odd.items() if all(flags)}

@@ -38,12 +38,15 @@ from __future__ import annotations
 from collections import deque
 from dataclasses import dataclass, field
 
-__all__ = ["Policy", "Monitor", "TickVerdict", "CARRY_ON", "ALERT", "RELOCALIZE", "QUARANTINE"]
+__all__ = ["Policy", "Monitor", "TickVerdict", "CARRY_ON", "ALERT", "RELOCALIZE", "QUARANTINE", "INFORMATIVE"]
 
 CARRY_ON = "carry on"
 ALERT = "alert operator"
 RELOCALIZE = "re-localize"
 QUARANTINE = "quarantine sensor"
+
+INFORMATIVE = 0.5
+"""A reading is informative when it rules out at least this share of the site (our choice)."""
 
 
 @dataclass(frozen=True)
@@ -103,11 +106,11 @@ class Monitor:
     def record_reading(self, sensor: str, disagree: bool, informative: float = 1.0) -> None:
         """``informative``: the share of the site the reading rules out (a door contact that is quiet far
         from any door rules out almost nothing, so it agrees with almost every belief and cannot vouch
-        for one); readings ruling out at least half the site count as informative."""
+        for one); readings ruling out at least half the site (``INFORMATIVE``) count as informative."""
         window = self._history.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))
         window.append(disagree)
         informed = self._informed.setdefault(sensor, deque(maxlen=self.policy.quarantine_window))
-        informed.append(float(informative) if not disagree else max(float(informative), 0.5))
+        informed.append(float(informative) if not disagree else max(float(informative), INFORMATIVE))
         self._agree_run[sensor] = 0 if disagree else self._agree_run.get(sensor, 0) + 1
 
     # ----------------------------------------------------------------- per tick
@@ -207,7 +210,7 @@ class Monitor:
             for s, w in self._history.items():
                 if s == sensor or s in self.quarantined:
                     continue
-                flags = [d for d, i in zip(w, self._informed.get(s, ())) if i >= 0.5]
+                flags = [d for d, i in zip(w, self._informed.get(s, ())) if i >= INFORMATIVE]
                 if len(flags) >= 2:
                     others.append(flags)
                     strongest = max(strongest, _share(self._informed.get(s, ())))
