@@ -33,7 +33,7 @@ def _run(args: argparse.Namespace) -> int:
     from fusion.io.case import load_case
     from fusion.runner import run_case, write_results
     from fusion.simulate import simulate
-    from fusion.tui import RunView, summary_table
+    from fusion.tui import RunView, actions_timeline, summary_table
 
     case = load_case(args.case)  # validated before anything is written
     if getattr(args, "calibration", None):
@@ -58,7 +58,7 @@ def _run(args: argparse.Namespace) -> int:
     folder = write_results(result, out_dir)
     console.print(summary_table(result.summary()))
     if result.events:
-        console.print(f"{len(result.events)} monitor actions; see summary.json for each with its reasons.")
+        console.print(actions_timeline(result))
     console.print(
         f"results written to [bold]{folder}[/] (observations.jsonl, truth.jsonl, steps.csv, summary.json, timing.json)"
     )

@@ -13,6 +13,7 @@ import math
 
 import numpy as np
 from rich.console import Group
+from rich.padding import Padding
 from rich.panel import Panel
 from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
@@ -20,7 +21,16 @@ from rich.text import Text
 
 from fusion import SAFETY_NOTICE
 
-__all__ = ["RunView", "belief_map", "coarse_plane", "draw_plane", "sparkline", "summary_table", "BACKEND_TITLES"]
+__all__ = [
+    "RunView",
+    "actions_timeline",
+    "belief_map",
+    "coarse_plane",
+    "draw_plane",
+    "sparkline",
+    "summary_table",
+    "BACKEND_TITLES",
+]
 
 _SHADES = " ·░▒▓█"
 _SPARKS = "▁▂▃▄▅▆▇█"
@@ -186,3 +196,35 @@ def summary_table(summary: dict) -> Table:
         "times are one core of this machine."
     )
     return table
+
+
+CARRY_CONTEXT_TICKS = 10
+"""Ticks after a carry during which an action is shown as coming just after it (the recovery target's window)."""
+
+
+def actions_timeline(result, limit: int = 20) -> Panel:
+    """The run's monitor actions (all but "carry on"), each with what the simulator was injecting at the
+    time, so a reader can tell a caught fault from a false alarm, and its first reason; the first
+    ``limit``, the rest counted."""
+    truths = [tick.truth for tick in result.ticks]
+    index = {truth.t: i for i, truth in enumerate(truths)}
+    carried = [i for i, truth in enumerate(truths) if truth.carried]
+    lines = []
+    for event in result.events[:limit]:
+        i = index.get(event["t"])
+        injected = list(truths[i].faults) if i is not None else []
+        last = max((c for c in carried if i is not None and c <= i), default=None)
+        if last is not None and i - last <= CARRY_CONTEXT_TICKS:
+            injected.append(f"carried {truths[i].t - truths[last].t:.2f} s ago")
+        head = Text.from_markup(f"[bold]{event['t']:6.2f} s[/] {event['backend']:<10} [bold]{event['action']:<17}[/]")
+        head.append(f" injected: {', '.join(injected) or 'nothing'}", style="cyan" if injected else "yellow")
+        lines.append(head)
+        if event["reasons"]:
+            lines.append(Padding(Text(event["reasons"][0], style="dim"), (0, 0, 0, 9)))
+    left = len(result.events) - limit
+    footer = (f"{left} more; " if left > 0 else "") + (
+        "every action's reasons are in summary.json. \"injected: nothing\" means a false alarm or a sensor's "
+        "own odd reading, by the simulator's record."
+    )
+    lines.append(Text(footer, style="dim italic"))
+    return Panel(Group(*lines), title=f"monitor actions ({len(result.events)})", border_style="magenta")

@@ -219,3 +219,35 @@ def test_two_lone_odd_readings_of_two_sensors_raise_no_alert_but_a_stuck_one_doe
     stuck = _replayed(case, backend, {i: [door] for i in range(22, 30)})
     acted = [d for d in stuck if d.action in (ALERT, QUARANTINE)]
     assert acted and all("contact" in " ".join(d.reasons) for d in acted[:1])
+
+
+def test_the_actions_timeline_says_what_was_injected_at_each_action():
+    from types import SimpleNamespace
+
+    from rich.console import Console
+
+    from fusion.simulate import Tick, TruePose
+    from fusion.tui import CARRY_CONTEXT_TICKS, actions_timeline
+
+    truths = [TruePose(0.25 * i, 1.0, 1.0, 0.0) for i in range(40)]
+    truths[4] = TruePose(1.0, 1.0, 1.0, 0.0, faults=("door: stuck",))
+    truths[20] = TruePose(5.0, 9.0, 1.0, 0.0, carried=True)
+    events = [
+        {"t": 1.0, "backend": "bayes", "action": "alert operator", "reasons": ["door disagrees"]},
+        {"t": 2.0, "backend": "bayes", "action": "alert operator", "reasons": ["a lone odd reading"]},
+        {"t": 5.5, "backend": "evidential", "action": "re-localize", "reasons": ["probably moved"]},
+        {"t": 0.25 * (20 + CARRY_CONTEXT_TICKS + 1), "backend": "bayes", "action": "alert operator", "reasons": []},
+    ]
+    result = SimpleNamespace(ticks=[Tick(t) for t in truths], events=events)
+    console = Console(record=True, width=100)
+    console.print(actions_timeline(result, limit=3))
+    text = console.export_text()
+    assert "monitor actions (4)" in text and "1 more;" in text
+    lines = [line for line in text.splitlines() if " s " in line]
+    assert "injected: door: stuck" in lines[0] and "door disagrees" in text
+    assert "injected: nothing" in lines[1]
+    assert "injected: carried 0.50 s ago" in lines[2] and "probably moved" in text
+    whole = Console(record=True, width=100)
+    whole.print(actions_timeline(result))
+    late = f"{events[-1]['t']:.2f} s"  # one tick past the carry's window: no longer "just carried"
+    assert "injected: nothing" in [line for line in whole.export_text().splitlines() if late in line][0]
