@@ -19,6 +19,7 @@ from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
+from fusion.compare import RECOVERY_DEG, RECOVERY_M, RECOVERY_TICKS  # one definition of recovery
 from fusion.io.case import load_case
 from fusion.monitor import CARRY_ON, QUARANTINE, RELOCALIZE
 from fusion.runner import run_case
@@ -33,8 +34,6 @@ FAULT_CASES = {
     "calm": None,
 }
 ATTRIBUTION_CASES = {"stuck_door": "chiller contact", "ghost": "rack camera", "people": "bumper ranger"}
-RECOVERY_TICKS = 10
-RECOVERY_M, RECOVERY_DEG = 0.5, 15.0
 
 
 @dataclass(frozen=True)

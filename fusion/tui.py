@@ -198,14 +198,14 @@ def summary_table(summary: dict) -> Table:
     return table
 
 
-CARRY_CONTEXT_TICKS = 10
-"""Ticks after a carry during which an action is shown as coming just after it (the recovery target's window)."""
-
-
 def actions_timeline(result, limit: int = 20) -> Panel:
-    """The run's monitor actions (all but "carry on"), each with what the simulator was injecting at the
+    """The run's monitor events (every action but "carry on", and a "carry on" that gives a reason, such as a
+    lifted quarantine), each with what the simulator was injecting at the
     time, so a reader can tell a caught fault from a false alarm, and its first reason; the first
-    ``limit``, the rest counted."""
+    ``limit``, the rest counted.  An action up to ``CARRY_WINDOW_TICKS`` after a carry (the window in
+    which ``fusion compare`` counts an alert as detecting it) is shown as coming just after it."""
+    from fusion.compare import CARRY_WINDOW_TICKS
+
     truths = [tick.truth for tick in result.ticks]
     index = {truth.t: i for i, truth in enumerate(truths)}
     carried = [i for i, truth in enumerate(truths) if truth.carried]
@@ -214,7 +214,7 @@ def actions_timeline(result, limit: int = 20) -> Panel:
         i = index.get(event["t"])
         injected = list(truths[i].faults) if i is not None else []
         last = max((c for c in carried if i is not None and c <= i), default=None)
-        if last is not None and i - last <= CARRY_CONTEXT_TICKS:
+        if last is not None and i - last <= CARRY_WINDOW_TICKS:
             injected.append(f"carried {truths[i].t - truths[last].t:.2f} s ago")
         head = Text.from_markup(f"[bold]{event['t']:6.2f} s[/] {event['backend']:<10} [bold]{event['action']:<17}[/]")
         head.append(f" injected: {', '.join(injected) or 'nothing'}", style="cyan" if injected else "yellow")

@@ -226,8 +226,9 @@ def test_the_actions_timeline_says_what_was_injected_at_each_action():
 
     from rich.console import Console
 
+    from fusion.compare import CARRY_WINDOW_TICKS
     from fusion.simulate import Tick, TruePose
-    from fusion.tui import CARRY_CONTEXT_TICKS, actions_timeline
+    from fusion.tui import actions_timeline
 
     truths = [TruePose(0.25 * i, 1.0, 1.0, 0.0) for i in range(40)]
     truths[4] = TruePose(1.0, 1.0, 1.0, 0.0, faults=("door: stuck",))
@@ -236,7 +237,7 @@ def test_the_actions_timeline_says_what_was_injected_at_each_action():
         {"t": 1.0, "backend": "bayes", "action": "alert operator", "reasons": ["door disagrees"]},
         {"t": 2.0, "backend": "bayes", "action": "alert operator", "reasons": ["a lone odd reading"]},
         {"t": 5.5, "backend": "evidential", "action": "re-localize", "reasons": ["probably moved"]},
-        {"t": 0.25 * (20 + CARRY_CONTEXT_TICKS + 1), "backend": "bayes", "action": "alert operator", "reasons": []},
+        {"t": 0.25 * (20 + CARRY_WINDOW_TICKS + 1), "backend": "bayes", "action": "alert operator", "reasons": []},
     ]
     result = SimpleNamespace(ticks=[Tick(t) for t in truths], events=events)
     console = Console(record=True, width=100)
