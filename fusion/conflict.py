@@ -39,6 +39,7 @@ __all__ = [
     "jousselme_distance",
     "pignistic_disagreement",
     "pairwise_conflict",
+    "support_conflict",
     "EvidenceAverages",
 ]
 
@@ -60,6 +61,17 @@ def fit_plausibility(c: float, dof: int) -> float:
     if c <= 0.0:
         return 0.0
     return float(gammaincc(dof / 2.0, -math.log(c)))  # χ² survival: Q(k/2, x/2) with x = −2 log c
+
+
+def support_conflict(p: np.ndarray, evidence, share: float) -> float:
+    """r·(1 − pl) of a reading's best fit among the cells with p ≥ ``share`` · max p: Dempster's K between
+    the discounted consonant reading and the categorical mass function on those cells, pl scored by
+    ``fit_plausibility`` (for a scan of m beams, how often a correct pose fits as badly)."""
+    top = float(p.max())
+    if top <= 0:
+        return 1.0
+    best = float(evidence.contour[p >= share * top].max())
+    return evidence.reliability * (1.0 - fit_plausibility(best, evidence.dof))
 
 
 def jousselme_distance(m1: MassFunction, m2: MassFunction) -> float:

@@ -47,6 +47,7 @@ from fusion.localizer import Localizer, SensorSet
 from fusion.monitor import CARRY_ON, Policy
 from fusion.runner import atomic_write
 from fusion.sensors.markers import MarkerSighting
+from fusion.sensors.odometry import check_odometry_step
 from fusion.tui import coarse_plane
 
 __all__ = ["Inspection", "inspect_log", "parse_start", "MAX_TICK_S", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
@@ -216,7 +217,9 @@ def inspect_log(
     sensors = SensorSet(case.site, grid, case.sensors)
     policy = Policy(**case.run.policy)
     locs = {
-        b: Localizer(b, sensors, policy, rule=case.run.rule, max_focal=case.run.max_focal, explain=True)
+        b: Localizer(
+            b, sensors, policy, rule=case.run.rule, max_focal=case.run.max_focal, motion=case.run.motion, explain=True
+        )
         for b in backends
     }
     found = Inspection(str(log_path), case.site.name, tuple(backends), lines=total_lines, truth=truth_path is not None)
@@ -309,6 +312,7 @@ class _Replay:
         self.finder = EpisodeFinder(policy.conflict_k, policy.clear_fraction * policy.conflict_k)
         self.site_markers = {m.marker_id for m in case.site.markers}
         self.unknown_sensor, self.sightings, self.unknown_marker = 0, 0, 0
+        self.odometry_t: float | None = None  # time of the last odometry record used
         self.shape = case.site.occupied.shape
         self.prev_planes: dict[str, np.ndarray] = {}
         self.open_maps: dict | None = None
@@ -375,6 +379,8 @@ class _Replay:
             self.unknown_sensor += 1
         self.sensors.check(obs)  # raises on an unknown sensor (naming the site's) or the wrong kind
         if obs.kind == "odometry":
+            check_odometry_step(self.odometry_t, obs.t, obs.sensor)
+            self.odometry_t = obs.t
             return
         if isinstance(obs.reading, MarkerSighting):
             self.sightings += 1

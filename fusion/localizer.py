@@ -4,6 +4,12 @@
     decision = loc.step(odometry, observations)
     if decision.action == "re-localize": ...
 
+Odometry records are composed (exact pose composition) and applied to the belief in one prediction
+just before the next readings are absorbed, or once the composed path reaches ``FLUSH_M`` or its
+turning ``FLUSH_DEG``; between predictions the reported pose is the estimate carried along by the
+odometry composed since.  So the belief sees the same motion however finely the odometry is logged
+(no grid rounding per record), and a tick is: the odometry since the last one, then its readings.
+
 One ``step`` predicts with the odometry, absorbs the readings, computes the conflict
 figures, asks the ``Monitor`` for an action and carries it out (re-localizing or
 quarantining a sensor); it returns a ``Decision`` with the pose estimate, its
@@ -24,17 +30,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fusion.backends.bayes import HistogramFilter
-from fusion.backends.evidential import MassFilter
-from fusion.belief import rules
-from fusion.conflict import (
-    EvidenceAverages,
-    fit_plausibility,
-    jousselme_distance,
-    pairwise_conflict,
-    pignistic_disagreement,
-    weight_of_conflict,
-)
+from fusion.backends import BACKENDS, build
+from fusion.conflict import EvidenceAverages, pairwise_conflict, weight_of_conflict
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
@@ -42,19 +39,16 @@ from fusion.monitor import ALERT, CARRY_ON, INFORMATIVE, QUARANTINE, RELOCALIZE,
 from fusion.sensors.base import Evidence
 from fusion.sensors.doors import DoorSensor
 from fusion.sensors.markers import MarkerSensor
-from fusion.sensors.odometry import OdometryReading, OdometrySensor
+from fusion.sensors.odometry import OdometryReading, OdometrySensor, Travel, check_odometry_step
 from fusion.sensors.ranging import RangeSensor
 from fusion.site import SiteMap
 
-__all__ = ["SensorSet", "Decision", "Localizer", "SUPPORT_SHARE"]
+__all__ = ["SensorSet", "Decision", "Localizer", "FLUSH_M", "FLUSH_DEG"]
 
-SUPPORT_SHARE = 1e-3
-# The core of a mass function: cells with pignistic probability ≥ CORE_SHARE · max.  Wider than a
-# posterior's support share because the mass of a broad focal set is spread evenly over all its
-# cells, places nothing points to included (common practice, no source: one tenth of the peak).
-CORE_SHARE = 0.1
-"""Cells with at least this share of the most probable cell's probability count as still possible
-(Bayesian conflict figure; common practice, no source)."""
+FLUSH_M = 2.0
+FLUSH_DEG = 90.0
+"""Composed odometry is applied to the belief at the latest after this path or turning, even with no
+reading to absorb (our choice: the belief map then lags the robot by at most a couple of metres)."""
 
 
 class SensorSet:
@@ -157,27 +151,29 @@ class Localizer:
         *,
         rule: str = "dempster",
         max_focal: int = 32,
+        motion: str = "probabilistic",
         full_figures: bool = False,
         explain: bool = False,
     ):
-        """``full_figures``: compute the Jousselme distance on every tick, not only on conflicting ones.
+        """``full_figures``: compute the distance between beliefs on every tick, not only on conflicting ones.
         ``explain``: compute the leave-one-out blame on every tick whose conflict reaches the clear level
         (what an investigation needs), not only on the ticks the monitor counts as conflicting."""
-        if backend not in ("bayes", "evidential"):
-            raise ObservationError(f"unknown back end {backend!r}; choose 'bayes' or 'evidential'")
+        if backend not in BACKENDS:
+            raise ObservationError(f"unknown back end {backend!r}; choose one of: {', '.join(BACKENDS)}")
         policy = Policy() if policy is None else policy
         self.sensors, self.policy, self.full_figures, self.explain = sensors, policy, full_figures, explain
         grid, free = sensors.grid, sensors.site.free
         # The best region is computed once per tick by the pose estimate, not after every update.
-        self.filter = (
-            HistogramFilter(grid, free, report_region=False)
-            if backend == "bayes"
-            else MassFilter(grid, free, rule=rule, max_focal=max_focal, report_region=False)
-        )
+        try:
+            self.filter = build(backend, grid, free, rule=rule, motion=motion, max_focal=max_focal)
+        except FusionError as err:
+            raise ObservationError(str(err)) from None
         self.backend = backend
-        self.monitor = Monitor(backend, policy, sensors.odd_rates())
+        self.monitor = Monitor(policy, sensors.odd_rates())
         self.averages = EvidenceAverages()
         self.last_t = -math.inf
+        self._odometry_t: float | None = None  # time of the last accepted odometry record
+        self._pending: Travel | None = None  # odometry composed since the last prediction
         self._episode: deque = deque(maxlen=policy.relocalize_after + 4)
         self._free_prior = grid.broadcast(free).astype(np.float64)
         self._anchor = None  # see _remember
@@ -190,6 +186,7 @@ class Localizer:
         policy = _Policy(**case.run.policy)
         options.setdefault("rule", case.run.rule)
         options.setdefault("max_focal", case.run.max_focal)
+        options.setdefault("motion", case.run.motion)
         return cls(backend, SensorSet(case.site, grid, case.sensors), policy, **options)
 
     def start_at(
@@ -205,10 +202,12 @@ class Localizer:
         if not prior.any():
             raise ObservationError(f"no free cell within {radius_m} m of ({x_m}, {y_m}); is the start inside a rack?")
         self.filter.reset(prior.astype(np.float64))
+        self._pending = None
 
     def start_anywhere(self) -> None:
         """Start from ignorance over free space (global localization)."""
         self.filter.reset(self._free_prior)
+        self._pending = None
 
     # ----------------------------------------------------------------- the loop
     def step(self, odometry, observations=()) -> Decision:
@@ -216,7 +215,7 @@ class Localizer:
         start = time.perf_counter()
         rejected: list[tuple[str, str]] = []
         t = self.last_t if self.last_t > -math.inf else 0.0
-        motion = None
+        travel = None
         if odometry is not None:
             try:
                 reading = odometry.reading if isinstance(odometry, Observation) else odometry
@@ -224,10 +223,14 @@ class Localizer:
                 if isinstance(odometry, Observation):
                     self.sensors.check(odometry)
                     when = self._check_time(odometry.t)
+                    check_odometry_step(self._odometry_t, odometry.t, odometry.sensor)
                 if not isinstance(reading, OdometryReading):
                     raise ObservationError("the odometry argument must be an odometry reading")
-                motion = self.sensors.odometry.motion(reading)
+                self.sensors.odometry.motion(reading)  # refuses a record the grid cannot apply
+                travel = (self._pending or Travel()).then(reading)
                 t = when  # only an accepted record moves the clock
+                if isinstance(odometry, Observation):
+                    self._odometry_t = odometry.t
             except FusionError as err:
                 rejected.append((getattr(odometry, "sensor", "odometry"), str(err)))
         encoded = []
@@ -242,9 +245,16 @@ class Localizer:
                 t = max(t, when)
             except FusionError as err:
                 rejected.append((getattr(obs, "sensor", "?"), str(err)))
-        if rejected and motion is None and not encoded:
+        if rejected and travel is None and not encoded:
             return self._unchanged(t, rejected, start)
         self.last_t = max(self.last_t, t)
+        if travel is not None:
+            self._pending = travel
+        motion = None
+        pending = self._pending
+        if pending is not None and (encoded or pending.path_m >= FLUSH_M or pending.turned_deg >= FLUSH_DEG):
+            motion = self.sensors.odometry.motion(pending.reading, pending)
+            self._pending = None
         return self._absorb(t, motion, encoded, rejected, start)
 
     def _check_time(self, t: float) -> float:
@@ -263,50 +273,33 @@ class Localizer:
         tick_conflicting = False
         tick_clear = True
         applied, undiscounted = [], []
+        clear_level = self.policy.clear_fraction * self.policy.conflict_k
         for sensor, evidence in encoded:
             original = evidence
             if sensor in self.monitor.quarantined:
                 evidence = dataclasses.replace(
                     evidence, reliability=evidence.reliability * self.policy.quarantine_reliability
                 )
-            own = self._own_figure(original) if evidence is not original else None
-            prior = f.belief  # immutable on the mass side; only read below if the update conflicted
-            prior_p = f.belief.probabilities if self.backend == "bayes" else None
+            prior = f.snapshot()
             report = f.update(evidence)
             applied.append((sensor, evidence))
             undiscounted.append((sensor, original))
-            if self.backend == "evidential":
-                k = report.conflict
-                figure = k if own is None else own
-                disagreement, core = 0.0, None
-                clear = figure < self.policy.clear_fraction * self.policy.conflict_k
-                if figure > self.policy.conflict_k:
-                    disagreement = pignistic_disagreement(_pignistic(prior), original.masses.pignistic())
-                elif not clear:
-                    # Dempster's normalisation hands a conflicting reading part of the mass of the belief's
-                    # broad focal sets, so the next reading like it conflicts less with the belief of the
-                    # moment (ghost sightings: K 0.83, then 0.63).  Scored against the belief's core it
-                    # still rules the robot's likeliest cells out.
-                    core = self._support_conflict(_pignistic(prior), original, CORE_SHARE)
-                figures["conflict"] = max(figures["conflict"], k)
-                figures["disagreement"] = max(figures["disagreement"], disagreement)
-                disagree = self.monitor.disagrees(figure, disagreement, core)
+            # The reading as the sensor gave it decides; ``k`` is what the belief absorbed (the
+            # discounted reading of a quarantined sensor, where the back end scores it on update).
+            if report.conflict is not None and evidence is original:
+                figure = report.conflict
             else:
-                # The Bayesian conflict of a reading is the conflict of conditioning it on the cells the
-                # posterior still allows (p ≥ SUPPORT_SHARE · max p): K = r·(1 − pl), pl the plausibility
-                # of the best fit among them (``fit_plausibility``: for a scan of m beams, how often a
-                # correct pose fits as badly; for other readings their contour c itself, the figure the
-                # mass filter's conditioning carries).  A sharp reading inside a vague belief
-                # (information, not contradiction) scores 0, unlike 1 − p(z | past).
-                log_z = report.log_evidence
-                k = self._support_conflict(prior_p, original)
-                figure = k if own is None else own
-                ratio = self.averages.add(log_z)
-                figures["conflict"] = max(figures["conflict"], k)
-                figures["surprise"] = max(figures["surprise"], -log_z)
+                figure = f.reading_conflict(prior, original)
+            k = figure if report.conflict is None else report.conflict
+            disagreement, core = f.second_opinion(prior, original, figure, self.policy.conflict_k, clear_level)
+            clear = figure < clear_level
+            disagree = self.monitor.disagrees(figure, disagreement, core)
+            figures["conflict"] = max(figures["conflict"], k)
+            figures["disagreement"] = max(figures["disagreement"], disagreement or 0.0)
+            if report.log_evidence is not None:  # the slow/fast evidence averages (augmented MCL)
+                ratio = self.averages.add(report.log_evidence)
+                figures["surprise"] = max(figures["surprise"], -report.log_evidence)
                 figures["evidence_ratio"] = ratio
-                disagree = self.monitor.disagrees(figure)
-                clear = figure < self.policy.clear_fraction * self.policy.conflict_k
                 if sensor not in self.monitor.quarantined and ratio > self.policy.lost_ratio:
                     disagree, clear = True, False
             self.monitor.record_reading(sensor, disagree, self._informative(original))
@@ -315,10 +308,12 @@ class Localizer:
                 tick_clear &= clear
         figures["weight_of_conflict"] = weight_of_conflict(figures["conflict"])
         busy = figures["conflict"] >= self.policy.clear_fraction * self.policy.conflict_k
-        if self.backend == "evidential" and encoded and (self.full_figures or busy):
-            # The distance costs a pairwise count over all focal sets; on calm ticks it is skipped
-            # unless full figures were asked for (the belief barely moved, and nothing acts on it).
-            figures["jousselme"] = jousselme_distance(before, f.belief)
+        if encoded and (self.full_figures or busy):
+            # The distance costs a pairwise count over focal sets; on calm ticks it is skipped unless
+            # full figures were asked for (the belief barely moved, and nothing acts on it).
+            distance = f.distance(before, f.snapshot())
+            if distance is not None:
+                figures["jousselme"] = distance
         # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
         blame = self._leave_one_out(before, undiscounted) if tick_conflicting or (self.explain and busy) else []
         self._remember(before, motion, applied, undiscounted)
@@ -340,12 +335,18 @@ class Localizer:
 
     def _decision(self, t, action, reasons, figures, blame, quarantined, rejected, start, pairs=()) -> Decision:
         est = self.filter.pose_estimate()
+        x, y, heading = est.x_m, est.y_m, est.heading_rad
+        if self._pending is not None:  # carried along by the odometry not yet applied to the belief
+            r = self._pending.reading
+            c, s = math.cos(heading), math.sin(heading)
+            x, y = x + c * r.forward_m - s * r.left_m, y + s * r.forward_m + c * r.left_m
+            heading += math.radians(r.turn_deg)
         return Decision(
             t,
             self.backend,
-            est.x_m,
-            est.y_m,
-            math.degrees(est.heading_rad) % 360,
+            x,
+            y,
+            math.degrees(heading) % 360,
             est.spread_m,
             est.region_cells,
             action,
@@ -378,7 +379,7 @@ class Localizer:
         }
 
     def _snapshot(self):
-        return self.filter.belief if self.backend == "evidential" else self.filter.belief.probabilities
+        return self.filter.snapshot()
 
     @staticmethod
     def _informative(evidence: Evidence) -> float:
@@ -387,26 +388,9 @@ class Localizer:
         against a sensor that disagrees with it."""
         return float(np.mean(evidence.contour < 0.5))
 
-    @staticmethod
-    def _support_conflict(p: np.ndarray, evidence: Evidence, share: float = SUPPORT_SHARE) -> float:
-        """r·(1 − pl) of the reading's best fit among the cells with p ≥ ``share`` · max p: Dempster's K
-        between the discounted consonant reading and the categorical mass function on those cells."""
-        top = float(p.max())
-        if top <= 0:
-            return 1.0
-        best = float(evidence.contour[p >= share * top].max())
-        return evidence.reliability * (1.0 - fit_plausibility(best, evidence.dof))
-
-    def _own_figure(self, evidence: Evidence) -> float:
-        """The conflict a quarantined sensor's undiscounted reading has with the current belief."""
-        return self._conflict_with(self._snapshot(), evidence)
-
     def _conflict_with(self, reference, evidence: Evidence) -> float:
-        """The conflict of one reading with a belief in snapshot form: Dempster's K with the normalised
-        mass function, or the support conflict of a probability per cell."""
-        if self.backend == "evidential":
-            return rules.conflict_mass(_normalised(reference), evidence.masses)
-        return self._support_conflict(reference, evidence)
+        """The conflict of one reading with a belief snapshot, as the back end scores it."""
+        return self.filter.reading_conflict(reference, evidence)
 
     def _remember(self, before, motion, applied, undiscounted) -> None:
         """Keep this tick for a re-seed or a trial, and the belief the episode started from, carried
@@ -421,11 +405,11 @@ class Localizer:
     def _dead_reckoned(self, belief, motions):
         """``belief`` carried along by ``motions`` (no readings), in snapshot form."""
         ref = self.filter.fork()
-        ref.reset(belief)
+        ref.restore(belief)
         for motion in motions:
             if motion is not None:
                 ref.predict(motion)
-        return ref.belief if self.backend == "evidential" else ref.belief.probabilities
+        return ref.snapshot()
 
     def _dissenters(self) -> tuple[set[str], set[str]]:
         """Who disagrees with where the robot was: this episode's readings, as given, against the belief the
@@ -473,27 +457,8 @@ class Localizer:
         return sorted(out, key=lambda sv: -sv[1])
 
     def _tick_conflict(self, before, applied) -> float:
-        """Conflict of absorbing ``applied`` into ``before`` at once: K, or the support conflict for Bayes."""
-        if not applied:
-            return 0.0
-        if self.backend == "evidential":
-            m, keep = _normalised(before), 1.0
-            for _, e in applied:
-                red = rules.conjunctive_reduced(m, e.masses, self.filter.max_focal)
-                k = red.mass_function.conflict
-                keep *= 1.0 - k
-                if k >= 1.0:
-                    return 1.0
-                m = red.mass_function.normalised()
-            return 1.0 - keep
-        # The same support conflict as a single reading's figure (see ``_support_conflict``): the best
-        # the readings' joint likelihood (each r·c + 1 − r, at most 1) does on the cells still possible.
-        # 1 − p(z | past) would blame the sharpest sensor for being informative.
-        support = before >= SUPPORT_SHARE * float(before.max()) if before.max() > 0 else np.ones(len(before), bool)
-        lik = np.ones(int(support.sum()))
-        for _, e in applied:
-            lik = lik * e.likelihood[support]
-        return 1.0 - min(float(lik.max()), 1.0)
+        """Conflict of absorbing ``applied`` into ``before`` at once, as the back end scores it."""
+        return self.filter.joint_conflict(before, applied) if applied else 0.0
 
     def _relocalize(self) -> None:
         """Reset to ignorance over free space, then replay this episode's readings (re-seed from them)."""
@@ -512,9 +477,9 @@ class Localizer:
             if motion is not None:
                 f.predict(motion)
             for _, evidence in undiscounted if as_given else applied:
-                prior_p = f.belief.probabilities if self.backend == "bayes" else None
+                prior = f.snapshot()
                 report = f.update(evidence)
-                k = report.conflict if prior_p is None else self._support_conflict(prior_p, evidence)
+                k = report.conflict if report.conflict is not None else f.reading_conflict(prior, evidence)
                 worst = max(worst, k)
         return worst
 
@@ -551,15 +516,3 @@ class Localizer:
             f"ticks agree with one another at another place (worst conflict {worst:.2f} there): the robot was "
             "probably moved; the belief is re-seeded from them"
         )
-
-
-def _normalised(m):
-    """``m`` after Dempster normalisation, or as it is when all its mass is on the empty set."""
-    return m.normalised() if m.conflict < 1 else m
-
-
-def _pignistic(m) -> np.ndarray:
-    try:
-        return m.pignistic()
-    except FusionError:  # all mass on the empty set: no opinion left
-        return np.full(m.n, 1.0 / m.n)

@@ -78,10 +78,10 @@ class TickVerdict:
 class Monitor:
     """State of the policy for one back end.  Feed it one tick at a time with ``judge``."""
 
-    def __init__(self, backend: str, policy: Policy = Policy(), odd_rates: dict[str, float] | None = None):
+    def __init__(self, policy: Policy = Policy(), odd_rates: dict[str, float] | None = None):
         """``odd_rates``: per sensor, the share of a working one's readings its own error model says
         contradict the true pose (``SensorModel.odd_rate``); a sensor not named declares none."""
-        self.backend, self.policy = backend, policy
+        self.policy = policy
         self.odd_rates = dict(odd_rates or {})
         self._counts: dict[str, tuple[int, float]] = {}
         self.run = 0  # consecutive conflicting ticks
@@ -94,14 +94,13 @@ class Monitor:
 
     # ----------------------------------------------------------------- per reading
     def disagrees(self, figure: float, extra: float | None = None, core: float | None = None) -> bool:
-        """Does one reading's conflict figure count as disagreeing with the belief?  Evidential: ``extra``
-        is the pignistic disagreement, ``core`` the conflict with the belief's core (its likeliest cells),
-        when the reading's K is short of the threshold yet not clear."""
+        """Does one reading's conflict figure count as disagreeing with the belief?  The back end may add
+        ``extra``, a disagreement that must also exceed its threshold (mass side: the pignistic
+        disagreement, Liu 2006), and ``core``, the conflict with the belief's likeliest cells when the
+        reading's figure is short of the threshold yet not clear; None where it gives none."""
         p = self.policy
-        if self.backend == "evidential":
-            two_dimensional = figure > p.conflict_k and (extra is None or extra > p.disagreement)
-            return two_dimensional or (core is not None and core > p.conflict_k)
-        return figure > p.conflict_k
+        two_dimensional = figure > p.conflict_k and (extra is None or extra > p.disagreement)
+        return two_dimensional or (core is not None and core > p.conflict_k)
 
     def record_reading(self, sensor: str, disagree: bool, informative: float = 1.0) -> None:
         """``informative``: the share of the site the reading rules out (a door contact that is quiet far

@@ -23,7 +23,20 @@ from fusion.belief import bitset
 from fusion.grid import PoseGrid
 from fusion.sensors.odometry import Motion
 
-__all__ = ["predict_density", "predict_sets", "move_sets", "shift_kernel", "SlicedSets", "SubCellMotion"]
+__all__ = [
+    "predict_density",
+    "predict_sets",
+    "move_sets",
+    "dilate_density",
+    "shift_kernel",
+    "SlicedSets",
+    "SubCellMotion",
+    "MOTION_MODELS",
+]
+
+MOTION_MODELS = ("probabilistic", "bounded")
+"""How the evidential back end applies odometry (``[run] motion``): the odometry error model convolved
+with the belief, as on the Bayes side, or every pose within the error bound (set-valued)."""
 
 
 def shift_kernel(shift: float, sigma: float) -> tuple[int, np.ndarray]:
@@ -94,6 +107,55 @@ def predict_density(
                 first = False
             else:
                 out[h] += w * src
+    return out
+
+
+def _max_shifted(plane: np.ndarray, lo: int, hi: int, axis: int) -> np.ndarray:
+    """out[i] = max over offsets o in [lo, hi] of plane[i − o] along ``axis`` (zero where nothing lands).
+
+    Offsets are covered by doubling: after the first shift each pass takes the maximum with a copy
+    moved by the width covered so far, about log2(hi − lo + 1) passes."""
+    out = _moved(plane, lo, axis)
+    covered = 1
+    width = hi - lo + 1
+    while covered < width:
+        step = min(covered, width - covered)
+        np.maximum(out, _moved(out, step, axis), out=out)
+        covered += step
+    return out
+
+
+def _moved(plane: np.ndarray, offset: int, axis: int) -> np.ndarray:
+    """``plane`` moved by ``offset`` cells along ``axis``, zero-filled."""
+    out = np.zeros_like(plane)
+    n = plane.shape[axis]
+    if abs(offset) < n:
+        dst = [slice(None)] * plane.ndim
+        src = [slice(None)] * plane.ndim
+        dst[axis] = slice(max(0, offset), n + min(0, offset))
+        src[axis] = slice(max(0, -offset), n - max(0, offset))
+        out[tuple(dst)] = plane[tuple(src)]
+    return out
+
+
+def dilate_density(values: np.ndarray, x, y, turn) -> np.ndarray:
+    """Grey-scale dilation of a (headings, ny, nx) array by integer offset intervals: cell c of heading
+    slice h receives the largest value among the cells c − o for o in [x_lo[h], x_hi[h]] × [y_lo[h], y_hi[h]],
+    then slice h takes the largest over the slices h − t for t in ``turn`` (headings wrap).
+
+    For a contour this is set-valued motion: a consonant belief whose every focal set is moved to every
+    pose within the bound keeps its contour's running maximum (``fusion.belief.contour``)."""
+    headings = values.shape[0]
+    moved = np.empty_like(values)
+    for h in range(headings):
+        plane = _max_shifted(values[h], int(x[0][h]), int(x[1][h]), axis=1)
+        moved[h] = _max_shifted(plane, int(y[0][h]), int(y[1][h]), axis=0)
+    t_lo, t_hi = int(turn[0]), int(turn[1])
+    if t_hi - t_lo + 1 >= headings:
+        return np.broadcast_to(moved.max(axis=0), moved.shape).copy()
+    out = np.roll(moved, t_lo, axis=0)
+    for t in range(t_lo + 1, t_hi + 1):
+        np.maximum(out, np.roll(moved, t, axis=0), out=out)
     return out
 
 

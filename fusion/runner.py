@@ -149,7 +149,10 @@ def run_case(
         sensors = SensorSet(case.site, case.site.grid(case.headings), case.sensors)
     policy = Policy(**case.run.policy)
     localizers = {
-        b: Localizer(b, sensors, policy, rule=rule or case.run.rule, max_focal=case.run.max_focal) for b in backends
+        b: Localizer(
+            b, sensors, policy, rule=rule or case.run.rule, max_focal=case.run.max_focal, motion=case.run.motion
+        )
+        for b in backends
     }
     ticks = simulate(case, seed=seed)
     result = RunResult(case, ticks)

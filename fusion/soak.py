@@ -3,7 +3,7 @@
 ``soak_steps`` feeds a case's simulated readings (run after run, seed after seed, the clock carried on)
 to one back end, one observation per ``Localizer.step`` call as ``fusion stream`` makes them, and at
 every step checks that the belief is a distribution (masses or probabilities non-negative, summing to
-one within ``SUM_TOLERANCE``), that the evidential belief keeps at most ``max_focal`` focal sets, and
+one within ``SUM_TOLERANCE``; a contour peaks at one), that a focal-set belief keeps at most ``max_focal`` sets, and
 that the decision holds no NaN.  ``soak_stream`` pushes generated lines, a share of them corrupted in
 the ways logs break, through ``fusion.stream.stream`` without holding them, and samples the process'
 memory.  Both report what they saw; neither stops at the first violation.
@@ -102,7 +102,7 @@ def soak_steps(
     """``steps`` localizer steps on ``backend`` with the invariants checked at each (see the module)."""
     seed = case.run.seed if seed is None else seed
     loc = Localizer.from_case(case, backend)
-    report = SoakReport("steps", backend, focal_bound=case.run.max_focal if backend == "evidential" else 0)
+    report = SoakReport("steps", backend, focal_bound=max(loc.filter.health().bound - 1, 0))
     report.memory_mb.append((0, resident_mb()))
     began = time.perf_counter()
     try:
@@ -133,20 +133,18 @@ def soak_steps(
 
 
 def _check_belief(loc: Localizer, report: SoakReport, step: int) -> None:
-    belief = loc.filter.belief
-    values = belief.masses if loc.backend == "evidential" else belief.probabilities
-    total, low = float(values.sum()), float(values.min())
+    health = loc.filter.health()
+    total, low = health.total, health.lowest
     report.worst_sum_error = max(report.worst_sum_error, abs(total - 1.0))
     report.lowest_value = min(report.lowest_value, low)
     if not np.isfinite(total) or abs(total - 1.0) > SUM_TOLERANCE:
-        report._violation(step, f"the belief sums to {total!r}")
+        report._violation(step, f"the belief's {health.what} totals {total!r}")
     if low < 0:
-        report._violation(step, f"a {'mass' if loc.backend == 'evidential' else 'probability'} of {low!r}")
-    if loc.backend == "evidential":
-        count = len(belief.masses)
-        report.most_focal_sets = max(report.most_focal_sets, count)
-        if count > report.focal_bound + 1:  # + 1: the empty set, kept by the unnormalised rules
-            report._violation(step, f"{count} focal sets, more than the bound of {report.focal_bound}")
+        report._violation(step, f"a {health.what} of {low!r}")
+    if health.bound:
+        report.most_focal_sets = max(report.most_focal_sets, health.parts)
+        if health.parts > health.bound:  # the bound counts the empty set, kept by the unnormalised rules
+            report._violation(step, f"{health.parts} focal sets, more than the bound of {health.bound - 1}")
 
 
 # ----------------------------------------------------------------------------- the stream

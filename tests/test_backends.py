@@ -5,6 +5,7 @@ import pytest
 from support import assert_close
 
 from fusion.backends.bayes import HistogramFilter
+from fusion.backends.contour import ContourFilter
 from fusion.backends.evidential import MassFilter
 from fusion.errors import FrameMismatchError, RuleError
 from fusion.grid import PoseGrid
@@ -19,10 +20,18 @@ def bay():
     return SiteMap.empty(10.0, 6.0, 0.25, name="test bay").with_box(3.0, 2.0, 4.0, 4.0)
 
 
-@pytest.fixture(params=["bayes", "evidential"])
+FILTERS = {
+    "bayes": lambda grid, free: HistogramFilter(grid, free),
+    "evidential": lambda grid, free: ContourFilter(grid, free),
+    "evidential-bounded": lambda grid, free: ContourFilter(grid, free, motion="bounded"),
+    "evidential-conjunctive": lambda grid, free: ContourFilter(grid, free, rule="conjunctive", motion="bounded"),
+    "focal-sets-murphy": lambda grid, free: MassFilter(grid, free, rule="murphy"),
+}
+
+
+@pytest.fixture(params=list(FILTERS))
 def backend(request, bay):
-    grid = bay.grid(12)
-    return HistogramFilter(grid, bay.free) if request.param == "bayes" else MassFilter(grid, bay.free)
+    return FILTERS[request.param](bay.grid(12), bay.free)
 
 
 def test_both_back_ends_localize_from_range_scans_and_odometry(backend, bay):
@@ -53,7 +62,7 @@ def test_bayes_back_end_matches_the_kalman_filter_in_one_dimension():
     mu0, s0, u, su, z, sz = 6.0, 0.5, 2.0, 0.3, 8.4, 0.4
     filt = HistogramFilter(grid)
     filt.reset(np.exp(-0.5 * ((xs - mu0) / s0) ** 2))
-    odo = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=su / u, floor_m=0.0, floor_deg=0.0))
+    odo = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=su / math.sqrt(u)))
     filt.predict(odo.motion(OdometryReading(u)))
     filt.update(Evidence("ranger", np.exp(-0.5 * ((xs - z) / sz) ** 2)))
     p = filt.distribution()

@@ -57,15 +57,16 @@ def test_fit_plausibility_is_the_chi_square_survival_of_the_relative_likelihood(
 
 
 def test_a_five_beam_scan_fitting_as_a_correct_pose_would_is_no_conflict():
-    from fusion.localizer import Localizer
+    from fusion.backends.bayes import SUPPORT_SHARE
+    from fusion.conflict import support_conflict
     from fusion.sensors.base import Evidence
 
     p = np.array([0.7, 0.3, 0.0, 0.0])
     contour = np.array([0.06, 0.02, 1.0, 0.5])  # the best cell elsewhere; the belief's cells fit 16× worse
     plain = Evidence("ranger", contour, reliability=0.95)
     scan = Evidence("ranger", contour, reliability=0.95, dof=5)
-    assert_close(Localizer._support_conflict(p, plain), 0.95 * (1 - 0.06))  # 0.89: over a 0.8 threshold
-    k = Localizer._support_conflict(p, scan)
+    assert_close(support_conflict(p, plain, SUPPORT_SHARE), 0.95 * (1 - 0.06))  # 0.89: over a 0.8 threshold
+    k = support_conflict(p, scan, SUPPORT_SHARE)
     assert_close(k, 0.95 * (1 - stats.chi2.sf(-2 * math.log(0.06), 5)))
     assert k < 0.8
 
@@ -89,7 +90,7 @@ def test_liu_two_dimensional_conflict():
     assert_close(k, 0.8)
     difbetp = pignistic_disagreement(m.pignistic(), m.pignistic())
     assert_close(difbetp, 0.0)
-    monitor = Monitor("evidential", Policy(conflict_k=0.7, disagreement=0.3))
+    monitor = Monitor(Policy(conflict_k=0.7, disagreement=0.3))
     assert not monitor.disagrees(k, difbetp)
     assert monitor.disagrees(0.9, 0.5)
 
@@ -112,7 +113,8 @@ def test_support_conflict_is_dempsters_k_with_the_categorical_core():
 
     from fusion.belief import rules
     from fusion.belief.mass import MassFunction
-    from fusion.localizer import CORE_SHARE, Localizer
+    from fusion.backends.contour import CORE_SHARE
+    from fusion.conflict import support_conflict
     from fusion.sensors.base import Evidence
 
     rng = np.random.default_rng(5)
@@ -123,13 +125,13 @@ def test_support_conflict_is_dempsters_k_with_the_categorical_core():
         p = rng.dirichlet(np.full(40, 0.3))
         core = np.flatnonzero(p >= CORE_SHARE * p.max())
         expected = rules.conflict_mass(MassFunction.categorical(40, core), ev.masses)
-        assert abs(Localizer._support_conflict(p, ev, CORE_SHARE) - expected) < 1e-12
+        assert abs(support_conflict(p, ev, CORE_SHARE) - expected) < 1e-12
 
 
 def test_evidential_reading_disagrees_with_the_core_even_below_the_k_threshold():
     from fusion.monitor import Monitor, Policy
 
-    m = Monitor("evidential", Policy(conflict_k=0.8, disagreement=0.3))
+    m = Monitor(Policy(conflict_k=0.8, disagreement=0.3))
     assert m.disagrees(0.63, core=0.9)  # the belief was swayed toward an earlier ghost sighting
     assert not m.disagrees(0.63, core=0.44)
     assert not m.disagrees(0.9, extra=0.0)  # Liu (2006): large K, no pignistic disagreement

@@ -2,7 +2,7 @@ from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Pol
 
 
 def test_one_spurious_tick_triggers_nothing_and_a_lasting_conflict_escalates():
-    m = Monitor("evidential", Policy(alert_after=2, relocalize_after=4, cooldown_ticks=3))
+    m = Monitor(Policy(alert_after=2, relocalize_after=4, cooldown_ticks=3))
     assert m.judge(True, False, []).action == CARRY_ON
     assert m.judge(False, True, []).action == CARRY_ON  # a clear tick ends the episode
     actions = [m.judge(True, False, [("ranger", 0.4)]).action for _ in range(4)]
@@ -12,14 +12,14 @@ def test_one_spurious_tick_triggers_nothing_and_a_lasting_conflict_escalates():
 
 
 def test_neutral_ticks_neither_start_nor_end_an_episode():
-    m = Monitor("bayes", Policy(alert_after=2))
+    m = Monitor(Policy(alert_after=2))
     m.judge(True, False, [])
     assert m.judge(False, False, []).action == CARRY_ON  # neutral: the run of conflicts is kept
     assert m.judge(True, False, []).action == ALERT
 
 
 def test_a_sensor_that_keeps_disagreeing_alone_is_quarantined_and_released():
-    m = Monitor("evidential", Policy(quarantine_after=3, quarantine_window=5, release_after=2))
+    m = Monitor(Policy(quarantine_after=3, quarantine_window=5, release_after=2))
     verdicts = []
     for _ in range(4):
         m.record_reading("door", True)
@@ -49,7 +49,7 @@ def test_quarantine_count_is_the_binomial_tail_of_the_sensors_own_error_rates():
         )
         < 1e-15
     )
-    m = Monitor("bayes", Policy(quarantine_window=6, quarantine_after=3), {"camera": rate, "ranger": 0.0})
+    m = Monitor(Policy(quarantine_window=6, quarantine_after=3), {"camera": rate, "ranger": 0.0})
     k, chance = m.quarantine_count("camera")
     assert k == 4 and abs(chance - binom.sf(3, 6, rate)) < 1e-15 and chance < 1e-4 < tail3
     assert m.quarantine_count("ranger") == (3, 0.0)
@@ -70,12 +70,12 @@ def test_quarantine_count_is_the_binomial_tail_of_the_sensors_own_error_rates():
 def test_a_sensor_declared_too_noisy_for_its_window_needs_the_whole_window():
     # Odd in 30% of its readings: even 6 of 6 happens with chance 0.3**6 = 7.3e-4 > 1e-4, so the count
     # is capped at the window (a sensor odd in every reading is quarantined whatever it declares).
-    m = Monitor("bayes", Policy(quarantine_window=6), {"contact": 0.3})
+    m = Monitor(Policy(quarantine_window=6), {"contact": 0.3})
     assert m.quarantine_count("contact")[0] == 6
 
 
 def test_no_quarantine_when_everyone_disagrees():
-    m = Monitor("evidential", Policy(quarantine_after=2))
+    m = Monitor(Policy(quarantine_after=2))
     for _ in range(4):
         m.record_reading("door", True)
         m.record_reading("ranger", True)
@@ -85,7 +85,7 @@ def test_no_quarantine_when_everyone_disagrees():
 def test_uninformative_agreement_cannot_get_a_sensor_quarantined():
     # A quiet door contact far from any door agrees with every belief: it must not outvote the ranger
     # when the robot has been carried off and only the ranger notices.
-    m = Monitor("bayes", Policy(quarantine_after=2, quarantine_window=4))
+    m = Monitor(Policy(quarantine_after=2, quarantine_window=4))
     for _ in range(4):
         m.record_reading("ranger", True, informative=0.99)
         m.record_reading("door", False, informative=0.01)
@@ -93,14 +93,14 @@ def test_uninformative_agreement_cannot_get_a_sensor_quarantined():
 
 
 def test_no_alert_until_some_sensor_disagrees_persistently():
-    m = Monitor("bayes", Policy(alert_after=2, relocalize_after=6))
+    m = Monitor(Policy(alert_after=2, relocalize_after=6))
     assert m.judge(True, False, [], persistent=False).action == CARRY_ON
     assert m.judge(True, False, [], persistent=False).action == CARRY_ON  # two ticks, but two lone readings
     assert m.judge(True, False, [("door", 0.9)], persistent=True).action == ALERT
 
 
 def test_a_move_found_elsewhere_re_localizes_at_once_and_cools_down():
-    m = Monitor("evidential", Policy(alert_after=2, cooldown_ticks=3))
+    m = Monitor(Policy(alert_after=2, cooldown_ticks=3))
     m.judge(True, False, [])
     verdict = m.judge(True, False, [], moved="ranger and camera disagree ...: the robot was probably moved")
     assert verdict.action == RELOCALIZE and "probably moved" in verdict.reasons[0]

@@ -42,7 +42,7 @@ def test_set_valued_motion_contains_every_reachable_cell_and_wraps_heading():
     grid = PoseGrid(10.0, 10.0, 0.5, 8)
     masks = np.zeros((1, *grid.shape), bool)
     masks[0, 0, 10, 10] = True  # heading 0 (east), cell (10, 10)
-    motion = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1, floor_m=0.0, floor_deg=1.0)).motion(
+    motion = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1)).motion(
         OdometryReading(1.0, 0.0, -45.0)
     )
     packed = predict_sets(bitset.pack_masks(masks.reshape(1, -1)), grid, motion)

@@ -133,9 +133,14 @@ def test_door_sensor_likelihood(depot):
 
 def test_odometry_noise_grows_with_distance(depot):
     grid = depot.grid(36)
-    odo = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1, floor_m=0.0))
+    odo = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1))
     short, long = odo.motion(OdometryReading(0.5)), odo.motion(OdometryReading(2.0))
-    assert_close(long.sigma / short.sigma, 4.0)
+    # Variances add along the path (a random walk in distance): 4× the distance, 4× the variance, and four
+    # records of 0.5 m carry the variance of one of 2 m.  Set-valued bounds add: 4× the distance, 4× the bound.
+    assert_close(long.sigma**2 / short.sigma**2, 4.0)
+    assert_close(4 * short.sigma**2, long.sigma**2)
+    assert_close(long.bound_cells / short.bound_cells, 4.0)
+    assert_close(odo.motion(OdometryReading(0.0)).sigma, 0.0)  # no per-record floor
     assert_close(short.dx[0], 2.0) and assert_close(short.dy[9], 2.0)  # heading bin 9 = 90°
     with pytest.raises(ObservationError, match="forward_m must be a finite number"):
         odo.motion(OdometryReading(float("inf")))

@@ -1,1 +1,62 @@
-"""The two interchangeable back ends behind one ``Backend`` protocol (see ``base``)."""
+"""Every back end behind one ``Backend`` protocol (see ``base``), listed in one table.
+
+``build(name, grid, free, rule=…, motion=…, max_focal=…)`` is the only place that turns a back-end
+name into a filter; nothing outside this package compares back-end names.
+
+- ``bayes``: the histogram filter (``bayes.HistogramFilter``);
+- ``evidential``: Dempster–Shafer.  Dempster's rule and the unnormalised conjunctive rule run on the
+  dense contour, exact with no cap (``contour.ContourFilter``); the rules that move conflict to unions
+  of sets (Yager, Dubois–Prade, PCR5, Murphy's averaging, disjunctive) keep explicit focal sets under a
+  documented cap (``evidential.MassFilter``), moved by set-valued motion.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from fusion.backends.base import Backend
+from fusion.errors import RuleError
+
+__all__ = ["BACKENDS", "build", "Backend"]
+
+
+def _bayes(grid, free, *, rule, motion, max_focal, report_region):
+    from fusion.backends.bayes import HistogramFilter
+
+    return HistogramFilter(grid, free, report_region=report_region)
+
+
+def _evidential(grid, free, *, rule, motion, max_focal, report_region):
+    from fusion.backends.contour import CONTOUR_RULES, ContourFilter
+    from fusion.backends.evidential import MassFilter
+
+    if rule in CONTOUR_RULES:
+        return ContourFilter(grid, free, rule=rule, motion=motion, report_region=report_region)
+    # Explicit focal sets move by set-valued motion whatever the case chooses: averaging every displacement
+    # would multiply them by the kernel's width at each step (documented in docs/evidential.md).
+    return MassFilter(grid, free, rule=rule, max_focal=max_focal, report_region=report_region)
+
+
+BACKENDS = {"bayes": _bayes, "evidential": _evidential}
+"""Back-end name -> builder; the order is the order tools list them in."""
+
+
+def build(
+    name: str,
+    grid,
+    free: np.ndarray | None = None,
+    *,
+    rule: str = "dempster",
+    motion: str = "probabilistic",
+    max_focal: int = 32,
+    report_region: bool = False,
+) -> Backend:
+    """The filter called ``name`` on ``grid`` (cells off ``free`` are impossible)."""
+    from fusion.motion import MOTION_MODELS
+
+    builder = BACKENDS.get(name)
+    if builder is None:
+        raise RuleError(f"unknown back end {name!r}; choose one of: {', '.join(BACKENDS)}")
+    if motion not in MOTION_MODELS:
+        raise RuleError(f"unknown motion model {motion!r}; choose one of: {', '.join(MOTION_MODELS)}")
+    return builder(grid, free, rule=rule, motion=motion, max_focal=max_focal, report_region=report_region)

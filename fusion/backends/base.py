@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Protocol
+from typing import Protocol, runtime_checkable
 
 import numpy as np
 
@@ -19,7 +19,7 @@ from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
-__all__ = ["Backend", "StepReport", "PoseEstimate", "estimate_pose", "REGION_LEVEL"]
+__all__ = ["Backend", "StepReport", "PoseEstimate", "BeliefHealth", "estimate_pose", "region_size", "REGION_LEVEL"]
 
 REGION_LEVEL = 0.95
 """Probability held by the 'best region' reported with every estimate (common practice, no source)."""
@@ -62,11 +62,28 @@ class PoseEstimate:
     mean_y_m: float = 0.0
 
 
+@dataclass(frozen=True)
+class BeliefHealth:
+    """The invariants a soak checks on a belief: ``total`` must be 1 (the sum of the probabilities or
+    masses, or the contour's maximum), no value below 0, at most ``bound`` parts (focal sets) when
+    ``bound`` > 0.  ``what`` names the values in messages."""
+
+    total: float
+    lowest: float
+    parts: int
+    bound: int
+    what: str
+
+
 LOCAL_RADIUS_M = 1.0
 """Radius of the local mean around the best cell (common practice, no source)."""
 
 
+@runtime_checkable
 class Backend(Protocol):
+    """Every scheme behind one surface, so the localizer, monitor, soak, compare and inspect never ask
+    which back end they hold.  Each back end scores conflict on its own belief."""
+
     name: str
     grid: PoseGrid
 
@@ -76,14 +93,38 @@ class Backend(Protocol):
     def fork(self) -> Backend:
         """A filter on the same grid and map with its own belief, for a trial replay."""
 
+    def snapshot(self) -> object:
+        """The belief as an immutable value (for trials, blame and the move test)."""
+
+    def restore(self, snapshot: object) -> None:
+        """Make ``snapshot`` the belief again."""
+
     def predict(self, motion: Motion) -> None: ...
 
-    def update(self, evidence: Evidence) -> StepReport: ...
+    def update(self, evidence: Evidence) -> StepReport:
+        """Absorb one reading; the report carries ``conflict`` (the reading's K, mass side) or
+        ``log_evidence`` (log p(z | past), Bayes side)."""
+
+    def reading_conflict(self, snapshot: object, evidence: Evidence) -> float:
+        """How much one reading, as given, conflicts with a belief snapshot, in [0, 1]."""
+
+    def second_opinion(
+        self, snapshot: object, evidence: Evidence, k: float, conflict_k: float, clear_level: float
+    ) -> tuple[float | None, float | None]:
+        """(disagreement, core conflict): further figures the policy weighs beside K, or None."""
+
+    def joint_conflict(self, snapshot: object, readings) -> float:
+        """Conflict of absorbing one tick's (sensor, Evidence) readings into the snapshot at once."""
+
+    def distance(self, before: object, after: object) -> float | None:
+        """A distance between two snapshots, or None where the back end defines none."""
 
     def pose_estimate(self) -> PoseEstimate: ...
 
     def distribution(self) -> np.ndarray:
         """Probability per cell, shape (n_cells,), summing to 1."""
+
+    def health(self) -> BeliefHealth: ...
 
 
 def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:
@@ -96,13 +137,22 @@ def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:
 
 
 def estimate_pose(grid: PoseGrid, p: np.ndarray) -> PoseEstimate:
-    """Local mean around the best cell, global mean, best cell and spread of a distribution over the grid."""
+    """Local mean around the centre of the most probable region, global mean, best cell and spread.
+
+    The most probable region is the set of positions whose probability (summed over headings) ties with
+    the largest, to rounding (``TIE``).  Mostly that is one cell.  On a flat plateau (an aisle along
+    which the readings cannot tell positions apart, or look-alike places) the tied cells are grouped into
+    connected regions, the one holding the most probability wins, and its centre is the tied cell
+    nearest its centroid: the estimate sits in the middle of the plateau, never at the end that happens
+    to have the lowest cell index."""
     cube = p.reshape(grid.shape)
     plane = cube.sum(axis=0)
     xs, ys = grid.x_centres(), grid.y_centres()
     px, py = plane.sum(axis=0), plane.sum(axis=1)
     mean_x, mean_y = float(px @ xs), float(py @ ys)
-    best = int(np.argmax(p))
+    iy, ix = _mode_centre(plane)
+    ih = int(np.argmax(cube[:, iy, ix]))
+    best = int(np.ravel_multi_index((ih, iy, ix), grid.shape))
     bx, by, bh = grid.pose_of(best)
     near = (xs[None, :] - bx) ** 2 + (ys[:, None] - by) ** 2 <= LOCAL_RADIUS_M**2
     local = np.where(near, plane, 0.0)
@@ -115,3 +165,22 @@ def estimate_pose(grid: PoseGrid, p: np.ndarray) -> PoseEstimate:
     dist2 = (xs[None, :] - lx) ** 2 + (ys[:, None] - ly) ** 2
     spread = math.sqrt(max(float((plane * dist2).sum()) / max(float(plane.sum()), 1e-300), 0.0))
     return PoseEstimate(lx, ly, heading, best, (bx, by, bh), region_size(p), spread, mean_x, mean_y)
+
+
+TIE = 1e-9
+"""Squares within this relative share of the densest one count as tied with it (rounding level)."""
+
+
+def _mode_centre(plane: np.ndarray) -> tuple[int, int]:
+    """(row, column) of the most probable cell; among tied cells, the centre of the largest tied region."""
+    from scipy import ndimage
+
+    top = float(plane.max())
+    ties = plane >= top * (1.0 - TIE) if top > 0 else np.ones(plane.shape, bool)
+    if np.count_nonzero(ties) == 1:
+        return np.unravel_index(int(np.argmax(ties)), plane.shape)
+    labels, count = ndimage.label(ties)
+    held = ndimage.sum(plane, labels, index=np.arange(1, count + 1)) if top > 0 else np.bincount(labels.ravel())[1:]
+    rows, cols = np.nonzero(labels == 1 + int(np.argmax(held)))
+    pick = int(np.argmin((rows - rows.mean()) ** 2 + (cols - cols.mean()) ** 2))
+    return int(rows[pick]), int(cols[pick])

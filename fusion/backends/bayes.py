@@ -12,15 +12,20 @@ import time
 
 import numpy as np
 
-from fusion.backends.base import PoseEstimate, StepReport, estimate_pose, region_size
+from fusion.backends.base import BeliefHealth, PoseEstimate, StepReport, estimate_pose, region_size
 from fusion.belief.posterior import Posterior
+from fusion.conflict import support_conflict
 from fusion.errors import FrameMismatchError, ZeroEvidenceError
 from fusion.grid import PoseGrid
 from fusion.motion import predict_density
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
-__all__ = ["HistogramFilter"]
+__all__ = ["HistogramFilter", "SUPPORT_SHARE"]
+
+SUPPORT_SHARE = 1e-3
+"""Cells with at least this share of the most probable cell's probability count as still possible
+(Bayesian conflict figure; common practice, no source)."""
 
 
 class HistogramFilter:
@@ -43,6 +48,13 @@ class HistogramFilter:
         other = copy.copy(self)
         other.belief = self.belief.copy()
         return other
+
+    def snapshot(self) -> np.ndarray:
+        """The posterior's probabilities (never changed in place: every step sets a new array)."""
+        return self.belief.probabilities
+
+    def restore(self, snapshot: np.ndarray) -> None:
+        self.reset(snapshot)
 
     def predict(self, motion: Motion) -> None:
         cube = self.belief.probabilities.reshape(self.grid.shape)
@@ -72,8 +84,39 @@ class HistogramFilter:
         region = region_size(self.belief.probabilities) if self.report_region else 0
         return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=log_z, rejected=rejected)
 
+    # ----------------------------------------------------------------- conflict, scored on this belief
+    def reading_conflict(self, snapshot: np.ndarray, evidence: Evidence) -> float:
+        """The conflict of conditioning the reading on the cells the posterior still allows (p ≥
+        ``SUPPORT_SHARE`` · max p): K = r·(1 − pl), pl the plausibility of the best fit among them
+        (``fusion.conflict.fit_plausibility``).  A sharp reading inside a vague belief (information,
+        not contradiction) scores 0, unlike 1 − p(z | past)."""
+        return support_conflict(snapshot, evidence, SUPPORT_SHARE)
+
+    def second_opinion(self, snapshot, evidence, k, conflict_k, clear_level):
+        return None, None  # the slow/fast evidence ratio, from ``log_evidence``, is the Bayes side's second figure
+
+    def joint_conflict(self, snapshot: np.ndarray, readings) -> float:
+        """The support conflict of the tick's readings at once: the best their joint likelihood (each
+        r·c + 1 − r, at most 1) does on the cells still possible.  1 − p(z | past) would blame the
+        sharpest sensor for being informative."""
+        if not readings:
+            return 0.0
+        top = float(snapshot.max())
+        support = snapshot >= SUPPORT_SHARE * top if top > 0 else np.ones(len(snapshot), bool)
+        lik = np.ones(int(support.sum()))
+        for _, e in readings:
+            lik = lik * e.likelihood[support]
+        return 1.0 - min(float(lik.max()), 1.0)
+
+    def distance(self, before, after) -> None:
+        return None
+
     def distribution(self) -> np.ndarray:
         return self.belief.probabilities
+
+    def health(self) -> BeliefHealth:
+        p = self.belief.probabilities
+        return BeliefHealth(float(p.sum()), float(p.min()), 1, 0, "probability")
 
     def pose_estimate(self) -> PoseEstimate:
         return estimate_pose(self.grid, self.belief.probabilities)

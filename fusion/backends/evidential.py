@@ -1,11 +1,16 @@
-"""The evidential back end: a mass function over pose cells, filtered with set-valued motion.
+"""The evidential back end for the rules that do not multiply contours (Yager, Dubois–Prade, PCR5,
+Murphy's averaging, the disjunctive rule): a mass function over pose cells with explicit focal sets.
 
-Prediction moves every focal set and dilates it by the odometry's error bound
-(``fusion.motion.predict_sets``), then intersects it with free space.  An update
-combines the belief with the reading's mass function by the configured rule and
-caps the number of focal sets (``reduce_focal_sets``), reporting the mass moved.
-The conflict K of every update is m(∅) of the unnormalised conjunctive
-combination of the (normalised) belief with the evidence.
+These rules send conflict to unions of sets or to the whole frame, so the belief cannot be kept as a
+contour (``fusion.backends.contour`` holds Dempster's rule and the unnormalised conjunctive rule
+exactly).  The approximation used here, documented and measured: after every prediction and update
+the focal sets beyond ``max_focal`` are merged into supersets (``reduce_focal_sets``, an outer
+approximation: no cell loses plausibility), and each ``StepReport`` carries the mass so moved.
+Prediction moves every focal set and dilates it by the odometry's error bound (set-valued motion,
+``fusion.motion.move_sets``); the bound follows the distance and turn travelled through a residual
+box (``SubCellMotion``), so it does not depend on how the odometry is cut into records.
+The conflict K of every update is m(∅) of the unnormalised conjunctive combination of the
+(normalised) belief with the evidence.
 """
 
 from __future__ import annotations
@@ -15,18 +20,23 @@ import time
 
 import numpy as np
 
-from fusion.backends.base import REGION_LEVEL, PoseEstimate, StepReport, estimate_pose
+from fusion.backends.base import REGION_LEVEL, BeliefHealth, PoseEstimate, StepReport, estimate_pose
 from fusion.belief import bitset, rules
 from fusion.belief.mass import MERGE_STRATEGIES, FocalAccumulator, MassFunction
+from fusion.conflict import jousselme_distance, pignistic_disagreement, support_conflict
 from fusion.errors import FrameMismatchError, RuleError, TotalConflictError
 from fusion.grid import PoseGrid
 from fusion.motion import SlicedSets, SubCellMotion, move_sets, predict_sets
+from fusion.backends.contour import CORE_SHARE
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
-__all__ = ["MassFilter", "FILTER_RULES"]
+__all__ = ["MassFilter", "FILTER_RULES", "FOCAL_RULES"]
 
 FILTER_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy", "disjunctive")
+FOCAL_RULES = ("yager", "dubois_prade", "pcr5", "murphy", "disjunctive")
+"""The rules this filter is built for; it also runs Dempster's and the conjunctive rule, capped, as the
+reference the fidelity rows of ``fusion bench`` measure against."""
 # Rules that normalise conflict away and so cannot absorb a totally conflicting reading.
 _NORMALISING = ("dempster", "murphy")
 _TOTAL = 1.0 - 1e-12
@@ -34,6 +44,7 @@ _TOTAL = 1.0 - 1e-12
 
 class MassFilter:
     name = "evidential"
+    motion = "bounded"
 
     def __init__(
         self,
@@ -85,6 +96,12 @@ class MassFilter:
             raise FrameMismatchError(f"the prior has {prior.size} cells, the grid {self.grid.n_cells}")
         words = bitset.pack_masks(prior > 0)[0] & self._free_words
         self.belief = MassFunction._trusted(self.grid.n_cells, words[None, :].copy(), np.ones(1))
+
+    def snapshot(self) -> MassFunction:
+        return self.belief
+
+    def restore(self, snapshot: MassFunction) -> None:
+        self.reset(snapshot)
 
     # ----------------------------------------------------------------- prediction
     def predict(self, motion: Motion) -> None:
@@ -217,6 +234,39 @@ class MassFilter:
         union = np.bitwise_or.reduce(m.sets[order[:top]], axis=0)
         return int(bitset.cardinality(union))
 
+    # ----------------------------------------------------------------- conflict, scored on this belief
+    def reading_conflict(self, snapshot: MassFunction, evidence: Evidence) -> float:
+        """Dempster's K between the normalised snapshot and the reading's mass function."""
+        return rules.conflict_mass(_drop_conflict(snapshot), evidence.masses)
+
+    def second_opinion(self, snapshot, evidence: Evidence, k: float, conflict_k: float, clear_level: float):
+        """(pignistic disagreement when K > ``conflict_k``, conflict with the belief's core when K is
+        neither clear nor above it); see ``ContourFilter.second_opinion``."""
+        if k > conflict_k:
+            return pignistic_disagreement(_pignistic(snapshot), evidence.masses.pignistic()), None
+        if k >= clear_level:
+            return None, support_conflict(_pignistic(snapshot), evidence, CORE_SHARE)
+        return None, None
+
+    def joint_conflict(self, snapshot: MassFunction, readings) -> float:
+        """1 − Π (1 − K_i) of absorbing the readings one after another (focal sets capped as in a run)."""
+        m, keep = _drop_conflict(snapshot), 1.0
+        for _, e in readings:
+            red = rules.conjunctive_reduced(m, e.masses, self.max_focal)
+            k = red.mass_function.conflict
+            keep *= 1.0 - k
+            if k >= 1.0:
+                return 1.0
+            m = red.mass_function.normalised()
+        return 1.0 - keep
+
+    def distance(self, before: MassFunction, after: MassFunction) -> float:
+        return jousselme_distance(before, after)
+
+    def health(self) -> BeliefHealth:
+        masses = self.belief.masses
+        return BeliefHealth(float(masses.sum()), float(masses.min()), len(masses), self.max_focal + 1, "mass")
+
     def distribution(self) -> np.ndarray:
         """Pignistic probability of the belief; the belief is immutable, so it is computed once per belief
         (the pose estimate, the monitor and the live view all ask for it in the same tick)."""
@@ -241,6 +291,13 @@ def _with_conflict(m: MassFunction, k: float) -> MassFunction:
     acc.add(m.sets[~empty], m.masses[~empty] * (1.0 - k) / max(m.masses[~empty].sum(), 1e-300))
     acc.add(np.zeros((1, m.sets.shape[1]), dtype=bitset.WORD), [k])
     return acc.result()
+
+
+def _pignistic(m: MassFunction) -> np.ndarray:
+    try:
+        return m.pignistic()
+    except TotalConflictError:  # all mass on the empty set: no opinion left
+        return np.full(m.n, 1.0 / m.n)
 
 
 def _drop_conflict(m: MassFunction) -> MassFunction:

@@ -132,13 +132,20 @@ def _odometry_model(mf, tf, mt, tt):
     import pyro.distributions as dist
 
     a = pyro.sample("sigma_per_m", dist.HalfNormal(0.2))
-    c = pyro.sample("floor_m", dist.HalfNormal(0.05))
     b1 = pyro.sample("turn_sigma_per_m_deg", dist.HalfNormal(5.0))
     b2 = pyro.sample("turn_sigma_per_turn", dist.HalfNormal(0.2))
-    c2 = pyro.sample("floor_deg", dist.HalfNormal(1.0))
+    # The error model of fusion.sensors.odometry: variances per metre and per radian, no per-record floor
+    # (a small fixed jitter keeps records of zero motion from making the likelihood singular).
+    deg_per_rad = 180.0 / math.pi
     with pyro.plate("ticks", len(mf)):
-        pyro.sample("forward", dist.Normal(tf, a * tf.abs() + c), obs=mf)
-        pyro.sample("turn", dist.Normal(tt, b1 * tf.abs() + b2 * tt.abs() + c2), obs=mt)
+        pyro.sample("forward", dist.Normal(tf, (a**2 * tf.abs() + _JITTER_M**2).sqrt()), obs=mf)
+        spread = b1**2 * tf.abs() + b2**2 * tt.abs() * deg_per_rad + _JITTER_DEG**2
+        pyro.sample("turn", dist.Normal(tt, spread.sqrt()), obs=mt)
+
+
+_JITTER_M = 1e-3
+_JITTER_DEG = 0.05
+"""Numerical jitter of the odometry fit (metres, degrees): far below any real odometry error (our choice)."""
 
 
 # ----------------------------------------------------------------------------- inference

@@ -28,7 +28,7 @@ FITTED = {
     "door": ("hit_rate", "false_alarm_rate"),
     "markers": ("p_detect", "false_rate", "sigma_range_m", "sigma_bearing_deg"),
     "ranging": ("sigma_hit_m", "z_hit", "z_short", "z_max", "z_rand", "lambda_short"),
-    "odometry": ("sigma_per_m", "floor_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn", "floor_deg"),
+    "odometry": ("sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"),
 }
 RELIABILITY_QUANTILE = 0.05
 RELIABILITY_MAX_WIDTH = 0.3

@@ -19,7 +19,7 @@ from fusion.errors import FusionError, InputFileError
 from fusion.io.toml_lines import key_lines
 from fusion.sensors.doors import DoorParams
 from fusion.sensors.markers import MarkerParams
-from fusion.sensors.odometry import OdometryParams
+from fusion.sensors.odometry import REMOVED_FIELDS, OdometryParams
 from fusion.sensors.ranging import RangeParams
 from fusion.site import Door, Marker, SiteMap
 
@@ -106,6 +106,7 @@ class RunSpec:
     seed: int = 1
     tick_s: float = 0.25
     policy: dict = field(default_factory=dict)
+    motion: str = "probabilistic"  # how the evidential back end applies odometry (fusion.motion.MOTION_MODELS)
 
 
 SWEEP_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy")
@@ -409,6 +410,10 @@ def _sensors(r: _Reader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
                 r.fail((*w, "door"), f"no door {door!r} on the site (doors: {known})")
         if kind == "markers" and not site.markers:
             r.fail((*w, "kind"), "a marker sensor needs markers on the site ([[site.markers]])")
+        if kind == "odometry":
+            for old, why in REMOVED_FIELDS.items():
+                if old in d:
+                    r.fail((*w, old), f"'{old}' is no longer read: {why}; remove it (see cases/README.md)")
         params = _params(r, d, w, SENSOR_KINDS[kind], {"name", "kind", "rate_hz", "door", "faults"})
         for f in ("reliability",):
             value = getattr(params, f)
@@ -518,12 +523,15 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
     from fusion.backends.evidential import FILTER_RULES
 
     w = ("run",)
-    r.only(d, w, {"backends", "rule", "max_focal", "seed", "tick_s", "policy"})
+    r.only(d, w, {"backends", "rule", "max_focal", "seed", "tick_s", "policy", "motion"})
     backends = d.get("backends", list(BACKENDS))
     if not isinstance(backends, list) or not backends or any(b not in BACKENDS for b in backends):
         r.fail((*w, "backends"), f"must be a non-empty array naming back ends among: {', '.join(BACKENDS)}")
     rule = r.text(d, w, "rule", "dempster", choices=FILTER_RULES)
     max_focal = r.number(d, w, "max_focal", 32, whole=True, low=2, high=4096)
+    from fusion.motion import MOTION_MODELS
+
+    motion = r.text(d, w, "motion", "probabilistic", choices=MOTION_MODELS)
     seed = r.number(d, w, "seed", 1, whole=True, low=0)
     tick = r.number(d, w, "tick_s", 0.25, positive=True, high=5)
     policy = r.table(d, w, "policy", required=False)
@@ -541,7 +549,7 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
             r.number(policy, (*w, "policy"), key, positive=True, high=1)
         else:
             r.number(policy, (*w, "policy"), key, low=0)
-    return RunSpec(tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy))
+    return RunSpec(tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy), motion)
 
 
 def _sweep(r: _Reader, d: dict) -> SweepSpec:

@@ -1,12 +1,25 @@
-"""Odometry: a move forward/left in the robot's frame and a turn, with noise growing with distance.
+"""Odometry: a move forward/left in the robot's frame and a turn, with errors that grow with the
+distance travelled and the angle turned, never with the number of records.
 
-Translation noise σ_t = a · distance + floor, turn noise σ_r = b · distance + c · |turn| + floor
-(the usual odometry error model, noise proportional to distance travelled, Thrun,
-Burgard & Fox 2005, §5.4).  ``Motion`` is what the back ends apply: for every heading
-bin the displacement in cells, the turn in heading bins, the noise in cells and
-bins, and a bound (``bound_sigmas`` · σ) for the set-valued motion of the mass side.
-Reliability r is the chance the odometry is right; with 1 − r the wheels slipped and
-the move is only known within ``slip_m`` / ``slip_deg``.
+The error model has two readings, one per kind of motion a back end can apply (the case
+chooses, ``[run] motion``):
+
+- probabilistic: the errors of successive stretches are independent, so their *variances* add.
+  After travelling d metres and turning θ radians,
+  σ_t² = a² · d  and  σ_r² = b² · d + c² · |θ|,
+  with a = ``sigma_per_m`` (m after 1 m), b = ``turn_sigma_per_m_deg`` (degrees after 1 m),
+  c = ``turn_sigma_per_turn`` (radians after one radian of turning).  A path cut into N records
+  has the same total variance for every N (a random walk in distance; the usual odometry error
+  model, Thrun, Burgard & Fox 2005, §5.4, with its variances taken per unit travelled);
+- bounded-error (set-valued): the error is at most ``bound_sigmas`` · (a · d) metres and
+  ``bound_sigmas`` · (b · d + c · |θ|) in heading.  Bounds of successive stretches *add*, so the
+  bound of a path is again independent of how it is cut into records.
+
+There is no per-record floor: a record of zero motion adds no error, so a robot standing still
+with its odometry logged at 10 Hz keeps the belief it had.  ``Motion`` is what the back ends
+apply: for every heading bin the displacement in cells, the turn in heading bins, the noise in
+cells and bins and the set-valued bounds.  Reliability r is the chance the odometry is right;
+with 1 − r the wheels slipped and the move is only known within ``slip_m`` / ``slip_deg``.
 """
 
 from __future__ import annotations
@@ -20,7 +33,7 @@ from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import check_reliability
 
-__all__ = ["OdometryParams", "OdometryReading", "Motion", "OdometrySensor", "MAX_TURN_DEG"]
+__all__ = ["OdometryParams", "OdometryReading", "Motion", "OdometrySensor", "MAX_TURN_DEG", "Travel", "check_odometry_step"]
 
 
 @dataclass(frozen=True)
@@ -28,8 +41,6 @@ class OdometryParams:
     sigma_per_m: float = 0.05
     turn_sigma_per_m_deg: float = 2.0
     turn_sigma_per_turn: float = 0.05
-    floor_m: float = 0.01
-    floor_deg: float = 0.5
     bound_sigmas: float = 3.0
     reliability: float = 1.0
     slip_m: float = 0.5
@@ -61,8 +72,49 @@ class Motion:
     bound_bins: float = 0.0
 
 
+_DEG_PER_RAD = math.degrees(1.0)
+REMOVED_FIELDS = {
+    "floor_m": "odometry noise is now per metre travelled (sigma_per_m), with no per-record floor",
+    "floor_deg": "heading noise is now per metre and per radian turned (turn_sigma_per_m_deg, turn_sigma_per_turn), "
+    "with no per-record floor",
+}
+"""Fields older case files may hold, with what replaced them (a per-record floor made the error depend on
+how finely the odometry was logged)."""
+
 MAX_TURN_DEG = 360.0
 """The largest turn one odometry record may report."""
+
+
+@dataclass(frozen=True)
+class Travel:
+    """Odometry records composed into one: the net move, and the path length and turning behind it (the
+    errors grow with these, not with the net move: a robot that went 1 m out and back has travelled 2 m)."""
+
+    reading: OdometryReading = OdometryReading(0.0)
+    path_m: float = 0.0
+    turned_deg: float = 0.0
+
+    def then(self, r: OdometryReading) -> Travel:
+        """This travel followed by record ``r`` (exact pose composition: each record moves forward/left in
+        the frame at its start, then turns)."""
+        a = self.reading
+        th = math.radians(a.turn_deg)
+        c, s = math.cos(th), math.sin(th)
+        net = OdometryReading(
+            a.forward_m + c * r.forward_m - s * r.left_m, a.left_m + s * r.forward_m + c * r.left_m, a.turn_deg + r.turn_deg
+        )
+        return Travel(net, self.path_m + math.hypot(r.forward_m, r.left_m), self.turned_deg + abs(r.turn_deg))
+
+
+def check_odometry_step(previous_t: float | None, t: float, sensor: str) -> None:
+    """Refuse an odometry record whose time is not after the previous record's: each record reports the
+    motion since the one before, so two at one time (or going back) mean a duplicated or mis-stamped log."""
+    if previous_t is not None and t <= previous_t:
+        raise ObservationError(
+            f"field t: odometry record of {sensor!r} at t = {t:g} s has a {'zero' if t == previous_t else 'negative'} "
+            f"time step after the previous odometry record (t = {previous_t:g} s); each record must report the "
+            "motion since an earlier one: drop the duplicate or fix its time stamp"
+        )
 
 
 class OdometrySensor:
@@ -73,8 +125,6 @@ class OdometrySensor:
             "sigma_per_m",
             "turn_sigma_per_m_deg",
             "turn_sigma_per_turn",
-            "floor_m",
-            "floor_deg",
             "bound_sigmas",
             "slip_m",
             "slip_deg",
@@ -83,7 +133,9 @@ class OdometrySensor:
             if not isinstance(v, (int, float)) or not math.isfinite(v) or v < 0:
                 raise ObservationError(f"sensor {name!r}: {f} must be a finite number ≥ 0, got {v!r}")
 
-    def motion(self, reading: OdometryReading) -> Motion:
+    def motion(self, reading: OdometryReading, travelled: Travel | None = None) -> Motion:
+        """The move of ``reading`` on the grid; its errors follow ``travelled`` (the path length and the
+        turning of the records composed into it) or, by default, the reading's own distance and turn."""
         fields = {"forward_m": reading.forward_m, "left_m": reading.left_m, "turn_deg": reading.turn_deg}
         for field, v in fields.items():
             if not isinstance(v, (int, float)) or not math.isfinite(v):
@@ -106,9 +158,15 @@ class OdometrySensor:
         fwd, left = reading.forward_m, reading.left_m
         dx = (fwd * np.cos(theta) - left * np.sin(theta)) / res
         dy = (fwd * np.sin(theta) + left * np.cos(theta)) / res
-        dist = math.hypot(fwd, left)
-        sigma_m = p.sigma_per_m * dist + p.floor_m
-        sigma_deg = p.turn_sigma_per_m_deg * dist + p.turn_sigma_per_turn * abs(reading.turn_deg) + p.floor_deg
+        dist = math.hypot(fwd, left) if travelled is None else travelled.path_m
+        turned = abs(reading.turn_deg) if travelled is None else travelled.turned_deg
+        # Variances add along the path (probabilistic); bounds add along the path (set-valued).
+        sigma_m = p.sigma_per_m * math.sqrt(dist)
+        sigma_deg = math.sqrt(
+            (p.turn_sigma_per_m_deg**2) * dist + (p.turn_sigma_per_turn**2) * turned * _DEG_PER_RAD
+        )
+        bound_m = p.bound_sigmas * p.sigma_per_m * dist
+        bound_deg = p.bound_sigmas * (p.turn_sigma_per_m_deg * dist + p.turn_sigma_per_turn * turned)
         step_deg = math.degrees(g.heading_step)
         return Motion(
             dx=dx,
@@ -116,10 +174,10 @@ class OdometrySensor:
             turn=reading.turn_deg / step_deg,
             sigma=sigma_m / res,
             sigma_turn=sigma_deg / step_deg,
-            bound=int(math.ceil(p.bound_sigmas * sigma_m / res - 1e-9)),
-            bound_turn=int(math.ceil(p.bound_sigmas * sigma_deg / step_deg - 1e-9)),
-            bound_cells=p.bound_sigmas * sigma_m / res,
-            bound_bins=p.bound_sigmas * sigma_deg / step_deg,
+            bound=int(math.ceil(bound_m / res - 1e-9)),
+            bound_turn=int(math.ceil(bound_deg / step_deg - 1e-9)),
+            bound_cells=bound_m / res,
+            bound_bins=bound_deg / step_deg,
             reliability=p.reliability,
             slip=int(math.ceil(p.slip_m / res)),
             slip_turn=int(math.ceil(p.slip_deg / step_deg)),
