@@ -5,8 +5,9 @@ cheapest possible pass over the same data, measured seconds apart on the same
 machine, says how much overhead the back end adds.
 
 - Bayes floor: one numpy multiply-and-normalise pass over the belief array.
-- Evidential floor: the bare bitwise AND of every belief focal set's words with
-  every evidence focal set's words.
+- Evidential floor: the contour filter is dense, so the same multiply-and-normalise pass;
+  for the focal-set filter (rules that do not multiply contours), the bare bitwise AND of
+  every belief focal set's words with every evidence focal set's words.
 
 Each figure is the fastest of ``repeats`` runs after one warm-up run: on a shared machine
 the minimum is the least disturbed measurement (the convention of Python's ``timeit``), and
@@ -31,7 +32,7 @@ from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import OdometryParams, OdometryReading, OdometrySensor
 
-__all__ = ["BenchRow", "run_bench", "bench_localizer", "bench_sweep", "SIZES"]
+__all__ = ["BenchRow", "run_bench", "bench_localizer", "SIZES"]
 
 SIZES = ((100, 100, 36), (240, 160, 36))
 RESOLUTION_M = 0.25
@@ -110,9 +111,71 @@ def run_bench(sizes=SIZES, repeats: int = 9, seed: int = 0, progress=None) -> li
         rows += _bench_bayes(grid, label, rng, repeats)
         if progress:
             progress(label, "bayes")
-        rows += _bench_evidential(grid, label, rng, repeats)
+        rows += _bench_contour(grid, label, rng, repeats)
         if progress:
             progress(label, "evidential")
+        rows += _bench_focal(grid, label, rng, repeats)
+        if progress:
+            progress(label, FOCAL)
+    return rows
+
+
+FOCAL = "evidential, focal sets"
+"""Back-end label of the focal-set filter's rows (the rules that do not multiply contours)."""
+
+
+def _multiply_floor(n: int, rng, repeats: int) -> float:
+    """One numpy multiply-and-normalise pass over a belief of ``n`` cells: the floor of a dense update."""
+    p = rng.random(n)
+    p /= p.sum()
+    lik = rng.random(n)
+    buf = np.empty_like(p)
+
+    def floor():
+        np.multiply(p, lik, out=buf)
+        buf.__imul__(1.0 / buf.sum())
+
+    return _best_seconds(floor, repeats)
+
+
+def _bench_contour(grid: PoseGrid, label: str, rng, repeats: int) -> list[BenchRow]:
+    """The contour filter (Dempster's rule and the conjunctive rule): dense like the Bayes side, so the
+    same multiply-and-normalise floor."""
+    from fusion.backends.contour import ContourFilter
+
+    floor_s = _multiply_floor(grid.n_cells, rng, repeats)
+    evidence = Evidence("bench", _blob_contour(grid, rng, width_m=8.0), reliability=0.9)
+    start = Evidence("bench", _blob_contour(grid, rng, width_m=4.0), reliability=0.9)
+    odometry = OdometrySensor("bench-odometry", grid, OdometryParams())
+    motion = odometry.motion(OdometryReading(0.3, 0.05, 4.0))
+    rows = []
+    for kind in ("probabilistic", "bounded"):
+        filt = ContourFilter(grid, motion=kind, report_region=False)
+
+        def fresh(filt=filt):
+            filt.reset(np.ones(grid.n_cells))
+            filt.update(start)
+
+        if kind == "probabilistic":
+            update_s = _best_seconds(lambda filt=filt: filt.update(evidence), repeats, setup=fresh)
+            note = "K of the reading (consonant reading, level bins) + product + renormalise"
+            rows.append(
+                BenchRow(label, "evidential", "update", update_s * 1e3, floor_s * 1e3, update_s / floor_s, None, note)
+            )
+        predict_s = _best_seconds(lambda filt=filt: filt.predict(motion), repeats, setup=fresh)
+        what = "odometry kernel convolved, as Bayes" if kind == "probabilistic" else "running maximum over the bound"
+        rows.append(
+            BenchRow(
+                label,
+                "evidential",
+                f"predict ({kind})",
+                predict_s * 1e3,
+                floor_s * 1e3,
+                predict_s / floor_s,
+                None,
+                what,
+            )
+        )
     return rows
 
 
@@ -166,7 +229,8 @@ def _bench_bayes(grid: PoseGrid, label: str, rng, repeats: int) -> list[BenchRow
     ]
 
 
-def _bench_evidential(grid: PoseGrid, label: str, rng, repeats: int) -> list[BenchRow]:
+def _bench_focal(grid: PoseGrid, label: str, rng, repeats: int) -> list[BenchRow]:
+    """The focal-set filter of the rules that do not multiply contours (Yager, Dubois–Prade, PCR5, …)."""
     belief = _belief_with_focal_sets(grid, rng, BELIEF_FOCAL_SETS)
     evidence = Evidence(
         "bench",
@@ -206,7 +270,7 @@ def _bench_evidential(grid: PoseGrid, label: str, rng, repeats: int) -> list[Ben
     return [
         BenchRow(
             label,
-            "evidential",
+            FOCAL,
             "update",
             update_s * 1e3,
             floor_s * 1e3,
@@ -216,7 +280,7 @@ def _bench_evidential(grid: PoseGrid, label: str, rng, repeats: int) -> list[Ben
         ),
         BenchRow(
             label,
-            "evidential",
+            FOCAL,
             "update as run",
             full_s * 1e3,
             floor_s * 1e3,
@@ -226,7 +290,7 @@ def _bench_evidential(grid: PoseGrid, label: str, rng, repeats: int) -> list[Ben
         ),
         BenchRow(
             label,
-            "evidential",
+            FOCAL,
             "predict",
             predict_s * 1e3,
             floor_s * 1e3,
@@ -236,7 +300,7 @@ def _bench_evidential(grid: PoseGrid, label: str, rng, repeats: int) -> list[Ben
         ),
         BenchRow(
             label,
-            "evidential",
+            FOCAL,
             "step",
             step_s * 1e3,
             floor_s * 1e3,
@@ -297,86 +361,6 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
     return rows
 
 
-def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
-    """Parallel speed-up of ``fusion compare``: the case's default sweep on ``seeds`` seeds with one
-    worker, then with ``workers``, into fresh folders (nothing resumed).  The ratio is one-worker time
-    over parallel time, both measured in this run.
-
-    Then how busy the workers were: the runs' own wall times over workers × elapsed, and how much
-    longer the same runs took side by side than with one worker.
-
-    Beside it, the machine's own ceiling for this work: one run of the sweep's longest setting alone,
-    then ``workers`` copies of it at once in as many processes (no scheduling, no imbalance, nothing
-    shared).  Copies that slow each other down (memory bandwidth, shared cache, turbo clocks) bound
-    the speed-up any scheduler can reach here."""
-    import os
-    import tempfile
-
-    from fusion.compare import run_in_processes, run_sweep, settings_of
-    from fusion.io.case import load_case
-
-    case = load_case(case_path)
-    settings = settings_of(case.sweep)
-    seed_list = list(range(case.run.seed, case.run.seed + seeds))
-    seconds, records = {}, {}
-    with tempfile.TemporaryDirectory() as tmp:
-        for n in (1, workers):
-            start = time.perf_counter()
-            records[n] = run_sweep(case_path, settings, seed_list, os.path.join(tmp, f"w{n}"), workers=n)
-            seconds[n] = time.perf_counter() - start
-    # Where a shortfall goes: workers idle (busy share below 1: start-up, the tail of uneven runs)
-    # or runs slower side by side (the same runs took longer than with one worker).
-    busy = sum(r["wall_s"] for r in records[workers]) / (workers * seconds[workers])
-    slower = sum(r["wall_s"] for r in records[workers]) / sum(r["wall_s"] for r in records[1])
-    cost = {s.key: sum(r["wall_s"] for r in records[1] if r["key"] == s.key) for s in settings}
-    longest = max(settings, key=lambda s: cost[s.key])  # as measured by the one-worker sweep
-    job = (str(case_path), longest, seed_list[0], None)
-    copies, failures = {}, []
-    for n in (1, workers):
-        start = time.perf_counter()
-        run_in_processes([job] * n, n, None, lambda rec: None, lambda j, err: failures.append(err))
-        copies[n] = time.perf_counter() - start
-    if failures:
-        raise failures[0]
-    runs = len(settings) * len(seed_list)
-    speed_up = seconds[1] / seconds[workers]
-    ceiling = workers * copies[1] / copies[workers]
-    return [
-        BenchRow(
-            f"{case.name}: {len(settings)} settings × {len(seed_list)} seeds",
-            "both",
-            f"compare sweep, {workers} workers",
-            seconds[workers] * 1e3,
-            seconds[1] * 1e3,
-            speed_up,
-            None,
-            f"speed-up over one worker ({runs} runs; 'floor' column: one worker's ms); "
-            f"{speed_up / ceiling:.0%} of this machine's ceiling below",
-        ),
-        BenchRow(
-            f"{case.name}: {len(settings)} settings × {len(seed_list)} seeds",
-            "both",
-            f"workers busy, {workers} workers",
-            busy * workers * seconds[workers] * 1e3,
-            workers * seconds[workers] * 1e3,
-            busy,
-            None,
-            f"share of the {workers} workers' time spent in runs ('best': summed run time; 'floor': "
-            f"{workers} × elapsed); the runs took {slower:.2f}× their one-worker time side by side",
-        ),
-        BenchRow(
-            f"{case.name}: {longest.label}, seed {seed_list[0]}",
-            longest.backend,
-            f"{workers} copies at once",
-            copies[workers] * 1e3,
-            copies[1] * 1e3,
-            ceiling,
-            None,
-            f"ceiling: {workers} × one copy alone ('floor' column) over {workers} copies at once",
-        ),
-    ]
-
-
 def render(rows: list[BenchRow]):
     from rich.table import Table
 
@@ -396,7 +380,7 @@ def render(rows: list[BenchRow]):
             r.note,
         )
     table.caption = (
-        "floor: Bayes = one multiply-and-normalise pass; evidential = bare AND of all focal-set word "
-        "pairs. Fastest of repeated runs after a warm-up; peak memory of one call via tracemalloc."
+        "floor: Bayes and evidential = one multiply-and-normalise pass; focal sets = bare AND of all "
+        "focal-set word pairs. Fastest of repeated runs after a warm-up; peak memory of one call via tracemalloc."
     )
     return table

@@ -86,7 +86,9 @@ def _bench(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.bench import SIZES, bench_localizer, bench_sweep, render, run_bench
+    from fusion.bench import SIZES, bench_localizer, render, run_bench
+    from fusion.bench_sweep import bench_sweep
+    from fusion.fidelity import measure_fidelity, render_fidelity
 
     console = Console(stderr=args.json)
     sizes = SIZES[:1] if args.quick else SIZES
@@ -97,10 +99,13 @@ def _bench(args: argparse.Namespace) -> int:
     if args.sweep:
         with console.status(f"timing the demo case's compare sweep on {args.sweep} seeds, 1 worker then 2…"):
             rows += bench_sweep(_builtin_case("depot.toml"), seeds=args.sweep, workers=2)
+    with console.status("measuring the evidential outputs' distance from the exact mass function…"):
+        fidelity = measure_fidelity(seed=args.seed)
     if args.json:
-        print(json.dumps([r.as_dict() for r in rows], indent=2))
+        print(json.dumps({"cost": [r.as_dict() for r in rows], "fidelity": [r.as_dict() for r in fidelity]}, indent=2))
     else:
         console.print(render(rows))
+        console.print(render_fidelity(fidelity))
     return 0
 
 

@@ -111,9 +111,9 @@ def test_support_conflict_is_dempsters_k_with_the_categorical_core():
     # scales it by r.  Contour values on the quantisation levels 1, 1/2, 1/4, ... keep it exact.
     import numpy as np
 
+    from fusion.backends.contour import CORE_SHARE
     from fusion.belief import rules
     from fusion.belief.mass import MassFunction
-    from fusion.backends.contour import CORE_SHARE
     from fusion.conflict import support_conflict
     from fusion.sensors.base import Evidence
 

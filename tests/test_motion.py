@@ -42,9 +42,7 @@ def test_set_valued_motion_contains_every_reachable_cell_and_wraps_heading():
     grid = PoseGrid(10.0, 10.0, 0.5, 8)
     masks = np.zeros((1, *grid.shape), bool)
     masks[0, 0, 10, 10] = True  # heading 0 (east), cell (10, 10)
-    motion = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1)).motion(
-        OdometryReading(1.0, 0.0, -45.0)
-    )
+    motion = OdometrySensor("wheels", grid, OdometryParams(sigma_per_m=0.1)).motion(OdometryReading(1.0, 0.0, -45.0))
     packed = predict_sets(bitset.pack_masks(masks.reshape(1, -1)), grid, motion)
     out = bitset.unpack(packed, grid.n_cells).reshape(grid.shape)
     # moved 2 cells east, bound ceil(3 · 0.1 m / 0.5 m) = 1 cell, heading −1 bin → bin 7 (wraps)

@@ -32,22 +32,31 @@ def test_bench_reports_ratios_as_json(capsys):
     import json
 
     assert main(["bench", "--quick", "--repeats", "1", "--json"]) == 0
-    rows = json.loads(capsys.readouterr().out)
+    out = json.loads(capsys.readouterr().out)
+    rows = out["cost"]
     assert {(r["backend"], r["operation"]) for r in rows} == {
         ("bayes", "update"),
         ("bayes", "predict"),
         ("evidential", "update"),
-        ("evidential", "update as run"),
-        ("evidential", "predict"),
-        ("evidential", "step"),
+        ("evidential", "predict (probabilistic)"),
+        ("evidential", "predict (bounded)"),
+        ("evidential, focal sets", "update"),
+        ("evidential, focal sets", "update as run"),
+        ("evidential, focal sets", "predict"),
+        ("evidential, focal sets", "step"),
     }
+    # Fidelity rows: the plausibility transform with probabilistic motion equals the Bayes posterior
+    # (Shafer 1976); every other row is a measured distance in [0, 1].
+    fidelity = {r["output"]: r["distance"] for r in out["fidelity"]}
+    assert fidelity["plausibility transform = Bayes posterior"] < 1e-12
+    assert all(0.0 <= d <= 1.0 for d in fidelity.values()) and len(fidelity) == 6
     for r in rows:  # ratios are computed from the two times of the same run, never hard-coded
         assert abs(r["ratio"] - r["best_ms"] / r["floor_ms"]) < 1e-9 * r["ratio"]
 
 
 @pytest.mark.slow
 def test_the_sweep_benchmark_reports_its_speed_up_beside_the_machines_ceiling():
-    from fusion.bench import bench_sweep
+    from fusion.bench_sweep import bench_sweep
 
     sweep, busy, ceiling = bench_sweep(Path(__file__).parent / "data" / "tiny.toml", seeds=1, workers=2)
     assert sweep.operation == "compare sweep, 2 workers" and ceiling.operation == "2 copies at once"

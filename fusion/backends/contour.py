@@ -106,7 +106,10 @@ class ContourFilter:
             x, y, turn = self._residual.advance(motion, motion.bound_cells, motion.bound_bins)
             moved = dilate_density(cube, x, y, turn)
             if motion.reliability < 1.0:  # with 1 − r the wheels slipped: the move is known within the slip bound
-                wide = [(np.floor(d - motion.slip).astype(int), np.ceil(d + motion.slip).astype(int)) for d in (motion.dx, motion.dy)]
+                wide = [
+                    (np.floor(d - motion.slip).astype(int), np.ceil(d + motion.slip).astype(int))
+                    for d in (motion.dx, motion.dy)
+                ]
                 t = (int(np.floor(motion.turn - motion.slip_turn)), int(np.ceil(motion.turn + motion.slip_turn)))
                 moved = motion.reliability * moved + (1.0 - motion.reliability) * dilate_density(cube, *wide, t)
         moved = moved.reshape(-1) * self.free

@@ -21,13 +21,13 @@ import time
 import numpy as np
 
 from fusion.backends.base import REGION_LEVEL, BeliefHealth, PoseEstimate, StepReport, estimate_pose
+from fusion.backends.contour import CORE_SHARE
 from fusion.belief import bitset, rules
 from fusion.belief.mass import MERGE_STRATEGIES, FocalAccumulator, MassFunction
 from fusion.conflict import jousselme_distance, pignistic_disagreement, support_conflict
 from fusion.errors import FrameMismatchError, RuleError, TotalConflictError
 from fusion.grid import PoseGrid
 from fusion.motion import SlicedSets, SubCellMotion, move_sets, predict_sets
-from fusion.backends.contour import CORE_SHARE
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 

@@ -33,7 +33,15 @@ from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import check_reliability
 
-__all__ = ["OdometryParams", "OdometryReading", "Motion", "OdometrySensor", "MAX_TURN_DEG", "Travel", "check_odometry_step"]
+__all__ = [
+    "OdometryParams",
+    "OdometryReading",
+    "Motion",
+    "OdometrySensor",
+    "MAX_TURN_DEG",
+    "Travel",
+    "check_odometry_step",
+]
 
 
 @dataclass(frozen=True)
@@ -101,7 +109,9 @@ class Travel:
         th = math.radians(a.turn_deg)
         c, s = math.cos(th), math.sin(th)
         net = OdometryReading(
-            a.forward_m + c * r.forward_m - s * r.left_m, a.left_m + s * r.forward_m + c * r.left_m, a.turn_deg + r.turn_deg
+            a.forward_m + c * r.forward_m - s * r.left_m,
+            a.left_m + s * r.forward_m + c * r.left_m,
+            a.turn_deg + r.turn_deg,
         )
         return Travel(net, self.path_m + math.hypot(r.forward_m, r.left_m), self.turned_deg + abs(r.turn_deg))
 
@@ -162,9 +172,7 @@ class OdometrySensor:
         turned = abs(reading.turn_deg) if travelled is None else travelled.turned_deg
         # Variances add along the path (probabilistic); bounds add along the path (set-valued).
         sigma_m = p.sigma_per_m * math.sqrt(dist)
-        sigma_deg = math.sqrt(
-            (p.turn_sigma_per_m_deg**2) * dist + (p.turn_sigma_per_turn**2) * turned * _DEG_PER_RAD
-        )
+        sigma_deg = math.sqrt((p.turn_sigma_per_m_deg**2) * dist + (p.turn_sigma_per_turn**2) * turned * _DEG_PER_RAD)
         bound_m = p.bound_sigmas * p.sigma_per_m * dist
         bound_deg = p.bound_sigmas * (p.turn_sigma_per_m_deg * dist + p.turn_sigma_per_turn * turned)
         step_deg = math.degrees(g.heading_step)
