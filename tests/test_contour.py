@@ -61,6 +61,22 @@ def test_consonant_conflict_and_pignistic_match_the_focal_set_computation():
         assert_close(cb.bel(region), exact_b.bel(np.flatnonzero(region)), tol=1e-12)
 
 
+def test_consonant_distance_is_the_jousselme_distance_of_the_level_sets():
+    # Jousselme, Grenier & Bossé (2001): d = sqrt(½ (m1 − m2)ᵀ D (m1 − m2)), D the Jaccard index of the
+    # focal sets; the closed form for nested sets must give the general pairwise computation's value.
+    from fusion.belief.contour import consonant_distance
+    from fusion.conflict import jousselme_distance
+
+    rng = np.random.default_rng(9)
+    for i in range(12):
+        a = ContourBelief(rng.random(200) ** 3)
+        b = ContourBelief(rng.random(200) ** 2 * (rng.random(200) > 0.3), empty=0.3 * (i % 2))
+        assert_close(
+            consonant_distance(a, b), jousselme_distance(a.as_mass_function(), b.as_mass_function()), tol=1e-12
+        )
+    assert consonant_distance(a, a) == 0.0
+
+
 def _small_site_pair(motion_seed: int, form: str, reliability: float):
     grid = PoseGrid(3.0, 2.0, 0.25, 8)
     rng = np.random.default_rng(motion_seed)

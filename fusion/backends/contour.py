@@ -31,8 +31,8 @@ import time
 import numpy as np
 
 from fusion.backends.base import BeliefHealth, PoseEstimate, StepReport, estimate_pose, region_size
-from fusion.belief.contour import ContourBelief
-from fusion.conflict import jousselme_distance, pignistic_disagreement, support_conflict
+from fusion.belief.contour import ContourBelief, consonant_distance
+from fusion.conflict import pignistic_disagreement, support_conflict
 from fusion.errors import FrameMismatchError, RuleError
 from fusion.grid import PoseGrid
 from fusion.motion import MOTION_MODELS, SubCellMotion, dilate_density, predict_density
@@ -165,7 +165,7 @@ class ContourFilter:
 
     def distance(self, before: ContourBelief, after: ContourBelief) -> float:
         """Jousselme distance between the consonant beliefs (contours rounded up to geometric levels)."""
-        return jousselme_distance(before.as_mass_function(), after.as_mass_function())
+        return consonant_distance(before, after)
 
     # ----------------------------------------------------------------- queries
     def distribution(self) -> np.ndarray:
