@@ -25,6 +25,7 @@ Bayesian side
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -40,6 +41,7 @@ __all__ = [
     "pignistic_disagreement",
     "pairwise_conflict",
     "support_conflict",
+    "fit_plausibility_contour",
     "EvidenceAverages",
 ]
 
@@ -61,6 +63,31 @@ def fit_plausibility(c: float, dof: int) -> float:
     if c <= 0.0:
         return 0.0
     return float(gammaincc(dof / 2.0, -math.log(c)))  # χ² survival: Q(k/2, x/2) with x = −2 log c
+
+
+def fit_plausibility_contour(contour: np.ndarray, dof: int) -> np.ndarray:
+    """``fit_plausibility`` of every cell: P(χ²_dof ≥ −2 log c(x)).  This is the possibility distribution a
+    Gaussian reading of ``dof`` independent errors induces by the probability–possibility transformation
+    (Dubois, Foulloy, Mauris & Prade 2004, "Probability-possibility transformations, triangular fuzzy sets
+    and probabilistic inequalities"): the plausibility that x is the true pose is the chance that the true
+    pose fits no better.  For dof ≤ 2 it is c itself.  Read from a table of 4,096 points in −log c
+    (linear interpolation; the function is smooth and monotone), since the special function itself costs
+    ~100 ns per cell."""
+    c = np.asarray(contour, dtype=np.float64)
+    if dof <= 2:
+        return c
+    xs, ps = _survival_table(int(dof))
+    with np.errstate(divide="ignore"):
+        x = -np.log(c)
+    return np.interp(x, xs, ps, right=0.0)
+
+
+@functools.lru_cache(maxsize=32)
+def _survival_table(dof: int) -> tuple[np.ndarray, np.ndarray]:
+    k = dof / 2.0
+    top = k + 40.0 * math.sqrt(k) + 40.0  # Q(k, x) < 1e-16 beyond (Chernoff bound on the gamma tail)
+    xs = np.linspace(0.0, top, 4096)
+    return xs, gammaincc(k, xs)
 
 
 def support_conflict(p: np.ndarray, evidence, share: float) -> float:

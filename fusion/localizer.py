@@ -291,11 +291,11 @@ class Localizer:
             else:
                 figure = f.reading_conflict(prior, original)
             k = figure if report.conflict is None else report.conflict
-            disagreement, core = f.second_opinion(prior, original, figure, self.policy.conflict_k, clear_level)
+            opinion = f.second_opinion(prior, original, figure, self.policy.conflict_k, clear_level)
             clear = figure < clear_level
-            disagree = self.monitor.disagrees(figure, disagreement, core)
+            disagree = self.monitor.disagrees(figure, opinion)
             figures["conflict"] = max(figures["conflict"], k)
-            figures["disagreement"] = max(figures["disagreement"], disagreement or 0.0)
+            figures["disagreement"] = max(figures["disagreement"], opinion.disagreement or 0.0)
             if report.log_evidence is not None:  # the slow/fast evidence averages (augmented MCL)
                 ratio = self.averages.add(report.log_evidence)
                 figures["surprise"] = max(figures["surprise"], -report.log_evidence)

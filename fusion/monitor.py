@@ -93,13 +93,20 @@ class Monitor:
         self._agree_run: dict[str, int] = {}
 
     # ----------------------------------------------------------------- per reading
-    def disagrees(self, figure: float, extra: float | None = None, core: float | None = None) -> bool:
-        """Does one reading's conflict figure count as disagreeing with the belief?  The back end may add
-        ``extra``, a disagreement that must also exceed its threshold (mass side: the pignistic
-        disagreement, Liu 2006), and ``core``, the conflict with the belief's likeliest cells when the
-        reading's figure is short of the threshold yet not clear; None where it gives none."""
+    def disagrees(self, figure: float, opinion=None) -> bool:
+        """Does one reading's conflict figure count as disagreeing with the belief?  ``opinion``: the back
+        end's further figures (``fusion.backends.base.SecondOpinion``): a disagreement and a support
+        conflict that must also exceed their thresholds, and a core conflict that counts when the figure
+        is short of the threshold yet not clear; a figure None is not weighed."""
         p = self.policy
-        two_dimensional = figure > p.conflict_k and (extra is None or extra > p.disagreement)
+        extra = getattr(opinion, "disagreement", None)
+        support = getattr(opinion, "support", None)
+        core = getattr(opinion, "core", None)
+        two_dimensional = (
+            figure > p.conflict_k
+            and (extra is None or extra > p.disagreement)
+            and (support is None or support > p.conflict_k)
+        )
         return two_dimensional or (core is not None and core > p.conflict_k)
 
     def record_reading(self, sensor: str, disagree: bool, informative: float = 1.0) -> None:
@@ -164,7 +171,11 @@ class Monitor:
                 "the belief is reset and re-seeded from the readings of this episode"
             )
             self.run, self.cooldown, self.alerted = 0, p.cooldown_ticks, False
-        elif self.run >= p.alert_after and not self.alerted and verdict.action == CARRY_ON and persistent:
+        elif (
+            self.run >= p.alert_after and not self.alerted and verdict.action == CARRY_ON and conflicting and persistent
+        ):
+            # Only on a conflicting tick: persistence is judged there; a neutral tick after a run that the
+            # persistence test vetoed (two lone odd readings) is no new evidence of a fault.
             verdict.action = ALERT
             verdict.reasons.append(f"{self.run} conflicting ticks in a row; most to blame: {top}")
             self.alerted = True

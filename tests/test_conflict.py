@@ -4,6 +4,7 @@ import numpy as np
 from scipy import stats
 from support import assert_close
 
+from fusion.backends.base import SecondOpinion
 from fusion.belief import rules
 from fusion.belief.mass import MassFunction
 from fusion.conflict import (
@@ -91,8 +92,8 @@ def test_liu_two_dimensional_conflict():
     difbetp = pignistic_disagreement(m.pignistic(), m.pignistic())
     assert_close(difbetp, 0.0)
     monitor = Monitor(Policy(conflict_k=0.7, disagreement=0.3))
-    assert not monitor.disagrees(k, difbetp)
-    assert monitor.disagrees(0.9, 0.5)
+    assert not monitor.disagrees(k, SecondOpinion(disagreement=difbetp))
+    assert monitor.disagrees(0.9, SecondOpinion(disagreement=0.5))
 
 
 def test_evidence_ratio_rises_when_readings_stop_matching():
@@ -132,7 +133,10 @@ def test_evidential_reading_disagrees_with_the_core_even_below_the_k_threshold()
     from fusion.monitor import Monitor, Policy
 
     m = Monitor(Policy(conflict_k=0.8, disagreement=0.3))
-    assert m.disagrees(0.63, core=0.9)  # the belief was swayed toward an earlier ghost sighting
-    assert not m.disagrees(0.63, core=0.44)
-    assert not m.disagrees(0.9, extra=0.0)  # Liu (2006): large K, no pignistic disagreement
-    assert m.disagrees(0.9, extra=0.5)
+    assert m.disagrees(0.63, SecondOpinion(core=0.9))  # the belief was swayed toward an earlier ghost sighting
+    assert not m.disagrees(0.63, SecondOpinion(core=0.44))
+    assert not m.disagrees(0.9, SecondOpinion(disagreement=0.0))  # Liu (2006): large K, no pignistic disagreement
+    assert m.disagrees(0.9, SecondOpinion(disagreement=0.5))
+    # A reading that still fits a cell the belief allows does not disagree, however large its K.
+    assert not m.disagrees(0.9, SecondOpinion(disagreement=0.5, support=0.1))
+    assert m.disagrees(0.9, SecondOpinion(disagreement=0.5, support=0.85))

@@ -18,6 +18,16 @@ def test_neutral_ticks_neither_start_nor_end_an_episode():
     assert m.judge(True, False, []).action == ALERT
 
 
+def test_no_alert_on_a_neutral_tick_after_a_run_the_persistence_test_vetoed():
+    # Two lone odd readings of two door contacts on two ticks (no sensor persistent): no alert then, and
+    # none on the neutral tick after, which brings no new evidence of a fault (found on calm seed 49).
+    m = Monitor(Policy(alert_after=2))
+    assert m.judge(True, False, [], persistent=False).action == CARRY_ON
+    assert m.judge(True, False, [], persistent=False).action == CARRY_ON
+    assert m.judge(False, False, []).action == CARRY_ON
+    assert m.judge(True, False, [], persistent=True).action == ALERT  # a persistent conflict still alerts
+
+
 def test_a_sensor_that_keeps_disagreeing_alone_is_quarantined_and_released():
     m = Monitor(Policy(quarantine_after=3, quarantine_window=5, release_after=2))
     verdicts = []

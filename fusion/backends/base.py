@@ -19,7 +19,16 @@ from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
-__all__ = ["Backend", "StepReport", "PoseEstimate", "BeliefHealth", "estimate_pose", "region_size", "REGION_LEVEL"]
+__all__ = [
+    "Backend",
+    "StepReport",
+    "PoseEstimate",
+    "BeliefHealth",
+    "SecondOpinion",
+    "estimate_pose",
+    "region_size",
+    "REGION_LEVEL",
+]
 
 REGION_LEVEL = 0.95
 """Probability held by the 'best region' reported with every estimate (common practice, no source)."""
@@ -60,6 +69,23 @@ class PoseEstimate:
     spread_m: float
     mean_x_m: float = 0.0
     mean_y_m: float = 0.0
+
+
+@dataclass(frozen=True)
+class SecondOpinion:
+    """Figures a back end adds beside a reading's conflict for the policy (``Monitor.disagrees``); None where
+    it gives none.  ``disagreement``: must also exceed its threshold for a conflict above ``conflict_k`` to
+    count (mass side: the pignistic disagreement, Liu 2006); ``support``: the conflict with every cell the
+    belief still allows, which must also exceed ``conflict_k`` (a sharp belief can conflict with a reading
+    that still fits a cell it allows); ``core``: the conflict with the belief's likeliest cells, counted when
+    the reading's own conflict is short of ``conflict_k`` yet not clear."""
+
+    disagreement: float | None = None
+    core: float | None = None
+    support: float | None = None
+
+
+NO_OPINION = SecondOpinion()
 
 
 @dataclass(frozen=True)
@@ -110,8 +136,8 @@ class Backend(Protocol):
 
     def second_opinion(
         self, snapshot: object, evidence: Evidence, k: float, conflict_k: float, clear_level: float
-    ) -> tuple[float | None, float | None]:
-        """(disagreement, core conflict): further figures the policy weighs beside K, or None."""
+    ) -> SecondOpinion:
+        """Further figures the policy weighs beside K."""
 
     def joint_conflict(self, snapshot: object, readings) -> float:
         """Conflict of absorbing one tick's (sensor, Evidence) readings into the snapshot at once."""

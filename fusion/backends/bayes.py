@@ -12,7 +12,15 @@ import time
 
 import numpy as np
 
-from fusion.backends.base import BeliefHealth, PoseEstimate, StepReport, estimate_pose, region_size
+from fusion.backends.base import (
+    NO_OPINION,
+    BeliefHealth,
+    PoseEstimate,
+    SecondOpinion,
+    StepReport,
+    estimate_pose,
+    region_size,
+)
 from fusion.belief.posterior import Posterior
 from fusion.conflict import support_conflict
 from fusion.errors import FrameMismatchError, ZeroEvidenceError
@@ -92,8 +100,8 @@ class HistogramFilter:
         not contradiction) scores 0, unlike 1 − p(z | past)."""
         return support_conflict(snapshot, evidence, SUPPORT_SHARE)
 
-    def second_opinion(self, snapshot, evidence, k, conflict_k, clear_level):
-        return None, None  # the slow/fast evidence ratio, from ``log_evidence``, is the Bayes side's second figure
+    def second_opinion(self, snapshot, evidence, k, conflict_k, clear_level) -> SecondOpinion:
+        return NO_OPINION  # the slow/fast evidence ratio, from ``log_evidence``, is the Bayes side's second figure
 
     def joint_conflict(self, snapshot: np.ndarray, readings) -> float:
         """The support conflict of the tick's readings at once: the best their joint likelihood (each

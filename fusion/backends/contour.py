@@ -30,7 +30,15 @@ import time
 
 import numpy as np
 
-from fusion.backends.base import BeliefHealth, PoseEstimate, StepReport, estimate_pose, region_size
+from fusion.backends.base import (
+    NO_OPINION,
+    BeliefHealth,
+    PoseEstimate,
+    SecondOpinion,
+    StepReport,
+    estimate_pose,
+    region_size,
+)
 from fusion.belief.contour import ContourBelief, consonant_distance
 from fusion.conflict import pignistic_disagreement, support_conflict
 from fusion.errors import FrameMismatchError, RuleError
@@ -44,10 +52,15 @@ __all__ = ["ContourFilter", "CONTOUR_RULES", "CORE_SHARE"]
 CONTOUR_RULES = ("dempster", "conjunctive")
 """Rules whose effect on the contour is a product (exact here)."""
 
+SUPPORT_SHARE = 1e-3
+"""The support of an evidential belief: cells of plausibility ≥ this share of the peak (as the Bayes side's
+support of a posterior; common practice, no source)."""
+
 CORE_SHARE = 0.1
-"""The core of an evidential belief: cells with pignistic probability ≥ this share of the peak (common
-practice, no source: one tenth).  Wider than a posterior's support because the consonant reading spreads
-each level's mass evenly over its cells."""
+"""The core of an evidential belief: the cells of plausibility ≥ this share of the peak, i.e. the focal set
+of the consonant belief that holds 90% of its mass (common practice, no source: one tenth).  The focal-set
+filter takes the cells of pignistic probability ≥ this share of the peak instead, its broad focal sets
+spreading their mass evenly over their cells."""
 
 
 class ContourFilter:
@@ -136,19 +149,29 @@ class ContourFilter:
 
     # ----------------------------------------------------------------- conflict, scored on this belief
     def reading_conflict(self, snapshot: ContourBelief, evidence: Evidence) -> float:
-        """K of the reading's mass function with the (normal) consonant belief of ``snapshot``."""
-        return snapshot.conflict_with(evidence.likelihood, bayesian=evidence.form == "bayesian")
+        """K of the reading's mass function with the (normal) consonant belief of ``snapshot``.  A scan of m beams
+        is read through its calibrated plausibility (``Evidence.plausibility``): its likelihood ratio alone
+        would rule out a correct pose that fits m Gaussian beam errors as a correct pose does."""
+        if evidence.form == "bayesian":
+            return snapshot.conflict_with(evidence.likelihood, bayesian=True)
+        return snapshot.conflict_with(evidence.plausibility)
 
     def second_opinion(self, snapshot, evidence: Evidence, k: float, conflict_k: float, clear_level: float):
-        """(pignistic disagreement, conflict with the belief's core) where the policy needs them: the first
-        when K is above ``conflict_k`` (Liu 2006: K alone is not conflict), the second when K is neither
-        clear nor above it (a belief that absorbed a faulty reading can still be ruled out at its core)."""
+        """Where the policy needs them.  K above ``conflict_k``: the pignistic disagreement (Liu 2006: K alone
+        is not conflict) and the conflict with the belief's support, the cells of plausibility ≥
+        ``SUPPORT_SHARE`` (an exact belief is sharp: a door contact that fits a cell just beside its peak has
+        a large K yet rules nothing out that the belief allows).  K neither clear nor above it: the conflict
+        with the belief's core, the cells of plausibility ≥ ``CORE_SHARE`` (a belief that absorbed a faulty
+        reading can still be ruled out at its core)."""
         if k > conflict_k:
-            reading = ContourBelief(np.maximum(evidence.likelihood, 0.0))
-            return pignistic_disagreement(snapshot.pignistic(), reading.pignistic()), None
+            reading = ContourBelief(np.maximum(evidence.plausibility, 0.0))
+            return SecondOpinion(
+                disagreement=pignistic_disagreement(snapshot.pignistic(), reading.pignistic()),
+                support=support_conflict(snapshot.contour, evidence, SUPPORT_SHARE),
+            )
         if k >= clear_level:
-            return None, support_conflict(snapshot.pignistic(), evidence, CORE_SHARE)
-        return None, None
+            return SecondOpinion(core=support_conflict(snapshot.contour, evidence, CORE_SHARE))
+        return NO_OPINION
 
     def joint_conflict(self, snapshot: ContourBelief, readings) -> float:
         """Conflict of absorbing ``readings`` ((sensor, Evidence) pairs) into ``snapshot`` one after another:

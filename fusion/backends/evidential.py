@@ -20,7 +20,15 @@ import time
 
 import numpy as np
 
-from fusion.backends.base import REGION_LEVEL, BeliefHealth, PoseEstimate, StepReport, estimate_pose
+from fusion.backends.base import (
+    NO_OPINION,
+    REGION_LEVEL,
+    BeliefHealth,
+    PoseEstimate,
+    SecondOpinion,
+    StepReport,
+    estimate_pose,
+)
 from fusion.backends.contour import CORE_SHARE
 from fusion.belief import bitset, rules
 from fusion.belief.mass import MERGE_STRATEGIES, FocalAccumulator, MassFunction
@@ -243,10 +251,10 @@ class MassFilter:
         """(pignistic disagreement when K > ``conflict_k``, conflict with the belief's core when K is
         neither clear nor above it); see ``ContourFilter.second_opinion``."""
         if k > conflict_k:
-            return pignistic_disagreement(_pignistic(snapshot), evidence.masses.pignistic()), None
+            return SecondOpinion(disagreement=pignistic_disagreement(_pignistic(snapshot), evidence.masses.pignistic()))
         if k >= clear_level:
-            return None, support_conflict(_pignistic(snapshot), evidence, CORE_SHARE)
-        return None, None
+            return SecondOpinion(core=support_conflict(_pignistic(snapshot), evidence, CORE_SHARE))
+        return NO_OPINION
 
     def joint_conflict(self, snapshot: MassFunction, readings) -> float:
         """1 − Π (1 − K_i) of absorbing the readings one after another (focal sets capped as in a run)."""

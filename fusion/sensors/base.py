@@ -60,6 +60,18 @@ class Evidence:
         return self.contour if r == 1.0 else r * self.contour + (1.0 - r)
 
     @cached_property
+    def plausibility(self) -> np.ndarray:
+        """r · pl + (1 − r) with pl the plausibility that each cell is the true pose: the contour itself, or
+        for a reading of ``dof`` > 2 independent Gaussian errors the chance that the true pose fits no better
+        (``fusion.conflict.fit_plausibility_contour``).  Conflict figures score readings with it; updates use
+        ``likelihood``."""
+        from fusion.conflict import fit_plausibility_contour
+
+        pl = fit_plausibility_contour(self.contour, self.dof)
+        r = self.reliability
+        return pl if r == 1.0 else r * pl + (1.0 - r)
+
+    @cached_property
     def masses(self) -> MassFunction:
         if self.form == "bayesian":
             lik = self.likelihood
