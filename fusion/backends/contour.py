@@ -154,7 +154,7 @@ class ContourFilter:
         would rule out a correct pose that fits m Gaussian beam errors as a correct pose does."""
         if evidence.form == "bayesian":
             return snapshot.conflict_with(evidence.likelihood, bayesian=True)
-        return snapshot.conflict_with(evidence.plausibility)
+        return snapshot.conflict_with(evidence.contour, transform=evidence.plausibility_of)
 
     def second_opinion(self, snapshot, evidence: Evidence, k: float, conflict_k: float, clear_level: float):
         """Where the policy needs them.  K above ``conflict_k``: the pignistic disagreement (Liu 2006: K alone

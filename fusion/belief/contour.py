@@ -63,7 +63,7 @@ class ContourBelief:
     """An immutable belief: a contour in [0, 1] per cell with maximum 1 (the normal part), and the mass
     ``empty`` on the empty set left by the unnormalised conjunctive rule (0 under Dempster's rule)."""
 
-    __slots__ = ("_contour", "empty", "_bins", "_sum")
+    __slots__ = ("_contour", "empty", "_bins", "_sum", "_active_cells")
 
     def __init__(self, contour: np.ndarray, empty: float = 0.0, *, owned: bool = False):
         """``owned``: the caller hands over a float64 array it will not touch again, known to be finite and
@@ -84,6 +84,7 @@ class ContourBelief:
         self._contour, self.empty = c, float(empty)
         self._bins = None
         self._sum = None
+        self._active_cells = None
 
     @classmethod
     def vacuous_on(cls, mask: np.ndarray) -> ContourBelief:
@@ -116,27 +117,30 @@ class ContourBelief:
         """Bel(A) = Pl(Θ) − Pl(Ā) of the consonant belief: 1 − m(∅) − Pl(not A)."""
         return (1.0 - self.empty) - self.pl(~np.asarray(mask, dtype=bool).reshape(-1))
 
-    def conflict_with(self, contour: np.ndarray, bayesian: bool = False) -> float:
+    def conflict_with(self, contour: np.ndarray, bayesian: bool = False, transform=None) -> float:
         """K = m(∅) of the unnormalised conjunctive combination of the (normal) consonant belief with a
         reading: a consonant one of contour ``contour`` (max 1 where it is normal), or with ``bayesian``
-        a Bayesian one whose probabilities are ``contour`` / Σ ``contour``.
+        a Bayesian one whose probabilities are ``contour`` / Σ ``contour``.  ``transform``, if given, maps
+        contour values to the reading's plausibilities (applied only to the cells it needs).
 
         1 − K = Σ_k m(A_k) · Pl_e(A_k) over the nested sets A_k = {pl ≥ λ_k}, i.e. ∫₀¹ Pl_e({pl ≥ λ}) dλ,
-        with Pl_e(A) = max_A contour (consonant) or Σ_A p (Bayesian)."""
+        with Pl_e(A) = max_A contour (consonant) or Σ_A p (Bayesian).  Only cells of plausibility ≥
+        ``LOWEST_LEVEL`` are visited: the sets below that level carry less mass than that in all."""
         e = np.asarray(contour, dtype=np.float64).reshape(-1)
-        if not np.any((self._contour > 0) & (e > 0)):  # no cell both allows: total conflict, exactly
-            return 1.0
-        bins = self._level_bins()
+        cells, bins = self._active()
+        values = e[cells] if transform is None else transform(e[cells])
         if bayesian:
             total = float(e.sum())
             if total <= 0:
                 return 1.0
-            reach = np.cumsum(np.bincount(bins, weights=e, minlength=_BINS + 1)) / total
+            reach = np.cumsum(np.bincount(bins, weights=values, minlength=_BINS + 1)) / total
         else:
             per_bin = np.zeros(_BINS + 1)
-            np.maximum.at(per_bin, bins, e)
+            np.maximum.at(per_bin, bins, values)
             reach = np.maximum.accumulate(per_bin)
         agree = float((_WIDTHS * reach).sum())  # not np.dot: a BLAS call costs more than this sum here
+        if agree <= LOWEST_LEVEL and not np.any((self._contour > 0) & (e > 0)):
+            return 1.0  # no cell both allow: total conflict, exactly
         return float(min(max(1.0 - agree, 0.0), 1.0))
 
     def pignistic(self) -> np.ndarray:
@@ -159,18 +163,33 @@ class ContourBelief:
         sets = np.vstack([m.sets, np.zeros((1, m.sets.shape[1]), dtype=m.sets.dtype)])
         return MassFunction(m.n, sets, np.append(m.masses * (1.0 - self.empty), self.empty))
 
+    def _active(self) -> tuple[np.ndarray, np.ndarray]:
+        """The cells of plausibility ≥ ``LOWEST_LEVEL`` and their level bins, computed once per belief.  After
+        a few discounted readings most of a site is far below that level, so K visits a few cells."""
+        if self._active_cells is None:
+            cells = np.flatnonzero(self._contour >= LOWEST_LEVEL)
+            if cells.size == self.n:
+                self._active_cells = (slice(None), self._level_bins())
+            else:
+                self._active_cells = (cells, _bins_of(self._contour[cells]))
+        return self._active_cells
+
     def _level_bins(self) -> np.ndarray:
         """Level bin of each cell (0 = the top level, ``_BINS`` the last), computed once per belief.
         Single precision is ample for a bin index (levels differ by 0.1% per bin)."""
         if self._bins is None:
-            # Floored at LOWEST_LEVEL before the logarithm: no denormals or zeros reach it (both are slow).
-            scaled = np.log(np.maximum(self._contour, LOWEST_LEVEL).astype(np.float32))
-            scaled *= _PER_LOG
-            np.minimum(scaled, np.float32(_BINS), out=scaled)
-            # Cells of plausibility 0 share the last bin with those below LOWEST_LEVEL: the bin's width is
-            # LOWEST_LEVEL, so K moves by less than that (the pignistic transform zeroes them afterwards).
-            self._bins = scaled.astype(np.intp)
+            self._bins = _bins_of(self._contour)
         return self._bins
+
+
+def _bins_of(level: np.ndarray) -> np.ndarray:
+    """Level bin of each value.  Floored at LOWEST_LEVEL before the logarithm: no denormals or zeros reach
+    it (both are slow); values of 0 share the last bin with those below LOWEST_LEVEL (the bin's width is
+    LOWEST_LEVEL, so K moves by less than that; the pignistic transform zeroes them afterwards)."""
+    scaled = np.log(np.maximum(level, LOWEST_LEVEL).astype(np.float32))
+    scaled *= _PER_LOG
+    np.minimum(scaled, np.float32(_BINS), out=scaled)
+    return scaled.astype(np.intp)
 
 
 def _geometric_levels(contour: np.ndarray, levels: int) -> np.ndarray:

@@ -65,9 +65,13 @@ class Evidence:
         for a reading of ``dof`` > 2 independent Gaussian errors the chance that the true pose fits no better
         (``fusion.conflict.fit_plausibility_contour``).  Conflict figures score readings with it; updates use
         ``likelihood``."""
+        return self.plausibility_of(self.contour)
+
+    def plausibility_of(self, contour: np.ndarray) -> np.ndarray:
+        """``plausibility`` for some of the reading's contour values (the cells a conflict figure visits)."""
         from fusion.conflict import fit_plausibility_contour
 
-        pl = fit_plausibility_contour(self.contour, self.dof)
+        pl = fit_plausibility_contour(contour, self.dof)
         r = self.reliability
         return pl if r == 1.0 else r * pl + (1.0 - r)
 
