@@ -95,18 +95,13 @@ class Monitor:
     # ----------------------------------------------------------------- per reading
     def disagrees(self, figure: float, opinion=None) -> bool:
         """Does one reading's conflict figure count as disagreeing with the belief?  ``opinion``: the back
-        end's further figures (``fusion.backends.base.SecondOpinion``): a disagreement and a support
-        conflict that must also exceed their thresholds, and a core conflict that counts when the figure
-        is short of the threshold yet not clear; a figure None is not weighed."""
+        end's further figures (``fusion.backends.base.SecondOpinion``): a disagreement that must also
+        exceed its threshold, and a core conflict that counts when the figure is short of the threshold
+        yet not clear; a figure None is not weighed."""
         p = self.policy
         extra = getattr(opinion, "disagreement", None)
-        support = getattr(opinion, "support", None)
         core = getattr(opinion, "core", None)
-        two_dimensional = (
-            figure > p.conflict_k
-            and (extra is None or extra > p.disagreement)
-            and (support is None or support > p.conflict_k)
-        )
+        two_dimensional = figure > p.conflict_k and (extra is None or extra > p.disagreement)
         return two_dimensional or (core is not None and core > p.conflict_k)
 
     def record_reading(self, sensor: str, disagree: bool, informative: float = 1.0) -> None:

@@ -75,14 +75,11 @@ class PoseEstimate:
 class SecondOpinion:
     """Figures a back end adds beside a reading's conflict for the policy (``Monitor.disagrees``); None where
     it gives none.  ``disagreement``: must also exceed its threshold for a conflict above ``conflict_k`` to
-    count (mass side: the pignistic disagreement, Liu 2006); ``support``: the conflict with every cell the
-    belief still allows, which must also exceed ``conflict_k`` (a sharp belief can conflict with a reading
-    that still fits a cell it allows); ``core``: the conflict with the belief's likeliest cells, counted when
-    the reading's own conflict is short of ``conflict_k`` yet not clear."""
+    count (mass side: the pignistic disagreement, Liu 2006); ``core``: the conflict with the belief's
+    likeliest cells, counted when the reading's own conflict is short of ``conflict_k`` yet not clear."""
 
     disagreement: float | None = None
     core: float | None = None
-    support: float | None = None
 
 
 NO_OPINION = SecondOpinion()

@@ -52,10 +52,6 @@ __all__ = ["ContourFilter", "CONTOUR_RULES", "CORE_SHARE"]
 CONTOUR_RULES = ("dempster", "conjunctive")
 """Rules whose effect on the contour is a product (exact here)."""
 
-SUPPORT_SHARE = 1e-3
-"""The support of an evidential belief: cells of plausibility ≥ this share of the peak (as the Bayes side's
-support of a posterior; common practice, no source)."""
-
 CORE_SHARE = 0.1
 """The core of an evidential belief: the cells of plausibility ≥ this share of the peak, i.e. the focal set
 of the consonant belief that holds 90% of its mass (common practice, no source: one tenth).  The focal-set
@@ -158,17 +154,12 @@ class ContourFilter:
 
     def second_opinion(self, snapshot, evidence: Evidence, k: float, conflict_k: float, clear_level: float):
         """Where the policy needs them.  K above ``conflict_k``: the pignistic disagreement (Liu 2006: K alone
-        is not conflict) and the conflict with the belief's support, the cells of plausibility ≥
-        ``SUPPORT_SHARE`` (an exact belief is sharp: a door contact that fits a cell just beside its peak has
-        a large K yet rules nothing out that the belief allows).  K neither clear nor above it: the conflict
-        with the belief's core, the cells of plausibility ≥ ``CORE_SHARE`` (a belief that absorbed a faulty
-        reading can still be ruled out at its core)."""
+        is not conflict).  K neither clear nor above it: the conflict with the belief's core, the cells of
+        plausibility ≥ ``CORE_SHARE`` (a belief that absorbed a faulty reading can still be ruled out at its
+        core)."""
         if k > conflict_k:
             reading = ContourBelief(np.maximum(evidence.plausibility, 0.0))
-            return SecondOpinion(
-                disagreement=pignistic_disagreement(snapshot.pignistic(), reading.pignistic()),
-                support=support_conflict(snapshot.contour, evidence, SUPPORT_SHARE),
-            )
+            return SecondOpinion(disagreement=pignistic_disagreement(snapshot.pignistic(), reading.pignistic()))
         if k >= clear_level:
             return SecondOpinion(core=support_conflict(snapshot.contour, evidence, CORE_SHARE))
         return NO_OPINION
