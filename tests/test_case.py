@@ -60,6 +60,20 @@ def _line_of(text: str, needle: str) -> int:
             "must be at most 1",
             "quarantine_alpha",
         ),
+        (
+            "tick_s = 0.25",
+            'tick_s = 0.25\nmotion = "teleport"',
+            "run.motion",
+            "unknown value 'teleport'; choose one of: probabilistic, bounded",
+            "teleport",
+        ),
+        (
+            'kind = "odometry"',
+            'kind = "odometry"\nfloor_m = 0.01',
+            "sensors[0].floor_m",
+            "no longer read: odometry noise is now per metre travelled",
+            "floor_m",
+        ),
     ],
 )
 def test_malformed_cases_name_file_line_and_field(old, new, field, message, marker):

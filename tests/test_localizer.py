@@ -57,6 +57,38 @@ def test_rejected_readings_leave_the_state_unchanged(case, localizer):
     assert "out of time order" in late.rejected[0][1]
 
 
+def test_an_odometry_record_with_no_time_step_is_rejected_with_its_field(case, localizer):
+    # Each record reports the motion since an earlier one: two at one time mean a duplicated or mis-stamped log.
+    localizer.step(Observation(1.0, "wheels", "odometry", OdometryReading(0.1)), [])
+    before = localizer.filter.distribution().copy()
+    same = localizer.step(Observation(1.0, "wheels", "odometry", OdometryReading(0.1)), [])
+    assert same.rejected and "field t" in same.rejected[0][1] and "zero time step" in same.rejected[0][1]
+    assert (localizer.filter.distribution() == before).all()
+    later = localizer.step(Observation(1.25, "wheels", "odometry", OdometryReading(0.1)), [])
+    assert not later.rejected
+
+
+def test_odometry_is_applied_once_per_batch_of_readings_whatever_the_record_rate(case):
+    # The same motion logged as 1 or 10 records before one reading gives the same belief: records are
+    # composed exactly and predicted once (no per-record rounding to the grid, no per-record noise floor).
+    from test_rate_invariance import _root
+
+    from fusion.sensors.markers import MarkerSighting
+
+    for backend in ("bayes", "evidential"):
+        beliefs = []
+        for records in (1, 10):
+            loc = Localizer.from_case(case, backend)
+            loc.start_at(1.5, 1.5, 0.0)
+            x, y, th = _root((0.9, 0.1, math.radians(9.0)), records)  # equal twists composing to one move
+            for k in range(records):
+                loc.step(Observation(0.1 * (k + 1), "wheels", "odometry", OdometryReading(x, y, math.degrees(th))), [])
+            sighting = Observation(1.0, "camera", "markers", MarkerSighting("R-west", 2.0, 30.0))
+            loc.step(Observation(1.05, "wheels", "odometry", OdometryReading(0.0)), [sighting])
+            beliefs.append(loc.filter.distribution().copy())
+        assert 0.5 * abs(beliefs[0] - beliefs[1]).sum() < 1e-9, backend
+
+
 def test_runner_writes_complete_results(case, tmp_path):
     result = run_case(case)
     folder = write_results(result, tmp_path / "out")
