@@ -39,7 +39,7 @@ from fusion.monitor import ALERT, CARRY_ON, INFORMATIVE, QUARANTINE, RELOCALIZE,
 from fusion.sensors.base import Evidence
 from fusion.sensors.doors import DoorSensor
 from fusion.sensors.markers import MarkerSensor
-from fusion.sensors.odometry import OdometryReading, OdometrySensor, Travel, check_odometry_step
+from fusion.sensors.odometry import OdometryReading, OdometrySensor, Travel, check_odometry_step, moved_pose
 from fusion.sensors.ranging import RangeSensor
 from fusion.site import SiteMap
 
@@ -226,7 +226,7 @@ class Localizer:
                     check_odometry_step(self._odometry_t, odometry.t, odometry.sensor)
                 if not isinstance(reading, OdometryReading):
                     raise ObservationError("the odometry argument must be an odometry reading")
-                self.sensors.odometry.motion(reading)  # refuses a record the grid cannot apply
+                self.sensors.odometry.check(reading)  # refuses a record the grid cannot apply
                 travel = (self._pending or Travel()).then(reading)
                 t = when  # only an accepted record moves the clock
                 if isinstance(odometry, Observation):
@@ -337,10 +337,7 @@ class Localizer:
         est = self.filter.pose_estimate()
         x, y, heading = est.x_m, est.y_m, est.heading_rad
         if self._pending is not None:  # carried along by the odometry not yet applied to the belief
-            r = self._pending.reading
-            c, s = math.cos(heading), math.sin(heading)
-            x, y = x + c * r.forward_m - s * r.left_m, y + s * r.forward_m + c * r.left_m
-            heading += math.radians(r.turn_deg)
+            x, y, heading = moved_pose(x, y, heading, self._pending.reading)
         return Decision(
             t,
             self.backend,

@@ -68,6 +68,14 @@ def test_an_odometry_record_with_no_time_step_is_rejected_with_its_field(case, l
     assert not later.rejected
 
 
+def test_odometry_composed_past_one_records_limits_is_applied_not_refused(case, localizer):
+    # Each record is checked (≤ 360° of turn, ≤ the site's diagonal); their composition may exceed one
+    # record's limits (89° pending, then a full turn) and must still be applied, not raise.
+    localizer.step(Observation(1.0, "wheels", "odometry", OdometryReading(0.0, 0.0, 89.0)), [])
+    d = localizer.step(Observation(1.25, "wheels", "odometry", OdometryReading(0.0, 0.0, 360.0)), [])
+    assert not d.rejected and math.isfinite(d.x_m)
+
+
 def test_odometry_is_applied_once_per_batch_of_readings_whatever_the_record_rate(case):
     # The same motion logged as 1 or 10 records before one reading gives the same belief: records are
     # composed exactly and predicted once (no per-record rounding to the grid, no per-record noise floor).

@@ -40,6 +40,7 @@ __all__ = [
     "OdometrySensor",
     "MAX_TURN_DEG",
     "Travel",
+    "moved_pose",
     "check_odometry_step",
 ]
 
@@ -103,17 +104,22 @@ class Travel:
     turned_deg: float = 0.0
 
     def then(self, r: OdometryReading) -> Travel:
-        """This travel followed by record ``r`` (exact pose composition: each record moves forward/left in
-        the frame at its start, then turns)."""
+        """This travel followed by record ``r`` (exact pose composition, ``moved_pose``)."""
         a = self.reading
-        th = math.radians(a.turn_deg)
-        c, s = math.cos(th), math.sin(th)
-        net = OdometryReading(
-            a.forward_m + c * r.forward_m - s * r.left_m,
-            a.left_m + s * r.forward_m + c * r.left_m,
-            a.turn_deg + r.turn_deg,
-        )
+        x, y, th = moved_pose(a.forward_m, a.left_m, math.radians(a.turn_deg), r)
+        net = OdometryReading(x, y, math.degrees(th))
         return Travel(net, self.path_m + math.hypot(r.forward_m, r.left_m), self.turned_deg + abs(r.turn_deg))
+
+
+def moved_pose(x: float, y: float, heading_rad: float, r: OdometryReading) -> tuple[float, float, float]:
+    """The pose reached from (x, y, heading) by record ``r``: forward/left in the frame at its start, then
+    the turn."""
+    c, s = math.cos(heading_rad), math.sin(heading_rad)
+    return (
+        x + c * r.forward_m - s * r.left_m,
+        y + s * r.forward_m + c * r.left_m,
+        heading_rad + math.radians(r.turn_deg),
+    )
 
 
 def check_odometry_step(previous_t: float | None, t: float, sensor: str) -> None:
@@ -143,17 +149,14 @@ class OdometrySensor:
             if not isinstance(v, (int, float)) or not math.isfinite(v) or v < 0:
                 raise ObservationError(f"sensor {name!r}: {f} must be a finite number ≥ 0, got {v!r}")
 
-    def motion(self, reading: OdometryReading, travelled: Travel | None = None) -> Motion:
-        """The move of ``reading`` on the grid; its errors follow ``travelled`` (the path length and the
-        turning of the records composed into it) or, by default, the reading's own distance and turn."""
+    def check(self, reading: OdometryReading) -> None:
+        """Refuse a record that is not finite, moves farther than the site's diagonal or turns more than
+        ``MAX_TURN_DEG``: a unit or logging fault, which taken as given would build a kernel of any size."""
         fields = {"forward_m": reading.forward_m, "left_m": reading.left_m, "turn_deg": reading.turn_deg}
         for field, v in fields.items():
             if not isinstance(v, (int, float)) or not math.isfinite(v):
                 raise ObservationError(f"sensor {self.name!r}: odometry {field} must be a finite number, got {v!r}")
-        g, p, res = self.grid, self.params, self.grid.resolution_m
-        # One record cannot move the robot off the site or turn it round more than once; such a value
-        # is a unit or logging fault, and taken as given it would build a motion kernel of any size.
-        diagonal = math.hypot(g.width_m, g.height_m)
+        diagonal = math.hypot(self.grid.width_m, self.grid.height_m)
         if math.hypot(reading.forward_m, reading.left_m) > diagonal:
             raise ObservationError(
                 f"sensor {self.name!r}: odometry moves {math.hypot(reading.forward_m, reading.left_m):.4g} m in one "
@@ -164,6 +167,14 @@ class OdometrySensor:
                 f"sensor {self.name!r}: odometry turns {reading.turn_deg:.4g}° in one record, more than "
                 f"{MAX_TURN_DEG:g}°; check the log's units (degrees)"
             )
+
+    def motion(self, reading: OdometryReading, travelled: Travel | None = None) -> Motion:
+        """The move of ``reading`` on the grid; its errors follow ``travelled`` (the path length and the
+        turning of the checked records composed into it: their net move is not checked again, since a
+        composition may go past one record's limits) or, by default, the reading's own distance and turn."""
+        if travelled is None:
+            self.check(reading)
+        g, p, res = self.grid, self.params, self.grid.resolution_m
         theta = g.heading_centres()
         fwd, left = reading.forward_m, reading.left_m
         dx = (fwd * np.cos(theta) - left * np.sin(theta)) / res
