@@ -28,6 +28,7 @@ __all__ = [
     "predict_sets",
     "move_sets",
     "dilate_density",
+    "bound_offsets",
     "shift_kernel",
     "SlicedSets",
     "SubCellMotion",
@@ -63,18 +64,26 @@ def _taps(shift: float, sigma: float) -> list[tuple[int, float]]:
     return [(whole + i - radius, float(w)) for i, w in enumerate(weights) if w > 1e-15]
 
 
+def _overlap(shape: tuple, offset: int, axis: int):
+    """(destination, source) index tuples of a move by ``offset`` cells along ``axis``; None when nothing
+    stays on the array."""
+    n = shape[axis]
+    if abs(offset) >= n:
+        return None
+    dst = [slice(None)] * len(shape)
+    src = [slice(None)] * len(shape)
+    dst[axis] = slice(max(0, offset), n + min(0, offset))
+    src[axis] = slice(max(0, -offset), n - max(0, offset))
+    return tuple(dst), tuple(src)
+
+
 def _convolve_zero(plane: np.ndarray, taps, axis: int) -> np.ndarray:
     """Σ w · (plane moved by offset along ``axis``), zero-filled: mass moving off the map is lost."""
     out = np.zeros_like(plane)
-    n = plane.shape[axis]
     for offset, w in taps:
-        if abs(offset) >= n:
-            continue
-        dst = [slice(None)] * plane.ndim
-        src = [slice(None)] * plane.ndim
-        dst[axis] = slice(max(0, offset), n + min(0, offset))
-        src[axis] = slice(max(0, -offset), n - max(0, offset))
-        out[tuple(dst)] += w * plane[tuple(src)]
+        where = _overlap(plane.shape, offset, axis)
+        if where is not None:
+            out[where[0]] += w * plane[where[1]]
     return out
 
 
@@ -128,13 +137,9 @@ def _max_shifted(plane: np.ndarray, lo: int, hi: int, axis: int) -> np.ndarray:
 def _moved(plane: np.ndarray, offset: int, axis: int) -> np.ndarray:
     """``plane`` moved by ``offset`` cells along ``axis``, zero-filled."""
     out = np.zeros_like(plane)
-    n = plane.shape[axis]
-    if abs(offset) < n:
-        dst = [slice(None)] * plane.ndim
-        src = [slice(None)] * plane.ndim
-        dst[axis] = slice(max(0, offset), n + min(0, offset))
-        src[axis] = slice(max(0, -offset), n - max(0, offset))
-        out[tuple(dst)] = plane[tuple(src)]
+    where = _overlap(plane.shape, offset, axis)
+    if where is not None:
+        out[where[0]] = plane[where[1]]
     return out
 
 
@@ -285,10 +290,16 @@ def predict_sets(
     """
     bound = motion.bound if bound is None else bound
     bound_turn = motion.bound_turn if bound_turn is None else bound_turn
+    return move_sets(sets, grid, *bound_offsets(motion, bound, bound_turn), layout)
+
+
+def bound_offsets(motion: Motion, bound: float, bound_turn: float):
+    """Whole offsets reachable by ``motion`` within ``bound`` cells and ``bound_turn`` heading bins:
+    ((x_lo, x_hi), (y_lo, y_hi)) arrays per heading bin and one (t_lo, t_hi), i.e. [floor(d − b), ceil(d + b)]."""
     x = (np.floor(motion.dx - bound).astype(int), np.ceil(motion.dx + bound).astype(int))
     y = (np.floor(motion.dy - bound).astype(int), np.ceil(motion.dy + bound).astype(int))
     t = (math.floor(motion.turn - bound_turn), math.ceil(motion.turn + bound_turn))
-    return move_sets(sets, grid, x, y, t, layout)
+    return x, y, t
 
 
 def move_sets(sets: np.ndarray, grid: PoseGrid, x, y, turn, layout: SlicedSets | None = None) -> np.ndarray:

@@ -19,23 +19,11 @@ from fusion.io.case import load_case
 from fusion.io.observations import Observation
 from fusion.localizer import Localizer, SensorSet
 from fusion.monitor import Policy
-from fusion.sensors.odometry import OdometryReading
+from fusion.sensors.odometry import OdometryReading, Travel
 from fusion.simulate import simulate
 
 CASE = pathlib.Path(__file__).resolve().parents[1] / "cases" / "calm.toml"
 RATES = (1, 4, 10)
-
-
-def _compose(a, b):
-    """(x, y, θ) of doing motion ``a`` then ``b`` (each (forward, left, turn in radians), in its own start frame)."""
-    x, y, th = a
-    c, s = math.cos(th), math.sin(th)
-    return x + c * b[0] - s * b[1], y + s * b[0] + c * b[1], th + b[2]
-
-
-def _record(r: OdometryReading):
-    # A record moves forward/left in the frame at its start, then turns (fusion.sensors.odometry).
-    return r.forward_m, r.left_m, math.radians(r.turn_deg)
 
 
 def _root(motion, parts: int):
@@ -58,14 +46,15 @@ def seconds_of(case, seed: int):
     per = round(1.0 / case.run.tick_s)
     out = []
     for i in range(0, len(ticks) - per + 1, per):
-        motion, readings = (0.0, 0.0, 0.0), []
+        travel, readings = Travel(), []
         for tick in ticks[i : i + per]:
             for obs in tick.observations:
                 if obs.kind == "odometry":
-                    motion = _compose(motion, _record(obs.reading))
+                    travel = travel.then(obs.reading)
                 else:
                     readings.append(obs)
-        out.append((motion, readings, ticks[i + per - 1].truth))
+        net = travel.reading
+        out.append(((net.forward_m, net.left_m, math.radians(net.turn_deg)), readings, ticks[i + per - 1].truth))
     return ticks[0].truth, out
 
 

@@ -43,13 +43,14 @@ from fusion.belief.contour import ContourBelief, consonant_distance
 from fusion.conflict import pignistic_disagreement, support_conflict
 from fusion.errors import FrameMismatchError, RuleError
 from fusion.grid import PoseGrid
-from fusion.motion import MOTION_MODELS, SubCellMotion, dilate_density, predict_density
+from fusion.motion import MOTION_MODELS, SubCellMotion, bound_offsets, dilate_density, predict_density
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
 __all__ = ["ContourFilter", "CONTOUR_RULES", "CORE_SHARE"]
 
 CONTOUR_RULES = ("dempster", "conjunctive")
+_TOTAL = 1.0 - 1e-12  # K at or above this is total conflict (rounding)
 """Rules whose effect on the contour is a product (exact here)."""
 
 CORE_SHARE = 0.1
@@ -79,7 +80,6 @@ class ContourFilter:
         self.free = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
         self.belief = ContourBelief.vacuous_on(self.free)
         self._residual = SubCellMotion(grid.headings)
-        self.motion_lost = 0.0
 
     def fork(self) -> ContourFilter:
         other = copy.copy(self)
@@ -115,15 +115,9 @@ class ContourFilter:
             x, y, turn = self._residual.advance(motion, motion.bound_cells, motion.bound_bins)
             moved = dilate_density(cube, x, y, turn)
             if motion.reliability < 1.0:  # with 1 − r the wheels slipped: the move is known within the slip bound
-                wide = [
-                    (np.floor(d - motion.slip).astype(int), np.ceil(d + motion.slip).astype(int))
-                    for d in (motion.dx, motion.dy)
-                ]
-                t = (int(np.floor(motion.turn - motion.slip_turn)), int(np.ceil(motion.turn + motion.slip_turn)))
-                moved = motion.reliability * moved + (1.0 - motion.reliability) * dilate_density(cube, *wide, t)
+                slipped = dilate_density(cube, *bound_offsets(motion, motion.slip, motion.slip_turn))
+                moved = motion.reliability * moved + (1.0 - motion.reliability) * slipped
         moved = moved.reshape(-1) * self.free
-        before = float(self.belief.contour.sum())
-        self.motion_lost = 0.0 if before <= 0 else max(0.0, 1.0 - float(moved.sum()) / before)
         if moved.max() > 0:  # everything moved into walls: keep the belief; the next update shows the conflict
             self.belief = ContourBelief(moved, self.belief.empty, owned=True)
 
@@ -134,9 +128,8 @@ class ContourFilter:
                 f"evidence from {evidence.sensor!r} covers {evidence.n} cells, the grid has {self.grid.n_cells}"
             )
         start = time.perf_counter()
-        k = self.reading_conflict(self.belief, evidence)
-        joint = self.belief.contour * evidence.likelihood
-        rejected = k >= 1.0 - 1e-12 or float(joint.max()) <= 0.0
+        k, joint = self._combined(self.belief, evidence)
+        rejected = joint is None
         if not rejected:
             self.belief = ContourBelief(joint, k if self.rule == "conjunctive" else 0.0, owned=True)
         seconds = time.perf_counter() - start
@@ -169,13 +162,18 @@ class ContourFilter:
         1 − Π (1 − K_i), each K_i against the belief the earlier ones left."""
         belief, keep = snapshot, 1.0
         for _, e in readings:
-            k = self.reading_conflict(belief, e)
-            joint = belief.contour * e.likelihood
-            if k >= 1.0 or joint.max() <= 0:
+            k, joint = self._combined(belief, e)
+            if joint is None:
                 return 1.0
             keep *= 1.0 - k
             belief = ContourBelief(joint, owned=True)
         return 1.0 - keep
+
+    def _combined(self, belief: ContourBelief, evidence: Evidence) -> tuple[float, np.ndarray | None]:
+        """(K, the product contour) of absorbing one reading; the contour None on total conflict."""
+        k = self.reading_conflict(belief, evidence)
+        joint = belief.contour * evidence.likelihood
+        return k, (None if k >= _TOTAL or float(joint.max()) <= 0.0 else joint)
 
     def distance(self, before: ContourBelief, after: ContourBelief) -> float:
         """Jousselme distance between the consonant beliefs (contours rounded up to geometric levels)."""

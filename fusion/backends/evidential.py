@@ -39,12 +39,11 @@ from fusion.motion import SlicedSets, SubCellMotion, move_sets, predict_sets
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
-__all__ = ["MassFilter", "FILTER_RULES", "FOCAL_RULES"]
+__all__ = ["MassFilter", "FILTER_RULES"]
 
 FILTER_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy", "disjunctive")
-FOCAL_RULES = ("yager", "dubois_prade", "pcr5", "murphy", "disjunctive")
-"""The rules this filter is built for; it also runs Dempster's and the conjunctive rule, capped, as the
-reference the fidelity rows of ``fusion bench`` measure against."""
+# Built for the rules the contour filter cannot hold; it also runs Dempster's and the conjunctive rule, with no
+# cap, as the exact reference of the fidelity rows of ``fusion bench``.
 # Rules that normalise conflict away and so cannot absorb a totally conflicting reading.
 _NORMALISING = ("dempster", "murphy")
 _TOTAL = 1.0 - 1e-12
@@ -52,7 +51,6 @@ _TOTAL = 1.0 - 1e-12
 
 class MassFilter:
     name = "evidential"
-    motion = "bounded"
 
     def __init__(
         self,

@@ -37,7 +37,7 @@ import math
 
 import numpy as np
 
-from fusion.belief.mass import MassFunction
+from fusion.belief.mass import MassFunction, geometric_level_index
 from fusion.errors import MassValueError
 
 __all__ = ["ContourBelief", "consonant_distance", "LEVEL_RATIO", "LOWEST_LEVEL", "DISTANCE_LEVELS"]
@@ -192,16 +192,6 @@ def _bins_of(level: np.ndarray) -> np.ndarray:
     return scaled.astype(np.intp)
 
 
-def _geometric_levels(contour: np.ndarray, levels: int) -> np.ndarray:
-    """Each cell's level index after rounding its plausibility *up* to 1, 1/2, …, 2^−(levels−1) (0 = top);
-    ``levels`` for a cell of plausibility 0 (in no focal set)."""
-    mantissa, exponent = np.frexp(contour)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
-    index = np.where(mantissa == 0.5, -exponent + 1, -exponent)
-    np.clip(index, 0, levels - 1, out=index)
-    index[contour <= 0] = levels
-    return index.astype(np.int64)
-
-
 def consonant_distance(a: ContourBelief, b: ContourBelief, levels: int = DISTANCE_LEVELS) -> float:
     """Jousselme distance (Jousselme, Grenier & Bossé 2001) between the consonant beliefs of two contours
     rounded up to geometric levels (the outer approximation of ``as_mass_function``), in O(cells).
@@ -211,24 +201,12 @@ def consonant_distance(a: ContourBelief, b: ContourBelief, levels: int = DISTANC
     Sets equal as sets need no merging: they have equal rows in D, so the quadratic form is unchanged."""
     if a.n != b.n:
         raise MassValueError(f"the beliefs are over {a.n} and {b.n} cells")
-    ia, ib = _geometric_levels(a.contour, levels), _geometric_levels(b.contour, levels)
-    values = np.append(2.0 ** -np.arange(levels), 0.0)
+    ia, ib = geometric_level_index(a.contour, levels), geometric_level_index(b.contour, levels)
     grid = np.bincount(ia * (levels + 1) + ib, minlength=(levels + 1) ** 2).reshape(levels + 1, levels + 1)
     inter = grid.cumsum(axis=0).cumsum(axis=1)[:levels, :levels].astype(np.float64)  # |A_i ∩ B_j|
-    size_a = np.cumsum(np.bincount(ia, minlength=levels + 1))[:levels].astype(np.float64)
-    size_b = np.cumsum(np.bincount(ib, minlength=levels + 1))[:levels].astype(np.float64)
-
-    def masses(index: np.ndarray, empty: float) -> np.ndarray:
-        present = np.bincount(index, minlength=levels + 1)[:levels] > 0
-        top = values[:levels][present]
-        m = np.zeros(levels)
-        if top.size:
-            # Nested sets of the present levels: m(A_i) = v_i − v_next present (the last keeps v_i).
-            nxt = np.append(top[1:], 0.0)
-            m[present] = (top - nxt) * (1.0 - empty) / top[0]
-        return m
-
-    ma, mb = masses(ia, a.empty), masses(ib, b.empty)
+    count_a, count_b = grid.sum(axis=1)[:levels], grid.sum(axis=0)[:levels]  # cells per level
+    size_a, size_b = np.cumsum(count_a).astype(np.float64), np.cumsum(count_b).astype(np.float64)
+    ma, mb = _level_masses(count_a, a.empty), _level_masses(count_b, b.empty)
     d_aa = _nested_jaccard(size_a)
     d_bb = _nested_jaccard(size_b)
     union = size_a[:, None] + size_b[None, :] - inter
@@ -236,6 +214,17 @@ def consonant_distance(a: ContourBelief, b: ContourBelief, levels: int = DISTANC
     e = a.empty - b.empty
     quad = ma @ d_aa @ ma + mb @ d_bb @ mb - 2.0 * (ma @ d_ab @ mb) + e * e
     return math.sqrt(max(0.0, 0.5 * float(quad)))
+
+
+def _level_masses(count: np.ndarray, empty: float) -> np.ndarray:
+    """Masses of the nested sets A_i = {level ≤ i} of a contour on levels 1, 1/2, …, with ``count`` cells per
+    level: m(A_i) = v_i − v_next present level (the lowest present keeps its v_i), scaled by 1 − m(∅)."""
+    present = count > 0
+    top = 2.0 ** -np.flatnonzero(present)
+    m = np.zeros(len(count))
+    if top.size:
+        m[present] = (top - np.append(top[1:], 0.0)) * (1.0 - empty) / top[0]
+    return m
 
 
 def _nested_jaccard(size: np.ndarray) -> np.ndarray:

@@ -335,10 +335,7 @@ class MassFunction:
                 index = np.clip(levels - np.ceil(c * levels - 1e-12), 0, levels).astype(np.int16)
                 table = (levels - np.arange(levels + 1)) / levels
             else:
-                mantissa, exponent = np.frexp(c)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
-                index = np.where(mantissa == 0.5, -exponent + 1, -exponent).astype(np.int64)
-                index = np.clip(index, 0, levels - 1).astype(np.int16)
-                index[c <= 0] = levels
+                index = geometric_level_index(c, levels).astype(np.int16)
                 table = np.append(2.0 ** -np.arange(levels), 0.0)
             present = np.flatnonzero(np.bincount(index, minlength=levels + 1))
             present = present[table[present] > 0]
@@ -534,6 +531,16 @@ def _groups_equal(rows: np.ndarray, fps: np.ndarray, repeated: np.ndarray) -> bo
         if not all(np.array_equal(head, rows[i]) for i in members[1:].tolist()):
             return False
     return True
+
+
+def geometric_level_index(contour: np.ndarray, levels: int) -> np.ndarray:
+    """Each cell's level after rounding its plausibility *up* to 1, 1/2, …, 2^−(levels−1): 0 for the top
+    level, ``levels`` for a plausibility of 0 (in no focal set)."""
+    mantissa, exponent = np.frexp(contour)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
+    index = np.where(mantissa == 0.5, -exponent + 1, -exponent).astype(np.int64)
+    np.clip(index, 0, levels - 1, out=index)
+    index[contour <= 0] = levels
+    return index
 
 
 def check_same_frame(*ms: MassFunction) -> int:
