@@ -7,6 +7,7 @@ import sys
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.errors import FusionError
+from fusion.text import literal
 
 EXIT_BAD_INPUT = 2
 EXIT_DEFECT = 70  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
@@ -25,13 +26,12 @@ def _demo(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from pathlib import Path
 
     from rich.console import Console
     from rich.live import Live
 
     from fusion.io.case import load_case
-    from fusion.runner import run_case, write_results
+    from fusion.runner import RESULT_FILES, run_case, write_results
     from fusion.simulate import simulate
     from fusion.tui import RunView, actions_timeline, summary_table
 
@@ -44,25 +44,70 @@ def _run(args: argparse.Namespace) -> int:
         import dataclasses
 
         case = dataclasses.replace(case, run=dataclasses.replace(case.run, seed=args.seed))
-    backends = args.backend or list(case.run.backends)
-    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.case).stem}-seed{case.run.seed}"
+    backends = list(dict.fromkeys(args.backend or case.run.backends))
+    rule = _known_rule(args.rule or case.run.rule)
+    settings = {
+        "case": _where(args.case),
+        "seed": case.run.seed,
+        "backends": backends,
+        "rule": rule,
+        "motion": case.run.motion,
+        "calibration": _where(args.calibration),
+    }
+    folder = _claim(args, "run", args.case, settings, [f"seed{case.run.seed}", "+".join(backends), rule])
     console = Console()
     live = console.is_terminal and not args.quiet
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     if live:
         view = RunView(case, backends, len(simulate(case)))
         with Live(view, console=console, refresh_per_second=8, transient=False):
-            result = run_case(case, backends=backends, rule=args.rule, on_tick=view.on_tick)
+            result = run_case(case, backends=backends, rule=rule, on_tick=view.on_tick)
     else:
-        result = run_case(case, backends=backends, rule=args.rule)
-    folder = write_results(result, out_dir)
+        result = run_case(case, backends=backends, rule=rule)
+    write_results(result, folder.path)
+    folder.finish(RESULT_FILES)
     console.print(summary_table(result.summary()))
     if result.events:
         console.print(actions_timeline(result))
-    console.print(
-        f"results written to [bold]{folder}[/] (observations.jsonl, truth.jsonl, steps.csv, summary.json, timing.json)"
-    )
+    console.print(f"results written to [bold]{literal(folder.path)}[/] ({', '.join(RESULT_FILES)})")
     return 0
+
+
+def _where(path) -> str | None:
+    """A file's absolute path, as recorded in an output folder's settings."""
+    from pathlib import Path
+
+    return None if path is None else str(Path(str(path)).absolute())
+
+
+def _known_rule(rule: str) -> str:
+    from fusion.backends.evidential import FILTER_RULES
+
+    if rule not in FILTER_RULES:
+        raise FusionError(f"unknown combination rule {rule!r}; choose one of: {', '.join(FILTER_RULES)}")
+    return rule
+
+
+_INPUTS = {
+    "case": "case file",
+    "site": "case file",
+    "log": "log",
+    "truth": "truth file",
+    "calibration": "calibration file",
+}
+
+
+def _claim(args, job: str, input_path, settings: dict, name_parts, folders=()):
+    """The command's output folder (``--out`` or a default unique per input and settings), claimed before any work."""
+    from fusion.io.logs import require_readable
+    from fusion.io.outdir import claim, default_folder
+
+    out = args.out or default_folder(input_path, job, *name_parts)
+    given = {k: v for k, v in vars(args).items() if k in _INPUTS and v}
+    for key, path in given.items():
+        require_readable(path, _INPUTS[key])  # a missing input is refused before the folder is made
+    inputs = list(given.values())
+    return claim(out, job, settings, replace=args.replace, inputs=inputs, folders=folders)
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -153,11 +198,17 @@ def _targets(args: argparse.Namespace) -> int:
 
 def _compare(args: argparse.Namespace) -> int:
     import dataclasses
-    from pathlib import Path
 
     from rich.console import Console
 
-    from fusion.compare import SweepInterrupted, bayes_dempster_identity, run_sweep, settings_of, summarise
+    from fusion.compare import (
+        SweepInterrupted,
+        bayes_dempster_identity,
+        run_sweep,
+        settings_of,
+        summarise,
+        sweep_digest,
+    )
     from fusion.compare import verdicts as verdicts_of
     from fusion.compare_report import identity_words, tables, write_report
     from fusion.io.case import apply_calibration, load_case
@@ -175,7 +226,10 @@ def _compare(args: argparse.Namespace) -> int:
         apply_calibration(case, args.calibration)  # a bad calibration file is refused before any run
     settings = settings_of(spec, calibrated=bool(args.calibration))  # refuses unknown rules, out-of-range values
     seeds = range(case.run.seed, case.run.seed + spec.seeds)
-    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.case).stem}-compare"
+    # Runs of the same case (and calibration) file are reused: the folder resumes the same work.
+    identity_of_work = {"case_sha256": sweep_digest(args.case, args.calibration)}
+    folder = _claim(args, "compare", args.case, identity_of_work, [], folders=("runs",))
+    out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     console.print(
@@ -199,12 +253,14 @@ def _compare(args: argparse.Namespace) -> int:
                 on_done=lambda rec: progress.advance(task),
             )
     except SweepInterrupted as err:
-        console.print(f"[yellow]{err}[/]")
+        folder.finish(["sweep.json", *_runs_in(out_dir)])
+        console.print(f"[yellow]{literal(err)}[/]")
         return 130
     summary = summarise(records, settings)
     verdict_list = verdicts_of(records, settings)
     identity = bayes_dempster_identity(case)
     files = write_report(out_dir, records, settings, summary, verdict_list, identity, args.rank_by, case.name)
+    folder.finish(["sweep.json", *files, *_runs_in(out_dir)])
     for t in tables(summary, settings, args.rank_by, f"{case.name}, {len(records)} runs"):
         console.print(t)
     for v in verdict_list:
@@ -216,8 +272,13 @@ def _compare(args: argparse.Namespace) -> int:
     return 0
 
 
+def _runs_in(out_dir) -> list[str]:
+    """The run files of a sweep folder, as names relative to it."""
+    runs = out_dir / "runs"
+    return [f"runs/{p.name}" for p in sorted(runs.glob("*.json"))] if runs.is_dir() else []
+
+
 def _calibrate(args: argparse.Namespace) -> int:
-    from pathlib import Path
 
     from rich.console import Console
     from rich.table import Table
@@ -226,10 +287,10 @@ def _calibrate(args: argparse.Namespace) -> int:
     from fusion.calibration.output import calibration_toml
     from fusion.calibration.pipeline import calibrate
     from fusion.io.case import load_case
-    from fusion.runner import atomic_write
+    from fusion.io.outdir import atomic_write, writable_file
 
     case = load_case(args.site)
-    out = Path(args.out) if args.out else Path(args.log).with_name("calibrated.toml")
+    out = writable_file(args.out or _calibration_name(args.log), args.replace, "calibration file")  # before the fit
     settings = FitSettings(
         method=args.method,
         samples=args.samples,
@@ -276,6 +337,15 @@ def _calibrate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _calibration_name(log):
+    """``<log>-calibrated.toml`` beside a log file (one per log), or in the current folder for a pipe."""
+    from pathlib import Path
+
+    log = Path(str(log))
+    stem = "".join(c if c.isalnum() or c in "-_." else "_" for c in log.stem) or "log"
+    return (log.parent if log.is_file() else Path(".")) / f"{stem}-calibrated.toml"
+
+
 def _maybe(value, fmt: str) -> str:
     import math
 
@@ -304,7 +374,6 @@ def _stream(args: argparse.Namespace) -> int:
 
 
 def _inspect(args: argparse.Namespace) -> int:
-    from pathlib import Path
 
     from rich.console import Console
 
@@ -316,7 +385,18 @@ def _inspect(args: argparse.Namespace) -> int:
     if args.calibration:
         case = apply_calibration(case, args.calibration)
     start = parse_start(args.start) if args.start else None
-    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.log).stem}-inspect"
+    settings = {
+        "log": _where(args.log),
+        "site": _where(args.site),
+        "truth": _where(args.truth),
+        "start": list(start) if start else None,
+        "calibration": _where(args.calibration),
+        "frames": not args.no_frames,
+        "rule": case.run.rule,
+        "motion": case.run.motion,
+    }
+    folder = _claim(args, "inspect", args.log, settings, [case.run.rule])
+    out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     progress = _progress(console, "replaying", args.quiet, "line {task.completed:,.0f}/{task.total:,.0f}")
@@ -331,8 +411,9 @@ def _inspect(args: argparse.Namespace) -> int:
             frames=not args.no_frames,
             progress=lambda line, total: progress.update(task, completed=line, total=total),
         )
+    folder.finish(found.files)
     console.print(found)
-    console.print(f"written to [bold]{out_dir}[/]: {', '.join(found.files)}")
+    console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(found.files)}")
     if args.scrub and not args.no_frames:
         from fusion.scrub import scrub
 
@@ -354,14 +435,13 @@ def _scrub(args: argparse.Namespace) -> int:
 def _soak(args: argparse.Namespace) -> int:
     import functools
     import json
-    from pathlib import Path
 
     from rich import box
     from rich.console import Console
     from rich.table import Table
 
     from fusion.io.case import load_case
-    from fusion.runner import atomic_write
+    from fusion.io.outdir import atomic_write
     from fusion.soak import MEMORY_EVERY, SUM_TOLERANCE, soak_steps, soak_stream
 
     case = load_case(args.case)
@@ -370,8 +450,16 @@ def _soak(args: argparse.Namespace) -> int:
     backends = args.backend or list(case.run.backends)
     lines = args.stream_lines
     total = lines or args.steps
-    out_dir = Path(args.out) if args.out else Path("fusion-out") / f"{Path(args.case).stem}-soak"
-    out_dir.mkdir(parents=True, exist_ok=True)
+    settings = {
+        "case": _where(args.case),
+        "backends": backends,
+        "steps": None if lines else args.steps,
+        "stream_lines": lines,
+        "corrupt": args.corrupt,
+        "seed": args.seed,
+    }
+    folder = _claim(args, "soak", args.case, settings, ["+".join(backends)])
+    out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     records, corruptions = [], {}
@@ -393,6 +481,7 @@ def _soak(args: argparse.Namespace) -> int:
                 {"case": args.case, "runs": [r.to_record() for r in records], "corruptions": corruptions}, indent=1
             ),
         )
+        folder.finish(["soak.json"])
         if report.interrupted:
             break
     table = Table(title=f"soak of {case.name}: {'stream lines' if lines else 'localizer steps'}", box=box.SIMPLE_HEAD)
@@ -498,7 +587,10 @@ def _parser() -> argparse.ArgumentParser:
     cmp.add_argument("--workers", type=_positive_int, help="parallel workers (default: one per core)")
     cmp.add_argument("--engine", choices=("local", "dask"), default="local", help="where runs execute (default local)")
     cmp.add_argument("--scheduler", help="address of a running Dask scheduler (engine dask; default: a local cluster)")
-    cmp.add_argument("--out", help="output folder (default: fusion-out/<case>-compare); an existing one resumes")
+    cmp.add_argument(
+        "--out", help="output folder (default: fusion-out/<case>-compare-…); one holding this case's sweep resumes"
+    )
+    _replace_option(cmp)
     cmp.add_argument("--quiet", action="store_true", help="no progress bar")
     cmp.add_argument("--calibration", help="calibration file: also run every setting with its sensor parameters")
     cmp.set_defaults(run=_compare)
@@ -506,7 +598,8 @@ def _parser() -> argparse.ArgumentParser:
     cal.add_argument("log", help="observations, JSON lines (as fusion run writes them)")
     cal.add_argument("--truth", required=True, help="true poses, JSON lines (t, x_m, y_m, heading_deg)")
     cal.add_argument("--site", required=True, help="case file whose site and sensors to calibrate")
-    cal.add_argument("--out", help="calibration file to write (default: calibrated.toml beside the log)")
+    cal.add_argument("--out", help="calibration file to write (default: <log>-calibrated.toml beside the log)")
+    cal.add_argument("--replace", action="store_true", help="overwrite the calibration file if it exists")
     cal.add_argument("--method", choices=("auto", "nuts", "svi"), default="auto", help="inference (default auto)")
     cal.add_argument("--samples", type=_positive_int, default=500, help="posterior draws per chain (default 500)")
     cal.add_argument("--warmup", type=_positive_int, default=300, help="NUTS warm-up steps (default 300)")
@@ -520,7 +613,8 @@ def _parser() -> argparse.ArgumentParser:
     ins.add_argument("--truth", help="true poses, JSON lines (optional; adds the true error)")
     ins.add_argument("--start", help="start pose x,y,heading_deg (default: the first true pose, else anywhere)")
     ins.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
-    ins.add_argument("--out", help="output folder (default: fusion-out/<log>-inspect)")
+    ins.add_argument("--out", help="output folder (default: fusion-out/<log>-inspect-…, one per log and rule)")
+    _replace_option(ins)
     ins.add_argument("--no-frames", action="store_true", help="do not store the per-tick maps (no scrubbing)")
     ins.add_argument("--scrub", action="store_true", help="step through the replay in the terminal when it ends")
     ins.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -537,7 +631,8 @@ def _parser() -> argparse.ArgumentParser:
     soak.add_argument("--corrupt", type=_number, default=0.1, help="share of stream lines corrupted (default 0.1)")
     soak.add_argument("--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable)")
     soak.add_argument("--seed", type=int, help="first seed of the simulated runs (default: the case's)")
-    soak.add_argument("--out", help="folder for soak.json (default: fusion-out/<case>-soak)")
+    soak.add_argument("--out", help="folder for soak.json (default: fusion-out/<case>-soak-…)")
+    _replace_option(soak)
     soak.add_argument("--quiet", action="store_true", help="no progress bar")
     soak.set_defaults(run=_soak)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
@@ -559,9 +654,18 @@ def _parser() -> argparse.ArgumentParser:
 
 def _run_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, help="seed of the simulation (default: the case's)")
-    p.add_argument("--out", help="output folder (default: fusion-out/<case>-seed<seed>)")
+    p.add_argument("--out", help="output folder (default: fusion-out/<case>-run-seed<seed>-<back ends>-<rule>-…)")
+    _replace_option(p)
     p.add_argument("--quiet", action="store_true", help="no live view; print the summary only")
     p.add_argument("--calibration", help="calibration file (from fusion calibrate) replacing the sensors' parameters")
+
+
+def _replace_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--replace",
+        action="store_true",
+        help="the output folder may hold other results of fusion: delete them and write these",
+    )
 
 
 def _figure_names() -> tuple[str, ...]:

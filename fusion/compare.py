@@ -300,9 +300,17 @@ def _case_digest(path: str) -> str:
 
 
 def _atomic_json(path: Path, data) -> None:
-    from fusion.runner import atomic_write
+    from fusion.io.outdir import atomic_write
 
     atomic_write(path, json.dumps(data, allow_nan=True) + "\n")
+
+
+def sweep_digest(case_path, calibration=None) -> str:
+    """What a sweep's results depend on: the case file's bytes, and the calibration file's if one is given."""
+    digest = _case_digest(str(case_path))
+    if calibration is not None:
+        digest = hashlib.sha256((digest + _case_digest(str(calibration))).encode()).hexdigest()
+    return digest
 
 
 def _load_done(folder: Path, wanted: set[tuple[str, int]]) -> dict[tuple[str, int], dict]:
@@ -343,9 +351,7 @@ def run_sweep(
     seeds = list(seeds)
     folder = Path(out_dir)
     calibration = None if calibration is None else str(calibration)
-    digest = _case_digest(case_path)
-    if calibration is not None:  # results depend on both files
-        digest = hashlib.sha256((digest + _case_digest(calibration)).encode()).hexdigest()
+    digest = sweep_digest(case_path, calibration)
     manifest = folder / "sweep.json"
     if manifest.exists():
         try:

@@ -18,7 +18,7 @@ import numpy as np
 
 from fusion.compare import FIGURES, Setting
 from fusion.html_page import figures_html, page, png_of
-from fusion.runner import atomic_write
+from fusion.io.outdir import atomic_write
 
 __all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame", "identity_words"]
 

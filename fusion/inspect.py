@@ -27,7 +27,6 @@ import csv
 import heapq
 import json
 import math
-import os
 import time
 from array import array
 from collections import Counter, defaultdict
@@ -43,9 +42,9 @@ from fusion.errors import FusionError, ObservationError
 from fusion.io.case import Case
 from fusion.io.logs import SetAside, count_lines, iter_observations, iter_truth
 from fusion.io.observations import Observation
+from fusion.io.outdir import PartialFile, atomic_write
 from fusion.localizer import Localizer, SensorSet
 from fusion.monitor import CARRY_ON, Policy
-from fusion.runner import atomic_write
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step
 from fusion.tui import coarse_plane
@@ -162,34 +161,34 @@ class _Outputs:
 
     def __init__(self, out_dir: Path, frames: bool):
         self.dir = out_dir
-        out_dir.mkdir(parents=True, exist_ok=True)
-        self._tmp: dict[str, Path] = {}
-        self.steps = self._open("steps.csv", "w")
-        self.steps_csv = csv.DictWriter(self.steps, fieldnames=STEP_COLUMNS)
-        self.steps_csv.writeheader()
-        self.aside = self._open("set_aside.jsonl", "w")
-        self.frames = self._open("frames.u8", "wb") if frames else None
+        self._files: dict[str, PartialFile] = {}
+        try:
+            self.steps = self._open("steps.csv")
+            self.steps_csv = csv.DictWriter(self.steps, fieldnames=STEP_COLUMNS)
+            self.steps_csv.writeheader()
+            self.aside = self._open("set_aside.jsonl")
+            self.frames = self._open("frames.u8", binary=True) if frames else None
+        except BaseException:
+            self.abandon()
+            raise
 
-    def _open(self, name: str, mode: str):
-        tmp = self.dir / f".{name}.partial"
-        self._tmp[name] = tmp
-        return open(tmp, mode, **({} if "b" in mode else {"encoding": "utf-8", "newline": ""}))  # noqa: SIM115
+    def _open(self, name: str, binary: bool = False) -> PartialFile:
+        self._files[name] = PartialFile(self.dir / name, binary=binary)
+        return self._files[name]
 
     def abandon(self) -> None:
-        """Close and remove the temporary files (the replay failed; nothing half-written is left)."""
-        for fh in (self.steps, self.aside, self.frames):
-            if fh is not None:
-                fh.close()
-        for tmp in self._tmp.values():
-            tmp.unlink(missing_ok=True)
+        """Remove the temporary files (the replay failed; nothing half-written is left)."""
+        for f in self._files.values():
+            f.abandon()
 
     def close(self) -> list[str]:
-        for fh in (self.steps, self.aside, self.frames):
-            if fh is not None:
-                fh.close()
-        for name, tmp in self._tmp.items():
-            os.replace(tmp, self.dir / name)
-        return list(self._tmp)
+        try:
+            for f in self._files.values():
+                f.commit()
+        except BaseException:
+            self.abandon()
+            raise
+        return list(self._files)
 
 
 def inspect_log(
@@ -226,6 +225,7 @@ def inspect_log(
     truth_rows: list[SetAside] = []
     truth = _TruthCursor(iter_truth(truth_path, truth_rows)) if truth_path is not None else None
     found.start = _place_start(locs, start, truth)  # a start off the site is refused before anything is written
+    out_dir.mkdir(parents=True, exist_ok=True)
     out = _Outputs(out_dir, frames)
     replay = _Replay(case, sensors, locs, policy, found, out)
     try:

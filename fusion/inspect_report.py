@@ -18,8 +18,8 @@ import numpy as np
 from fusion.episodes import QUIET_TICKS
 from fusion.html_page import figures_html, page, png_of
 from fusion.inspect_view import EPISODE_ROWS
+from fusion.io.outdir import atomic_write
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
-from fusion.runner import atomic_write
 from fusion.tui import BACKEND_TITLES
 
 __all__ = ["write_report", "MAP_EPISODES"]

@@ -13,8 +13,6 @@ import csv
 import io
 import json
 import math
-import os
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -22,11 +20,12 @@ import numpy as np
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.io.case import Case
+from fusion.io.outdir import atomic_write
 from fusion.localizer import Decision, Localizer, SensorSet
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Policy
 from fusion.simulate import Tick, simulate
 
-__all__ = ["StepRow", "RunResult", "run_case", "write_results", "atomic_write", "log_text", "STEP_COLUMNS"]
+__all__ = ["StepRow", "RunResult", "run_case", "write_results", "log_text", "RESULT_FILES", "STEP_COLUMNS"]
 
 STEP_COLUMNS = (
     "t",
@@ -106,6 +105,8 @@ class RunResult:
     ticks: list[Tick]
     rows: list[StepRow] = field(default_factory=list)
     events: list[dict] = field(default_factory=list)  # monitor actions other than "carry on"
+    backends: tuple[str, ...] = ()
+    rule: str = ""
 
     def summary(self) -> dict:
         out = {
@@ -115,9 +116,16 @@ class RunResult:
             "duration_s": self.ticks[-1].truth.t if self.ticks else 0.0,
             "tool": f"fusion {__version__}",
             "notice": SAFETY_NOTICE,
+            "settings": {
+                "backends": list(self.backends or self.case.run.backends),
+                "rule": self.rule or self.case.run.rule,
+                "motion": self.case.run.motion,
+                "max_focal": self.case.run.max_focal,
+                "case_file": self.case.path,
+            },
             "backends": {},
         }
-        for backend in self.case.run.backends:
+        for backend in self.backends or self.case.run.backends:
             mine = [r.values for r in self.rows if r.values["backend"] == backend]
             if not mine:
                 continue
@@ -155,7 +163,7 @@ def run_case(
         for b in backends
     }
     ticks = simulate(case, seed=seed)
-    result = RunResult(case, ticks)
+    result = RunResult(case, ticks, backends=backends, rule=rule or case.run.rule)
     if ticks and case.route.start_known:
         first = ticks[0].truth
         for loc in localizers.values():
@@ -175,24 +183,6 @@ def run_case(
     return result
 
 
-def atomic_write(path: Path, data: str | bytes) -> None:
-    """Write ``data`` to a temporary file beside ``path`` and rename it into place: readers see all or nothing."""
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        if isinstance(data, bytes):
-            with os.fdopen(fd, "wb") as fh:
-                fh.write(data)
-        else:
-            with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-                fh.write(data)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-
-
 def log_text(ticks: list[Tick]) -> tuple[str, str]:
     """The observation log and the truth file of simulated ticks, as JSON lines."""
     log = "".join(json.dumps(o.to_record()) + "\n" for t in ticks for o in t.observations)
@@ -200,8 +190,11 @@ def log_text(ticks: list[Tick]) -> tuple[str, str]:
     return log, truth
 
 
+RESULT_FILES = ("observations.jsonl", "truth.jsonl", "steps.csv", "summary.json", "timing.json")
+
+
 def write_results(result: RunResult, out_dir) -> Path:
-    """Write the log, truth, per-tick table and summary into ``out_dir`` (created if needed)."""
+    """Write the log, truth, per-tick table and summary (``RESULT_FILES``) into ``out_dir`` (created if needed)."""
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     log, truth = log_text(result.ticks)

@@ -118,7 +118,8 @@ def measure_attribution(cases_dir, seeds, cases=tuple(ATTRIBUTION_CASES), progre
     import tempfile
 
     from fusion.inspect import inspect_log
-    from fusion.runner import atomic_write, log_text
+    from fusion.io.outdir import atomic_write
+    from fusion.runner import log_text
     from fusion.simulate import simulate
 
     out = [] if out is None else out

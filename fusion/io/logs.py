@@ -15,6 +15,7 @@ The observation format is ``fusion.io.observations``; a truth line is
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -34,6 +35,7 @@ __all__ = [
     "MAX_LINE_BYTES",
     "CSV_COLUMNS",
     "count_lines",
+    "require_readable",
 ]
 
 MAX_LINE_BYTES = 64 * 1024
@@ -274,6 +276,17 @@ def read_observations(path) -> LogRead:
     set_aside: list[SetAside] = []
     records = list(iter_observations(path, set_aside))
     return LogRead(str(path), records, set_aside, count_lines(path))
+
+
+def require_readable(path, what: str = "file") -> None:
+    """Refuse a file that cannot be opened for reading, without reading from it (a pipe stays unread)."""
+    if os.path.isdir(path):
+        raise InputFileError(path, None, None, f"cannot read the {what}: it is a folder")
+    try:
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+    except OSError as err:
+        raise InputFileError(path, None, None, f"cannot read the {what}: {err.strerror}") from None
+    os.close(fd)
 
 
 def count_lines(path) -> int:
