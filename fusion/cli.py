@@ -400,7 +400,7 @@ def _inspect(args: argparse.Namespace) -> int:
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     progress = _progress(console, "replaying", args.quiet, "line {task.completed:,.0f}/{task.total:,.0f}")
-    task = progress.add_task("replay", total=count_lines(args.log))  # also refuses an unreadable log up front
+    task = progress.add_task("replay", total=count_lines(args.log))  # None for a pipe (read once, by the replay)
     with progress:
         found = inspect_log(
             case,

@@ -40,7 +40,7 @@ from fusion.conflict import pairwise_conflict
 from fusion.episodes import Episode, EpisodeFinder, blame_shares
 from fusion.errors import FusionError, ObservationError
 from fusion.io.case import Case
-from fusion.io.logs import SetAside, count_lines, iter_observations, iter_truth
+from fusion.io.logs import ReadPosition, SetAside, count_lines, iter_observations, iter_truth, require_readable
 from fusion.io.observations import Observation
 from fusion.io.outdir import PartialFile, atomic_write
 from fusion.localizer import Localizer, SensorSet
@@ -56,6 +56,8 @@ MAX_TICK_S = 1.0
 MISMATCH_SHARE = 0.2
 """A log whose unknown sensors, or whose sightings of markers not on the map, reach this share is
 reported as probably recorded on another site (our choice; a few stray ids are noise, a fifth is not)."""
+SET_ASIDE_WARN = 0.05
+"""A replay that sets aside this share of the log's lines or more says so as a warning (our choice)."""
 FRAME_WIDTH = 44
 """Character columns of the stored belief maps (what the scrubber draws)."""
 KEEP_MAPS = 12
@@ -209,9 +211,10 @@ def inspect_log(
     files and the report then cover the lines read so far (``Inspection.interrupted``)."""
     began = time.perf_counter()
     log_path, out_dir = Path(log_path), Path(out_dir)
-    total_lines = count_lines(log_path)  # also refuses a missing or unreadable log before anything is written
+    require_readable(log_path, "log")  # a missing or unreadable file is refused before anything is written
     if truth_path is not None:
-        count_lines(truth_path)
+        require_readable(truth_path, "truth file")
+    total_lines = count_lines(log_path)  # None for a pipe: it is read once, by the replay
     grid = case.site.grid(case.headings)
     sensors = SensorSet(case.site, grid, case.sensors)
     policy = Policy(**case.run.policy)
@@ -221,7 +224,8 @@ def inspect_log(
         )
         for b in backends
     }
-    found = Inspection(str(log_path), case.site.name, tuple(backends), lines=total_lines, truth=truth_path is not None)
+    found = Inspection(str(log_path), case.site.name, tuple(backends), truth=truth_path is not None)
+    position = ReadPosition()
     truth_rows: list[SetAside] = []
     truth = _TruthCursor(iter_truth(truth_path, truth_rows)) if truth_path is not None else None
     found.start = _place_start(locs, start, truth)  # a start off the site is refused before anything is written
@@ -229,7 +233,7 @@ def inspect_log(
     out = _Outputs(out_dir, frames)
     replay = _Replay(case, sensors, locs, policy, found, out)
     try:
-        records = iter_observations(log_path, on_set_aside=replay.set_aside)
+        records = iter_observations(log_path, on_set_aside=replay.set_aside, position=position)
         for group in _ticks(records, found):
             replay.tick(group, truth)
             if progress is not None and found.ticks % 8 == 0:
@@ -240,6 +244,7 @@ def inspect_log(
     except BaseException:
         out.abandon()
         raise
+    found.lines = position.lines
     replay.finish()
     for row in truth_rows:
         found.warnings.append(f"truth file line {row.line} set aside: {row.reason}")
@@ -255,16 +260,17 @@ def inspect_log(
         found.files.append(write_report(found, case, out_dir))
     found.files.sort()
     if progress is not None:
-        progress(total_lines, total_lines)
+        progress(found.lines, found.lines)
     return found
 
 
 def _ticks(records, found: Inspection):
-    """Group ``(line, observation)`` into ticks: a new tick at each odometry record, or after MAX_TICK_S."""
+    """Group ``(line, observation)`` into ticks: a new tick at each odometry record, after MAX_TICK_S, or where
+    the clock restarted (the only place the reader lets time go back)."""
     group: list[tuple[int, Observation]] = []
     for line, obs in records:
         found.records += 1
-        if group and (obs.kind == "odometry" or obs.t - group[0][1].t > MAX_TICK_S):
+        if group and (obs.kind == "odometry" or obs.t - group[0][1].t > MAX_TICK_S or obs.t < group[-1][1].t):
             yield group
             group = []
         group.append((line, obs))
@@ -337,6 +343,14 @@ class _Replay:
     # ---------------------------------------------------------------- one tick
     def tick(self, group, truth) -> None:
         f = self.found
+        if f.ticks and group[0][1].t < f.duration_s:
+            self.odometry_t = None
+            for loc in self.locs.values():
+                loc.restart_clock()
+            f.warnings.append(
+                f"line {group[0][0]}: the log's clock restarted (from {f.duration_s:g} s back to {group[0][1].t:g} s, "
+                "confirmed by the records after it); odometry across the restart is not integrated"
+            )
         odometry, readings, lines = None, [], {}
         for line, obs in group:
             try:
@@ -506,6 +520,13 @@ class _Replay:
 
     def _site_check(self) -> None:
         f = self.found
+        if f.records and f.set_aside >= max(1, SET_ASIDE_WARN * f.lines):
+            kind, n = f.reasons.most_common(1)[0]
+            f.warnings.insert(
+                0,
+                f"{f.set_aside:,} of {f.lines:,} lines ({f.set_aside / max(f.lines, 1):.0%}) were set aside, most as "
+                f"'{kind}' ({n:,}); the report covers the rest only (every row and its reason: set_aside.jsonl)",
+            )
         if f.records and self.unknown_sensor / f.records >= MISMATCH_SHARE:
             f.warnings.insert(
                 0,
@@ -559,6 +580,10 @@ _REASON_KINDS = (
     ("unknown sensor", "unknown sensor"),
     ("not on the map", "marker not on the map"),
     ("is before the previous", "out of time order"),
+    ("time outlier", "time outlier"),
+    ("time step after the previous odometry", "odometry time step"),
+    ("not a time stamp", "time outlier"),
+    ("does not agree with the records after it", "time outlier"),
     ("out of time order", "out of time order"),
     ("not a JSON", "not JSON"),
     ("not a CSV", "not CSV"),

@@ -209,6 +209,13 @@ class Localizer:
         self.filter.reset(self._free_prior)
         self._pending = None
 
+    def restart_clock(self) -> None:
+        """The log's clock restarted (``fusion.io.timeline``): later records may be earlier than those before.
+        The belief is kept; odometry not yet applied is dropped, as motion across a restart is unknown."""
+        self.last_t = -math.inf
+        self._odometry_t = None
+        self._pending = None
+
     # ----------------------------------------------------------------- the loop
     def step(self, odometry, observations=()) -> Decision:
         """One tick: ``odometry`` (an odometry ``Observation`` or ``OdometryReading``, or None) and readings."""

@@ -14,7 +14,6 @@ The observation format is ``fusion.io.observations``; a truth line is
 
 from __future__ import annotations
 
-import math
 import os
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -23,6 +22,7 @@ from pathlib import Path
 from fusion.errors import InputFileError, ObservationError
 from fusion.io.json_line import decode_line, finite_number, shown
 from fusion.io.observations import Observation, from_record
+from fusion.io.timeline import Timeline
 
 __all__ = [
     "SetAside",
@@ -36,6 +36,7 @@ __all__ = [
     "CSV_COLUMNS",
     "count_lines",
     "require_readable",
+    "ReadPosition",
 ]
 
 MAX_LINE_BYTES = 64 * 1024
@@ -69,35 +70,57 @@ class LogRead:
         return f"{self.path}: {len(self.records):,} records read, {len(self.set_aside):,} of {self.lines:,} lines set aside"
 
 
-def _lines(path) -> Iterator[tuple[int, str | None]]:
-    """``(line number, text)``; text is None for an over-long line, which is skipped unread in blocks."""
+@dataclass
+class ReadPosition:
+    """How far a reader got: the lines read so far (a pipe is read once, so this is its only line count)."""
+
+    lines: int = 0
+
+
+_UTF16_BOMS = (b"\xff\xfe", b"\xfe\xff")
+_UTF8_BOM = b"\xef\xbb\xbf"
+
+
+def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, str | None]]:
+    """``(line number, text)`` read once from a file or a pipe; text is None for an over-long line (skipped
+    unread in blocks).  A UTF-8 byte-order mark is dropped; UTF-16 or UTF-32 text is refused with what to do."""
     try:
         fh = open(path, "rb")  # noqa: SIM115 - closed by the with below
     except OSError as err:
         raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
     with fh:
         for number, raw in enumerate(_bounded_lines(fh), 1):
+            if position is not None:
+                position.lines = number
+            if number == 1 and raw is not None:
+                if raw.startswith(_UTF16_BOMS):
+                    raise InputFileError(
+                        path,
+                        1,
+                        None,
+                        "the file is UTF-16 or UTF-32 text (it starts with that byte-order mark); save it as UTF-8",
+                    )
+                raw = raw.removeprefix(_UTF8_BOM)
             if raw is None:
                 yield number, None
                 continue
             try:
                 yield number, raw.decode("utf-8")
             except UnicodeDecodeError as err:
-                yield number, f"\0not UTF-8 (byte {err.start})"
+                yield number, f"\0not UTF-8 (byte {err.start}); save the file as UTF-8"
 
 
 def _bounded_lines(fh) -> Iterator:
-    """The lines of ``fh`` (binary or text), None for each line longer than ``MAX_LINE_BYTES``.
+    """The lines of ``fh`` (binary), None for each line longer than ``MAX_LINE_BYTES``.
 
     Iterating a file reads a whole line into memory, so one line of a gigabyte with no newline
     would take a gigabyte; reading at most ``MAX_LINE_BYTES + 1`` at a time keeps memory bounded."""
-    newline = b"\n" if "b" in getattr(fh, "mode", "b") else "\n"
     while True:
         line = fh.readline(MAX_LINE_BYTES + 1)
         if not line:
             return
         if len(line) > MAX_LINE_BYTES:
-            while line and not line.endswith(newline):
+            while line and not line.endswith(b"\n"):
                 line = fh.readline(MAX_LINE_BYTES + 1)
             yield None
         else:
@@ -125,12 +148,14 @@ def _decode(number: int, text: str | None, set_aside: list[SetAside]):
 
 
 def iter_observations(
-    path, set_aside: list[SetAside] | None = None, on_set_aside=None
+    path, set_aside: list[SetAside] | None = None, on_set_aside=None, position: ReadPosition | None = None
 ) -> Iterator[tuple[int, Observation]]:
     """Stream ``(line, observation)`` from a JSON-lines or CSV log (by the file's suffix), in file order.
 
-    Nothing is held but the current line.  A bad line is handed to ``on_set_aside(SetAside)``
-    (and appended to ``set_aside`` when given) and reading goes on.
+    The file (or pipe) is read once; nothing is held but the current line and the few records a
+    time jump holds (``fusion.io.timeline``).  A bad line is handed to ``on_set_aside(SetAside)``
+    (and appended to ``set_aside`` when given) and reading goes on.  Times go back only where the
+    timeline rule saw the clock restart; ``position.lines`` counts the lines read.
     """
 
     def aside(row: SetAside) -> None:
@@ -139,23 +164,30 @@ def iter_observations(
         if on_set_aside is not None:
             on_set_aside(row)
 
-    last_t = -math.inf
-    rows = _csv_records(path, aside) if str(path).lower().endswith(".csv") else _json_records(path, aside)
+    timeline = Timeline(hold=True)
+    csv_log = str(path).lower().endswith(".csv")
+    rows = _csv_records(path, aside, position) if csv_log else _json_records(path, aside, position)
     for number, rec, text in rows:
         try:
             obs: Observation = from_record(rec)
         except ObservationError as err:
             aside(SetAside(number, str(err), text[:80]))
             continue
-        if obs.t < last_t:
-            aside(SetAside(number, f"time {obs.t:g} s is before the previous record's {last_t:g} s", text[:80]))
-            continue
-        last_t = obs.t
-        yield number, obs
+        yield from _released(timeline.offer(obs.t, (number, obs, text)), aside)
+    yield from _released(timeline.flush(), aside)
 
 
-def _json_records(path, aside) -> Iterator[tuple[int, object, str]]:
-    for number, text in _lines(path):
+def _released(verdicts, aside) -> Iterator[tuple[int, Observation]]:
+    for v in verdicts:
+        number, obs, text = v.item
+        if v.accepted:
+            yield number, obs
+        else:
+            aside(SetAside(number, v.reason, text[:80]))
+
+
+def _json_records(path, aside, position=None) -> Iterator[tuple[int, object, str]]:
+    for number, text in _lines(path, position):
         rejected: list[SetAside] = []
         rec = _decode(number, text, rejected)
         for row in rejected:
@@ -180,63 +212,53 @@ CSV_COLUMNS = (
 """Columns of a CSV log (a header row names them, in any order; unused cells stay empty).
 ``ranges_m`` holds the beams separated by ``;``, an empty ``marker`` cell of a markers row means
 "looked, saw nothing", ``active`` is true/false (or 1/0)."""
-_CSV_NUMBERS = ("t", "range_m", "bearing_deg", "forward_m", "left_m", "turn_deg")
 
 
-def _csv_records(path, aside) -> Iterator[tuple[int, object, str]]:
-    """Rows of a CSV log as observation records; the stdlib reader streams and knows each row's line."""
+def _csv_records(path, aside, position=None) -> Iterator[tuple[int, object, str]]:
+    """Rows of a CSV log as observation records.  Each line is parsed on its own, so a stray quote costs
+    its own row only (a quoted cell cannot run on into the next line; our logs never need one to)."""
     import csv
 
-    try:
-        fh = open(path, encoding="utf-8", errors="replace", newline="")  # noqa: SIM115 - closed below
-    except OSError as err:
-        raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
-    with fh:
-        reader = csv.reader(_bounded(fh, aside))
-        try:
-            header = [h.strip() for h in next(reader)]
-        except StopIteration:
-            return
-        except csv.Error as err:
-            raise InputFileError(path, 1, None, f"the header row is not CSV: {err}") from None
-        missing = [c for c in ("t", "sensor", "kind") if c not in header]
-        if missing:
-            raise InputFileError(
-                path,
-                1,
-                None,
-                f"the header lacks the column(s) {', '.join(missing)}; columns are {', '.join(CSV_COLUMNS)}",
-            )
-        unknown = [c for c in header if c not in CSV_COLUMNS and c]
-        while True:
-            try:
-                cells = next(reader)
-            except StopIteration:
-                return
-            except csv.Error as err:
-                aside(SetAside(reader.line_num, f"not a CSV row: {err}", ""))
-                continue
-            number = reader.line_num
-            text = ",".join(cells)
-            if not any(c.strip() for c in cells):
-                continue
-            if len(cells) != len(header):
-                aside(SetAside(number, f"{len(cells)} cells where the header has {len(header)}", text[:80]))
-                continue
-            try:
-                yield number, _csv_record(dict(zip(header, cells)), unknown), text
-            except ObservationError as err:
-                aside(SetAside(number, str(err), text[:80]))
-
-
-def _bounded(fh, aside) -> Iterator[str]:
-    """The file's lines, each over-long line replaced by an empty one (and set aside)."""
-    for number, line in enumerate(_bounded_lines(fh), 1):
-        if line is None:
+    header = None
+    unknown: list[str] = []
+    for number, text in _lines(path, position):
+        if text is None:
             aside(SetAside(number, f"longer than {MAX_LINE_BYTES:,} bytes", ""))
-            yield "\n"
-        else:
-            yield line
+            continue
+        if text.startswith("\0"):
+            if header is None:
+                raise InputFileError(path, number, None, f"the header row is {text[1:]}")
+            aside(SetAside(number, text[1:], ""))
+            continue
+        if not text.strip():
+            continue
+        try:
+            cells = next(csv.reader([text.rstrip("\r\n")], strict=True))
+        except csv.Error as err:
+            if header is None:
+                raise InputFileError(path, number, None, f"the header row is not CSV: {err}") from None
+            aside(SetAside(number, f"not a CSV row: {err}", text.strip()[:80]))
+            continue
+        if header is None:
+            header = [h.strip() for h in cells]
+            missing = [c for c in ("t", "sensor", "kind") if c not in header]
+            if missing:
+                raise InputFileError(
+                    path,
+                    number,
+                    None,
+                    f"the header lacks the column(s) {', '.join(missing)}; columns are {', '.join(CSV_COLUMNS)}",
+                )
+            unknown = [c for c in header if c not in CSV_COLUMNS and c]
+            continue
+        shown = ",".join(cells)
+        if len(cells) != len(header):
+            aside(SetAside(number, f"{len(cells)} cells where the header has {len(header)}", shown[:80]))
+            continue
+        try:
+            yield number, _csv_record(dict(zip(header, cells)), unknown), shown
+        except ObservationError as err:
+            aside(SetAside(number, str(err), shown[:80]))
 
 
 def _csv_record(row: dict, unknown: list[str]) -> dict:
@@ -274,24 +296,36 @@ def _csv_number(key: str, cell: str) -> float:
 def read_observations(path) -> LogRead:
     """Every observation of a log (JSON lines or CSV), in file order; bad lines are set aside."""
     set_aside: list[SetAside] = []
-    records = list(iter_observations(path, set_aside))
-    return LogRead(str(path), records, set_aside, count_lines(path))
+    position = ReadPosition()
+    records = list(iter_observations(path, set_aside, position=position))
+    return LogRead(str(path), records, set_aside, position.lines)
 
 
 def require_readable(path, what: str = "file") -> None:
     """Refuse a file that cannot be opened for reading, without reading from it (a pipe stays unread)."""
-    if os.path.isdir(path):
-        raise InputFileError(path, None, None, f"cannot read the {what}: it is a folder")
+    import stat
+
     try:
-        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        mode = os.stat(path).st_mode
+        if stat.S_ISDIR(mode):
+            raise InputFileError(path, None, None, f"cannot read the {what}: it is a folder")
+        if not stat.S_ISREG(mode):  # a pipe: opening it to try would take it from its writer
+            if not os.access(path, os.R_OK):
+                raise PermissionError(13, "Permission denied")
+            return
+        os.close(os.open(path, os.O_RDONLY))
     except OSError as err:
         raise InputFileError(path, None, None, f"cannot read the {what}: {err.strerror}") from None
-    os.close(fd)
 
 
-def count_lines(path) -> int:
-    """Lines in a file, read in binary blocks (fast enough for a progress bar's total)."""
+def count_lines(path) -> int | None:
+    """Lines in a regular file, read in binary blocks (fast enough for a progress bar's total); None for a
+    pipe or device, which can be read only once (the reader then counts as it goes)."""
+    import stat
+
     try:
+        if not stat.S_ISREG(os.stat(path).st_mode):
+            return None
         with open(path, "rb") as fh:
             lines, last = 0, b"\n"
             for block in iter(lambda: fh.read(1 << 20), b""):
@@ -301,11 +335,14 @@ def count_lines(path) -> int:
         raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
 
 
-def iter_truth(path, set_aside: list[SetAside] | None = None) -> Iterator[tuple[int, TruthPose]]:
-    """Stream ``(line, pose)`` from a JSON-lines truth file in time order; bad lines are set aside."""
+def iter_truth(
+    path, set_aside: list[SetAside] | None = None, position: ReadPosition | None = None
+) -> Iterator[tuple[int, TruthPose]]:
+    """Stream ``(line, pose)`` from a JSON-lines truth file, times strictly increasing (an outlier is set
+    aside by the rule of ``fusion.io.timeline``; the clock of a truth file never restarts)."""
     set_aside = [] if set_aside is None else set_aside
-    last_t = -math.inf
-    for number, text in _lines(path):
+    timeline = Timeline(hold=True, strict=True, restarts=False)
+    for number, text in _lines(path, position):
         rec = _decode(number, text, set_aside)
         if rec is None:
             continue
@@ -314,18 +351,16 @@ def iter_truth(path, set_aside: list[SetAside] | None = None) -> Iterator[tuple[
         except ObservationError as err:
             set_aside.append(SetAside(number, str(err), text.strip()[:80]))
             continue
-        if pose.t <= last_t:
-            set_aside.append(SetAside(number, f"time {pose.t:g} s does not follow the previous {last_t:g} s", ""))
-            continue
-        last_t = pose.t
-        yield number, pose
+        yield from _released(timeline.offer(pose.t, (number, pose, "")), set_aside.append)
+    yield from _released(timeline.flush(), set_aside.append)
 
 
 def read_truth(path) -> LogRead:
     """True poses of a JSON-lines truth file, in time order; bad lines are set aside."""
     set_aside: list[SetAside] = []
-    records = list(iter_truth(path, set_aside))
-    return LogRead(str(path), records, set_aside, count_lines(path))
+    position = ReadPosition()
+    records = list(iter_truth(path, set_aside, position))
+    return LogRead(str(path), records, set_aside, position.lines)
 
 
 def _truth(rec) -> TruthPose:
