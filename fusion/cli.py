@@ -7,7 +7,7 @@ import sys
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.errors import FusionError
-from fusion.text import literal
+from fusion.text import literal, plain
 
 EXIT_BAD_INPUT = 2
 EXIT_DEFECT = 70  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
@@ -111,17 +111,22 @@ def _claim(args, job: str, input_path, settings: dict, name_parts, folders=()):
 
 
 def _check(args: argparse.Namespace) -> int:
+    from fusion.budget import estimate
     from fusion.io.case import load_case
 
-    case = load_case(args.case)
+    case = load_case(args.case)  # the same validation as every command: what passes here can run
     sensors = ", ".join(
-        f"{s.name} ({s.kind}{', ' + str(len(s.faults)) + ' faults' if s.faults else ''})" for s in case.sensors
+        f"{plain(s.name)} ({s.kind}{f', {len(s.faults)} fault' + 's' * (len(s.faults) > 1) if s.faults else ''})"
+        for s in case.sensors
     )
     grid = case.site.grid(case.headings)
+    need = estimate(case)
     print(
-        f"{args.case}: valid. {case.name}: {case.site.width_m} m × {case.site.height_m} m at "
+        f"{plain(args.case)}: valid. {plain(case.name)}: {case.site.width_m} m × {case.site.height_m} m at "
         f"{case.site.resolution_m} m, {case.headings} headings ({grid.n_cells:,} cells); sensors: {sensors}; "
-        f"route of {len(case.route.waypoints)} waypoints."
+        f"route of {len(case.route.waypoints)} waypoints. A run needs about {need.bytes / 1024**2:,.0f} MiB "
+        f"beside the program and {need.total_seconds:,.0f} s of processor time (rough estimates; budgets "
+        f"{case.run.budget_gib:g} GiB and {case.run.budget_minutes:g} min)."
     )
     return 0
 
@@ -233,8 +238,8 @@ def _compare(args: argparse.Namespace) -> int:
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     console.print(
-        f"{case.name}: {len(settings)} settings × {spec.seeds} seeds = {len(settings) * spec.seeds} runs "
-        f"on the {args.engine} engine; results go to {out_dir}"
+        f"{literal(case.name)}: {len(settings)} settings × {spec.seeds} seeds = {len(settings) * spec.seeds} runs "
+        f"on the {args.engine} engine; results go to {literal(out_dir)}"
     )
     progress = _progress(console, "runs", args.quiet, "{task.completed}/{task.total}")
     task = progress.add_task("runs", total=None)
@@ -261,14 +266,14 @@ def _compare(args: argparse.Namespace) -> int:
     identity = bayes_dempster_identity(case)
     files = write_report(out_dir, records, settings, summary, verdict_list, identity, args.rank_by, case.name)
     folder.finish(["sweep.json", *files, *_runs_in(out_dir)])
-    for t in tables(summary, settings, args.rank_by, f"{case.name}, {len(records)} runs"):
+    for t in tables(summary, settings, args.rank_by, f"{literal(case.name)}, {len(records)} runs"):
         console.print(t)
     for v in verdict_list:
         console.print(f"• {v['sentence']}")
     console.print(
         f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {identity_words(identity)}"
     )
-    console.print(f"written to [bold]{out_dir}[/]: {', '.join(files)}, and runs/ (one file per run)")
+    console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
     return 0
 
 
@@ -325,15 +330,19 @@ def _calibrate(args: argparse.Namespace) -> int:
     console.print(table)
     for entry in result.summary:
         for w in entry["warnings"]:
-            console.print(f"[yellow]warning[/] {entry['sensor']}: {w}")
+            console.print(f"[yellow]warning[/] {literal(entry['sensor'])}: {literal(w)}")
     if result.skipped:
-        console.print(f"no readings in the log for: {', '.join(result.skipped)} (their parameters are unchanged)")
+        console.print(
+            f"no readings in the log for: {literal(', '.join(result.skipped))} (their parameters are unchanged)"
+        )
     if result.set_aside:
         console.print(f"{len(result.set_aside):,} rows set aside, first ones:")
         for path, s in result.set_aside[:5]:
-            console.print(f"  {path}:{s.line}: {s.reason}")
+            console.print(f"  {literal(path)}:{s.line}: {literal(s.reason)}")
     atomic_write(out, calibration_toml(result.summary, case.site.name, str(args.log), str(args.truth)))
-    console.print(f"written to [bold]{out}[/]; use it with --calibration {out} (run, compare, stream)")
+    console.print(
+        f"written to [bold]{literal(out)}[/]; use it with --calibration {literal(out)} (run, compare, stream)"
+    )
     return 0
 
 
@@ -367,7 +376,7 @@ def _stream(args: argparse.Namespace) -> int:
         from fusion.inspect import parse_start
 
         loc.start_at(*parse_start(args.start))
-    print(f"fusion stream: {args.backend} back end on {case.site.name}; {SAFETY_NOTICE}", file=sys.stderr)
+    print(f"fusion stream: {args.backend} back end on {plain(case.site.name)}; {SAFETY_NOTICE}", file=sys.stderr)
     written, rejected = stream(loc)
     print(f"fusion stream: {written} decisions, {rejected} lines rejected", file=sys.stderr)
     return 0
@@ -419,7 +428,7 @@ def _inspect(args: argparse.Namespace) -> int:
 
         scrub(out_dir, console)
     elif not args.no_frames:
-        console.print(f"step through the replay with: fusion scrub {out_dir}")
+        console.print(f"step through the replay with: fusion scrub {literal(out_dir)}")
     return 130 if found.interrupted else 0
 
 
@@ -484,7 +493,9 @@ def _soak(args: argparse.Namespace) -> int:
         folder.finish(["soak.json"])
         if report.interrupted:
             break
-    table = Table(title=f"soak of {case.name}: {'stream lines' if lines else 'localizer steps'}", box=box.SIMPLE_HEAD)
+    table = Table(
+        title=f"soak of {literal(case.name)}: {'stream lines' if lines else 'localizer steps'}", box=box.SIMPLE_HEAD
+    )
     for col in ("back end", "steps", "ms/step", "|Σ−1|", "min", "focal", "NaN", "rej.", "MiB"):
         table.add_column(col, justify="right", no_wrap=True)
     for r in records:
@@ -700,19 +711,22 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return args.run(args)
     except FusionError as err:
-        print(f"fusion: error: {err}", file=sys.stderr)
+        print(f"fusion: error: {plain(err)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("fusion: interrupted; results already written are complete", file=sys.stderr)
         return 130
     except OSError as err:  # disk full, permission denied, a folder where a file should be ...
         where = f" ({err.filename})" if err.filename else ""
-        print(f"fusion: error: {err.strerror or err}{where}; results already written are complete", file=sys.stderr)
+        print(
+            f"fusion: error: {plain(err.strerror or err)}{plain(where)}; results already written are complete",
+            file=sys.stderr,
+        )
         return EXIT_BAD_INPUT
     except Exception as err:  # noqa: BLE001 - last resort: a defect must not reach the user as a traceback
         trace = _keep_trace()
         print(
-            f"fusion: internal error ({type(err).__name__}: {str(err)[:200]}). This is a defect in fusion, "
+            f"fusion: internal error ({type(err).__name__}: {plain(str(err)[:200])}). This is a defect in fusion, "
             f"not in your input; results already written are complete. The trace is in {trace}; "
             "please send it with the command line.",
             file=sys.stderr,

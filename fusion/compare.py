@@ -32,6 +32,7 @@ import numpy as np
 
 from fusion import __version__
 from fusion.errors import FusionError
+from fusion.io.bounded import read_text
 from fusion.io.case import BACKENDS, Case, SweepSpec, load_case
 from fusion.monitor import CARRY_ON
 
@@ -317,13 +318,24 @@ def _load_done(folder: Path, wanted: set[tuple[str, int]]) -> dict[tuple[str, in
     done = {}
     for f in sorted((folder / "runs").glob("*.json")):
         try:
-            rec = json.loads(f.read_text(encoding="utf-8"))
+            rec = json.loads(read_text(f, MAX_RUN_FILE_BYTES, "run file"))
             key = (rec["key"], int(rec["seed"]))
-        except (OSError, ValueError, KeyError, TypeError):
+        except (FusionError, ValueError, KeyError, TypeError, RecursionError):
             continue  # not a run file of ours (files are renamed into place whole, so never half a run)
-        if key in wanted:
-            done[key] = rec
+        if key in wanted and _complete(rec):
+            done[key] = rec  # a run file lacking a figure (an older tool, a hand edit) is run again
     return done
+
+
+MAX_RUN_FILE_BYTES = 1024**2
+
+
+def _complete(rec: dict) -> bool:
+    """A run record with every figure a number (or null where the figure does not apply) and its setting."""
+    return isinstance(rec.get("setting"), dict) and all(
+        name in rec and (rec[name] is None or (isinstance(rec[name], (int, float)) and not isinstance(rec[name], bool)))
+        for name in FIGURES
+    )
 
 
 def run_sweep(
@@ -355,13 +367,13 @@ def run_sweep(
     manifest = folder / "sweep.json"
     if manifest.exists():
         try:
-            old = json.loads(manifest.read_text(encoding="utf-8"))
-        except (OSError, ValueError):
+            old = json.loads(read_text(manifest, MAX_RUN_FILE_BYTES, "sweep record"))
+        except (FusionError, ValueError, RecursionError):
             old = {}
-        if old.get("case_sha256") != digest:
+        if not isinstance(old, dict) or old.get("case_sha256") != digest:
             raise FusionError(
                 f"{folder} holds results of a different case file (or the case changed since); "
-                "pass --out to write elsewhere, or delete the folder to start again"
+                "pass --out to write elsewhere, or --replace to delete them and start again"
             )
     (folder / "runs").mkdir(parents=True, exist_ok=True)
     _atomic_json(
@@ -427,9 +439,41 @@ def longest_measured_first(records) -> Callable[[list], list]:
     return order
 
 
-def _quiet_worker() -> None:
+def _quiet_worker(parent: int | None = None) -> None:
     # Ctrl-C is for the parent, which stops the sweep cleanly; workers just end with it.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if parent is not None:
+        _end_with_parent(parent)
+
+
+PARENT_POLL_S = 1.0
+"""How often a worker checks that the sweep that started it is still there."""
+
+
+def _end_with_parent(parent: int) -> None:
+    """End this worker when its parent ends, even by ``kill -9`` (which runs no clean-up in the parent):
+    the kernel's parent-death signal where Linux offers it, and a watch on the parent's id everywhere."""
+    import threading
+
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass  # not Linux: the watch below does it
+
+    def watch() -> None:
+        import time
+
+        while True:
+            if os.getppid() != parent:
+                os._exit(1)
+            time.sleep(PARENT_POLL_S)
+
+    if os.getppid() != parent:
+        os._exit(1)
+    threading.Thread(target=watch, name="parent-watch", daemon=True).start()
 
 
 _ONE_THREAD = {v: "1" for v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
@@ -448,7 +492,9 @@ def run_in_processes(jobs, workers, address, finished, failed, order=None, targe
     # two-threaded workers on two cores ran ~15× slower here).
     saved = {k: os.environ.get(k) for k in _ONE_THREAD}
     os.environ.update(_ONE_THREAD)
-    pool = ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn"), initializer=_quiet_worker)
+    pool = ProcessPoolExecutor(
+        workers, mp_context=mp.get_context("spawn"), initializer=_quiet_worker, initargs=(os.getpid(),)
+    )
     try:
         waiting = list(jobs)
         pending = {}
@@ -480,6 +526,11 @@ def run_in_processes(jobs, workers, address, finished, failed, order=None, targe
                 else:
                     finished(rec)
                 submit_next()
+    except BaseException:
+        # Stopped (Ctrl-C) or failed: end the workers now rather than wait for their runs to finish.
+        for proc in list(getattr(pool, "_processes", {}).values()):
+            proc.terminate()
+        raise
     finally:
         _restore(saved)
         pool.shutdown(wait=True, cancel_futures=True)

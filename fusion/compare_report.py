@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from fusion.compare import FIGURES, Setting
-from fusion.html_page import figures_html, page, png_of
+from fusion.html_page import figures_html, page, png_of, pyplot
 from fusion.io.outdir import atomic_write
 
 __all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame", "identity_words"]
@@ -107,11 +107,7 @@ def tables(summary, settings: list[Setting], rank_by: str, title: str) -> list:
 
 # ----------------------------------------------------------------------------- plots
 def _plots(records, order: list[Setting]) -> dict[str, bytes]:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+    plt = pyplot()
     shown = order[:PLOTTED_SETTINGS]
     out = {}
     fig, ax = plt.subplots(figsize=(9, 4.5), dpi=110)

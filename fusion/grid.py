@@ -28,6 +28,11 @@ fit a robot's computer (about 2 GB at this size)."""
 _BYTES_PER_CELL_IN_USE = 8 * 5  # float64 belief plus the working copies of one step (measured, rounded up)
 
 
+def _cells_across(length_m: float, resolution_m: float) -> int:
+    """Cells that cover ``length_m`` (a last partial cell counts: every point of the site lies in a cell)."""
+    return max(1, math.ceil(length_m / resolution_m - 1e-9))
+
+
 @dataclass(frozen=True)
 class PoseGrid:
     """x, y and heading bins over a rectangular site of ``width_m`` × ``height_m``."""
@@ -44,22 +49,27 @@ class PoseGrid:
                 raise SiteError(f"grid {name} must be a positive finite number of metres, got {value!r}")
         if isinstance(self.headings, bool) or not isinstance(self.headings, int) or self.headings < 1:
             raise SiteError(f"grid headings must be a whole number ≥ 1, got {self.headings!r}")
-        cells = self.nx * self.ny * self.headings
-        if cells > MAX_CELLS:
+        across = (self.width_m / self.resolution_m) * (self.height_m / self.resolution_m) * self.headings
+        # In floating point first: a size of 1e300 must not build a 300-digit integer.
+        cells = self.nx * self.ny * self.headings if across <= 1e15 else across
+        if not cells <= MAX_CELLS:
+            gib = cells * _BYTES_PER_CELL_IN_USE / 1024**3
+            count = f"{cells:,}" if isinstance(cells, int) else f"{cells:.3g}"
+            size = f"{gib:.1f}" if gib < 1e6 else f"{gib:.3g}"
             raise ResourceError(
-                f"a {self.width_m} m × {self.height_m} m site at {self.resolution_m} m with {self.headings} "
-                f"headings needs {cells:,} cells, about {self.memory_bytes() / 1024**3:.1f} GiB while "
-                f"running (limit {MAX_CELLS:,} cells); use a coarser resolution or fewer headings"
+                f"a {self.width_m:g} m × {self.height_m:g} m site at {self.resolution_m:g} m with {self.headings} "
+                f"headings needs {count} cells, about {size} GiB while running (limit {MAX_CELLS:,} cells); use a "
+                "coarser resolution or fewer headings"
             )
 
     # ----------------------------------------------------------------- shape
     @property
     def nx(self) -> int:
-        return max(1, int(round(self.width_m / self.resolution_m)))
+        return _cells_across(self.width_m, self.resolution_m)
 
     @property
     def ny(self) -> int:
-        return max(1, int(round(self.height_m / self.resolution_m)))
+        return _cells_across(self.height_m, self.resolution_m)
 
     @property
     def shape(self) -> tuple[int, int, int]:

@@ -8,7 +8,7 @@ import io
 
 from fusion import SAFETY_NOTICE
 
-__all__ = ["png_of", "figures_html", "page"]
+__all__ = ["png_of", "figures_html", "page", "pyplot"]
 
 _STYLE = """
 body { font-family: system-ui, sans-serif; margin: 2em; max-width: 1200px; }
@@ -19,6 +19,19 @@ td:nth-child(2) { text-align: left; }
 .warning { background: #ffe8e8; padding: 0.6em; border-left: 4px solid #c00000; }
 img { max-width: 100%; }
 """
+
+
+def pyplot():
+    """matplotlib's pyplot, drawing off screen, with text shown literally: a name from an input such as
+    ``$x$`` or ``a_b`` is not read as mathematics (which could fail to parse or restyle the label)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    matplotlib.rcParams["text.parse_math"] = False
+    matplotlib.rcParams["text.usetex"] = False
+    import matplotlib.pyplot as plt
+
+    return plt
 
 
 def png_of(fig) -> bytes:

@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from fusion.episodes import QUIET_TICKS
-from fusion.html_page import figures_html, page, png_of
+from fusion.html_page import figures_html, page, png_of, pyplot
 from fusion.inspect_view import EPISODE_ROWS
 from fusion.io.outdir import atomic_write
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
@@ -37,9 +37,6 @@ _BACKEND_COLOURS = {"bayes": "#1f6f8b", "evidential": "#b5523b"}
 
 def write_report(found, case, out_dir) -> str:
     """Write report.html (and its PNGs) into ``out_dir``; returns the report's file name."""
-    import matplotlib
-
-    matplotlib.use("Agg")
     images = _plots(found, case)
     for name, data in images.items():
         atomic_write(Path(out_dir) / name, data)
@@ -49,7 +46,7 @@ def write_report(found, case, out_dir) -> str:
 
 
 def _plots(found, case) -> dict[str, bytes]:
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     out: dict[str, bytes] = {}
     s = found.series
@@ -118,7 +115,7 @@ def _plots(found, case) -> dict[str, bytes]:
 
 
 def _maps(found, case, e) -> bytes:
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     site = case.site
     maps = found.maps[e.number]

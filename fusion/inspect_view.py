@@ -8,6 +8,7 @@ from rich.text import Text
 
 from fusion import SAFETY_NOTICE
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
+from fusion.text import literal, plain
 
 __all__ = ["summary_renderables", "EPISODE_ROWS"]
 
@@ -20,10 +21,10 @@ _SHORT = {ALERT: "alert", RELOCALIZE: "re-loc", QUARANTINE: "quar"}
 def summary_renderables(found):
     yield Text(SAFETY_NOTICE, style="dim")
     for w in found.warnings:
-        yield Panel(Text(w), title="warning", border_style="red")
+        yield Panel(Text(plain(w)), title="warning", border_style="red")
     head = Table.grid(padding=(0, 2))
-    head.add_row("log", found.log)
-    head.add_row("site", found.site)
+    head.add_row("log", literal(found.log))
+    head.add_row("site", literal(found.site))
     head.add_row(
         "read",
         f"{found.lines:,} lines → {found.records:,} observations in {found.ticks:,} ticks "
@@ -31,7 +32,7 @@ def summary_renderables(found):
     )
     aside = ", ".join(f"{n:,} {kind}" for kind, n in found.reasons.most_common())
     head.add_row("set aside", f"{found.set_aside:,} rows" + (f" ({aside}); listed in set_aside.jsonl" if aside else ""))
-    head.add_row("start", found.start)
+    head.add_row("start", literal(found.start))
     head.add_row("replay", f"{found.seconds:.1f} s of wall time on one core")
     if found.errors:
         head.add_row(
@@ -57,7 +58,7 @@ def _episode_table(found) -> Table:
     table.add_column("first actions (s)")
     for e in sorted(eps, key=lambda e: e.start_t):
         shares = e.shares()
-        blame = ", ".join(f"{s} {v:.0%}" for s, v in shares[:2]) or "one reading only"
+        blame = ", ".join(f"{literal(s)} {v:.0%}" for s, v in shares[:2]) or "one reading only"
         acts = []
         for b in found.backends:
             taken = [
@@ -88,7 +89,7 @@ def _blame_table(found) -> Table:
         table.add_column(f"Σ blame {b}", justify="right")
     for i, (sensor, share) in enumerate(found.ranking(), 1):
         table.add_row(
-            str(i), sensor, f"{share:.0%}", *[f"{found.blame[b].get(sensor, 0.0):.3f}" for b in found.backends]
+            str(i), literal(sensor), f"{share:.0%}", *[f"{found.blame[b].get(sensor, 0.0):.3f}" for b in found.backends]
         )
     if not found.ranking():
         table.caption = "no episode with two or more readings to compare: nothing to attribute"

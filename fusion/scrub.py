@@ -22,6 +22,7 @@ from rich.text import Text
 
 from fusion import SAFETY_NOTICE
 from fusion.errors import InputFileError
+from fusion.io.bounded import read_text
 from fusion.tui import BACKEND_TITLES, draw_plane, sparkline
 
 __all__ = ["Scrubber", "scrub", "KEYS"]
@@ -38,20 +39,24 @@ KEYS = {
 _HELP = "→/l/space next · ←/h back · ]/[ ±10 · n/p next/previous episode · g/G first/last · q quit"
 
 
+MAX_INDEX_BYTES = 256 * 1024**2
+"""Largest frame index read (a replay of a million ticks writes about a tenth of this)."""
+
+
 class Scrubber:
     """The state of a scrubbing session: which tick is shown; ``press`` moves, ``__rich__`` draws."""
 
     def __init__(self, folder):
         folder = Path(folder)
         index_path, frames_path = folder / "frames.json", folder / "frames.u8"
-        try:
-            self.index = json.loads(index_path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
+        if not index_path.exists():
             raise InputFileError(
                 index_path, None, None, "no stored frames here: run fusion inspect (without --no-frames) first"
-            ) from None
-        except (OSError, ValueError) as err:
-            raise InputFileError(index_path, None, None, f"cannot read the frame index: {err}") from None
+            )
+        try:
+            self.index = json.loads(read_text(index_path, MAX_INDEX_BYTES, "frame index"))
+        except (ValueError, RecursionError) as err:
+            raise InputFileError(index_path, None, None, f"cannot read the frame index: {str(err)[:200]}") from None
         ix = self.index
         try:
             self.backends = list(ix["backends"])

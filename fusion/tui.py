@@ -20,6 +20,7 @@ from rich.table import Table
 from rich.text import Text
 
 from fusion import SAFETY_NOTICE
+from fusion.text import literal, plain
 
 __all__ = [
     "RunView",
@@ -125,7 +126,7 @@ class RunView:
             if d.action != "carry on":
                 self.events.append(
                     f"[bold]{tick.truth.t:6.2f} s[/] {name}: [bold]{d.action}[/] — "
-                    + (d.reasons[0] if d.reasons else "")
+                    + literal(d.reasons[0] if d.reasons else "")
                 )
         self.progress.advance(self.task)
 
@@ -142,7 +143,7 @@ class RunView:
         figures.add_row("error", f"{err:5.2f} m, {herr:5.1f}°", "spread", f"{d.spread_m:5.2f} m")
         figures.add_row(label, f"{d.figures.get(key, 0.0):.3f}", "action", d.action)
         if d.quarantined:
-            figures.add_row("quarantined", ", ".join(d.quarantined), "", "")
+            figures.add_row("quarantined", literal(", ".join(d.quarantined)), "", "")
         body = Group(
             belief_map(plane, site.occupied, (tr.x_m, tr.y_m), (d.x_m, d.y_m), site.resolution_m),
             Text(sparkline(self.history[name]), style="green"),
@@ -159,7 +160,7 @@ class RunView:
         t = self.truth.t if self.truth else 0.0
         faults = ", ".join(self.truth.faults) if self.truth and self.truth.faults else "none"
         head = Text.from_markup(
-            f"[bold]{self.case.name}[/]   t = {t:6.2f} s   injected faults now: {faults}\n"
+            f"[bold]{literal(self.case.name)}[/]   t = {t:6.2f} s   injected faults now: {literal(faults)}\n"
             "◆ true pose   ✚ estimate   ░▒▓█ probability of the place (all headings)   ▪ wall/rack"
         )
         events = Panel(
@@ -172,7 +173,7 @@ class RunView:
 
 def summary_table(summary: dict) -> Table:
     table = Table(
-        title=f"{summary['case']} — seed {summary['seed']}, {summary['ticks']} ticks "
+        title=f"{literal(summary['case'])} — seed {summary['seed']}, {summary['ticks']} ticks "
         f"({summary['duration_s']:.1f} s simulated)"
     )
     table.add_column("figure")
@@ -217,10 +218,10 @@ def actions_timeline(result, limit: int = 20) -> Panel:
         if last is not None and i - last <= CARRY_WINDOW_TICKS:
             injected.append(f"carried {truths[i].t - truths[last].t:.2f} s ago")
         head = Text.from_markup(f"[bold]{event['t']:6.2f} s[/] {event['backend']:<10} [bold]{event['action']:<17}[/]")
-        head.append(f" injected: {', '.join(injected) or 'nothing'}", style="cyan" if injected else "yellow")
+        head.append(f" injected: {plain(', '.join(injected)) or 'nothing'}", style="cyan" if injected else "yellow")
         lines.append(head)
         if event["reasons"]:
-            lines.append(Padding(Text(event["reasons"][0], style="dim"), (0, 0, 0, 9)))
+            lines.append(Padding(Text(plain(event["reasons"][0]), style="dim"), (0, 0, 0, 9)))
     left = len(result.events) - limit
     footer = (f"{left} more; " if left > 0 else "") + (
         "every action's reasons are in summary.json. \"injected: nothing\" means a false alarm or a sensor's "

@@ -173,3 +173,40 @@ def test_the_stream_refuses_an_endless_line_without_holding_it():
     out, err = io.StringIO(), io.StringIO()
     written, rejected = stream(Localizer.from_case(load_case(TINY), "bayes"), Endless(), out, err)
     assert (written, rejected) == (0, 1) and "longer than" in out.getvalue()
+
+
+@pytest.mark.skipif(not Path("/proc").is_dir(), reason="reads process states from /proc")
+def test_compare_workers_end_when_their_parent_is_killed(tmp_path):
+    """A sweep killed with SIGKILL runs no clean-up; its workers must still end (not run on for hours)."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    code = (
+        "import os, sys\n"
+        "from fusion.compare import run_in_processes\n"
+        f"job = ('echo $PPID > {tmp_path}/worker.pid; exec sleep 120',)\n"
+        "run_in_processes([job], 1, None, lambda r: None, lambda j, e: None, target=os.system)\n"
+    )
+    parent = subprocess.Popen([sys.executable, "-c", code])
+    pid_file = tmp_path / "worker.pid"
+    deadline = time.time() + 60
+    while not (pid_file.exists() and pid_file.read_text().strip()) and time.time() < deadline:
+        time.sleep(0.1)
+    worker = int(pid_file.read_text())
+    assert _alive(worker)
+    parent.send_signal(signal.SIGKILL)
+    parent.wait()
+    deadline = time.time() + 10
+    while _alive(worker) and time.time() < deadline:
+        time.sleep(0.1)
+    assert not _alive(worker)
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/status").read_text()
+    except OSError:
+        return False
+    return "\nState:\tZ" not in state and "\nState:\tX" not in state

@@ -10,18 +10,21 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import os
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from fusion.errors import FusionError, InputFileError
+from fusion.io.bounded import read_text
+from fusion.io.json_line import shown
 from fusion.io.toml_lines import key_lines
 from fusion.sensors.doors import DoorParams
+from fusion.sensors.limits import problems
 from fusion.sensors.markers import MarkerParams
 from fusion.sensors.odometry import REMOVED_FIELDS, OdometryParams
 from fusion.sensors.ranging import RangeParams
 from fusion.site import Door, Marker, SiteMap
+from fusion.text import MAX_NAME_CHARS, plain
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -45,6 +48,16 @@ __all__ = [
     "MAX_CASE_BYTES",
 ]
 
+MAX_SENSORS = 64
+"""Most sensors in a case (our choice: a robot carries a handful; each costs a likelihood per reading)."""
+MAX_ITEMS = 1000
+"""Most doors, and most markers, on a site."""
+MAX_BOXES = 10_000
+"""Most boxes on a site."""
+MAX_WAYPOINTS = 10_000
+"""Most waypoints of a route."""
+MAX_DESCRIPTION_CHARS = 4000
+"""Longest case description."""
 MAX_CASE_BYTES = 1024**2
 """Case files larger than this are refused (a real case is a few kilobytes)."""
 
@@ -107,6 +120,8 @@ class RunSpec:
     tick_s: float = 0.25
     policy: dict = field(default_factory=dict)
     motion: str = "probabilistic"  # how the evidential back end applies odometry (fusion.motion.MOTION_MODELS)
+    budget_gib: float = 4.0  # memory a run may take (fusion.budget)
+    budget_minutes: float = 10.0  # processor time a run may take (fusion.budget)
 
 
 SWEEP_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy")
@@ -211,6 +226,16 @@ class _Reader:
             self.fail((*where, key), f"unknown value {value!r}; choose one of: {', '.join(choices)}")
         return value
 
+    def name(self, data, where, key, default=None, choices=None) -> str:
+        """A name (of the case, the site, a sensor, door or marker): as ``text``, at most ``MAX_NAME_CHARS``
+        characters, no control characters (a name reaches terminals, files and plots)."""
+        value = self.text(data, where, key, default, choices)
+        if len(value) > MAX_NAME_CHARS:
+            self.fail((*where, key), f"is {len(value):,} characters long; names are limited to {MAX_NAME_CHARS}")
+        if plain(value) != value:
+            self.fail((*where, key), f"holds control characters ({shown(value)}); names must be printable text")
+        return value
+
     def flag(self, data, where, key, default=None):
         if key not in data:
             if default is None:
@@ -271,24 +296,15 @@ def _kind(value) -> str:
 def load_case(path) -> Case:
     """Read and validate a case file; ``InputFileError`` on any problem, before anything runs."""
     path = Path(path)
-    try:
-        size = os.path.getsize(path)
-    except OSError as err:
-        raise InputFileError(path, None, None, f"cannot read the case file: {err.strerror}") from None
-    if size > MAX_CASE_BYTES:
-        raise InputFileError(
-            path, None, None, f"the file is {size:,} bytes; case files are limited to {MAX_CASE_BYTES:,} bytes"
-        )
-    try:
-        text = path.read_text(encoding="utf-8")
-    except UnicodeDecodeError as err:
-        raise InputFileError(path, None, None, f"not UTF-8 text (byte {err.start}); save the case as UTF-8") from None
+    text = read_text(path, MAX_CASE_BYTES, "case file")  # pipes and devices too: never more than the limit
     return parse_case(text, str(path))
 
 
 def parse_case(text: str, path: str = "<case>") -> Case:
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise InputFileError(path, None, None, "not TOML we accept: brackets nested too deeply") from None
     except tomllib.TOMLDecodeError as err:
         line = getattr(err, "lineno", None)
         message = str(err)
@@ -302,16 +318,21 @@ def parse_case(text: str, path: str = "<case>") -> Case:
     r.only(data, (), {"case", "site", "sensors", "route", "run", "compare"})
     head = r.table(data, (), "case")
     r.only(head, ("case",), {"name", "description"})
-    name = r.text(head, ("case",), "name")
+    name = r.name(head, ("case",), "name")
     description = head.get("description", "")
+    if not isinstance(description, str) or len(description) > MAX_DESCRIPTION_CHARS:
+        r.fail(("case", "description"), f"must be text of at most {MAX_DESCRIPTION_CHARS:,} characters")
     site, headings = _site(r, r.table(data, (), "site"))
     sensors = _sensors(r, data, site)
     route = _route(r, r.table(data, (), "route"), site)
     run = _run(r, r.table(data, (), "run", required=False), sensors)
     sweep = _sweep(r, r.table(data, (), "compare", required=False))
-    return Case(
-        name, path, site, headings, sensors, route, run, description if isinstance(description, str) else "", sweep
-    )
+    case = Case(name, path, site, headings, sensors, route, run, description, sweep)
+    from fusion.budget import case_problems
+
+    for where, problem in case_problems(case):  # memory and time, before anything runs
+        r.fail(where, problem)
+    return case
 
 
 def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
@@ -323,12 +344,15 @@ def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
     headings = r.number(d, w, "headings", 36, whole=True, low=1, high=360)
     border = r.flag(d, w, "border", True)
     doors, markers = [], []
+    for key, most in (("doors", MAX_ITEMS), ("markers", MAX_ITEMS), ("boxes", MAX_BOXES)):
+        if isinstance(d.get(key), list) and len(d[key]) > most:
+            r.fail((*w, key), f"holds {len(d[key]):,} items; the limit is {most:,}")
     for i, door in enumerate(r.tables(d, w, "doors")):
         dw = (*w, "doors", i)
         r.only(door, dw, {"name", "x_m", "y_m", "facing_deg", "radius_m"})
         doors.append(
             Door(
-                r.text(door, dw, "name"),
+                r.name(door, dw, "name"),
                 r.number(door, dw, "x_m"),
                 r.number(door, dw, "y_m"),
                 r.number(door, dw, "facing_deg"),
@@ -339,7 +363,7 @@ def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
     for i, marker in enumerate(r.tables(d, w, "markers")):
         mw = (*w, "markers", i)
         r.only(marker, mw, {"id", "x_m", "y_m"})
-        markers.append(Marker(r.text(marker, mw, "id"), r.number(marker, mw, "x_m"), r.number(marker, mw, "y_m")))
+        markers.append(Marker(r.name(marker, mw, "id"), r.number(marker, mw, "x_m"), r.number(marker, mw, "y_m")))
         _on_map(r, mw, markers[-1].x, markers[-1].y, width, height, f"marker {markers[-1].marker_id!r}")
     for kind, items, key in (("door", doors, "doors"), ("marker", markers, "markers")):
         names = [getattr(i, "name", None) or i.marker_id for i in items]
@@ -354,7 +378,7 @@ def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
             border=border,
             doors=tuple(doors),
             markers=tuple(markers),
-            name=r.text(d, w, "name", "site"),
+            name=r.name(d, w, "name", "site"),
         )
         site.grid(headings)  # refuses grids too large for memory
     except FusionError as err:
@@ -395,16 +419,18 @@ def _params(r: _Reader, d: dict, where: tuple, cls, skip: set) -> object:
 def _sensors(r: _Reader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
     out = []
     tables = r.tables(data, (), "sensors")
+    if len(tables) > MAX_SENSORS:
+        r.fail(("sensors",), f"{len(tables):,} sensors are given; the limit is {MAX_SENSORS}")
     if not tables:
         r.fail((), "no [[sensors]] are given; a case needs at least odometry and one other sensor")
     for i, d in enumerate(tables):
         w = ("sensors", i)
-        name = r.text(d, w, "name")
+        name = r.name(d, w, "name")
         kind = r.text(d, w, "kind", choices=tuple(SENSOR_KINDS))
         rate = r.number(d, w, "rate_hz", 10.0 if kind == "odometry" else None, positive=True, high=100)
         door = None
         if kind == "door":
-            door = r.text(d, w, "door")
+            door = r.name(d, w, "door")
             if door not in {x.name for x in site.doors}:
                 known = ", ".join(x.name for x in site.doors) or "none"
                 r.fail((*w, "door"), f"no door {door!r} on the site (doors: {known})")
@@ -415,10 +441,10 @@ def _sensors(r: _Reader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
                 if old in d:
                     r.fail((*w, old), f"'{old}' is no longer read: {why}; remove it (see cases/README.md)")
         params = _params(r, d, w, SENSOR_KINDS[kind], {"name", "kind", "rate_hz", "door", "faults"})
-        for f in ("reliability",):
-            value = getattr(params, f)
-            if not 0 <= value <= 1:
-                r.fail((*w, f), f"must lie in [0, 1], got {value!r}")
+        for f, problem in problems(params):  # the sensor models' own rules: check accepts what a run can start
+            r.fail((*w, f), problem)
+        if kind == "door" and not site.door_zone(site.door(door)).any():
+            r.fail((*w, "door"), f"the zone of door {door!r} holds no free cell; check its position, facing and radius")
         faults = []
         for j, fd in enumerate(r.tables(d, w, "faults")):
             fw = (*w, "faults", j)
@@ -439,7 +465,7 @@ def _sensors(r: _Reader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
             if fkind in ("people", "ghost"):
                 r.number(fd, fw, "rate", high=1, low=0)
             if fkind == "ghost":
-                marker = r.text(fd, fw, "marker")
+                marker = r.name(fd, fw, "marker")
                 if marker not in {m.marker_id for m in site.markers}:
                     r.fail((*fw, "marker"), f"no marker {marker!r} on the site")
                 r.numbers(fd, fw, "at_m", length=2)
@@ -468,6 +494,8 @@ def _route(r: _Reader, d: dict, site: SiteMap) -> RouteSpec:
     raw = d.get("waypoints")
     if not isinstance(raw, list) or len(raw) < 2:
         r.fail((*w, "waypoints"), "needs at least two [x, y] waypoints in metres")
+    if len(raw) > MAX_WAYPOINTS:
+        r.fail((*w, "waypoints"), f"holds {len(raw):,} waypoints; the limit is {MAX_WAYPOINTS:,}")
     points = []
     for i, p in enumerate(raw):
         if not _finite_numbers(p, 2):
@@ -503,27 +531,31 @@ def _free_point(r, where, site, p, what):
 
 
 def _free_segment(r, where, site, a, b, what):
+    """Refuse a straight leg that crosses an occupied cell (sampled at a quarter cell, all at once)."""
+    import numpy as np
+
     length = math.hypot(b[0] - a[0], b[1] - a[1])
     steps = max(2, int(length / (site.resolution_m / 4)) + 1)
-    for k in range(steps + 1):
-        x = a[0] + (b[0] - a[0]) * k / steps
-        y = a[1] + (b[1] - a[1]) * k / steps
-        if site.occupied[
-            min(int(y / site.resolution_m), site.occupied.shape[0] - 1),
-            min(int(x / site.resolution_m), site.occupied.shape[1] - 1),
-        ]:
-            r.fail(
-                where,
-                f"{what} from ({a[0]}, {a[1]}) to ({b[0]}, {b[1]}) passes through a wall or rack "
-                f"near ({x:.2f} m, {y:.2f} m)",
-            )
+    k = np.arange(steps + 1) / steps
+    xs, ys = a[0] + (b[0] - a[0]) * k, a[1] + (b[1] - a[1]) * k
+    iy = np.minimum((ys / site.resolution_m).astype(int), site.occupied.shape[0] - 1)
+    ix = np.minimum((xs / site.resolution_m).astype(int), site.occupied.shape[1] - 1)
+    hit = np.flatnonzero(site.occupied[iy, ix])
+    if hit.size:
+        x, y = xs[hit[0]], ys[hit[0]]
+        r.fail(
+            where,
+            f"{what} from ({a[0]}, {a[1]}) to ({b[0]}, {b[1]}) passes through a wall or rack near ({x:.2f} m, {y:.2f} m)",
+        )
 
 
 def _run(r: _Reader, d: dict, sensors) -> RunSpec:
     from fusion.backends.evidential import FILTER_RULES
 
     w = ("run",)
-    r.only(d, w, {"backends", "rule", "max_focal", "seed", "tick_s", "policy", "motion"})
+    r.only(
+        d, w, {"backends", "rule", "max_focal", "seed", "tick_s", "policy", "motion", "budget_gib", "budget_minutes"}
+    )
     backends = d.get("backends", list(BACKENDS))
     if not isinstance(backends, list) or not backends or any(b not in BACKENDS for b in backends):
         r.fail((*w, "backends"), f"must be a non-empty array naming back ends among: {', '.join(BACKENDS)}")
@@ -549,7 +581,13 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
             r.number(policy, (*w, "policy"), key, positive=True, high=1)
         else:
             r.number(policy, (*w, "policy"), key, low=0)
-    return RunSpec(tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy), motion)
+    from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
+
+    gib = r.number(d, w, "budget_gib", MEMORY_BUDGET_GIB, positive=True, high=1024)
+    minutes = r.number(d, w, "budget_minutes", WORK_BUDGET_MINUTES, positive=True, high=100_000)
+    return RunSpec(
+        tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy), motion, float(gib), float(minutes)
+    )
 
 
 def _sweep(r: _Reader, d: dict) -> SweepSpec:
@@ -576,34 +614,15 @@ def _sweep(r: _Reader, d: dict) -> SweepSpec:
     return SweepSpec(int(seeds), **out)
 
 
-_PROBABILITIES = {
-    "hit_rate",
-    "false_alarm_rate",
-    "p_detect",
-    "false_rate",
-    "confusion",
-    "z_hit",
-    "z_short",
-    "z_max",
-    "z_rand",
-    "reliability",
-}
-_POSITIVE = {"sigma_hit_m", "sigma_range_m", "sigma_bearing_deg", "lambda_short", "max_range_m"}
-
-
 def apply_calibration(case: Case, path) -> Case:
     """The case with the sensor parameters of a calibration file (written by ``fusion calibrate``) in place
     of its own; every error names the calibration file, line and field."""
     path = Path(path)
-    try:
-        size = os.path.getsize(path)
-        text = path.read_text(encoding="utf-8") if size <= MAX_CASE_BYTES else None
-    except (OSError, UnicodeDecodeError) as err:
-        raise InputFileError(path, None, None, f"cannot read the calibration file: {err}") from None
-    if text is None:
-        raise InputFileError(path, None, None, f"the file is {size:,} bytes; the limit is {MAX_CASE_BYTES:,}")
+    text = read_text(path, MAX_CASE_BYTES, "calibration file")
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise InputFileError(path, None, None, "not TOML we accept: brackets nested too deeply") from None
     except tomllib.TOMLDecodeError as err:
         raise InputFileError(path, getattr(err, "lineno", None), None, f"not valid TOML: {err}") from None
     r = _Reader(str(path), text)
@@ -623,12 +642,6 @@ def apply_calibration(case: Case, path) -> Case:
         interval = r.table(d, w, "interval", required=False)
         values = {k: v for k, v in d.items() if k not in ("name", "kind", "interval")}
         params = _params(r, values, w, SENSOR_KINDS[kind], set())
-        for key in values:
-            v = getattr(params, key)
-            if key in _PROBABILITIES and not 0 <= v <= 1:
-                r.fail((*w, key), f"must lie in [0, 1], got {v!r}")
-            if key in _POSITIVE and v <= 0:
-                r.fail((*w, key), f"must be greater than 0, got {v!r}")
         for key, bounds in interval.items():
             if not _finite_numbers(bounds, 2) or bounds[0] > bounds[1]:
                 r.fail((*w, "interval", key), f"must be [low, high] with low ≤ high, got {bounds!r}")
@@ -641,5 +654,7 @@ def apply_calibration(case: Case, path) -> Case:
             merged = dataclasses.replace(
                 merged, **{k: getattr(merged, k) / total for k in ("z_hit", "z_short", "z_max", "z_rand")}
             )
+        for f, problem in problems(merged):
+            r.fail((*w, f), problem)
         replaced[name] = dataclasses.replace(spec, params=merged)
     return dataclasses.replace(case, sensors=tuple(replaced.get(s.name, s) for s in case.sensors))

@@ -81,9 +81,10 @@ _UTF16_BOMS = (b"\xff\xfe", b"\xfe\xff")
 _UTF8_BOM = b"\xef\xbb\xbf"
 
 
-def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, str | None]]:
-    """``(line number, text)`` read once from a file or a pipe; text is None for an over-long line (skipped
-    unread in blocks).  A UTF-8 byte-order mark is dropped; UTF-16 or UTF-32 text is refused with what to do."""
+def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, str | None, str]]:
+    """``(line number, text, problem)`` read once from a file or a pipe.  ``text`` is None, and ``problem``
+    says why, for a line that is over-long (skipped unread in blocks), not UTF-8 or holds NUL bytes.  A
+    UTF-8 byte-order mark is dropped; UTF-16 or UTF-32 text with its mark is refused with what to do."""
     try:
         fh = open(path, "rb")  # noqa: SIM115 - closed by the with below
     except OSError as err:
@@ -102,12 +103,14 @@ def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, st
                     )
                 raw = raw.removeprefix(_UTF8_BOM)
             if raw is None:
-                yield number, None
-                continue
-            try:
-                yield number, raw.decode("utf-8")
-            except UnicodeDecodeError as err:
-                yield number, f"\0not UTF-8 (byte {err.start}); save the file as UTF-8"
+                yield number, None, f"longer than {MAX_LINE_BYTES:,} bytes"
+            elif b"\0" in raw:
+                yield number, None, "holds NUL bytes (is the file UTF-16 text? save it as UTF-8)"
+            else:
+                try:
+                    yield number, raw.decode("utf-8"), ""
+                except UnicodeDecodeError as err:
+                    yield number, None, f"not UTF-8 (byte {err.start}); save the file as UTF-8"
 
 
 def _bounded_lines(fh) -> Iterator:
@@ -127,12 +130,9 @@ def _bounded_lines(fh) -> Iterator:
             yield line
 
 
-def _decode(number: int, text: str | None, set_aside: list[SetAside]):
+def _decode(number: int, text: str | None, problem: str, set_aside: list[SetAside]):
     if text is None:
-        set_aside.append(SetAside(number, f"longer than {MAX_LINE_BYTES:,} bytes", ""))
-        return None
-    if text.startswith("\0"):
-        set_aside.append(SetAside(number, text[1:], ""))
+        set_aside.append(SetAside(number, problem, ""))
         return None
     stripped = text.strip()
     if not stripped:
@@ -187,9 +187,9 @@ def _released(verdicts, aside) -> Iterator[tuple[int, Observation]]:
 
 
 def _json_records(path, aside, position=None) -> Iterator[tuple[int, object, str]]:
-    for number, text in _lines(path, position):
+    for number, text, problem in _lines(path, position):
         rejected: list[SetAside] = []
-        rec = _decode(number, text, rejected)
+        rec = _decode(number, text, problem, rejected)
         for row in rejected:
             aside(row)
         if rec is not None:
@@ -221,14 +221,11 @@ def _csv_records(path, aside, position=None) -> Iterator[tuple[int, object, str]
 
     header = None
     unknown: list[str] = []
-    for number, text in _lines(path, position):
+    for number, text, problem in _lines(path, position):
         if text is None:
-            aside(SetAside(number, f"longer than {MAX_LINE_BYTES:,} bytes", ""))
-            continue
-        if text.startswith("\0"):
             if header is None:
-                raise InputFileError(path, number, None, f"the header row is {text[1:]}")
-            aside(SetAside(number, text[1:], ""))
+                raise InputFileError(path, number, None, f"the header row is {problem}")
+            aside(SetAside(number, problem, ""))
             continue
         if not text.strip():
             continue
@@ -342,8 +339,8 @@ def iter_truth(
     aside by the rule of ``fusion.io.timeline``; the clock of a truth file never restarts)."""
     set_aside = [] if set_aside is None else set_aside
     timeline = Timeline(hold=True, strict=True, restarts=False)
-    for number, text in _lines(path, position):
-        rec = _decode(number, text, set_aside)
+    for number, text, problem in _lines(path, position):
+        rec = _decode(number, text, problem, set_aside)
         if rec is None:
             continue
         try:

@@ -23,11 +23,12 @@ from fusion.sensors.doors import DoorReading
 from fusion.sensors.markers import MarkerMiss, MarkerSighting
 from fusion.sensors.odometry import OdometryReading
 from fusion.sensors.ranging import RangeScan
+from fusion.text import MAX_NAME_CHARS
 
 __all__ = ["Observation", "from_record", "KINDS"]
 
 KINDS = ("ranging", "markers", "door", "odometry")
-MAX_NAME = 200
+MAX_NAME = MAX_NAME_CHARS  # the same limit as in a case file
 """Longest sensor or marker name a record may hold."""
 
 

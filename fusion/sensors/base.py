@@ -26,7 +26,7 @@ from fusion.belief import rules
 from fusion.belief.mass import MassFunction
 from fusion.errors import ObservationError
 
-__all__ = ["Evidence", "SensorModel", "contour_from_log", "check_reliability", "check_positive", "check_probability"]
+__all__ = ["Evidence", "SensorModel", "contour_from_log"]
 
 MASS_FORMS = ("consonant", "bayesian")
 
@@ -106,31 +106,3 @@ def contour_from_log(log_likelihood: np.ndarray) -> np.ndarray:
     if not np.isfinite(top):
         return np.zeros(log_likelihood.size)
     return np.exp(log_likelihood - top).reshape(-1)
-
-
-def check_reliability(value, sensor: str) -> float:
-    return _check_range(value, sensor, "reliability", 0.0, 1.0)
-
-
-def check_positive(value, sensor: str, field: str) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ObservationError(f"sensor {sensor!r}: {field} must be a number, got {value!r}") from None
-    if not np.isfinite(v) or v <= 0:
-        raise ObservationError(f"sensor {sensor!r}: {field} must be a positive finite number, got {value!r}")
-    return v
-
-
-def check_probability(value, sensor: str, field: str) -> float:
-    return _check_range(value, sensor, field, 0.0, 1.0)
-
-
-def _check_range(value, sensor, field, lo, hi) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ObservationError(f"sensor {sensor!r}: {field} must be a number in [{lo}, {hi}], got {value!r}") from None
-    if not lo <= v <= hi:
-        raise ObservationError(f"sensor {sensor!r}: {field} must lie in [{lo}, {hi}], got {value!r}")
-    return v

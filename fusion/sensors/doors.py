@@ -14,7 +14,8 @@ import numpy as np
 
 from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
-from fusion.sensors.base import Evidence, check_probability, check_reliability
+from fusion.sensors.base import Evidence
+from fusion.sensors.limits import require_valid
 from fusion.site import SiteMap
 
 __all__ = ["DoorParams", "DoorReading", "DoorSensor"]
@@ -36,9 +37,7 @@ class DoorReading:
 class DoorSensor:
     def __init__(self, name: str, door: str, site: SiteMap, grid: PoseGrid, params: DoorParams = DoorParams()):
         self.name, self.grid, self.params = name, grid, params
-        check_probability(params.hit_rate, name, "hit_rate")
-        check_probability(params.false_alarm_rate, name, "false_alarm_rate")
-        check_reliability(params.reliability, name)
+        require_valid(params, name)
         self.door = site.door(door)
         self.zone = site.door_zone(self.door)
         if not self.zone.any():

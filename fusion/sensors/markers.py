@@ -27,7 +27,8 @@ import numpy as np
 
 from fusion.errors import ObservationError, SiteError
 from fusion.grid import PoseGrid
-from fusion.sensors.base import Evidence, check_positive, check_probability, check_reliability
+from fusion.sensors.base import Evidence
+from fusion.sensors.limits import require_valid
 from fusion.site import SiteMap
 
 __all__ = ["visible_markers", "MarkerParams", "MarkerSighting", "MarkerMiss", "MarkerSensor"]
@@ -62,11 +63,7 @@ class MarkerSensor:
     def __init__(self, name: str, site: SiteMap, grid: PoseGrid, params: MarkerParams = MarkerParams()):
         self.name, self.site, self.grid, self.params = name, site, grid, params
         p = params
-        for f in ("max_range_m", "fov_deg", "sigma_range_m", "sigma_bearing_deg"):
-            check_positive(getattr(p, f), name, f)
-        for f in ("p_detect", "false_rate", "confusion"):
-            check_probability(getattr(p, f), name, f)
-        check_reliability(p.reliability, name)
+        require_valid(p, name)
         if not site.markers:
             raise SiteError(f"sensor {name!r} detects markers, but site {site.name!r} has none on its map")
         xs, ys = np.meshgrid(grid.x_centres(), grid.y_centres())

@@ -31,7 +31,7 @@ import numpy as np
 
 from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
-from fusion.sensors.base import check_reliability
+from fusion.sensors.limits import require_valid
 
 __all__ = [
     "OdometryParams",
@@ -136,18 +136,7 @@ def check_odometry_step(previous_t: float | None, t: float, sensor: str) -> None
 class OdometrySensor:
     def __init__(self, name: str, grid: PoseGrid, params: OdometryParams = OdometryParams()):
         self.name, self.grid, self.params = name, grid, params
-        check_reliability(params.reliability, name)
-        for f in (
-            "sigma_per_m",
-            "turn_sigma_per_m_deg",
-            "turn_sigma_per_turn",
-            "bound_sigmas",
-            "slip_m",
-            "slip_deg",
-        ):
-            v = getattr(params, f)
-            if not isinstance(v, (int, float)) or not math.isfinite(v) or v < 0:
-                raise ObservationError(f"sensor {name!r}: {f} must be a finite number ≥ 0, got {v!r}")
+        require_valid(params, name)
 
     def check(self, reading: OdometryReading) -> None:
         """Refuse a record that is not finite, moves farther than the site's diagonal or turns more than

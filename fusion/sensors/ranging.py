@@ -30,7 +30,8 @@ import numpy as np
 
 from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
-from fusion.sensors.base import Evidence, check_positive, check_probability, check_reliability, contour_from_log
+from fusion.sensors.base import Evidence, contour_from_log
+from fusion.sensors.limits import require_valid
 from fusion.site import SiteMap
 
 __all__ = ["RangeParams", "RangeScan", "RangeSensor"]
@@ -63,17 +64,7 @@ class RangeSensor:
     def __init__(self, name: str, site: SiteMap, grid: PoseGrid, params: RangeParams = RangeParams()):
         self.name, self.site, self.grid, self.params = name, site, grid, params
         p = params
-        if not p.bearings_deg:
-            raise ObservationError(f"sensor {name!r}: at least one beam bearing is needed")
-        check_positive(p.max_range_m, name, "max_range_m")
-        check_positive(p.sigma_hit_m, name, "sigma_hit_m")
-        check_positive(p.lambda_short, name, "lambda_short")
-        check_reliability(p.reliability, name)
-        weights = [check_probability(getattr(p, f), name, f) for f in ("z_hit", "z_short", "z_max", "z_rand")]
-        if abs(sum(weights) - 1.0) > 1e-9:
-            raise ObservationError(
-                f"sensor {name!r}: mixture weights z_hit + z_short + z_max + z_rand must sum to 1, got {sum(weights):g}"
-            )
+        require_valid(p, name)
         # Distance field padded so that any end point within max range lands inside the array; past
         # the map's edge it is the distance to the nearest obstacle on the map.  Distances on a grid
         # take few distinct values, so the field is stored as indices into the sorted distinct

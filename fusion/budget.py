@@ -1,0 +1,169 @@
+"""What a case will cost before it runs: memory and processor time, each refused with its figure when over budget.
+
+``fusion check`` and every command that loads a case call ``case_problems`` (through the case
+loader), so a case that passes ``check`` can start, and one that cannot fit is refused at once
+instead of after minutes of work or an exhausted machine.
+
+The estimate counts every array that grows with the case: the pose grid and each back end's
+working copies, the focal sets of the focal-set filter, each reading's evidence, the range
+sensor's padded distance field, the marker sensor's tables and the temporary arrays of its
+line-of-sight test, the door zones, and the simulated log and the per-tick rows of a run.  Time
+is counted per tick from coefficients measured on the development machine (one core of a shared
+2-core machine; ``docs/reliability.md``): they are rough, and a budget exists to refuse cases that
+are off by orders of magnitude, not to predict a run to the second.
+
+Budgets: ``MEMORY_BUDGET_GIB`` and ``WORK_BUDGET_MINUTES`` by default; a case may raise them
+knowingly with ``[run] budget_gib`` and ``[run] budget_minutes``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+__all__ = ["Estimate", "estimate", "case_problems", "MEMORY_BUDGET_GIB", "WORK_BUDGET_MINUTES", "MAX_TICKS"]
+
+MEMORY_BUDGET_GIB = 4.0
+"""Default memory budget of one run (our choice: a robot's computer or a laptop runs it beside other work)."""
+WORK_BUDGET_MINUTES = 10.0
+"""Default processor-time budget of one run, all its back ends together (our choice)."""
+MAX_TICKS = 100_000
+"""Most ticks a simulated route may take (the simulator's bound; 7 hours at 0.25 s a tick)."""
+
+# Seconds per cell and tick, measured on the demo case (345,600 cells; the focal-set terms on a 216,000-cell
+# grid at 256 and 1,024 focal sets) as CPU time on one core, rounded up (measured, no source).
+_TICK_S_PER_CELL = 100e-9  # predict, estimate and monitor of one back end
+_READING_S_PER_CELL = 15e-9  # encode and absorb one reading
+_BEAM_S_PER_CELL = 2e-9  # each beam of a range scan
+_FOCAL_S_PER_CELL = 3.5e-9  # each focal set kept by the focal-set filter, per reading
+_FOCAL_BYTES_PER_CELL = 6  # each focal set kept: the bitsets of the belief, the pair products and their merge
+# Bytes per cell of one back end's working arrays (belief and the copies of one step; measured, rounded up).
+_BACKEND_BYTES_PER_CELL = {"bayes": 48, "evidential": 64}
+_READING_BYTES_PER_CELL = 24  # contour, likelihood and plausibility of one reading
+_TICK_BYTES = 1500  # one row of per-tick results and its log records, per back end
+_READING_BYTES = 400  # one simulated reading (a beam adds 8 more)
+
+
+@dataclass
+class Estimate:
+    """Figures of one run of a case: bytes by part, seconds by part, ticks."""
+
+    memory: dict[str, float] = field(default_factory=dict)
+    seconds: dict[str, float] = field(default_factory=dict)
+    ticks: float = 0.0
+
+    @property
+    def bytes(self) -> float:
+        return sum(self.memory.values())
+
+    @property
+    def total_seconds(self) -> float:
+        return sum(self.seconds.values())
+
+    def largest(self, parts: dict[str, float]) -> str:
+        return max(parts, key=parts.get) if parts else "nothing"
+
+
+def route_seconds(case) -> float:
+    """Time the simulated robot takes for the route: driving, turning on the spot, the legs after carries."""
+    r = case.route
+    pts = list(r.waypoints)
+    length = sum(math.dist(a, b) for a, b in zip(pts, pts[1:]))
+    turned = 0.0
+    for a, b, c in zip(pts, pts[1:], pts[2:]):
+        h1, h2 = math.atan2(b[1] - a[1], b[0] - a[0]), math.atan2(c[1] - b[1], c[0] - b[0])
+        turned += abs((math.degrees(h2 - h1) + 180.0) % 360.0 - 180.0)
+    for carry in r.carries:
+        length += math.dist(carry.to[:2], pts[carry.resume_waypoint - 1])
+        turned += 180.0
+    return length / r.speed_mps + (turned + 180.0 * len(r.carries)) / r.turn_rate_deg_s
+
+
+def estimate(case, backends=None, rule: str | None = None) -> Estimate:
+    """The memory and time one run of ``case`` needs (see the module docstring for what is counted)."""
+    from fusion.backends.contour import CONTOUR_RULES
+
+    site, run = case.site, case.run
+    backends = tuple(backends or run.backends)
+    rule = rule or run.rule
+    res = site.resolution_m
+    plane = (site.width_m / res) * (site.height_m / res)
+    cells = plane * case.headings
+    est = Estimate()
+    est.ticks = route_seconds(case) / run.tick_s + 1
+    readings_per_tick, beams_per_tick = 0.0, 0.0
+    for s in case.sensors:
+        if s.kind == "odometry":
+            continue
+        per_tick = 1.0 / max(1, round(1.0 / (s.rate_hz * run.tick_s)))
+        readings_per_tick += per_tick
+        beams = len(getattr(s.params, "bearings_deg", ()))
+        beams_per_tick += per_tick * beams
+        if s.kind == "ranging":
+            pad = 2 * (s.params.max_range_m / res + 1)
+            est.memory[f"distance field of {s.name}"] = (site.width_m / res + pad) * (site.height_m / res + pad) * 20
+        elif s.kind == "markers":
+            r = s.params.max_range_m / res
+            in_range = min(plane, math.pi * r * r)
+            samples = 2 * r + 2
+            est.memory[f"marker tables of {s.name}"] = 17 * plane * len(site.markers)
+            est.memory[f"line-of-sight test of {s.name}"] = 41 * in_range * samples
+            est.seconds[f"line-of-sight test of {s.name}"] = 10e-9 * in_range * samples * len(site.markers)
+        elif s.kind == "door":
+            est.memory[f"door zone of {s.name}"] = plane
+    focal = run.max_focal if rule not in CONTOUR_RULES else 0
+    for b in backends:
+        est.memory[f"{b} back end"] = cells * _BACKEND_BYTES_PER_CELL.get(b, 64)
+        if b == "evidential" and focal:
+            est.memory[f"{b} back end"] += cells * focal * _FOCAL_BYTES_PER_CELL
+        per_tick = cells * (
+            _TICK_S_PER_CELL
+            + readings_per_tick * _READING_S_PER_CELL
+            + beams_per_tick * _BEAM_S_PER_CELL
+            + (readings_per_tick * focal * _FOCAL_S_PER_CELL if b == "evidential" else 0.0)
+        )
+        est.seconds[f"{b} back end"] = per_tick * est.ticks
+    est.memory["readings of one tick"] = cells * _READING_BYTES_PER_CELL * max(1.0, readings_per_tick)
+    est.memory["simulated log and results"] = est.ticks * (
+        _TICK_BYTES * len(backends) + _READING_BYTES * readings_per_tick + 8 * beams_per_tick
+    )
+    return est
+
+
+def case_problems(case) -> list[tuple[tuple, str]]:
+    """``(where, what)`` for each budget the case exceeds; ``where`` is a key path for the loader's error."""
+    out = []
+    est = estimate(case)
+    if est.ticks > MAX_TICKS:
+        out.append(
+            (
+                ("route",),
+                f"the route takes about {est.ticks * case.run.tick_s:,.0f} s, {est.ticks:,.0f} ticks of "
+                f"{case.run.tick_s:g} s; the limit is {MAX_TICKS:,} ticks: shorten the route or raise its speed",
+            )
+        )
+        return out
+    gib = est.bytes / 1024**3
+    if gib > case.run.budget_gib:
+        part = est.largest(est.memory)
+        out.append(
+            (
+                ("run", "budget_gib"),
+                f"a run of this case needs about {gib:.3g} GiB (most for the {part}: "
+                f"{est.memory[part] / 1024**3:.3g} GiB); the budget is {case.run.budget_gib:g} GiB: coarsen the "
+                "grid, shorten the sensors' range, or raise [run] budget_gib if the machine has the memory",
+            )
+        )
+    minutes = est.total_seconds / 60
+    if minutes > case.run.budget_minutes:
+        part = est.largest(est.seconds)
+        out.append(
+            (
+                ("run", "budget_minutes"),
+                f"a run of this case needs about {minutes:,.3g} minutes of processor time ({est.ticks:,.0f} ticks; "
+                f"most for the {part}: {est.seconds[part] / 60:,.3g} min); the budget is "
+                f"{case.run.budget_minutes:g} min: shorten the route, coarsen the grid, use fewer beams or focal "
+                "sets, or raise [run] budget_minutes",
+            )
+        )
+    return out
