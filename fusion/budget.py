@@ -25,7 +25,7 @@ __all__ = ["Estimate", "estimate", "case_problems", "MEMORY_BUDGET_GIB", "WORK_B
 
 MEMORY_BUDGET_GIB = 4.0
 """Default memory budget of one run (our choice: a robot's computer or a laptop runs it beside other work)."""
-WORK_BUDGET_MINUTES = 10.0
+WORK_BUDGET_MINUTES = 5.0
 """Default processor-time budget of one run, all its back ends together (our choice)."""
 MAX_TICKS = 100_000
 """Most ticks a simulated route may take (the simulator's bound; 7 hours at 0.25 s a tick)."""

@@ -702,9 +702,24 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _joined_values(argv: list[str]) -> list[str]:
+    """``--start -0.5,2,90`` as ``--start=-0.5,2,90``: argparse would take a value starting with ``-`` (a pose
+    west or south of the origin) for an option and say "expected one argument"."""
+    out: list[str] = []
+    for arg in argv:
+        if out and out[-1] in _VALUE_OPTIONS and arg[:1] == "-" and (arg[1:2].isdigit() or arg[1:2] == "."):
+            out[-1] = f"{out[-1]}={arg}"
+        else:
+            out.append(arg)
+    return out
+
+
+_VALUE_OPTIONS = {"--start", "--seed", "--first-seed"}
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
-    args = parser.parse_args(argv)
+    args = parser.parse_args(_joined_values(sys.argv[1:] if argv is None else list(argv)))
     if not getattr(args, "run", None):
         parser.print_help()
         return EXIT_BAD_INPUT

@@ -121,7 +121,7 @@ class RunSpec:
     policy: dict = field(default_factory=dict)
     motion: str = "probabilistic"  # how the evidential back end applies odometry (fusion.motion.MOTION_MODELS)
     budget_gib: float = 4.0  # memory a run may take (fusion.budget)
-    budget_minutes: float = 10.0  # processor time a run may take (fusion.budget)
+    budget_minutes: float = 5.0  # processor time a run may take (fusion.budget)
 
 
 SWEEP_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy")
