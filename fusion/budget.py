@@ -143,27 +143,26 @@ def case_problems(case) -> list[tuple[tuple, str]]:
             )
         )
         return out
-    gib = est.bytes / 1024**3
-    if gib > case.run.budget_gib:
-        part = est.largest(est.memory)
-        out.append(
-            (
-                ("run", "budget_gib"),
-                f"a run of this case needs about {gib:.3g} GiB (most for the {part}: "
-                f"{est.memory[part] / 1024**3:.3g} GiB); the budget is {case.run.budget_gib:g} GiB: coarsen the "
-                "grid, shorten the sensors' range, or raise [run] budget_gib if the machine has the memory",
+    checks = (
+        ("budget_gib", est.memory, 1024**3, "GiB", "coarsen the grid, shorten the sensors' range"),
+        (
+            "budget_minutes",
+            est.seconds,
+            60.0,
+            "min",
+            "shorten the route, coarsen the grid, use fewer beams or focal sets",
+        ),
+    )
+    for key, parts, unit, name, advice in checks:
+        need, budget = sum(parts.values()) / unit, getattr(case.run, key)
+        if need > budget:
+            part = est.largest(parts)
+            out.append(
+                (
+                    ("run", key),
+                    f"a run of this case needs about {need:,.3g} {name} ({est.ticks:,.0f} ticks; most for the {part}: "
+                    f"{parts[part] / unit:,.3g} {name}); the budget is {budget:g} {name}: {advice}, or raise "
+                    f"[run] {key} if the machine allows",
+                )
             )
-        )
-    minutes = est.total_seconds / 60
-    if minutes > case.run.budget_minutes:
-        part = est.largest(est.seconds)
-        out.append(
-            (
-                ("run", "budget_minutes"),
-                f"a run of this case needs about {minutes:,.3g} minutes of processor time ({est.ticks:,.0f} ticks; "
-                f"most for the {part}: {est.seconds[part] / 60:,.3g} min); the budget is "
-                f"{case.run.budget_minutes:g} min: shorten the route, coarsen the grid, use fewer beams or focal "
-                "sets, or raise [run] budget_minutes",
-            )
-        )
     return out

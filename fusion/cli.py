@@ -7,6 +7,7 @@ import sys
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.errors import FusionError
+from fusion.io.outdir import release_unfinished
 from fusion.text import literal, plain
 
 EXIT_BAD_INPUT = 2
@@ -203,6 +204,7 @@ def _targets(args: argparse.Namespace) -> int:
 
 def _compare(args: argparse.Namespace) -> int:
     import dataclasses
+    from pathlib import Path
 
     from rich.console import Console
 
@@ -218,6 +220,12 @@ def _compare(args: argparse.Namespace) -> int:
     from fusion.compare_report import identity_words, tables, write_report
     from fusion.io.case import apply_calibration, load_case
 
+    for path in (args.case, args.calibration):
+        if path is not None and Path(path).exists() and not Path(path).is_file():
+            raise FusionError(
+                f"{plain(path)}: compare's workers each read this file, so it must be a regular file, not a pipe; "
+                "save it to a file first"
+            )
     case = load_case(args.case)
     overrides = {
         "seeds": args.seeds,
@@ -408,8 +416,10 @@ def _inspect(args: argparse.Namespace) -> int:
     out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
-    progress = _progress(console, "replaying", args.quiet, "line {task.completed:,.0f}/{task.total:,.0f}")
-    task = progress.add_task("replay", total=count_lines(args.log))  # None for a pipe (read once, by the replay)
+    total = count_lines(args.log)  # None for a pipe: it is read once, by the replay, and has no total
+    counter = "line {task.completed:,.0f}" + ("/{task.total:,.0f}" if total is not None else " (from a pipe)")
+    progress = _progress(console, "replaying", args.quiet, counter)
+    task = progress.add_task("replay", total=total)
     with progress:
         found = inspect_log(
             case,
@@ -418,7 +428,7 @@ def _inspect(args: argparse.Namespace) -> int:
             truth_path=args.truth,
             start=start,
             frames=not args.no_frames,
-            progress=lambda line, total: progress.update(task, completed=line, total=total),
+            progress=lambda line, lines: progress.update(task, completed=line, total=lines if total else None),
         )
     folder.finish(found.files)
     console.print(found)
@@ -723,6 +733,14 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "run", None):
         parser.print_help()
         return EXIT_BAD_INPUT
+    try:
+        return _outcome(args)
+    finally:
+        release_unfinished()  # a folder claimed for results that never came is left as it was found
+
+
+def _outcome(args: argparse.Namespace) -> int:
+    """Run the command; every error becomes a message and an exit code, never a traceback."""
     try:
         return args.run(args)
     except FusionError as err:

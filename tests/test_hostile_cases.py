@@ -63,7 +63,7 @@ def test_what_a_sensor_model_would_refuse_is_refused_by_check_with_line_and_fiel
     [
         (  # 1 cm cells: the marker sensor's line-of-sight test alone would take tens of GiB
             (("resolution_m = 0.5", "resolution_m = 0.01"), ("headings = 12", "headings = 1")),
-            "GiB (most for the line-of-sight test of camera",
+            "GiB (77 ticks; most for the line-of-sight test of camera",
         ),
         ((("speed_mps = 1.0", "speed_mps = 0.0001"),), "ticks of 0.25 s; the limit is 100,000"),
         (
@@ -72,11 +72,11 @@ def test_what_a_sensor_model_would_refuse_is_refused_by_check_with_line_and_fiel
                 ("resolution_m = 0.5", "resolution_m = 0.1"),
                 ("headings = 12", "headings = 36"),
             ),
-            "GiB (most for the evidential back end",
+            "most for the evidential back end",
         ),
         (
             (("resolution_m = 0.5", "resolution_m = 0.1"), ("headings = 12", "headings = 72")),
-            "minutes of processor time",
+            "min (77 ticks; most for the",
         ),
         ((("width_m = 10.0", "width_m = 1e300"),), "cells, about"),
     ],

@@ -181,3 +181,14 @@ def test_every_stream_line_gets_one_answer_naming_its_line(case, log_lines):
     answers = _streamed(case, lines)
     assert [a["line"] for a in answers] == list(range(1, len(lines) + 1))
     assert [a.get("ignored") for a in answers[3:5]] == ["blank line", "blank line"] and "error" in answers[5]
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs named pipes")
+def test_the_inspect_command_replays_a_pipe(tmp_path, log_lines, capsys):
+    from fusion.cli import main
+
+    fifo = _fifo_with(tmp_path, "\n".join(log_lines) + "\n")
+    code = main(["inspect", str(fifo), "--site", str(TINY), "--out", str(tmp_path / "o"), "--no-frames"])
+    assert code == 0, capsys.readouterr().err
+    summary = json.loads((tmp_path / "o" / "summary.json").read_text())
+    assert summary["records"] == summary["lines"] == len(log_lines)

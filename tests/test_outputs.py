@@ -150,7 +150,28 @@ def test_a_full_disk_during_a_replay_leaves_no_temporary_file(tmp_path, monkeypa
     out = tmp_path / "ins"
     code = main(["inspect", str(run_folder / "observations.jsonl"), "--site", str(TINY), "--out", str(out), "--quiet"])
     assert code == 2 and "No space left" in capsys.readouterr().err
-    assert not [p for p in out.iterdir() if p.name.startswith(TEMP_PREFIX)]
+    # no temporary file is left, and the folder the failed replay claimed is left as it was found (absent)
+    assert not out.exists()
+
+
+def test_a_refused_input_leaves_no_folder_behind(tmp_path, capsys):
+    (tmp_path / "empty.jsonl").write_text("")
+    (tmp_path / "noise.jsonl").write_bytes(bytes(range(256)) * 20_000)
+    out = tmp_path / "o"
+    code = main(
+        [
+            "inspect",
+            str(tmp_path / "empty.jsonl"),
+            "--site",
+            str(TINY),
+            "--truth",
+            str(tmp_path / "noise.jsonl"),
+            "--out",
+            str(out),
+        ]
+    )
+    assert code == 2 and "this is no log" in capsys.readouterr().err
+    assert not out.exists()
 
 
 def test_an_unwritable_out_is_refused_before_any_work(tmp_path, capsys, monkeypatch):

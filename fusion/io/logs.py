@@ -41,6 +41,11 @@ __all__ = [
 
 MAX_LINE_BYTES = 64 * 1024
 """A log line longer than this is set aside unread (a real record is a few hundred bytes)."""
+MAX_SKIP_BYTES = 1024**3
+"""A line longer than this ends the reading: the input is no log of ours (``/dev/zero``, a binary file).
+A single over-long line below it (a corrupted record of 100 MB) is set aside and reading goes on."""
+NOTHING_USABLE_LINES = 10_000
+"""A log whose first this many lines hold no record at all is refused: it is not a log (our choice)."""
 
 
 @dataclass(frozen=True)
@@ -90,7 +95,7 @@ def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, st
     except OSError as err:
         raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
     with fh:
-        for number, raw in enumerate(_bounded_lines(fh), 1):
+        for number, raw in enumerate(_bounded_lines(fh, path), 1):
             if position is not None:
                 position.lines = number
             if number == 1 and raw is not None:
@@ -113,18 +118,30 @@ def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, st
                     yield number, None, f"not UTF-8 (byte {err.start}); save the file as UTF-8"
 
 
-def _bounded_lines(fh) -> Iterator:
+def _bounded_lines(fh, path) -> Iterator:
     """The lines of ``fh`` (binary), None for each line longer than ``MAX_LINE_BYTES``.
 
     Iterating a file reads a whole line into memory, so one line of a gigabyte with no newline
-    would take a gigabyte; reading at most ``MAX_LINE_BYTES + 1`` at a time keeps memory bounded."""
+    would take a gigabyte; reading at most ``MAX_LINE_BYTES + 1`` at a time keeps memory bounded,
+    and a line that runs past ``MAX_SKIP_BYTES`` ends the reading (time stays bounded too)."""
+    number = 0
     while True:
         line = fh.readline(MAX_LINE_BYTES + 1)
+        number += 1
         if not line:
             return
         if len(line) > MAX_LINE_BYTES:
+            skipped = len(line)
             while line and not line.endswith(b"\n"):
                 line = fh.readline(MAX_LINE_BYTES + 1)
+                skipped += len(line)
+                if skipped > MAX_SKIP_BYTES:
+                    raise InputFileError(
+                        path,
+                        number,
+                        None,
+                        f"line {number} runs past {MAX_SKIP_BYTES:,} bytes with no end: this is no log",
+                    )
             yield None
         else:
             yield line
@@ -167,12 +184,16 @@ def iter_observations(
     timeline = Timeline(hold=True)
     csv_log = str(path).lower().endswith(".csv")
     rows = _csv_records(path, aside, position) if csv_log else _json_records(path, aside, position)
+    usable = False
     for number, rec, text in rows:
         try:
             obs: Observation = from_record(rec)
         except ObservationError as err:
             aside(SetAside(number, str(err), text[:80]))
+            if not usable and number >= NOTHING_USABLE_LINES:
+                _no_log(path, number, [SetAside(number, str(err), "")])
             continue
+        usable = True
         yield from _released(timeline.offer(obs.t, (number, obs, text)), aside)
     yield from _released(timeline.flush(), aside)
 
@@ -187,13 +208,24 @@ def _released(verdicts, aside) -> Iterator[tuple[int, Observation]]:
 
 
 def _json_records(path, aside, position=None) -> Iterator[tuple[int, object, str]]:
+    found = False
     for number, text, problem in _lines(path, position):
         rejected: list[SetAside] = []
         rec = _decode(number, text, problem, rejected)
         for row in rejected:
             aside(row)
         if rec is not None:
+            found = True
             yield number, rec, text.strip()
+        elif not found and number >= NOTHING_USABLE_LINES:
+            _no_log(path, number, rejected)
+
+
+def _no_log(path, number: int, rejected: list[SetAside]) -> None:
+    """Refuse an input whose first lines hold no JSON value at all (random bytes, a binary file): set aside
+    one by one, an endless one would fill the disk with reasons."""
+    why = f" (line {number}: {rejected[0].reason})" if rejected else ""
+    raise InputFileError(path, None, None, f"none of the first {number:,} lines holds a record{why}: this is no log")
 
 
 CSV_COLUMNS = (
@@ -339,7 +371,10 @@ def iter_truth(
     aside by the rule of ``fusion.io.timeline``; the clock of a truth file never restarts)."""
     set_aside = [] if set_aside is None else set_aside
     timeline = Timeline(hold=True, strict=True, restarts=False)
+    usable = False
     for number, text, problem in _lines(path, position):
+        if not usable and number >= NOTHING_USABLE_LINES:
+            _no_log(path, number, set_aside[-1:])
         rec = _decode(number, text, problem, set_aside)
         if rec is None:
             continue
@@ -348,6 +383,7 @@ def iter_truth(
         except ObservationError as err:
             set_aside.append(SetAside(number, str(err), text.strip()[:80]))
             continue
+        usable = True
         yield from _released(timeline.offer(pose.t, (number, pose, "")), set_aside.append)
     yield from _released(timeline.flush(), set_aside.append)
 

@@ -33,6 +33,7 @@ from fusion.errors import FusionError
 
 __all__ = [
     "default_folder",
+    "release_unfinished",
     "OutputFolder",
     "PartialFile",
     "atomic_write",
@@ -152,6 +153,8 @@ class OutputFolder:
     settings: dict
     previous: list[str] = field(default_factory=list)  # files of the same work's earlier results
     folders: tuple[str, ...] = ()  # sub-folders wholly ours (a sweep's one file per run)
+    created: bool = False  # the folder did not exist before the claim
+    finished: bool = False
 
     def file(self, name: str) -> Path:
         return self.path / name
@@ -164,7 +167,28 @@ class OutputFolder:
                 _remove_ours(self.path, old)
         self.previous = files
         _write_mark(self.path, self.job, self.settings, files, self.folders, complete=True)
+        self.finished = True
         return files
+
+
+_CLAIMED: list[OutputFolder] = []
+
+
+def release_unfinished() -> None:
+    """After a command failed: a folder it claimed but never wrote a result into is left as it was found
+    (the ownership record removed, the folder too if the claim made it), so a refused input leaves no trace."""
+    while _CLAIMED:
+        folder = _CLAIMED.pop()
+        if folder.finished or folder.previous:
+            continue
+        try:
+            rest = [e for e in os.listdir(folder.path) if e != MARK]
+            if not rest:
+                (folder.path / MARK).unlink(missing_ok=True)
+                if folder.created:
+                    folder.path.rmdir()
+        except OSError:
+            pass
 
 
 def claim(path, job: str, settings: dict, *, replace: bool = False, inputs=(), folders=()) -> OutputFolder:
@@ -175,6 +199,7 @@ def claim(path, job: str, settings: dict, *, replace: bool = False, inputs=(), f
     folder = Path(path)
     if folder.exists() and not folder.is_dir():
         raise FolderError(f"{folder} exists and is not a folder; choose another --out")
+    created = not folder.exists()
     try:
         folder.mkdir(parents=True, exist_ok=True)
         entries = [e for e in os.listdir(folder) if e != MARK]
@@ -216,7 +241,9 @@ def claim(path, job: str, settings: dict, *, replace: bool = False, inputs=(), f
         _write_mark(folder, job, settings, previous, tuple(folders), complete=False)
     except OSError as err:
         raise FolderError(f"cannot write in the output folder {folder}: {err.strerror}") from None
-    return OutputFolder(folder, job, settings, previous, tuple(folders))
+    claimed = OutputFolder(folder, job, settings, previous, tuple(folders), created)
+    _CLAIMED.append(claimed)
+    return claimed
 
 
 def _entries(folder: Path) -> list[Path]:
