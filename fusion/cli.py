@@ -11,7 +11,9 @@ from fusion.io.outdir import release_unfinished
 from fusion.text import literal, plain
 
 EXIT_BAD_INPUT = 2
-EXIT_DEFECT = 70  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
+EXIT_DEFECT = 70
+MAX_SWEEP_RUNS = 100_000
+"""Most runs one compare command may start (settings × seeds; the case's [compare] seeds are at most 10,000)."""  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
 
 
 def _builtin_case(name: str):
@@ -208,6 +210,7 @@ def _compare(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
+    from fusion.budget import estimate
     from fusion.compare import (
         SweepInterrupted,
         bayes_dempster_identity,
@@ -239,6 +242,13 @@ def _compare(args: argparse.Namespace) -> int:
         apply_calibration(case, args.calibration)  # a bad calibration file is refused before any run
     settings = settings_of(spec, calibrated=bool(args.calibration))  # refuses unknown rules, out-of-range values
     seeds = range(case.run.seed, case.run.seed + spec.seeds)
+    runs = len(settings) * spec.seeds
+    if runs > MAX_SWEEP_RUNS:
+        raise FusionError(
+            f"{len(settings)} settings × {spec.seeds:,} seeds = {runs:,} runs; a sweep is limited to "
+            f"{MAX_SWEEP_RUNS:,}: fewer seeds or settings"
+        )
+    per_run = estimate(case).total_seconds / max(len(case.run.backends), 1)  # a setting runs one back end
     # Runs of the same case (and calibration) file are reused: the folder resumes the same work.
     identity_of_work = {"case_sha256": sweep_digest(args.case, args.calibration)}
     folder = _claim(args, "compare", args.case, identity_of_work, [], folders=("runs",))
@@ -246,8 +256,9 @@ def _compare(args: argparse.Namespace) -> int:
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     console.print(
-        f"{literal(case.name)}: {len(settings)} settings × {spec.seeds} seeds = {len(settings) * spec.seeds} runs "
-        f"on the {args.engine} engine; results go to {literal(out_dir)}"
+        f"{literal(case.name)}: {len(settings)} settings × {spec.seeds} seeds = {runs:,} runs "
+        f"on the {args.engine} engine (roughly {runs * per_run / 3600:,.1f} h of processor time by the case's "
+        f"estimate, shared by the workers); results go to {literal(out_dir)}"
     )
     progress = _progress(console, "runs", args.quiet, "{task.completed}/{task.total}")
     task = progress.add_task("runs", total=None)

@@ -31,7 +31,11 @@ def summary_renderables(found):
         f"({found.duration_s:.1f} s of log); {found.used:,} readings absorbed by both back ends",
     )
     aside = ", ".join(f"{n:,} {kind}" for kind, n in found.reasons.most_common())
-    head.add_row("set aside", f"{found.set_aside:,} rows" + (f" ({aside}); listed in set_aside.jsonl" if aside else ""))
+    head.add_row(
+        "set aside",
+        f"{found.set_aside:,} row{'' if found.set_aside == 1 else 's'}"
+        + (f" ({aside}); listed in set_aside.jsonl" if aside else ""),
+    )
     head.add_row("start", literal(found.start))
     head.add_row("replay", f"{found.seconds:.1f} s of wall time on one core")
     if found.errors:

@@ -197,3 +197,17 @@ def test_calibration_files_are_one_per_log_and_never_overwritten_unasked(tmp_pat
     assert main([*argv, "--out", str(tmp_path / "nowhere" / "c.toml")]) == 2
     err = capsys.readouterr().err
     assert "nowhere" in err and TEMP_PREFIX not in err
+
+
+def test_a_sweep_resumes_past_a_run_file_that_lacks_a_figure(tmp_path):
+    from fusion.compare import FIGURES, _load_done
+
+    runs = tmp_path / "runs"
+    runs.mkdir()
+    whole = {"setting": {"backend": "bayes"}, "key": "bayes", "seed": 1, **dict.fromkeys(FIGURES, 0.5)}
+    lacking = {k: v for k, v in whole.items() if k != "p95_error_m"} | {"seed": 2}
+    (runs / "a.json").write_text(json.dumps(whole))
+    (runs / "b.json").write_text(json.dumps(lacking))
+    (runs / "c.json").write_text("[" * 100_000)  # not a run file: skipped, not a crash
+    done = _load_done(tmp_path, {("bayes", 1), ("bayes", 2)})
+    assert list(done) == [("bayes", 1)]  # the incomplete run is run again
