@@ -12,6 +12,7 @@ from fusion.text import literal, plain
 
 EXIT_BAD_INPUT = 2
 EXIT_DEFECT = 70
+MAX_SEED = 2**63 - 1
 MAX_SWEEP_RUNS = 100_000
 """Most runs one compare command may start (settings × seeds; the case's [compare] seeds are at most 10,000)."""  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
 
@@ -591,13 +592,13 @@ def _parser() -> argparse.ArgumentParser:
     check.add_argument("case", help="case file (TOML)")
     check.set_defaults(run=_check)
     bench = commands.add_parser("bench", help="time each back end's steps as ratios to floors measured in the same run")
-    bench.add_argument("--repeats", type=_positive_int, default=9, help="runs per figure, fastest kept (default 9)")
-    bench.add_argument("--seed", type=int, default=0, help="seed of the synthetic beliefs and evidence (default 0)")
+    bench.add_argument("--repeats", type=_count(1000), default=9, help="runs per figure, fastest kept (default 9)")
+    bench.add_argument("--seed", type=_seed, default=0, help="seed of the synthetic beliefs and evidence (default 0)")
     bench.add_argument("--quick", action="store_true", help="only the smaller grid (100×100×36)")
     bench.add_argument("--json", action="store_true", help="print the figures as JSON on standard output")
     bench.add_argument(
         "--sweep",
-        type=_positive_int,
+        type=_count(1000),
         metavar="SEEDS",
         help="also time the demo case's default compare sweep on SEEDS seeds, 1 worker vs 2 (minutes)",
     )
@@ -610,13 +611,13 @@ def _parser() -> argparse.ArgumentParser:
     st.set_defaults(run=_stream)
     cmp = commands.add_parser("compare", help="run a grid of fusion settings over many seeds and rank them")
     cmp.add_argument("case", help="case file (TOML); its [compare] table sets the default sweep")
-    cmp.add_argument("--seeds", type=_positive_int, help="seeds per setting (default: the case's, else 50)")
+    cmp.add_argument("--seeds", type=_count(10_000), help="seeds per setting (default: the case's, else 50)")
     cmp.add_argument("--backend", action="append", help="back end to include (repeatable): bayes, evidential")
     cmp.add_argument("--rule", action="append", help="evidential combination rule to include (repeatable)")
     cmp.add_argument("--reliability", action="append", type=_number, help="discount factor in [0, 1] (repeatable)")
     cmp.add_argument("--fault-rate", action="append", type=_number, help="fault rate in [0, 1] (repeatable)")
     cmp.add_argument("--rank-by", default="median_error_m", choices=_figure_names(), help="figure to rank by")
-    cmp.add_argument("--workers", type=_positive_int, help="parallel workers (default: one per core)")
+    cmp.add_argument("--workers", type=_count(64), help="parallel workers (default: one per core; at most 64)")
     cmp.add_argument("--engine", choices=("local", "dask"), default="local", help="where runs execute (default local)")
     cmp.add_argument("--scheduler", help="address of a running Dask scheduler (engine dask; default: a local cluster)")
     cmp.add_argument(
@@ -633,11 +634,15 @@ def _parser() -> argparse.ArgumentParser:
     cal.add_argument("--out", help="calibration file to write (default: <log>-calibrated.toml beside the log)")
     cal.add_argument("--replace", action="store_true", help="overwrite the calibration file if it exists")
     cal.add_argument("--method", choices=("auto", "nuts", "svi"), default="auto", help="inference (default auto)")
-    cal.add_argument("--samples", type=_positive_int, default=500, help="posterior draws per chain (default 500)")
-    cal.add_argument("--warmup", type=_positive_int, default=300, help="NUTS warm-up steps (default 300)")
-    cal.add_argument("--chains", type=_positive_int, default=2, help="NUTS chains; R-hat needs ≥ 2 (default 2)")
-    cal.add_argument("--svi-steps", type=_positive_int, default=2000, help="SVI optimisation steps (default 2000)")
-    cal.add_argument("--seed", type=int, default=0, help="seed of the inference (default 0)")
+    cal.add_argument(
+        "--samples", type=_count(100_000), default=500, help="posterior draws per chain (default 500, at most 100,000)"
+    )
+    cal.add_argument("--warmup", type=_count(100_000), default=300, help="NUTS warm-up steps (default 300)")
+    cal.add_argument(
+        "--chains", type=_count(16), default=2, help="NUTS chains; R-hat needs ≥ 2 (default 2, at most 16)"
+    )
+    cal.add_argument("--svi-steps", type=_count(1_000_000), default=2000, help="SVI optimisation steps (default 2000)")
+    cal.add_argument("--seed", type=_seed, default=0, help="seed of the inference (default 0)")
     cal.set_defaults(run=_calibrate)
     ins = commands.add_parser("inspect", help="replay a recorded log on both back ends and explain its conflict")
     ins.add_argument("log", help="observations, JSON lines or CSV (see docs/inspect.md)")
@@ -657,19 +662,19 @@ def _parser() -> argparse.ArgumentParser:
     soak = commands.add_parser("soak", help="run many steps (or stream lines) and check the belief's invariants")
     soak.add_argument("case", help="case file whose site, sensors and faults to run")
     soak.add_argument(
-        "--steps", type=_positive_int, default=100_000, help="localizer steps per back end (default 100,000)"
+        "--steps", type=_count(10**9), default=100_000, help="localizer steps per back end (default 100,000)"
     )
-    soak.add_argument("--stream-lines", type=_positive_int, help="instead push this many lines through the stream")
+    soak.add_argument("--stream-lines", type=_count(10**9), help="instead push this many lines through the stream")
     soak.add_argument("--corrupt", type=_number, default=0.1, help="share of stream lines corrupted (default 0.1)")
     soak.add_argument("--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable)")
-    soak.add_argument("--seed", type=int, help="first seed of the simulated runs (default: the case's)")
+    soak.add_argument("--seed", type=_seed, help="first seed of the simulated runs (default: the case's)")
     soak.add_argument("--out", help="folder for soak.json (default: fusion-out/<case>-soak-…)")
     _replace_option(soak)
     soak.add_argument("--quiet", action="store_true", help="no progress bar")
     soak.set_defaults(run=_soak)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
-    targets.add_argument("--seeds", type=_positive_int, default=50, help="seeds per case (default 50)")
-    targets.add_argument("--first-seed", type=_positive_int, default=1, help="first seed (default 1)")
+    targets.add_argument("--seeds", type=_count(10_000), default=50, help="seeds per case (default 50)")
+    targets.add_argument("--first-seed", type=_seed, default=1, help="first seed (default 1)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
     targets.add_argument(
         "--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable; default: both)"
@@ -685,7 +690,7 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _run_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--seed", type=int, help="seed of the simulation (default: the case's)")
+    p.add_argument("--seed", type=_seed, help="seed of the simulation (default: the case's)")
     p.add_argument("--out", help="output folder (default: fusion-out/<case>-run-seed<seed>-<back ends>-<rule>-…)")
     _replace_option(p)
     p.add_argument("--quiet", action="store_true", help="no live view; print the summary only")
@@ -711,6 +716,29 @@ def _number(text: str) -> float:
         return float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+
+
+def _seed(text: str) -> int:
+    """A seed: a whole number from 0 to 2⁶³ − 1 (what numpy's and torch's generators take)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED:,}, got {text!r}") from None
+    if not 0 <= value <= MAX_SEED:
+        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED:,}, got {text!r}")
+    return value
+
+
+def _count(most: int):
+    """A whole number from 1 to ``most`` (a bound keeps a typo such as 5000000 from running for days)."""
+
+    def parse(text: str) -> int:
+        value = _positive_int(text)
+        if value > most:
+            raise argparse.ArgumentTypeError(f"expected at most {most:,}, got {text!r}")
+        return value
+
+    return parse
 
 
 def _positive_int(text: str) -> int:

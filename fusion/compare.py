@@ -403,7 +403,7 @@ def run_sweep(
     def failed(job, err: BaseException) -> None:
         failures.append(f"{job[1].label}, seed {job[2]}: {type(err).__name__}: {err}")
 
-    workers = max(1, workers or os.cpu_count() or 1)
+    workers = max(1, min(workers or os.cpu_count() or 1, len(todo) or 1))  # never more processes than runs
     try:
         if todo:
             jobs = [(case_path, s, seed, calibration) for s, seed in todo]

@@ -161,3 +161,30 @@ def test_the_toml_line_finder_is_linear_in_the_line_length():
 
     small, large = seconds(2_000), seconds(32_000)
     assert large / small < 64  # linear: about 16; the old pattern was cubic (about 4,000)
+
+
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["run", str(TINY), "--seed", "-5"],
+        ["run", str(TINY), "--seed", str(2**64)],
+        ["compare", str(TINY), "--seeds", "1000000"],
+        ["compare", str(TINY), "--workers", "100000"],
+        ["calibrate", "log", "--truth", "t", "--site", str(TINY), "--samples", "5000000000"],
+        ["calibrate", "log", "--truth", "t", "--site", str(TINY), "--chains", "1000"],
+    ],
+)
+def test_counts_and_seeds_out_of_range_are_refused_at_the_command_line(argv, capsys):
+    with pytest.raises(SystemExit) as caught:
+        main(argv)
+    assert caught.value.code == 2 and "expected" in capsys.readouterr().err
+
+
+def test_a_command_that_holds_a_whole_log_refuses_one_beyond_its_bound(tmp_path, monkeypatch):
+    from fusion.io import logs
+
+    path = tmp_path / "log.jsonl"
+    path.write_text("".join(f'{{"t": {i}, "sensor": "contact", "kind": "door", "active": false}}\n' for i in range(30)))
+    monkeypatch.setattr(logs, "MAX_HELD_RECORDS", 10)
+    with pytest.raises(InputFileError, match="more than 10 observations"):
+        logs.read_observations(path)

@@ -564,7 +564,7 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
     from fusion.motion import MOTION_MODELS
 
     motion = r.text(d, w, "motion", "probabilistic", choices=MOTION_MODELS)
-    seed = r.number(d, w, "seed", 1, whole=True, low=0)
+    seed = r.number(d, w, "seed", 1, whole=True, low=0, high=2**63 - 1)
     tick = r.number(d, w, "tick_s", 0.25, positive=True, high=5)
     policy = r.table(d, w, "policy", required=False)
     from fusion.monitor import Policy

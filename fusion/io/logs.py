@@ -44,6 +44,9 @@ MAX_LINE_BYTES = 64 * 1024
 MAX_SKIP_BYTES = 1024**3
 """A line longer than this ends the reading: the input is no log of ours (``/dev/zero``, a binary file).
 A single over-long line below it (a corrupted record of 100 MB) is set aside and reading goes on."""
+MAX_HELD_RECORDS = 2_000_000
+"""Most records ``read_observations`` and ``read_truth`` hold in memory at once (a calibration reads
+the whole log; about 1 GiB at this count).  Replays stream and have no such bound."""
 NOTHING_USABLE_LINES = 10_000
 """A log whose first this many lines hold no record at all is refused: it is not a log (our choice)."""
 
@@ -326,8 +329,24 @@ def read_observations(path) -> LogRead:
     """Every observation of a log (JSON lines or CSV), in file order; bad lines are set aside."""
     set_aside: list[SetAside] = []
     position = ReadPosition()
-    records = list(iter_observations(path, set_aside, position=position))
+    records = _held(iter_observations(path, set_aside, position=position), path, "observations")
     return LogRead(str(path), records, set_aside, position.lines)
+
+
+def _held(rows, path, what: str) -> list:
+    """The rows as a list, refusing more than ``MAX_HELD_RECORDS`` (memory must stay bounded)."""
+    out = []
+    for row in rows:
+        out.append(row)
+        if len(out) > MAX_HELD_RECORDS:
+            raise InputFileError(
+                path,
+                row[0],
+                None,
+                f"more than {MAX_HELD_RECORDS:,} {what}: this command holds them all in memory; give it a part "
+                "of the log (an hour or two is plenty to calibrate)",
+            )
+    return out
 
 
 def require_readable(path, what: str = "file") -> None:
@@ -392,7 +411,7 @@ def read_truth(path) -> LogRead:
     """True poses of a JSON-lines truth file, in time order; bad lines are set aside."""
     set_aside: list[SetAside] = []
     position = ReadPosition()
-    records = list(iter_truth(path, set_aside, position))
+    records = _held(iter_truth(path, set_aside, position), path, "true poses")
     return LogRead(str(path), records, set_aside, position.lines)
 
 
