@@ -6,13 +6,20 @@ import argparse
 import sys
 
 from fusion import SAFETY_NOTICE, __version__
+from fusion.cli_args import (
+    count_up_to,
+    joined_values,
+    number,
+    replace_option,
+    seed_value,
+)
+from fusion.cli_outputs import calibration_name, claim_output, known_rule, runs_in, where
 from fusion.errors import FusionError
 from fusion.io.outdir import release_unfinished
 from fusion.text import literal, plain
 
 EXIT_BAD_INPUT = 2
 EXIT_DEFECT = 70
-MAX_SEED = 2**63 - 1
 MAX_SWEEP_RUNS = 100_000
 """Most runs one compare command may start (settings × seeds; the case's [compare] seeds are at most 10,000)."""  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
 
@@ -49,16 +56,16 @@ def _run(args: argparse.Namespace) -> int:
 
         case = dataclasses.replace(case, run=dataclasses.replace(case.run, seed=args.seed))
     backends = list(dict.fromkeys(args.backend or case.run.backends))
-    rule = _known_rule(args.rule or case.run.rule)
+    rule = known_rule(args.rule or case.run.rule)
     settings = {
-        "case": _where(args.case),
+        "case": where(args.case),
         "seed": case.run.seed,
         "backends": backends,
         "rule": rule,
         "motion": case.run.motion,
-        "calibration": _where(args.calibration),
+        "calibration": where(args.calibration),
     }
-    folder = _claim(args, "run", args.case, settings, [f"seed{case.run.seed}", "+".join(backends), rule])
+    folder = claim_output(args, "run", args.case, settings, [f"seed{case.run.seed}", "+".join(backends), rule])
     console = Console()
     live = console.is_terminal and not args.quiet
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
@@ -75,43 +82,6 @@ def _run(args: argparse.Namespace) -> int:
         console.print(actions_timeline(result))
     console.print(f"results written to [bold]{literal(folder.path)}[/] ({', '.join(RESULT_FILES)})")
     return 0
-
-
-def _where(path) -> str | None:
-    """A file's absolute path, as recorded in an output folder's settings."""
-    from pathlib import Path
-
-    return None if path is None else str(Path(str(path)).absolute())
-
-
-def _known_rule(rule: str) -> str:
-    from fusion.backends.evidential import FILTER_RULES
-
-    if rule not in FILTER_RULES:
-        raise FusionError(f"unknown combination rule {rule!r}; choose one of: {', '.join(FILTER_RULES)}")
-    return rule
-
-
-_INPUTS = {
-    "case": "case file",
-    "site": "case file",
-    "log": "log",
-    "truth": "truth file",
-    "calibration": "calibration file",
-}
-
-
-def _claim(args, job: str, input_path, settings: dict, name_parts, folders=()):
-    """The command's output folder (``--out`` or a default unique per input and settings), claimed before any work."""
-    from fusion.io.logs import require_readable
-    from fusion.io.outdir import claim, default_folder
-
-    out = args.out or default_folder(input_path, job, *name_parts)
-    given = {k: v for k, v in vars(args).items() if k in _INPUTS and v}
-    for key, path in given.items():
-        require_readable(path, _INPUTS[key])  # a missing input is refused before the folder is made
-    inputs = list(given.values())
-    return claim(out, job, settings, replace=args.replace, inputs=inputs, folders=folders)
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -252,7 +222,7 @@ def _compare(args: argparse.Namespace) -> int:
     per_run = estimate(case).total_seconds / max(len(case.run.backends), 1)  # a setting runs one back end
     # Runs of the same case (and calibration) file are reused: the folder resumes the same work.
     identity_of_work = {"case_sha256": sweep_digest(args.case, args.calibration)}
-    folder = _claim(args, "compare", args.case, identity_of_work, [], folders=("runs",))
+    folder = claim_output(args, "compare", args.case, identity_of_work, [], folders=("runs",))
     out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
@@ -278,14 +248,14 @@ def _compare(args: argparse.Namespace) -> int:
                 on_done=lambda rec: progress.advance(task),
             )
     except SweepInterrupted as err:
-        folder.finish(["sweep.json", *_runs_in(out_dir)])
+        folder.finish(["sweep.json", *runs_in(out_dir)])
         console.print(f"[yellow]{literal(err)}[/]")
         return 130
     summary = summarise(records, settings)
     verdict_list = verdicts_of(records, settings)
     identity = bayes_dempster_identity(case)
     files = write_report(out_dir, records, settings, summary, verdict_list, identity, args.rank_by, case.name)
-    folder.finish(["sweep.json", *files, *_runs_in(out_dir)])
+    folder.finish(["sweep.json", *files, *runs_in(out_dir)])
     for t in tables(summary, settings, args.rank_by, f"{literal(case.name)}, {len(records)} runs"):
         console.print(t)
     for v in verdict_list:
@@ -295,12 +265,6 @@ def _compare(args: argparse.Namespace) -> int:
     )
     console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
     return 0
-
-
-def _runs_in(out_dir) -> list[str]:
-    """The run files of a sweep folder, as names relative to it."""
-    runs = out_dir / "runs"
-    return [f"runs/{p.name}" for p in sorted(runs.glob("*.json"))] if runs.is_dir() else []
 
 
 def _calibrate(args: argparse.Namespace) -> int:
@@ -315,7 +279,7 @@ def _calibrate(args: argparse.Namespace) -> int:
     from fusion.io.outdir import atomic_write, writable_file
 
     case = load_case(args.site)
-    out = writable_file(args.out or _calibration_name(args.log), args.replace, "calibration file")  # before the fit
+    out = writable_file(args.out or calibration_name(args.log), args.replace, "calibration file")  # before the fit
     settings = FitSettings(
         method=args.method,
         samples=args.samples,
@@ -366,15 +330,6 @@ def _calibrate(args: argparse.Namespace) -> int:
     return 0
 
 
-def _calibration_name(log):
-    """``<log>-calibrated.toml`` beside a log file (one per log), or in the current folder for a pipe."""
-    from pathlib import Path
-
-    log = Path(str(log))
-    stem = "".join(c if c.isalnum() or c in "-_." else "_" for c in log.stem) or "log"
-    return (log.parent if log.is_file() else Path(".")) / f"{stem}-calibrated.toml"
-
-
 def _maybe(value, fmt: str) -> str:
     import math
 
@@ -415,16 +370,16 @@ def _inspect(args: argparse.Namespace) -> int:
         case = apply_calibration(case, args.calibration)
     start = parse_start(args.start) if args.start else None
     settings = {
-        "log": _where(args.log),
-        "site": _where(args.site),
-        "truth": _where(args.truth),
+        "log": where(args.log),
+        "site": where(args.site),
+        "truth": where(args.truth),
         "start": list(start) if start else None,
-        "calibration": _where(args.calibration),
+        "calibration": where(args.calibration),
         "frames": not args.no_frames,
         "rule": case.run.rule,
         "motion": case.run.motion,
     }
-    folder = _claim(args, "inspect", args.log, settings, [case.run.rule])
+    folder = claim_output(args, "inspect", args.log, settings, [case.run.rule])
     out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
@@ -482,14 +437,14 @@ def _soak(args: argparse.Namespace) -> int:
     lines = args.stream_lines
     total = lines or args.steps
     settings = {
-        "case": _where(args.case),
+        "case": where(args.case),
         "backends": backends,
         "steps": None if lines else args.steps,
         "stream_lines": lines,
         "corrupt": args.corrupt,
         "seed": args.seed,
     }
-    folder = _claim(args, "soak", args.case, settings, ["+".join(backends)])
+    folder = claim_output(args, "soak", args.case, settings, ["+".join(backends)])
     out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
@@ -592,13 +547,15 @@ def _parser() -> argparse.ArgumentParser:
     check.add_argument("case", help="case file (TOML)")
     check.set_defaults(run=_check)
     bench = commands.add_parser("bench", help="time each back end's steps as ratios to floors measured in the same run")
-    bench.add_argument("--repeats", type=_count(1000), default=9, help="runs per figure, fastest kept (default 9)")
-    bench.add_argument("--seed", type=_seed, default=0, help="seed of the synthetic beliefs and evidence (default 0)")
+    bench.add_argument("--repeats", type=count_up_to(1000), default=9, help="runs per figure, fastest kept (default 9)")
+    bench.add_argument(
+        "--seed", type=seed_value, default=0, help="seed of the synthetic beliefs and evidence (default 0)"
+    )
     bench.add_argument("--quick", action="store_true", help="only the smaller grid (100×100×36)")
     bench.add_argument("--json", action="store_true", help="print the figures as JSON on standard output")
     bench.add_argument(
         "--sweep",
-        type=_count(1000),
+        type=count_up_to(1000),
         metavar="SEEDS",
         help="also time the demo case's default compare sweep on SEEDS seeds, 1 worker vs 2 (minutes)",
     )
@@ -611,19 +568,19 @@ def _parser() -> argparse.ArgumentParser:
     st.set_defaults(run=_stream)
     cmp = commands.add_parser("compare", help="run a grid of fusion settings over many seeds and rank them")
     cmp.add_argument("case", help="case file (TOML); its [compare] table sets the default sweep")
-    cmp.add_argument("--seeds", type=_count(10_000), help="seeds per setting (default: the case's, else 50)")
+    cmp.add_argument("--seeds", type=count_up_to(10_000), help="seeds per setting (default: the case's, else 50)")
     cmp.add_argument("--backend", action="append", help="back end to include (repeatable): bayes, evidential")
     cmp.add_argument("--rule", action="append", help="evidential combination rule to include (repeatable)")
-    cmp.add_argument("--reliability", action="append", type=_number, help="discount factor in [0, 1] (repeatable)")
-    cmp.add_argument("--fault-rate", action="append", type=_number, help="fault rate in [0, 1] (repeatable)")
+    cmp.add_argument("--reliability", action="append", type=number, help="discount factor in [0, 1] (repeatable)")
+    cmp.add_argument("--fault-rate", action="append", type=number, help="fault rate in [0, 1] (repeatable)")
     cmp.add_argument("--rank-by", default="median_error_m", choices=_figure_names(), help="figure to rank by")
-    cmp.add_argument("--workers", type=_count(64), help="parallel workers (default: one per core; at most 64)")
+    cmp.add_argument("--workers", type=count_up_to(64), help="parallel workers (default: one per core; at most 64)")
     cmp.add_argument("--engine", choices=("local", "dask"), default="local", help="where runs execute (default local)")
     cmp.add_argument("--scheduler", help="address of a running Dask scheduler (engine dask; default: a local cluster)")
     cmp.add_argument(
         "--out", help="output folder (default: fusion-out/<case>-compare-…); one holding this case's sweep resumes"
     )
-    _replace_option(cmp)
+    replace_option(cmp)
     cmp.add_argument("--quiet", action="store_true", help="no progress bar")
     cmp.add_argument("--calibration", help="calibration file: also run every setting with its sensor parameters")
     cmp.set_defaults(run=_compare)
@@ -635,14 +592,19 @@ def _parser() -> argparse.ArgumentParser:
     cal.add_argument("--replace", action="store_true", help="overwrite the calibration file if it exists")
     cal.add_argument("--method", choices=("auto", "nuts", "svi"), default="auto", help="inference (default auto)")
     cal.add_argument(
-        "--samples", type=_count(100_000), default=500, help="posterior draws per chain (default 500, at most 100,000)"
+        "--samples",
+        type=count_up_to(100_000),
+        default=500,
+        help="posterior draws per chain (default 500, at most 100,000)",
     )
-    cal.add_argument("--warmup", type=_count(100_000), default=300, help="NUTS warm-up steps (default 300)")
+    cal.add_argument("--warmup", type=count_up_to(100_000), default=300, help="NUTS warm-up steps (default 300)")
     cal.add_argument(
-        "--chains", type=_count(16), default=2, help="NUTS chains; R-hat needs ≥ 2 (default 2, at most 16)"
+        "--chains", type=count_up_to(16), default=2, help="NUTS chains; R-hat needs ≥ 2 (default 2, at most 16)"
     )
-    cal.add_argument("--svi-steps", type=_count(1_000_000), default=2000, help="SVI optimisation steps (default 2000)")
-    cal.add_argument("--seed", type=_seed, default=0, help="seed of the inference (default 0)")
+    cal.add_argument(
+        "--svi-steps", type=count_up_to(1_000_000), default=2000, help="SVI optimisation steps (default 2000)"
+    )
+    cal.add_argument("--seed", type=seed_value, default=0, help="seed of the inference (default 0)")
     cal.set_defaults(run=_calibrate)
     ins = commands.add_parser("inspect", help="replay a recorded log on both back ends and explain its conflict")
     ins.add_argument("log", help="observations, JSON lines or CSV (see docs/inspect.md)")
@@ -651,7 +613,7 @@ def _parser() -> argparse.ArgumentParser:
     ins.add_argument("--start", help="start pose x,y,heading_deg (default: the first true pose, else anywhere)")
     ins.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
     ins.add_argument("--out", help="output folder (default: fusion-out/<log>-inspect-…, one per log and rule)")
-    _replace_option(ins)
+    replace_option(ins)
     ins.add_argument("--no-frames", action="store_true", help="do not store the per-tick maps (no scrubbing)")
     ins.add_argument("--scrub", action="store_true", help="step through the replay in the terminal when it ends")
     ins.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -662,19 +624,19 @@ def _parser() -> argparse.ArgumentParser:
     soak = commands.add_parser("soak", help="run many steps (or stream lines) and check the belief's invariants")
     soak.add_argument("case", help="case file whose site, sensors and faults to run")
     soak.add_argument(
-        "--steps", type=_count(10**9), default=100_000, help="localizer steps per back end (default 100,000)"
+        "--steps", type=count_up_to(10**9), default=100_000, help="localizer steps per back end (default 100,000)"
     )
-    soak.add_argument("--stream-lines", type=_count(10**9), help="instead push this many lines through the stream")
-    soak.add_argument("--corrupt", type=_number, default=0.1, help="share of stream lines corrupted (default 0.1)")
+    soak.add_argument("--stream-lines", type=count_up_to(10**9), help="instead push this many lines through the stream")
+    soak.add_argument("--corrupt", type=number, default=0.1, help="share of stream lines corrupted (default 0.1)")
     soak.add_argument("--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable)")
-    soak.add_argument("--seed", type=_seed, help="first seed of the simulated runs (default: the case's)")
+    soak.add_argument("--seed", type=seed_value, help="first seed of the simulated runs (default: the case's)")
     soak.add_argument("--out", help="folder for soak.json (default: fusion-out/<case>-soak-…)")
-    _replace_option(soak)
+    replace_option(soak)
     soak.add_argument("--quiet", action="store_true", help="no progress bar")
     soak.set_defaults(run=_soak)
     targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
-    targets.add_argument("--seeds", type=_count(10_000), default=50, help="seeds per case (default 50)")
-    targets.add_argument("--first-seed", type=_seed, default=1, help="first seed (default 1)")
+    targets.add_argument("--seeds", type=count_up_to(10_000), default=50, help="seeds per case (default 50)")
+    targets.add_argument("--first-seed", type=seed_value, default=1, help="first seed (default 1)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
     targets.add_argument(
         "--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable; default: both)"
@@ -690,19 +652,11 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _run_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--seed", type=_seed, help="seed of the simulation (default: the case's)")
+    p.add_argument("--seed", type=seed_value, help="seed of the simulation (default: the case's)")
     p.add_argument("--out", help="output folder (default: fusion-out/<case>-run-seed<seed>-<back ends>-<rule>-…)")
-    _replace_option(p)
+    replace_option(p)
     p.add_argument("--quiet", action="store_true", help="no live view; print the summary only")
     p.add_argument("--calibration", help="calibration file (from fusion calibrate) replacing the sensors' parameters")
-
-
-def _replace_option(p: argparse.ArgumentParser) -> None:
-    p.add_argument(
-        "--replace",
-        action="store_true",
-        help="the output folder may hold other results of fusion: delete them and write these",
-    )
 
 
 def _figure_names() -> tuple[str, ...]:
@@ -711,64 +665,9 @@ def _figure_names() -> tuple[str, ...]:
     return tuple(FIGURES)
 
 
-def _number(text: str) -> float:
-    try:
-        return float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-
-
-def _seed(text: str) -> int:
-    """A seed: a whole number from 0 to 2⁶³ − 1 (what numpy's and torch's generators take)."""
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED:,}, got {text!r}") from None
-    if not 0 <= value <= MAX_SEED:
-        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED:,}, got {text!r}")
-    return value
-
-
-def _count(most: int):
-    """A whole number from 1 to ``most`` (a bound keeps a typo such as 5000000 from running for days)."""
-
-    def parse(text: str) -> int:
-        value = _positive_int(text)
-        if value > most:
-            raise argparse.ArgumentTypeError(f"expected at most {most:,}, got {text!r}")
-        return value
-
-    return parse
-
-
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number ≥ 1, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number ≥ 1, got {text!r}")
-    return value
-
-
-def _joined_values(argv: list[str]) -> list[str]:
-    """``--start -0.5,2,90`` as ``--start=-0.5,2,90``: argparse would take a value starting with ``-`` (a pose
-    west or south of the origin) for an option and say "expected one argument"."""
-    out: list[str] = []
-    for arg in argv:
-        if out and out[-1] in _VALUE_OPTIONS and arg[:1] == "-" and (arg[1:2].isdigit() or arg[1:2] == "."):
-            out[-1] = f"{out[-1]}={arg}"
-        else:
-            out.append(arg)
-    return out
-
-
-_VALUE_OPTIONS = {"--start", "--seed", "--first-seed"}
-
-
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
-    args = parser.parse_args(_joined_values(sys.argv[1:] if argv is None else list(argv)))
+    args = parser.parse_args(joined_values(sys.argv[1:] if argv is None else list(argv)))
     if not getattr(args, "run", None):
         parser.print_help()
         return EXIT_BAD_INPUT
