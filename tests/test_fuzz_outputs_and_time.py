@@ -249,6 +249,9 @@ def hostile_case(draw):
         j = draw(st.sampled_from(assigned))
         key = lines[j].split(" = ", 1)[0]
         lines[j] = f"{key} = {draw(st.sampled_from(HOSTILE_VALUES))}"
+    if draw(st.booleans()):  # a monitor setting, from the same hostile values
+        policy = draw(st.sampled_from(["quarantine_window", "alert_after", "conflict_k", "quarantine_alpha"]))
+        lines.append(f"[run.policy]\n{policy} = {draw(st.sampled_from(HOSTILE_VALUES + ['1000000000000']))}")
     if draw(st.booleans()):  # a parameter the case does not set yet, on one of its sensors
         field = draw(st.sampled_from(["fov_deg", "p_detect", "z_hit", "levels", "sigma_range_m", "hit_rate"]))
         at = draw(st.sampled_from([j for j, line in enumerate(lines) if line.startswith("kind = ")]))
@@ -277,3 +280,59 @@ def test_check_accepts_a_case_exactly_when_a_run_can_start(text):
         for tick in ticks:
             odometry = next((o for o in tick.observations if o.kind == "odometry"), None)
             loc.step(odometry, [o for o in tick.observations if o.kind != "odometry"])
+
+
+# ----------------------------------------------------------------------------- command lines
+ARG_VALUES = [
+    "nan",
+    "inf",
+    "-1",
+    "0",
+    "1e309",
+    "9" * 30,
+    "",
+    "[/]",
+    "-0.5,2,90",
+    "1,2",
+    "$x$",
+    "\x1b[2J",
+    "/",
+    "/dev/null",
+]
+
+
+def test_hostile_command_line_values_get_an_answer_never_an_internal_error(tmp_path, capsys, monkeypatch):
+    """Every option that takes a value, given values a careless or hostile caller may pass: each command
+    ends with exit 0 (the value was fine) or 2 (refused with a message), never 70 or a traceback."""
+    import io
+    import sys
+
+    from fusion.cli import EXIT_DEFECT, main
+
+    log = tmp_path / "log.jsonl"
+    log.write_text("\n".join(LOG_LINES[:40]) + "\n")
+    tiny = str(TINY)
+    monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(b"")))
+    for i, v in enumerate(ARG_VALUES):
+        out = str(tmp_path / f"o{i}")
+        for argv in (
+            ["run", tiny, "--quiet", "--backend", "bayes", "--seed", v, "--out", out + "s"],
+            ["run", tiny, "--quiet", "--rule", v, "--out", out + "r"],
+            ["run", tiny, "--quiet", "--backend", "bayes", "--out", v or "x", "--replace"],
+            ["inspect", str(log), "--site", tiny, "--start", v, "--out", out + "a", "--quiet", "--no-frames"],
+            ["inspect", str(log), "--site", tiny, "--truth", v, "--out", out + "b", "--quiet", "--no-frames"],
+            ["inspect", v, "--site", tiny, "--out", out + "c", "--quiet", "--no-frames"],
+            ["inspect", str(log), "--site", tiny, "--calibration", v, "--out", out + "d", "--quiet"],
+            ["compare", tiny, "--seeds", v, "--backend", "bayes", "--rule", "x", "--out", out + "e"],
+            ["soak", tiny, "--steps", "20", "--corrupt", v, "--out", out + "f", "--quiet", "--backend", "bayes"],
+            ["scrub", v],
+            ["check", v],
+            ["stream", "--site", tiny, "--start", v],
+        ):
+            try:
+                code = main(argv)
+            except SystemExit as exit_:  # argparse's own refusal of a malformed value
+                code = exit_.code
+            err = capsys.readouterr().err
+            assert code in (0, 2, 130) and code != EXIT_DEFECT and "Traceback" not in err, (argv, err)
+            tried("command lines", "\0".join(argv))

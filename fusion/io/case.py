@@ -56,6 +56,8 @@ MAX_BOXES = 10_000
 """Most boxes on a site."""
 MAX_WAYPOINTS = 10_000
 """Most waypoints of a route."""
+MAX_POLICY_COUNT = 10_000
+"""Largest count of ticks or readings in ``[run.policy]`` (40 minutes of ticks at 0.25 s)."""
 MAX_DESCRIPTION_CHARS = 4000
 """Longest case description."""
 MAX_CASE_BYTES = 1024**2
@@ -575,8 +577,8 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
         default = getattr(Policy(), key)
         if isinstance(default, bool):
             r.flag(policy, (*w, "policy"), key)
-        elif isinstance(default, int):
-            r.number(policy, (*w, "policy"), key, whole=True, low=0)
+        elif isinstance(default, int):  # counts of ticks or readings; a bound keeps the binomial search short
+            r.number(policy, (*w, "policy"), key, whole=True, low=0, high=MAX_POLICY_COUNT)
         elif key == "quarantine_alpha":  # a chance
             r.number(policy, (*w, "policy"), key, positive=True, high=1)
         else:
