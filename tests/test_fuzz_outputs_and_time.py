@@ -313,6 +313,7 @@ def test_hostile_command_line_values_get_an_answer_never_an_internal_error(tmp_p
     log.write_text("\n".join(LOG_LINES[:40]) + "\n")
     tiny = str(TINY)
     monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(b"")))
+    monkeypatch.chdir(tmp_path)  # relative --out values land here, never in the checkout
     for i, v in enumerate(ARG_VALUES):
         out = str(tmp_path / f"o{i}")
         for argv in (
