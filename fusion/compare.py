@@ -318,7 +318,7 @@ def _load_done(folder: Path, wanted: set[tuple[str, int]]) -> dict[tuple[str, in
     done = {}
     for f in sorted((folder / "runs").glob("*.json")):
         try:
-            rec = json.loads(read_text(f, MAX_RUN_FILE_BYTES, "run file"))
+            rec = json.loads(read_text(f, MAX_RUN_FILE_BYTES, "run file", regular=True))
             key = (rec["key"], int(rec["seed"]))
         except (FusionError, ValueError, KeyError, TypeError, RecursionError):
             continue  # not a run file of ours (files are renamed into place whole, so never half a run)
@@ -367,7 +367,7 @@ def run_sweep(
     manifest = folder / "sweep.json"
     if manifest.exists():
         try:
-            old = json.loads(read_text(manifest, MAX_RUN_FILE_BYTES, "sweep record"))
+            old = json.loads(read_text(manifest, MAX_RUN_FILE_BYTES, "sweep record", regular=True))
         except (FusionError, ValueError, RecursionError):
             old = {}
         if not isinstance(old, dict) or old.get("case_sha256") != digest:

@@ -53,8 +53,9 @@ class Scrubber:
             raise InputFileError(
                 index_path, None, None, "no stored frames here: run fusion inspect (without --no-frames) first"
             )
+        text = read_text(index_path, MAX_INDEX_BYTES, "frame index", regular=True)
         try:
-            self.index = json.loads(read_text(index_path, MAX_INDEX_BYTES, "frame index"))
+            self.index = json.loads(text)
         except (ValueError, RecursionError) as err:
             raise InputFileError(index_path, None, None, f"cannot read the frame index: {str(err)[:200]}") from None
         ix = self.index

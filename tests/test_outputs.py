@@ -211,3 +211,10 @@ def test_a_sweep_resumes_past_a_run_file_that_lacks_a_figure(tmp_path):
     (runs / "c.json").write_text("[" * 100_000)  # not a run file: skipped, not a crash
     done = _load_done(tmp_path, {("bayes", 1), ("bayes", 2)})
     assert list(done) == [("bayes", 1)]  # the incomplete run is run again
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs named pipes")
+def test_a_pipe_planted_as_a_frame_index_is_refused_not_waited_on(tmp_path, capsys):
+    os.mkfifo(tmp_path / "frames.json")
+    assert main(["scrub", str(tmp_path)]) == 2
+    assert "not a regular file" in capsys.readouterr().err

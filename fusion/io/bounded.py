@@ -9,10 +9,18 @@ from fusion.errors import InputFileError
 __all__ = ["read_text"]
 
 
-def read_text(path, limit: int, what: str) -> str:
+def read_text(path, limit: int, what: str, regular: bool = False) -> str:
     """The UTF-8 text of ``path``; ``InputFileError`` naming ``what`` when it cannot be read, is over
-    ``limit`` bytes, or is not UTF-8."""
+    ``limit`` bytes, or is not UTF-8.  ``regular``: refuse anything but a regular file (a file we wrote
+    ourselves, such as a frame index: a pipe planted in its place would block the reader for ever)."""
+    import os
+    import stat
+
     try:
+        if regular and not stat.S_ISREG(os.stat(path).st_mode):
+            raise InputFileError(
+                path, None, None, f"the {what} is not a regular file; re-run the command that wrote it"
+            )
         with open(path, "rb") as fh:
             data = fh.read(limit + 1)
     except OSError as err:
