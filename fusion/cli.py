@@ -15,7 +15,7 @@ from fusion.cli_args import (
 )
 from fusion.cli_outputs import calibration_name, claim_output, known_rule, runs_in, where
 from fusion.errors import FusionError
-from fusion.io.outdir import release_unfinished
+from fusion.io.outdir import release_unfinished, shorten
 from fusion.text import literal, plain
 
 EXIT_BAD_INPUT = 2
@@ -688,7 +688,7 @@ def _outcome(args: argparse.Namespace) -> int:
         print("fusion: interrupted; results already written are complete", file=sys.stderr)
         return 130
     except OSError as err:  # disk full, permission denied, a folder where a file should be ...
-        where = f" ({err.filename})" if err.filename else ""
+        where = f" ({shorten(err.filename)})" if err.filename else ""
         print(
             f"fusion: error: {plain(err.strerror or err)}{plain(where)}; results already written are complete",
             file=sys.stderr,

@@ -197,14 +197,18 @@ def claim(path, job: str, settings: dict, *, replace: bool = False, inputs=(), f
     ``inputs``: files the job reads (never deleted by a replace); ``folders``: sub-folders the job fills
     file by file (wholly ours, so a run killed before ``finish`` leaves nothing that looks foreign)."""
     folder = Path(path)
-    if folder.exists() and not folder.is_dir():
-        raise FolderError(f"{folder} exists and is not a folder; choose another --out")
-    created = not folder.exists()
+    try:
+        exists = folder.exists()
+    except OSError as err:  # a name too long for the file system, a loop of links, …
+        raise FolderError(f"cannot use {shorten(folder)} as the output folder: {err.strerror}") from None
+    if exists and not folder.is_dir():
+        raise FolderError(f"{shorten(folder)} exists and is not a folder; choose another --out")
+    created = not exists
     try:
         folder.mkdir(parents=True, exist_ok=True)
         entries = [e for e in os.listdir(folder) if e != MARK]
     except OSError as err:
-        raise FolderError(f"cannot create or read the output folder {folder}: {err.strerror}") from None
+        raise FolderError(f"cannot create or read the output folder {shorten(folder)}: {err.strerror}") from None
     settings = json.loads(json.dumps(settings))  # as it will read back from the mark
     mark = _read_mark(folder)
     ours = set(mark.get("files", [])) | {d + "/" for d in mark.get("folders", [])} if mark else set()
@@ -251,6 +255,12 @@ def _entries(folder: Path) -> list[Path]:
         return [e for e in folder.iterdir() if e.is_symlink() or e.is_file()]
     except OSError:
         return []
+
+
+def shorten(path, most: int = 160) -> str:
+    """A path for a message, its middle cut out when it is very long."""
+    text = str(path)
+    return text if len(text) <= most else f"{text[: most // 2]}…{text[-most // 2 :]}"
 
 
 def _listed(entry: str, ours: set[str]) -> bool:
