@@ -28,8 +28,11 @@ __all__ = [
     "estimate_pose",
     "region_size",
     "REGION_LEVEL",
+    "TOTAL_CONFLICT",
 ]
 
+TOTAL_CONFLICT = 1.0 - 1e-12
+"""A conflict K at or above this is total (the rest is rounding): no normalisation can absorb the reading."""
 REGION_LEVEL = 0.95
 """Probability held by the 'best region' reported with every estimate (common practice, no source)."""
 

@@ -32,6 +32,7 @@ import numpy as np
 
 from fusion.backends.base import (
     NO_OPINION,
+    TOTAL_CONFLICT,
     BeliefHealth,
     PoseEstimate,
     SecondOpinion,
@@ -50,7 +51,6 @@ from fusion.sensors.odometry import Motion
 __all__ = ["ContourFilter", "CONTOUR_RULES", "CORE_SHARE"]
 
 CONTOUR_RULES = ("dempster", "conjunctive")
-_TOTAL = 1.0 - 1e-12  # K at or above this is total conflict (rounding)
 """Rules whose effect on the contour is a product (exact here)."""
 
 CORE_SHARE = 0.1
@@ -173,7 +173,7 @@ class ContourFilter:
         """(K, the product contour) of absorbing one reading; the contour None on total conflict."""
         k = self.reading_conflict(belief, evidence)
         joint = belief.contour * evidence.likelihood
-        return k, (None if k >= _TOTAL or float(joint.max()) <= 0.0 else joint)
+        return k, (None if k >= TOTAL_CONFLICT or float(joint.max()) <= 0.0 else joint)
 
     def distance(self, before: ContourBelief, after: ContourBelief) -> float:
         """Jousselme distance between the consonant beliefs (contours rounded up to geometric levels)."""

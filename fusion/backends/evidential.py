@@ -23,6 +23,7 @@ import numpy as np
 from fusion.backends.base import (
     NO_OPINION,
     REGION_LEVEL,
+    TOTAL_CONFLICT,
     BeliefHealth,
     PoseEstimate,
     SecondOpinion,
@@ -46,7 +47,6 @@ FILTER_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "mur
 # cap, as the exact reference of the fidelity rows of ``fusion bench``.
 # Rules that normalise conflict away and so cannot absorb a totally conflicting reading.
 _NORMALISING = ("dempster", "murphy")
-_TOTAL = 1.0 - 1e-12
 
 
 class MassFilter:
@@ -133,7 +133,7 @@ class MassFilter:
         if empty.any():
             acc.add(m.sets[empty], m.masses[empty])
         self.motion_lost = lost
-        if lost >= 1.0 - 1e-12:
+        if lost >= TOTAL_CONFLICT:
             return  # everything moved into walls: keep the belief; the next update will show the conflict
         out = acc.result()
         if lost > 0:
@@ -160,8 +160,8 @@ class MassFilter:
             reduction = rules.conjunctive_reduced(belief, e, self.max_focal, self.merge)
             k_inside = reduction.mass_function.conflict
             k = 1.0 - (1.0 - k_outside) * (1.0 - k_inside)
-            rejected = k >= _TOTAL and self.rule == "dempster"
-            if k_outside > 0 and self.rule != "dempster" and k < _TOTAL:
+            rejected = k >= TOTAL_CONFLICT and self.rule == "dempster"
+            if k_outside > 0 and self.rule != "dempster" and k < TOTAL_CONFLICT:
                 reduction = reduction._replace(mass_function=_with_conflict(reduction.mass_function, k))
             moved = (
                 reduction.mass_moved / (1.0 - k_inside)
@@ -171,7 +171,7 @@ class MassFilter:
         else:
             e = evidence.masses
             k = rules.conflict_mass(belief, e)
-            rejected = k >= _TOTAL and self.rule in _NORMALISING
+            rejected = k >= TOTAL_CONFLICT and self.rule in _NORMALISING
             reduction = (
                 None
                 if rejected
