@@ -192,3 +192,15 @@ def test_the_inspect_command_replays_a_pipe(tmp_path, log_lines, capsys):
     assert code == 0, capsys.readouterr().err
     summary = json.loads((tmp_path / "o" / "summary.json").read_text())
     assert summary["records"] == summary["lines"] == len(log_lines)
+
+
+def test_garbage_under_a_csv_header_is_refused_as_no_log(tmp_path):
+    """Rows that never make a record (here: the wrong number of cells) count towards "this is no log" in a CSV
+    log as in JSON lines, so an endless one cannot fill the disk with set-aside reasons."""
+    from fusion.errors import InputFileError
+    from fusion.io.logs import NOTHING_USABLE_LINES
+
+    path = tmp_path / "garbage.csv"
+    path.write_text("t,sensor,kind\n" + "x\n" * (NOTHING_USABLE_LINES + 5))
+    with pytest.raises(InputFileError, match="this is no log"):
+        list(iter_observations(path))

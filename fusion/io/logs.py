@@ -98,7 +98,7 @@ def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, st
     except OSError as err:
         raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
     with fh:
-        for number, raw in enumerate(_bounded_lines(fh, path), 1):
+        for number, raw in _bounded_lines(fh, path):
             if position is not None:
                 position.lines = number
             if number == 1 and raw is not None:
@@ -121,8 +121,8 @@ def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, st
                     yield number, None, f"not UTF-8 (byte {err.start}); save the file as UTF-8"
 
 
-def _bounded_lines(fh, path) -> Iterator:
-    """The lines of ``fh`` (binary), None for each line longer than ``MAX_LINE_BYTES``.
+def _bounded_lines(fh, path) -> Iterator[tuple[int, bytes | None]]:
+    """``(line number, line)`` of ``fh`` (binary), the line None when longer than ``MAX_LINE_BYTES``.
 
     Iterating a file reads a whole line into memory, so one line of a gigabyte with no newline
     would take a gigabyte; reading at most ``MAX_LINE_BYTES + 1`` at a time keeps memory bounded,
@@ -145,9 +145,9 @@ def _bounded_lines(fh, path) -> Iterator:
                         None,
                         f"line {number} runs past {MAX_SKIP_BYTES:,} bytes with no end: this is no log",
                     )
-            yield None
+            yield number, None
         else:
-            yield line
+            yield number, line
 
 
 def _decode(number: int, text: str | None, problem: str, set_aside: list[SetAside]):
@@ -178,7 +178,10 @@ def iter_observations(
     timeline rule saw the clock restart; ``position.lines`` counts the lines read.
     """
 
+    latest: list[SetAside] = []  # the last row set aside, for the message of an input that is no log
+
     def aside(row: SetAside) -> None:
+        latest[:] = [row]
         if set_aside is not None:
             set_aside.append(row)
         if on_set_aside is not None:
@@ -189,15 +192,17 @@ def iter_observations(
     rows = _csv_records(path, aside, position) if csv_log else _json_records(path, aside, position)
     usable = False
     for number, rec, text in rows:
-        try:
-            obs: Observation = from_record(rec)
-        except ObservationError as err:
-            aside(SetAside(number, str(err), text[:80]))
-            if not usable and number >= NOTHING_USABLE_LINES:
-                _no_log(path, number, [SetAside(number, str(err), "")])
-            continue
-        usable = True
-        yield from _released(timeline.offer(obs.t, (number, obs, text)), aside)
+        if rec is not None:
+            try:
+                obs: Observation = from_record(rec)
+            except ObservationError as err:
+                aside(SetAside(number, str(err), text[:80]))
+            else:
+                usable = True
+                yield from _released(timeline.offer(obs.t, (number, obs, text)), aside)
+                continue
+        if not usable and number >= NOTHING_USABLE_LINES:
+            _no_log(path, number, latest)
     yield from _released(timeline.flush(), aside)
 
 
@@ -211,22 +216,19 @@ def _released(verdicts, aside) -> Iterator[tuple[int, Observation]]:
 
 
 def _json_records(path, aside, position=None) -> Iterator[tuple[int, object, str]]:
-    found = False
+    """``(line, JSON value, text)`` of every line; the value None for a line set aside (or blank), so the
+    caller sees every line and can tell an input that is no log."""
     for number, text, problem in _lines(path, position):
         rejected: list[SetAside] = []
         rec = _decode(number, text, problem, rejected)
         for row in rejected:
             aside(row)
-        if rec is not None:
-            found = True
-            yield number, rec, text.strip()
-        elif not found and number >= NOTHING_USABLE_LINES:
-            _no_log(path, number, rejected)
+        yield number, rec, "" if text is None else text.strip()
 
 
 def _no_log(path, number: int, rejected: list[SetAside]) -> None:
-    """Refuse an input whose first lines hold no JSON value at all (random bytes, a binary file): set aside
-    one by one, an endless one would fill the disk with reasons."""
+    """Refuse an input whose first lines hold no record at all (random bytes, a binary file, garbage under a
+    CSV header): set aside one by one, an endless one would fill the disk with reasons."""
     why = f" (line {number}: {rejected[0].reason})" if rejected else ""
     raise InputFileError(path, None, None, f"none of the first {number:,} lines holds a record{why}: this is no log")
 
@@ -250,8 +252,9 @@ CSV_COLUMNS = (
 
 
 def _csv_records(path, aside, position=None) -> Iterator[tuple[int, object, str]]:
-    """Rows of a CSV log as observation records.  Each line is parsed on its own, so a stray quote costs
-    its own row only (a quoted cell cannot run on into the next line; our logs never need one to)."""
+    """Rows of a CSV log as observation records, None for a row set aside (as ``_json_records``).  Each
+    line is parsed on its own, so a stray quote costs its own row only (a quoted cell cannot run on into
+    the next line; our logs never need one to)."""
     import csv
 
     header = None
@@ -261,6 +264,7 @@ def _csv_records(path, aside, position=None) -> Iterator[tuple[int, object, str]
             if header is None:
                 raise InputFileError(path, number, None, f"the header row is {problem}")
             aside(SetAside(number, problem, ""))
+            yield number, None, ""
             continue
         if not text.strip():
             continue
@@ -270,6 +274,7 @@ def _csv_records(path, aside, position=None) -> Iterator[tuple[int, object, str]
             if header is None:
                 raise InputFileError(path, number, None, f"the header row is not CSV: {err}") from None
             aside(SetAside(number, f"not a CSV row: {err}", text.strip()[:80]))
+            yield number, None, ""
             continue
         if header is None:
             header = [h.strip() for h in cells]
@@ -286,11 +291,14 @@ def _csv_records(path, aside, position=None) -> Iterator[tuple[int, object, str]
         shown = ",".join(cells)
         if len(cells) != len(header):
             aside(SetAside(number, f"{len(cells)} cells where the header has {len(header)}", shown[:80]))
+            yield number, None, shown
             continue
         try:
-            yield number, _csv_record(dict(zip(header, cells)), unknown), shown
+            rec = _csv_record(dict(zip(header, cells)), unknown)
         except ObservationError as err:
             aside(SetAside(number, str(err), shown[:80]))
+            rec = None
+        yield number, rec, shown
 
 
 def _csv_record(row: dict, unknown: list[str]) -> dict:
@@ -357,13 +365,13 @@ def require_readable(path, what: str = "file") -> None:
         mode = os.stat(path).st_mode
         if stat.S_ISDIR(mode):
             raise InputFileError(path, None, None, f"cannot read the {what}: it is a folder")
-        if not stat.S_ISREG(mode):  # a pipe: opening it to try would take it from its writer
-            if not os.access(path, os.R_OK):
-                raise PermissionError(13, "Permission denied")
+        if stat.S_ISREG(mode):
+            os.close(os.open(path, os.O_RDONLY))
             return
-        os.close(os.open(path, os.O_RDONLY))
     except OSError as err:
         raise InputFileError(path, None, None, f"cannot read the {what}: {err.strerror}") from None
+    if not os.access(path, os.R_OK):  # a pipe: opening it to try would take it from its writer
+        raise InputFileError(path, None, None, f"cannot read the {what}: Permission denied")
 
 
 def count_lines(path) -> int | None:
