@@ -19,9 +19,9 @@ from fusion.io.outdir import release_unfinished, shorten
 from fusion.text import literal, plain
 
 EXIT_BAD_INPUT = 2
-EXIT_DEFECT = 70
+EXIT_DEFECT = 70  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
 MAX_SWEEP_RUNS = 100_000
-"""Most runs one compare command may start (settings × seeds; the case's [compare] seeds are at most 10,000)."""  # an error of ours, not of the input (sysexits' EX_SOFTWARE)
+"""Most runs one compare command may start (settings × seeds; the case's [compare] seeds are at most 10,000)."""
 
 
 def _builtin_case(name: str):

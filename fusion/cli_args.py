@@ -35,37 +35,33 @@ def number(text: str) -> float:
         raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
 
 
-def seed_value(text: str) -> int:
-    """A seed: a whole number from 0 to 2⁶³ − 1 (what numpy's and torch's generators take)."""
+def _whole(text: str, low: int, high: int | None, expected: str) -> int:
+    """``text`` as a whole number in [low, high]; ``argparse.ArgumentTypeError`` saying ``expected`` otherwise."""
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED:,}, got {text!r}") from None
-    if not 0 <= value <= MAX_SEED:
-        raise argparse.ArgumentTypeError(f"expected a whole number from 0 to {MAX_SEED:,}, got {text!r}")
+        raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}") from None
+    if value < low or (high is not None and value > high):
+        raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}")
     return value
+
+
+def seed_value(text: str) -> int:
+    """A seed: a whole number from 0 to 2⁶³ − 1 (what numpy's and torch's generators take)."""
+    return _whole(text, 0, MAX_SEED, f"a whole number from 0 to {MAX_SEED:,}")
 
 
 def count_up_to(most: int):
     """A whole number from 1 to ``most`` (a bound keeps a typo such as 5000000 from running for days)."""
 
     def parse(text: str) -> int:
-        value = positive_int(text)
-        if value > most:
-            raise argparse.ArgumentTypeError(f"expected at most {most:,}, got {text!r}")
-        return value
+        return _whole(text, 1, most, f"a whole number from 1 to {most:,}")
 
     return parse
 
 
 def positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number ≥ 1, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number ≥ 1, got {text!r}")
-    return value
+    return _whole(text, 1, None, "a whole number ≥ 1")
 
 
 def joined_values(argv: list[str]) -> list[str]:

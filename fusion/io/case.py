@@ -14,6 +14,7 @@ import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
 from fusion.errors import FusionError, InputFileError
 from fusion.io.bounded import read_text
 from fusion.io.json_line import shown
@@ -122,8 +123,8 @@ class RunSpec:
     tick_s: float = 0.25
     policy: dict = field(default_factory=dict)
     motion: str = "probabilistic"  # how the evidential back end applies odometry (fusion.motion.MOTION_MODELS)
-    budget_gib: float = 4.0  # memory a run may take (fusion.budget)
-    budget_minutes: float = 5.0  # processor time a run may take (fusion.budget)
+    budget_gib: float = MEMORY_BUDGET_GIB  # memory a run may take (fusion.budget)
+    budget_minutes: float = WORK_BUDGET_MINUTES  # processor time a run may take (fusion.budget)
 
 
 SWEEP_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy")
@@ -583,8 +584,6 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
             r.number(policy, (*w, "policy"), key, positive=True, high=1)
         else:
             r.number(policy, (*w, "policy"), key, low=0)
-    from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
-
     gib = r.number(d, w, "budget_gib", MEMORY_BUDGET_GIB, positive=True, high=1024)
     minutes = r.number(d, w, "budget_minutes", WORK_BUDGET_MINUTES, positive=True, high=100_000)
     return RunSpec(

@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from fusion.errors import FusionError
+from fusion.io.bounded import read_text
 
 __all__ = [
     "default_folder",
@@ -292,11 +293,11 @@ def _remove_ours(folder: Path, name: str) -> None:
 
 def _read_mark(folder: Path) -> dict | None:
     path = folder / MARK
+    if path.is_symlink():
+        return None
     try:
-        if path.is_symlink() or not path.is_file() or path.stat().st_size > _MAX_MARK_BYTES:
-            return None
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
+        data = json.loads(read_text(path, _MAX_MARK_BYTES, "ownership record", regular=True))
+    except (FileNotFoundError, FusionError, ValueError, RecursionError):
         return None
     if not isinstance(data, dict) or not isinstance(data.get("files", []), list):
         return None

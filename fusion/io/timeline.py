@@ -64,13 +64,10 @@ class Timeline:
         self.last: float | None = None
         self._first: tuple[float, object] | None = None  # held until the records after it agree with it
         self._chain: list[tuple[float, object]] = []
-        self.outliers = 0
-        self.jumps = 0  # confirmed moves of the timeline
         self._before: float | None = None  # ``last`` before the latest accept, for ``retract``
 
     def offer(self, t: float, item) -> list[Verdict]:
         if not abs(t) <= MAX_TIME_S:
-            self.outliers += 1
             return [Verdict(item, "set aside", f"time {t:g} s is beyond {MAX_TIME_S:g} s: not a time stamp in seconds")]
         if self.last is None:
             self._before, self.last = None, t
@@ -86,7 +83,6 @@ class Timeline:
         if self._chain and not self._follows(self._chain[-1][0], t, jump=False):
             out = self._drop_chain()
         if not self.restarts and t < self.last:
-            self.outliers += 1
             return [*out, Verdict(item, "set aside", self._reason(t))]
         self._chain.append((t, item))
         if len(self._chain) >= CONFIRM:
@@ -128,7 +124,6 @@ class Timeline:
         chain, self._chain = self._chain, []
         if not self.hold:  # already answered one by one
             return []
-        self.outliers += len(chain)
         return [Verdict(item, "set aside", self._reason(t)) for t, item in chain]
 
     def _take_chain(self) -> list[Verdict]:
@@ -139,14 +134,12 @@ class Timeline:
             if restart:  # the records after the first one agree among themselves, not with it: it was the outlier
                 t0, item = self._first
                 self._first = None
-                self.outliers += 1
                 out.append(
                     Verdict(item, "set aside", f"time {t0:g} s does not agree with the {CONFIRM} records after it")
                 )
                 restart = False  # nothing was accepted before the chain
             else:
                 out += self._release_first()
-        self.jumps += 1
         taken = chain if self.hold else chain[-1:]
         self._before, self.last = self.last, chain[-1][0]
         return out + [Verdict(item, RESTART if restart and i == 0 else ACCEPT) for i, (_, item) in enumerate(taken)]
