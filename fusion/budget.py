@@ -67,6 +67,8 @@ class Estimate:
 def route_seconds(case) -> float:
     """Time the simulated robot takes for the route: driving, turning on the spot, the legs after carries."""
     r = case.route
+    if r is None:  # a replay-only site: nothing is simulated
+        return 0.0
     pts = list(r.waypoints)
     length = sum(math.dist(a, b) for a, b in zip(pts, pts[1:]))
     turned = 0.0

@@ -286,7 +286,7 @@ def _fault_windows(case: Case) -> list[tuple[float, float]]:
                 continue  # a fault that never fires is no fault
             end = f.start_s + case.run.tick_s if f.kind == "slip" else f.end_s
             out.append((f.start_s, end + ALERT_GRACE_S))
-    for c in case.route.carries:
+    for c in case.require_route().carries:
         out.append((c.at_s, c.at_s + CARRY_WINDOW_TICKS * case.run.tick_s + ALERT_GRACE_S))
     return out
 

@@ -3,8 +3,8 @@
 ``PoseGrid`` cells are (heading, row, column) bins laid out heading-major: cell
 index = (h · ny + iy) · nx + ix, so one heading slice is a contiguous ``(ny, nx)``
 image (motion shifts whole slices) and x varies fastest.  Positions are in metres
-from the site's lower-left corner; headings in radians, bin 0 centred on 0 (east),
-counter-clockwise.
+in the site's own frame, whose lower-left corner is ``(x0_m, y0_m)`` (the site's origin; 0, 0
+unless the case sets one); headings in radians, bin 0 centred on 0 (east), counter-clockwise.
 
 ``PlaceGraph`` is the second frame kind: one cell per named place, with passages
 of known length between them, for sites described by places rather than geometry.
@@ -41,12 +41,18 @@ class PoseGrid:
     height_m: float
     resolution_m: float
     headings: int = 36
+    x0_m: float = 0.0  # the site frame's coordinates of the grid's lower-left corner
+    y0_m: float = 0.0
 
     def __post_init__(self):
         for name in ("width_m", "height_m", "resolution_m"):
             value = getattr(self, name)
             if not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
                 raise SiteError(f"grid {name} must be a positive finite number of metres, got {value!r}")
+        for name in ("x0_m", "y0_m"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+                raise SiteError(f"grid origin {name} must be a finite number of metres, got {value!r}")
         if isinstance(self.headings, bool) or not isinstance(self.headings, int) or self.headings < 1:
             raise SiteError(f"grid headings must be a whole number ≥ 1, got {self.headings!r}")
         across = (self.width_m / self.resolution_m) * (self.height_m / self.resolution_m) * self.headings
@@ -90,10 +96,19 @@ class PoseGrid:
 
     # ----------------------------------------------------------------- centres
     def x_centres(self) -> np.ndarray:
-        return (np.arange(self.nx) + 0.5) * self.resolution_m
+        return self.x0_m + (np.arange(self.nx) + 0.5) * self.resolution_m
 
     def y_centres(self) -> np.ndarray:
-        return (np.arange(self.ny) + 0.5) * self.resolution_m
+        return self.y0_m + (np.arange(self.ny) + 0.5) * self.resolution_m
+
+    @property
+    def x_span(self) -> tuple[float, float]:
+        """Lowest and highest x on the site (metres, site frame)."""
+        return (self.x0_m, self.x0_m + self.width_m)
+
+    @property
+    def y_span(self) -> tuple[float, float]:
+        return (self.y0_m, self.y0_m + self.height_m)
 
     def heading_centres(self) -> np.ndarray:
         return np.arange(self.headings) * self.heading_step
@@ -116,8 +131,8 @@ class PoseGrid:
         ih, rest = divmod(int(cell), self.ny * self.nx)
         iy, ix = divmod(rest, self.nx)
         return (
-            float((ix + 0.5) * self.resolution_m),
-            float((iy + 0.5) * self.resolution_m),
+            float(self.x0_m + (ix + 0.5) * self.resolution_m),
+            float(self.y0_m + (iy + 0.5) * self.resolution_m),
             float(ih * self.heading_step),
         )
 
@@ -125,7 +140,11 @@ class PoseGrid:
         cells = np.asarray(cells, dtype=np.int64)
         ih, rest = np.divmod(cells, self.ny * self.nx)
         iy, ix = np.divmod(rest, self.nx)
-        return (ix + 0.5) * self.resolution_m, (iy + 0.5) * self.resolution_m, ih * self.heading_step
+        return (
+            self.x0_m + (ix + 0.5) * self.resolution_m,
+            self.y0_m + (iy + 0.5) * self.resolution_m,
+            ih * self.heading_step,
+        )
 
     def heading_bin(self, heading) -> np.ndarray:
         return np.round(np.asarray(heading, float) / self.heading_step).astype(np.int64) % self.headings
@@ -134,16 +153,28 @@ class PoseGrid:
         for name, v in (("x", x), ("y", y), ("heading", heading)):
             if not np.isfinite(v).all():
                 raise PoseError(f"pose {name} must be a finite number, got {v[~np.isfinite(v)][0]!r}")
+        x, y = x - self.x0_m, y - self.y0_m
         off = (x < 0) | (x >= self.width_m) | (y < 0) | (y >= self.height_m)
         if off.any():
             i = int(np.flatnonzero(off)[0])
             raise PoseError(
-                f"position ({float(x[i]):.3f} m, {float(y[i]):.3f} m) is off the site, which spans "
-                f"0–{self.width_m} m in x and 0–{self.height_m} m in y"
+                f"position ({float(x[i] + self.x0_m):.3f} m, {float(y[i] + self.y0_m):.3f} m) is off the site, which "
+                f"spans {self.spans()}"
             )
         ix = np.minimum((x / self.resolution_m).astype(np.int64), self.nx - 1)
         iy = np.minimum((y / self.resolution_m).astype(np.int64), self.ny - 1)
         return ix, iy, self.heading_bin(heading)
+
+    def spans(self) -> str:
+        """The site's extent for messages: "x 0–30 m, y 0–20 m"."""
+        (xa, xb), (ya, yb) = self.x_span, self.y_span
+        return f"{xa:g}–{xb:g} m in x and {ya:g}–{yb:g} m in y"
+
+    def plane_index(self, x, y) -> tuple[np.ndarray, np.ndarray]:
+        """(row, column) of the plane cells holding positions (x, y), clipped to the site (no error off it)."""
+        ix = np.clip(np.floor((np.asarray(x, float) - self.x0_m) / self.resolution_m), 0, self.nx - 1).astype(np.int64)
+        iy = np.clip(np.floor((np.asarray(y, float) - self.y0_m) / self.resolution_m), 0, self.ny - 1).astype(np.int64)
+        return iy, ix
 
     def broadcast(self, plane: np.ndarray) -> np.ndarray:
         """Repeat a ``(ny, nx)`` map (e.g. free space) over every heading, flattened to one value per cell."""

@@ -127,7 +127,7 @@ def _maps(found, case, e) -> bytes:
     fig, axes = plt.subplots(
         len(found.backends), 3, figsize=(11, 2.6 * len(found.backends) + 0.8), dpi=100, squeeze=False
     )
-    extent = (0, site.width_m, 0, site.height_m)
+    extent = site.extent
     for r, b in enumerate(found.backends):
         for c, (key, label) in enumerate(moments):
             ax = axes[r, c]

@@ -164,7 +164,7 @@ def run_case(
     }
     ticks = simulate(case, seed=seed)
     result = RunResult(case, ticks, backends=backends, rule=rule or case.run.rule)
-    if ticks and case.route.start_known:
+    if ticks and case.require_route().start_known:
         first = ticks[0].truth
         for loc in localizers.values():
             loc.start_at(first.x_m, first.y_m, first.heading_deg)

@@ -131,6 +131,7 @@ class Scrubber:
                     ix["truth"][i],
                     ix["estimate"][b][i],
                     float(ix["resolution_m"]),
+                    tuple(ix.get("origin_m", (0.0, 0.0))),
                 ),
                 Text(sparkline(conflict[lo : i + 1], width=44, top=1.0), style="green"),
                 Text(

@@ -64,7 +64,7 @@ class _Driver:
     """The true motion: turn on the spot towards the next waypoint, then drive straight to it."""
 
     def __init__(self, case: Case):
-        route = case.route
+        route = case.require_route()
         self.points = list(route.waypoints)
         self.speed, self.turn_rate = route.speed_mps, route.turn_rate_deg_s
         self.x, self.y = self.points[0]
@@ -220,8 +220,7 @@ def _door(case: Case, spec: SensorSpec, truth: TruePose, rng) -> DoorReading:
             return DoorReading(bool(f.options["value"]))
     site = case.site
     zone = site.door_zone(site.door(spec.door))
-    ix = min(int(truth.x_m / site.resolution_m), zone.shape[1] - 1)
-    iy = min(int(truth.y_m / site.resolution_m), zone.shape[0] - 1)
+    iy, ix = site.grid(1).plane_index(truth.x_m, truth.y_m)
     inside = bool(zone[iy, ix])
     rate = spec.params.hit_rate if inside else spec.params.false_alarm_rate
     return DoorReading(bool(rng.random() < rate))

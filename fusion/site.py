@@ -53,11 +53,13 @@ class SiteMap:
     doors: tuple[Door, ...] = ()
     markers: tuple[Marker, ...] = ()
     name: str = "site"
+    origin_m: tuple[float, float] = (0.0, 0.0)  # site-frame coordinates of the map's lower-left corner
     _marker_index: dict = field(init=False, repr=False)
 
     def __post_init__(self):
         self.occupied = np.asarray(self.occupied, dtype=bool)
-        plane = PoseGrid(self.width_m, self.height_m, self.resolution_m, 1)
+        self.origin_m = (float(self.origin_m[0]), float(self.origin_m[1]))
+        plane = self.grid(1)
         if self.occupied.shape != (plane.ny, plane.nx):
             raise SiteError(
                 f"occupancy of site {self.name!r} must have shape (ny, nx) = {(plane.ny, plane.nx)} for "
@@ -68,10 +70,10 @@ class SiteMap:
                 label = getattr(item, "name", None) or getattr(item, "marker_id", "?")
                 if not (math.isfinite(item.x) and math.isfinite(item.y)):
                     raise SiteError(f"{kind} {label!r} of site {self.name!r} has a non-finite position")
-                if not (0 <= item.x < self.width_m and 0 <= item.y < self.height_m):
+                if not self.contains(item.x, item.y):
                     raise SiteError(
                         f"{kind} {label!r} at ({item.x} m, {item.y} m) is off the map of site {self.name!r} "
-                        f"(0–{self.width_m} m × 0–{self.height_m} m)"
+                        f"({plane.spans()})"
                     )
         ids = [m.marker_id for m in self.markers]
         if len(set(ids)) != len(ids):
@@ -83,7 +85,7 @@ class SiteMap:
     @classmethod
     def empty(cls, width_m: float, height_m: float, resolution_m: float, *, border: bool = True, **kw) -> SiteMap:
         """A site with no obstacles, walled round its edge when ``border`` is true."""
-        plane = PoseGrid(width_m, height_m, resolution_m, 1)
+        plane = PoseGrid(width_m, height_m, resolution_m, 1)  # the shape only: the origin does not change it
         occ = np.zeros((plane.ny, plane.nx), dtype=bool)
         if border:
             occ[0, :] = occ[-1, :] = occ[:, 0] = occ[:, -1] = True
@@ -92,15 +94,32 @@ class SiteMap:
     def with_box(self, x0: float, y0: float, x1: float, y1: float) -> SiteMap:
         """A copy with the axis-aligned box [x0, x1] × [y0, y1] (metres) marked occupied."""
         occ = self.occupied.copy()
-        r = self.resolution_m
+        r, (ox, oy) = self.resolution_m, self.origin_m
+        x0, x1, y0, y1 = x0 - ox, x1 - ox, y0 - oy, y1 - oy
         ix0, ix1 = int(math.floor(min(x0, x1) / r)), int(math.ceil(max(x0, x1) / r))
         iy0, iy1 = int(math.floor(min(y0, y1) / r)), int(math.ceil(max(y0, y1) / r))
         occ[max(iy0, 0) : max(iy1, 0), max(ix0, 0) : max(ix1, 0)] = True
-        return SiteMap(self.width_m, self.height_m, r, occ, self.doors, self.markers, self.name)
+        return SiteMap(self.width_m, self.height_m, r, occ, self.doors, self.markers, self.name, self.origin_m)
+
+    def contains(self, x: float, y: float) -> bool:
+        """Whether the point (site frame, metres) lies on the map."""
+        (ox, oy) = self.origin_m
+        return ox <= x < ox + self.width_m and oy <= y < oy + self.height_m
+
+    def occupied_at(self, x: float, y: float) -> bool:
+        """Whether the cell holding the point (on the map) is a wall or rack."""
+        iy, ix = self.grid(1).plane_index(x, y)
+        return bool(self.occupied[iy, ix])
+
+    @property
+    def extent(self) -> tuple[float, float, float, float]:
+        """(left, right, bottom, top) in metres, site frame: for plots."""
+        (ox, oy) = self.origin_m
+        return (ox, ox + self.width_m, oy, oy + self.height_m)
 
     # ----------------------------------------------------------------- derived maps
     def grid(self, headings: int = 36) -> PoseGrid:
-        return PoseGrid(self.width_m, self.height_m, self.resolution_m, headings)
+        return PoseGrid(self.width_m, self.height_m, self.resolution_m, headings, *self.origin_m)
 
     @property
     def free(self) -> np.ndarray:
@@ -154,7 +173,7 @@ class SiteMap:
         """Distance along a ray to the first occupied cell (marching at a quarter cell), capped at ``max_range_m``."""
         step = self.resolution_m / 4
         t = np.arange(step, max_range_m + step, step)
-        px, py = x + t * math.cos(angle_rad), y + t * math.sin(angle_rad)
+        px, py = x - self.origin_m[0] + t * math.cos(angle_rad), y - self.origin_m[1] + t * math.sin(angle_rad)
         ix, iy = np.floor(px / self.resolution_m).astype(int), np.floor(py / self.resolution_m).astype(int)
         outside = (ix < 0) | (iy < 0) | (ix >= self.occupied.shape[1]) | (iy >= self.occupied.shape[0])
         hit = outside.copy()

@@ -109,7 +109,7 @@ def soak_steps(
         for n, (tick, obs) in enumerate(_observations(case, seed), 1):
             if n > steps:
                 break
-            if n == 1 and case.route.start_known:  # from the dock, as a run of the case starts
+            if n == 1 and case.require_route().start_known:  # from the dock, as a run of the case starts
                 loc.start_at(tick.truth.x_m, tick.truth.y_m, tick.truth.heading_deg)
             decision = loc.step(obs, []) if obs.kind == "odometry" else loc.step(None, [obs])
             report.steps = n

@@ -55,7 +55,9 @@ def coarse_plane(probability: np.ndarray, occupied: np.ndarray, width: int = 44)
     return intensity, wall, step
 
 
-def draw_plane(intensity: np.ndarray, wall: np.ndarray, step: int, truth_xy, estimate_xy, resolution_m: float) -> Text:
+def draw_plane(
+    intensity: np.ndarray, wall: np.ndarray, step: int, truth_xy, estimate_xy, resolution_m: float, origin_m=(0.0, 0.0)
+) -> Text:
     """Block characters of a coarse plane (``coarse_plane``); north is up; ◆ truth, ✚ estimate."""
     rows, cols = intensity.shape
     level = np.ceil(intensity.astype(np.float64) / 255 * (len(_SHADES) - 1)).astype(int)
@@ -63,7 +65,7 @@ def draw_plane(intensity: np.ndarray, wall: np.ndarray, step: int, truth_xy, est
     def cell_of(xy):
         if xy is None:
             return None
-        x, y = xy
+        x, y = xy[0] - origin_m[0], xy[1] - origin_m[1]
         return (min(rows - 1, int(y / resolution_m / (2 * step))), min(cols - 1, int(x / resolution_m / step)))
 
     t_cell, e_cell = cell_of(truth_xy), cell_of(estimate_xy)
@@ -83,11 +85,17 @@ def draw_plane(intensity: np.ndarray, wall: np.ndarray, step: int, truth_xy, est
 
 
 def belief_map(
-    probability: np.ndarray, occupied: np.ndarray, truth_xy, estimate_xy, resolution_m: float, width: int = 44
+    probability: np.ndarray,
+    occupied: np.ndarray,
+    truth_xy,
+    estimate_xy,
+    resolution_m: float,
+    width: int = 44,
+    origin_m=(0.0, 0.0),
 ) -> Text:
     """Block-character map of a (ny, nx) probability plane; north is up."""
     intensity, wall, step = coarse_plane(probability, occupied, width)
-    return draw_plane(intensity, wall, step, truth_xy, estimate_xy, resolution_m)
+    return draw_plane(intensity, wall, step, truth_xy, estimate_xy, resolution_m, origin_m)
 
 
 def sparkline(values, width: int = 44, top: float | None = None) -> str:
@@ -145,7 +153,9 @@ class RunView:
         if d.quarantined:
             figures.add_row("quarantined", literal(", ".join(d.quarantined)), "", "")
         body = Group(
-            belief_map(plane, site.occupied, (tr.x_m, tr.y_m), (d.x_m, d.y_m), site.resolution_m),
+            belief_map(
+                plane, site.occupied, (tr.x_m, tr.y_m), (d.x_m, d.y_m), site.resolution_m, origin_m=site.origin_m
+            ),
             Text(sparkline(self.history[name]), style="green"),
             Text(f"{label} over the last ticks (▁ low, █ high)", style="dim"),
             figures,

@@ -92,7 +92,10 @@ def test_missing_fields_and_bad_toml():
         parse_case(_broken("waypoints = [[1.5, 1.5], [8.5, 1.5], [8.5, 4.5], [1.5, 4.5]]", "waypoints = []"), "x.toml")
     with pytest.raises(InputFileError, match=r"line 2: not valid TOML"):
         parse_case('[case]\nname = "unterminated\n', "y.toml")
-    with pytest.raises(InputFileError, match="the \\[route\\] table is missing"):
-        parse_case(TINY.read_text().split("[route]")[0], "z.toml")
+    # A case without [route] is a replay-only site: it loads, and only simulating refuses it.
+    replay_only = parse_case(TINY.read_text().split("[route]")[0], "z.toml")
+    assert replay_only.route is None
+    with pytest.raises(InputFileError, match="z.toml: route: the case has no \\[route\\]"):
+        replay_only.require_route()
     with pytest.raises(InputFileError, match="cannot read the case file"):
         load_case("/nonexistent/case.toml")

@@ -328,6 +328,7 @@ def test_hostile_command_line_values_get_an_answer_never_an_internal_error(tmp_p
             ["soak", tiny, "--steps", "20", "--corrupt", v, "--out", out + "f", "--quiet", "--backend", "bayes"],
             ["scrub", v],
             ["check", v],
+            ["check", tiny, "--preview", v or "p.png"],
             ["stream", "--site", tiny, "--start", v],
         ):
             try:

@@ -95,7 +95,8 @@ def test_an_endless_case_file_is_refused_after_the_size_limit():
         load_case("/dev/zero")
 
 
-def test_a_site_whose_width_is_not_a_whole_number_of_cells_checks_and_runs(tmp_path, capsys):
+def test_a_site_whose_width_is_not_a_whole_number_of_cells_checks_and_runs(tmp_path, capsys, monkeypatch):
+    monkeypatch.chdir(tmp_path)  # check draws the site into the current folder
     text = _with(
         ("width_m = 10.0", "width_m = 10.3\nborder = false"),
         ("[1.5, 4.5]]", "[1.5, 4.5], [10.2, 4.5]]"),  # the last waypoint lies in the last, partial cell

@@ -120,7 +120,8 @@ def test_same_case_and_seed_give_byte_identical_summaries(case, tmp_path):
     assert set(timing["backends"]["bayes"]) == {"mean_step_ms", "p95_step_ms"}
 
 
-def test_cli_run_check_and_bad_case(tmp_path, capsys):
+def test_cli_run_check_and_bad_case(tmp_path, capsys, monkeypatch):
+    monkeypatch.chdir(tmp_path)  # check draws the site into the current folder
     assert main(["check", str(TINY)]) == 0
     assert "valid" in capsys.readouterr().out
     out = tmp_path / "run"

@@ -103,8 +103,7 @@ def _door(case, spec, pairs, poses) -> DoorData:
     inside, active = [], []
     for j, reading in pairs:
         p = poses[j]
-        ix = min(int(p.x_m / site.resolution_m), zone.shape[1] - 1)
-        iy = min(int(p.y_m / site.resolution_m), zone.shape[0] - 1)
+        iy, ix = site.grid(1).plane_index(p.x_m, p.y_m)
         inside.append(bool(zone[iy, ix]))
         active.append(bool(reading.active))
     return DoorData(np.array(inside), np.array(active))

@@ -3,34 +3,32 @@
 The format is ours; ``cases/README.md`` documents it with the demo case.  Loading
 validates everything before anything runs, and every error names the file, the
 line and the field (``InputFileError``).  Case files are data only: TOML has no
-code, and paths are never taken from them.
+code, and the one path a case may name (a site's map image) must lie inside the
+case's own folder.  The ``[site]`` table is read by ``fusion.io.site_file``.
+
+A case without a ``[route]`` describes a site and its sensors only: it serves
+``inspect``, ``stream`` and ``calibrate``, which replay recorded logs; the commands
+that simulate (``run``, ``demo``, ``compare``, ``soak``, ``targets``) refuse it.
 """
 
 from __future__ import annotations
 
 import dataclasses
 import math
-import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
-from fusion.errors import FusionError, InputFileError
+from fusion.errors import InputFileError
 from fusion.io.bounded import read_text
-from fusion.io.json_line import shown
-from fusion.io.toml_lines import key_lines
+from fusion.io.site_file import MAX_BOXES, MAX_ITEMS, free_point, free_segment, read_site
+from fusion.io.toml_reader import TomlReader, finite_numbers, load_toml
 from fusion.sensors.doors import DoorParams
 from fusion.sensors.limits import problems
 from fusion.sensors.markers import MarkerParams
 from fusion.sensors.odometry import REMOVED_FIELDS, OdometryParams
 from fusion.sensors.ranging import RangeParams
-from fusion.site import Door, Marker, SiteMap
-from fusion.text import MAX_NAME_CHARS, plain
-
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover - exercised on Python 3.10 only
-    import tomli as tomllib
+from fusion.site import SiteMap
 
 __all__ = [
     "Case",
@@ -47,14 +45,12 @@ __all__ = [
     "SENSOR_KINDS",
     "FAULT_KINDS",
     "MAX_CASE_BYTES",
+    "MAX_ITEMS",
+    "MAX_BOXES",
 ]
 
 MAX_SENSORS = 64
 """Most sensors in a case (our choice: a robot carries a handful; each costs a likelihood per reading)."""
-MAX_ITEMS = 1000
-"""Most doors, and most markers, on a site."""
-MAX_BOXES = 10_000
-"""Most boxes on a site."""
 MAX_WAYPOINTS = 10_000
 """Most waypoints of a route."""
 MAX_POLICY_COUNT = 10_000
@@ -153,147 +149,28 @@ class Case:
     site: SiteMap
     headings: int
     sensors: tuple[SensorSpec, ...]
-    route: RouteSpec
+    route: RouteSpec | None  # None: a site for replaying logs only (nothing to simulate)
     run: RunSpec
     description: str = ""
     sweep: SweepSpec = field(default_factory=SweepSpec)
+
+    def require_route(self) -> RouteSpec:
+        """The route, or ``InputFileError`` saying that simulating needs one and this case has none."""
+        if self.route is None:
+            raise InputFileError(
+                self.path,
+                None,
+                "route",
+                "the case has no [route], and this command simulates a drive along one; add a [route] with at "
+                "least two waypoints, or replay a recorded log with 'fusion inspect' or 'fusion stream'",
+            )
+        return self.route
 
     def sensor(self, name: str) -> SensorSpec:
         for s in self.sensors:
             if s.name == name:
                 return s
         raise KeyError(name)
-
-
-# ----------------------------------------------------------------- reading
-class _Reader:
-    """Typed access to parsed TOML with errors that name file, line and field."""
-
-    def __init__(self, path: str, text: str):
-        self.path = path
-        self.lines = key_lines(text)
-
-    def fail(self, where: tuple, problem: str):
-        line = None
-        for cut in range(len(where), 0, -1):
-            line = self.lines.get(tuple(where[:cut]))
-            if line:
-                break
-        raise InputFileError(self.path, line, _field_name(where), problem)
-
-    def table(self, data: dict, where: tuple, key: str, required: bool = True) -> dict:
-        if key not in data:
-            if required:
-                self.fail(where, f"the [{_field_name((*where, key))}] table is missing")
-            return {}
-        value = data[key]
-        if not isinstance(value, dict):
-            self.fail((*where, key), f"must be a table, got {_kind(value)}")
-        return value
-
-    def tables(self, data: dict, where: tuple, key: str) -> list[dict]:
-        value = data.get(key, [])
-        if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
-            self.fail((*where, key), f"must be an array of tables ([[{key}]]), got {_kind(value)}")
-        return value
-
-    def number(self, data, where, key, default=None, *, low=None, high=None, positive=False, whole=False):
-        if key not in data:
-            if default is None:
-                self.fail(where, f"the field '{key}' is missing (a number)")
-            return default
-        value = data[key]
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            self.fail((*where, key), f"must be a number, got {_kind(value)}")
-        if whole and not isinstance(value, int):
-            self.fail((*where, key), f"must be a whole number, got {value!r}")
-        if not math.isfinite(value):
-            self.fail((*where, key), f"must be finite, got {value!r}")
-        if positive and value <= 0:
-            self.fail((*where, key), f"must be greater than 0, got {value!r}")
-        if low is not None and value < low:
-            self.fail((*where, key), f"must be at least {low}, got {value!r}")
-        if high is not None and value > high:
-            self.fail((*where, key), f"must be at most {high}, got {value!r}")
-        return value
-
-    def text(self, data, where, key, default=None, choices=None):
-        if key not in data:
-            if default is None:
-                self.fail(where, f"the field '{key}' is missing (a string)")
-            return default
-        value = data[key]
-        if not isinstance(value, str) or not value.strip():
-            self.fail((*where, key), f"must be a non-empty string, got {_kind(value)}")
-        if choices is not None and value not in choices:
-            self.fail((*where, key), f"unknown value {value!r}; choose one of: {', '.join(choices)}")
-        return value
-
-    def name(self, data, where, key, default=None, choices=None) -> str:
-        """A name (of the case, the site, a sensor, door or marker): as ``text``, at most ``MAX_NAME_CHARS``
-        characters, no control characters (a name reaches terminals, files and plots)."""
-        value = self.text(data, where, key, default, choices)
-        if len(value) > MAX_NAME_CHARS:
-            self.fail((*where, key), f"is {len(value):,} characters long; names are limited to {MAX_NAME_CHARS}")
-        if plain(value) != value:
-            self.fail((*where, key), f"holds control characters ({shown(value)}); names must be printable text")
-        return value
-
-    def flag(self, data, where, key, default=None):
-        if key not in data:
-            if default is None:
-                self.fail(where, f"the field '{key}' is missing (true or false)")
-            return default
-        if not isinstance(data[key], bool):
-            self.fail((*where, key), f"must be true or false, got {_kind(data[key])}")
-        return data[key]
-
-    def numbers(self, data, where, key, length=None, default=None):
-        if key not in data:
-            if default is None:
-                self.fail(where, f"the field '{key}' is missing (an array of numbers)")
-            return default
-        value = data[key]
-        if not _finite_numbers(value):
-            self.fail((*where, key), f"must be an array of finite numbers, got {_kind(value)}")
-        if length is not None and len(value) != length:
-            self.fail((*where, key), f"must hold {length} numbers, got {len(value)}")
-        return tuple(float(v) for v in value)
-
-    def only(self, data: dict, where: tuple, allowed) -> None:
-        for key in data:
-            if key not in allowed:
-                self.fail((*where, key), f"unknown field '{key}'; known fields here: {', '.join(sorted(allowed))}")
-
-
-def _finite_numbers(value, length: int | None = None) -> bool:
-    """An array of finite numbers (booleans are not numbers here), of ``length`` items if given."""
-    return (
-        isinstance(value, list)
-        and (length is None or len(value) == length)
-        and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value)
-    )
-
-
-def _field_name(where: tuple) -> str:
-    out = ""
-    for part in where:
-        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
-    return out
-
-
-def _kind(value) -> str:
-    if isinstance(value, bool):
-        return f"a boolean ({value})"
-    if isinstance(value, (int, float)):
-        return f"a number ({value!r})"
-    if isinstance(value, str):
-        return f"a string ({value!r})"
-    if isinstance(value, list):
-        return "an array"
-    if isinstance(value, dict):
-        return "a table"
-    return type(value).__name__
 
 
 def load_case(path) -> Case:
@@ -304,20 +181,9 @@ def load_case(path) -> Case:
 
 
 def parse_case(text: str, path: str = "<case>") -> Case:
-    try:
-        data = tomllib.loads(text)
-    except RecursionError:
-        raise InputFileError(path, None, None, "not TOML we accept: brackets nested too deeply") from None
-    except tomllib.TOMLDecodeError as err:
-        line = getattr(err, "lineno", None)
-        message = str(err)
-        if line is None:  # older tomllib: "... (at line 3, column 7)"
-            import re
-
-            found = re.search(r"line (\d+)", message)
-            line = int(found.group(1)) if found else None
-        raise InputFileError(path, line, None, f"not valid TOML: {message}") from None
-    r = _Reader(path, text)
+    """The case of TOML ``text``; ``path`` names it in errors and anchors a site's map image."""
+    data = load_toml(text, path)
+    r = TomlReader(path, text)
     r.only(data, (), {"case", "site", "sensors", "route", "run", "compare"})
     head = r.table(data, (), "case")
     r.only(head, ("case",), {"name", "description"})
@@ -325,9 +191,9 @@ def parse_case(text: str, path: str = "<case>") -> Case:
     description = head.get("description", "")
     if not isinstance(description, str) or len(description) > MAX_DESCRIPTION_CHARS:
         r.fail(("case", "description"), f"must be text of at most {MAX_DESCRIPTION_CHARS:,} characters")
-    site, headings = _site(r, r.table(data, (), "site"))
+    site, headings = read_site(r, r.table(data, (), "site"), path)
     sensors = _sensors(r, data, site)
-    route = _route(r, r.table(data, (), "route"), site)
+    route = _route(r, data["route"], site) if "route" in data else None
     run = _run(r, r.table(data, (), "run", required=False), sensors)
     sweep = _sweep(r, r.table(data, (), "compare", required=False))
     case = Case(name, path, site, headings, sensors, route, run, description, sweep)
@@ -338,70 +204,7 @@ def parse_case(text: str, path: str = "<case>") -> Case:
     return case
 
 
-def _site(r: _Reader, d: dict) -> tuple[SiteMap, int]:
-    w = ("site",)
-    r.only(d, w, {"name", "width_m", "height_m", "resolution_m", "headings", "border", "boxes", "doors", "markers"})
-    width = r.number(d, w, "width_m", positive=True)
-    height = r.number(d, w, "height_m", positive=True)
-    res = r.number(d, w, "resolution_m", positive=True)
-    headings = r.number(d, w, "headings", 36, whole=True, low=1, high=360)
-    border = r.flag(d, w, "border", True)
-    doors, markers = [], []
-    for key, most in (("doors", MAX_ITEMS), ("markers", MAX_ITEMS), ("boxes", MAX_BOXES)):
-        if isinstance(d.get(key), list) and len(d[key]) > most:
-            r.fail((*w, key), f"holds {len(d[key]):,} items; the limit is {most:,}")
-    for i, door in enumerate(r.tables(d, w, "doors")):
-        dw = (*w, "doors", i)
-        r.only(door, dw, {"name", "x_m", "y_m", "facing_deg", "radius_m"})
-        doors.append(
-            Door(
-                r.name(door, dw, "name"),
-                r.number(door, dw, "x_m"),
-                r.number(door, dw, "y_m"),
-                r.number(door, dw, "facing_deg"),
-                r.number(door, dw, "radius_m", 1.0, positive=True),
-            )
-        )
-        _on_map(r, dw, doors[-1].x, doors[-1].y, width, height, f"door {doors[-1].name!r}")
-    for i, marker in enumerate(r.tables(d, w, "markers")):
-        mw = (*w, "markers", i)
-        r.only(marker, mw, {"id", "x_m", "y_m"})
-        markers.append(Marker(r.name(marker, mw, "id"), r.number(marker, mw, "x_m"), r.number(marker, mw, "y_m")))
-        _on_map(r, mw, markers[-1].x, markers[-1].y, width, height, f"marker {markers[-1].marker_id!r}")
-    for kind, items, key in (("door", doors, "doors"), ("marker", markers, "markers")):
-        names = [getattr(i, "name", None) or i.marker_id for i in items]
-        for j, n in enumerate(names):
-            if names.index(n) != j:
-                r.fail((*w, key, j), f"{kind} name {n!r} is used twice; names must be unique")
-    try:
-        site = SiteMap.empty(
-            width,
-            height,
-            res,
-            border=border,
-            doors=tuple(doors),
-            markers=tuple(markers),
-            name=r.name(d, w, "name", "site"),
-        )
-        site.grid(headings)  # refuses grids too large for memory
-    except FusionError as err:
-        r.fail(w, str(err))
-    boxes = d.get("boxes", [])
-    if not isinstance(boxes, list):
-        r.fail((*w, "boxes"), "must be an array of [x0, y0, x1, y1] boxes in metres")
-    for i, box in enumerate(boxes):
-        if not _finite_numbers(box, 4):
-            r.fail((*w, "boxes"), f"box {i + 1} must be [x0, y0, x1, y1] in metres, got {box!r}")
-        site = site.with_box(*box)
-    return site, headings
-
-
-def _on_map(r, where, x, y, width, height, what):
-    if not (0 <= x < width and 0 <= y < height):
-        r.fail(where, f"{what} at ({x} m, {y} m) is off the map (0–{width} m × 0–{height} m)")
-
-
-def _params(r: _Reader, d: dict, where: tuple, cls, skip: set) -> object:
+def _params(r: TomlReader, d: dict, where: tuple, cls, skip: set) -> object:
     defaults = cls()
     values = {}
     for f in dataclasses.fields(cls):
@@ -419,7 +222,7 @@ def _params(r: _Reader, d: dict, where: tuple, cls, skip: set) -> object:
     return cls(**values)
 
 
-def _sensors(r: _Reader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
+def _sensors(r: TomlReader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
     out = []
     tables = r.tables(data, (), "sensors")
     if len(tables) > MAX_SENSORS:
@@ -491,8 +294,10 @@ def _sensors(r: _Reader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
     return tuple(out)
 
 
-def _route(r: _Reader, d: dict, site: SiteMap) -> RouteSpec:
+def _route(r: TomlReader, d, site: SiteMap) -> RouteSpec:
     w = ("route",)
+    if not isinstance(d, dict):
+        r.fail(w, "must be a table ([route])")
     r.only(d, w, {"waypoints", "speed_mps", "turn_rate_deg_s", "carried", "start_known"})
     raw = d.get("waypoints")
     if not isinstance(raw, list) or len(raw) < 2:
@@ -501,13 +306,13 @@ def _route(r: _Reader, d: dict, site: SiteMap) -> RouteSpec:
         r.fail((*w, "waypoints"), f"holds {len(raw):,} waypoints; the limit is {MAX_WAYPOINTS:,}")
     points = []
     for i, p in enumerate(raw):
-        if not _finite_numbers(p, 2):
+        if not finite_numbers(p, 2):
             r.fail((*w, "waypoints"), f"waypoint {i + 1} must be [x, y] in metres, got {p!r}")
         points.append((float(p[0]), float(p[1])))
     for i, p in enumerate(points):
-        _free_point(r, (*w, "waypoints"), site, p, f"waypoint {i + 1}")
+        free_point(r, (*w, "waypoints"), site, p, f"waypoint {i + 1}")
     for i in range(len(points) - 1):
-        _free_segment(r, (*w, "waypoints"), site, points[i], points[i + 1], f"route leg {i + 1}")
+        free_segment(r, (*w, "waypoints"), site, points[i], points[i + 1], f"route leg {i + 1}")
     speed = r.number(d, w, "speed_mps", 0.6, positive=True, high=5)
     turn_rate = r.number(d, w, "turn_rate_deg_s", 90.0, positive=True, high=720)
     carries = []
@@ -516,8 +321,8 @@ def _route(r: _Reader, d: dict, site: SiteMap) -> RouteSpec:
         r.only(cd, cw, {"at_s", "to", "resume_waypoint"})
         to = r.numbers(cd, cw, "to", length=3)
         resume = r.number(cd, cw, "resume_waypoint", whole=True, low=1, high=len(points))
-        _free_point(r, (*cw, "to"), site, to[:2], "the place the robot is carried to")
-        _free_segment(r, (*cw, "to"), site, to[:2], points[resume - 1], "the leg after the carry")
+        free_point(r, (*cw, "to"), site, to[:2], "the place the robot is carried to")
+        free_segment(r, (*cw, "to"), site, to[:2], points[resume - 1], "the leg after the carry")
         carries.append(CarryEvent(float(r.number(cd, cw, "at_s", low=0)), to, int(resume)))
     start_known = r.flag(d, w, "start_known", True)
     return RouteSpec(
@@ -525,34 +330,7 @@ def _route(r: _Reader, d: dict, site: SiteMap) -> RouteSpec:
     )
 
 
-def _free_point(r, where, site, p, what):
-    x, y = p
-    if not (0 <= x < site.width_m and 0 <= y < site.height_m):
-        r.fail(where, f"{what} ({x} m, {y} m) is off the map (0–{site.width_m} m × 0–{site.height_m} m)")
-    if site.occupied[int(y / site.resolution_m), int(x / site.resolution_m)]:
-        r.fail(where, f"{what} ({x} m, {y} m) is inside a wall or rack")
-
-
-def _free_segment(r, where, site, a, b, what):
-    """Refuse a straight leg that crosses an occupied cell (sampled at a quarter cell, all at once)."""
-    import numpy as np
-
-    length = math.hypot(b[0] - a[0], b[1] - a[1])
-    steps = max(2, int(length / (site.resolution_m / 4)) + 1)
-    k = np.arange(steps + 1) / steps
-    xs, ys = a[0] + (b[0] - a[0]) * k, a[1] + (b[1] - a[1]) * k
-    iy = np.minimum((ys / site.resolution_m).astype(int), site.occupied.shape[0] - 1)
-    ix = np.minimum((xs / site.resolution_m).astype(int), site.occupied.shape[1] - 1)
-    hit = np.flatnonzero(site.occupied[iy, ix])
-    if hit.size:
-        x, y = xs[hit[0]], ys[hit[0]]
-        r.fail(
-            where,
-            f"{what} from ({a[0]}, {a[1]}) to ({b[0]}, {b[1]}) passes through a wall or rack near ({x:.2f} m, {y:.2f} m)",
-        )
-
-
-def _run(r: _Reader, d: dict, sensors) -> RunSpec:
+def _run(r: TomlReader, d: dict, sensors) -> RunSpec:
     from fusion.backends.evidential import FILTER_RULES
 
     w = ("run",)
@@ -591,7 +369,7 @@ def _run(r: _Reader, d: dict, sensors) -> RunSpec:
     )
 
 
-def _sweep(r: _Reader, d: dict) -> SweepSpec:
+def _sweep(r: TomlReader, d: dict) -> SweepSpec:
     from fusion.backends.evidential import FILTER_RULES
 
     w = ("compare",)
@@ -620,13 +398,8 @@ def apply_calibration(case: Case, path) -> Case:
     of its own; every error names the calibration file, line and field."""
     path = Path(path)
     text = read_text(path, MAX_CASE_BYTES, "calibration file")
-    try:
-        data = tomllib.loads(text)
-    except RecursionError:
-        raise InputFileError(path, None, None, "not TOML we accept: brackets nested too deeply") from None
-    except tomllib.TOMLDecodeError as err:
-        raise InputFileError(path, getattr(err, "lineno", None), None, f"not valid TOML: {err}") from None
-    r = _Reader(str(path), text)
+    data = load_toml(text, path)
+    r = TomlReader(str(path), text)
     r.only(data, (), {"calibration", "sensors"})
     r.table(data, (), "calibration")
     by_name = {s.name: s for s in case.sensors}
@@ -644,7 +417,7 @@ def apply_calibration(case: Case, path) -> Case:
         values = {k: v for k, v in d.items() if k not in ("name", "kind", "interval")}
         params = _params(r, values, w, SENSOR_KINDS[kind], set())
         for key, bounds in interval.items():
-            if not _finite_numbers(bounds, 2) or bounds[0] > bounds[1]:
+            if not finite_numbers(bounds, 2) or bounds[0] > bounds[1]:
                 r.fail((*w, "interval", key), f"must be [low, high] with low ≤ high, got {bounds!r}")
         merged = dataclasses.replace(spec.params, **{k: getattr(params, k) for k in values})
         if kind == "ranging":

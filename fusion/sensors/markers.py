@@ -95,8 +95,7 @@ class MarkerSensor:
         # Stop 1.5 cells short of the marker: it is printed on the face of a rack.
         reach = np.clip((r - 1.5 * res) / np.maximum(r, 1e-9), 0.0, 1.0)[:, None] * frac
         px, py = x0[:, None] + (mx - x0)[:, None] * reach, y0[:, None] + (my - y0)[:, None] * reach
-        cx = np.clip((px / res).astype(int), 0, site.occupied.shape[1] - 1)
-        cy = np.clip((py / res).astype(int), 0, site.occupied.shape[0] - 1)
+        cy, cx = self.grid.plane_index(px, py)
         clear[iy, ix] = ~site.occupied[cy, cx].any(axis=1)
         return clear
 

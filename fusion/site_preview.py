@@ -1,0 +1,113 @@
+"""A picture of a case's site, drawn by ``fusion check``: walls, doors with their contact zones, markers, route.
+
+Axes are in metres in the site's own frame (its origin included), north up, so a map drawn from
+an occupancy image can be checked against the building before anything is replayed on it.  The
+PNG records that fusion drew it (``PREVIEW_MARK``), so the next check may replace it; any other
+file of the same name is kept unless ``--replace`` is given.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from pathlib import Path
+
+import numpy as np
+
+from fusion import __version__
+from fusion.html_page import pyplot
+from fusion.io.case import Case
+from fusion.io.outdir import FolderError, atomic_write
+
+__all__ = ["draw_site", "write_preview", "preview_path", "PREVIEW_MARK"]
+
+PREVIEW_MARK = "fusion site preview"
+MAX_LABELS = 60
+"""Markers and doors labelled by name on the picture (more would hide the map; our choice)."""
+
+
+def draw_site(case: Case) -> bytes:
+    """The site of ``case`` as PNG bytes."""
+    plt = pyplot()
+    site = case.site
+    aspect = site.height_m / site.width_m
+    width = 9.0
+    fig, ax = plt.subplots(figsize=(width, min(max(width * aspect, 3.0), 14.0)), dpi=100)
+    ax.imshow(site.occupied, origin="lower", extent=site.extent, cmap="Greys", vmin=0, vmax=1.6)
+    for door in site.doors:
+        zone = site.door_zone(door)
+        ax.contour(
+            zone.astype(float),
+            levels=[0.5],
+            origin="lower",
+            extent=site.extent,
+            colors=["tab:orange"],
+            linewidths=1.0,
+        )
+        ax.plot(door.x, door.y, "s", color="tab:orange", markersize=7)
+        facing = math.radians(door.facing_deg)
+        ax.annotate(
+            "",
+            (door.x + 0.6 * math.cos(facing), door.y + 0.6 * math.sin(facing)),
+            (door.x, door.y),
+            arrowprops={"arrowstyle": "->", "color": "tab:orange"},
+        )
+    if site.markers:
+        xs = [m.x for m in site.markers]
+        ys = [m.y for m in site.markers]
+        ax.plot(xs, ys, "^", color="tab:blue", markersize=7, label="markers")
+    labelled = 0
+    for item, colour in [(d, "tab:orange") for d in site.doors] + [(m, "tab:blue") for m in site.markers]:
+        if labelled >= MAX_LABELS:
+            break
+        name = getattr(item, "name", None) or item.marker_id
+        ax.annotate(name[:24], (item.x, item.y), textcoords="offset points", xytext=(4, 4), fontsize=7, color=colour)
+        labelled += 1
+    if case.route is not None:
+        pts = np.array(case.route.waypoints)
+        ax.plot(pts[:, 0], pts[:, 1], "-", color="tab:green", linewidth=1.2, label="route")
+        ax.plot(pts[0, 0], pts[0, 1], "o", color="tab:green", markersize=6)
+    ax.plot([], [], "s", color="tab:orange", label="doors (zone outlined, arrow: open side)")
+    ax.set_xlim(site.extent[0], site.extent[1])
+    ax.set_ylim(site.extent[2], site.extent[3])
+    ax.set_xlabel("x (m)")
+    ax.set_ylabel("y (m)")
+    ax.set_aspect("equal")
+    ax.set_title(f"{case.name[:60]}: {site.width_m:g} m × {site.height_m:g} m at {site.resolution_m:g} m (walls grey)")
+    ax.legend(loc="upper right", fontsize=7, framealpha=0.8)
+    ax.grid(True, linewidth=0.3, alpha=0.5)
+    buf = io.BytesIO()
+    fig.tight_layout()
+    fig.savefig(buf, format="png", metadata={"Software": f"{PREVIEW_MARK} ({__version__})"})
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def preview_path(case_path) -> Path:
+    """``<case>-site.png`` in the current folder (the case's own folder may not be writable)."""
+    stem = "".join(c if c.isalnum() or c in "-_." else "_" for c in Path(str(case_path)).stem) or "case"
+    return Path(f"{stem}-site.png")
+
+
+def write_preview(case: Case, path, replace: bool = False) -> Path:
+    """Draw the site into ``path``: a preview fusion drew before is replaced; any other file only with ``replace``."""
+    path = Path(path)
+    if path.is_dir():
+        raise FolderError(f"{path} is a folder; give a file name for the site picture")
+    if path.exists() and not replace and not _ours(path):
+        raise FolderError(
+            f"{path} exists and is not a site picture fusion drew; choose another name with --preview, "
+            "or pass --replace to overwrite it"
+        )
+    atomic_write(path, draw_site(case))
+    return path
+
+
+def _ours(path: Path) -> bool:
+    try:
+        from PIL import Image
+
+        with Image.open(path, formats=("PNG",)) as im:
+            return str(im.info.get("Software", "")).startswith(PREVIEW_MARK)
+    except Exception:  # noqa: BLE001 - any file we cannot read as our PNG is not ours
+        return False
