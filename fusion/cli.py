@@ -85,23 +85,16 @@ def _run(args: argparse.Namespace) -> int:
 
 
 def _check(args: argparse.Namespace) -> int:
-    from fusion.budget import estimate
     from fusion.io.case import load_case
+    from fusion.site_check import describe
 
     case = load_case(args.case)  # the same validation as every command: what passes here can run
-    sensors = ", ".join(
-        f"{plain(s.name)} ({s.kind}{f', {len(s.faults)} fault' + 's' * (len(s.faults) > 1) if s.faults else ''})"
-        for s in case.sensors
-    )
-    grid = case.site.grid(case.headings)
-    need = estimate(case)
-    print(
-        f"{plain(args.case)}: valid. {plain(case.name)}: {case.site.width_m} m × {case.site.height_m} m at "
-        f"{case.site.resolution_m} m, {case.headings} headings ({grid.n_cells:,} cells); sensors: {sensors}; "
-        f"route of {len(case.route.waypoints)} waypoints. A run needs about {need.bytes / 1024**2:,.0f} MiB "
-        f"beside the program and {need.total_seconds:,.0f} s of processor time (rough estimates; budgets "
-        f"{case.run.budget_gib:g} GiB and {case.run.budget_minutes:g} min)."
-    )
+    print(describe(case, args.case))
+    if not args.no_preview:
+        from fusion.site_preview import preview_path, write_preview
+
+        path = write_preview(case, args.preview or preview_path(args.case), args.replace)
+        print(f"site drawn in {literal(path)} (walls, doors, markers{', route' if case.route else ''}; metres)")
     return 0
 
 
@@ -348,9 +341,10 @@ def _stream(args: argparse.Namespace) -> int:
         case = apply_calibration(case, args.calibration)
     loc = Localizer.from_case(case, args.backend)
     if args.start:
-        from fusion.inspect import parse_start
+        from fusion.inspect import ANYWHERE, parse_start
 
-        loc.start_at(*parse_start(args.start))
+        start = parse_start(args.start)
+        loc.start_anywhere() if start == ANYWHERE else loc.start_at(*start)
     print(f"fusion stream: {args.backend} back end on {plain(case.site.name)}; {SAFETY_NOTICE}", file=sys.stderr)
     written, rejected = stream(loc)
     print(f"fusion stream: {written} decisions, {rejected} lines rejected", file=sys.stderr)
@@ -368,12 +362,20 @@ def _inspect(args: argparse.Namespace) -> int:
     case = load_case(args.site)
     if args.calibration:
         case = apply_calibration(case, args.calibration)
+    layout = None
+    if args.layout is None and str(args.log).lower().endswith(".toml"):
+        args.layout = args.log  # a layout that names its tables is the recording itself
+    if args.layout:
+        from fusion.io.layout import load_layout
+
+        layout = load_layout(args.layout, case)
     start = parse_start(args.start) if args.start else None
     settings = {
         "log": where(args.log),
         "site": where(args.site),
+        "layout": where(args.layout),
         "truth": where(args.truth),
-        "start": list(start) if start else None,
+        "start": start if isinstance(start, str) or start is None else list(start),
         "calibration": where(args.calibration),
         "frames": not args.no_frames,
         "rule": case.run.rule,
@@ -383,8 +385,8 @@ def _inspect(args: argparse.Namespace) -> int:
     out_dir = folder.path
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
-    total = count_lines(args.log)  # None for a pipe: it is read once, by the replay, and has no total
-    counter = "line {task.completed:,.0f}" + ("/{task.total:,.0f}" if total is not None else " (from a pipe)")
+    total = count_lines(args.log) if layout is None else None  # None for a pipe: it is read once, by the replay
+    counter = "line {task.completed:,.0f}" + ("/{task.total:,.0f}" if total is not None else "")
     progress = _progress(console, "replaying", args.quiet, counter)
     task = progress.add_task("replay", total=total)
     with progress:
@@ -396,6 +398,7 @@ def _inspect(args: argparse.Namespace) -> int:
             start=start,
             frames=not args.no_frames,
             progress=lambda line, lines: progress.update(task, completed=line, total=lines if total else None),
+            layout=layout,
         )
     folder.finish(found.files)
     console.print(found)
@@ -545,6 +548,9 @@ def _parser() -> argparse.ArgumentParser:
     run.set_defaults(run=_run)
     check = commands.add_parser("check", help="validate a case file and say what it describes")
     check.add_argument("case", help="case file (TOML)")
+    check.add_argument("--preview", help="where to draw the site (PNG; default <case>-site.png in this folder)")
+    check.add_argument("--no-preview", action="store_true", help="only validate; draw nothing")
+    replace_option(check)
     check.set_defaults(run=_check)
     bench = commands.add_parser("bench", help="time each back end's steps as ratios to floors measured in the same run")
     bench.add_argument("--repeats", type=count_up_to(1000), default=9, help="runs per figure, fastest kept (default 9)")
@@ -607,10 +613,19 @@ def _parser() -> argparse.ArgumentParser:
     cal.add_argument("--seed", type=seed_value, default=0, help="seed of the inference (default 0)")
     cal.set_defaults(run=_calibrate)
     ins = commands.add_parser("inspect", help="replay a recorded log on both back ends and explain its conflict")
-    ins.add_argument("log", help="observations, JSON lines or CSV (see docs/inspect.md)")
+    ins.add_argument(
+        "log", help="observations: JSON lines or CSV (docs/inspect.md), or a robot's tables or MCAP file with --layout"
+    )
     ins.add_argument("--site", required=True, help="case file whose site map and sensors the log was recorded with")
-    ins.add_argument("--truth", help="true poses, JSON lines (optional; adds the true error)")
-    ins.add_argument("--start", help="start pose x,y,heading_deg (default: the first true pose, else anywhere)")
+    ins.add_argument(
+        "--layout", help="log layout (TOML, docs/recordings.md): which tables or MCAP topics feed which sensor"
+    )
+    ins.add_argument("--truth", help="true poses, JSON lines (optional; adds the true error; a layout may name them)")
+    ins.add_argument(
+        "--start",
+        help="start pose x,y,heading_deg, or 'anywhere' to score a start from ignorance (default: the first true "
+        "pose, else anywhere)",
+    )
     ins.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
     ins.add_argument("--out", help="output folder (default: fusion-out/<log>-inspect-…, one per log and rule)")
     replace_option(ins)

@@ -1,9 +1,8 @@
 """Incident investigation: replay a recorded log on both back ends and explain where and why it conflicted.
 
 The log is streamed (JSON lines or CSV, see ``fusion.io.logs``), never loaded whole.  Records
-are grouped into ticks: a tick starts at each odometry record (the motion since the last one)
-and holds the readings up to the next, or at most ``MAX_TICK_S`` seconds of them when a log has
-no odometry.  A reading the site cannot use (unknown sensor, a marker not on its map, a bad
+are formed into ticks by ``fusion.io.ticks``: each reading is applied at the pose odometry gives
+at its own time (an odometry record is split at the readings inside its span).  A reading the site cannot use (unknown sensor, a marker not on its map, a bad
 payload) is set aside with its line and reason, like a malformed row; nothing is dropped silently.
 
 Both back ends absorb identical readings tick by tick (one shared sensor set, so each reading is
@@ -39,23 +38,25 @@ from fusion import SAFETY_NOTICE, __version__
 from fusion.conflict import pairwise_conflict
 from fusion.episodes import Episode, EpisodeFinder, blame_shares
 from fusion.errors import FusionError, ObservationError
+from fusion.io import recording
 from fusion.io.case import Case
-from fusion.io.logs import ReadPosition, SetAside, count_lines, iter_observations, iter_truth, require_readable
+from fusion.io.logs import ReadPosition, SetAside, count_lines, require_readable
 from fusion.io.observations import Observation
 from fusion.io.outdir import PartialFile, atomic_write
+from fusion.io.ticks import form_ticks
 from fusion.localizer import Localizer, SensorSet
 from fusion.monitor import CARRY_ON, Policy
+from fusion.scoring import time_to_hold
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step
 from fusion.tui import coarse_plane
 
-__all__ = ["Inspection", "inspect_log", "parse_start", "MAX_TICK_S", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
-
-MAX_TICK_S = 1.0
-"""Longest span of readings grouped into one tick when no odometry record starts a new one (our choice)."""
+__all__ = ["Inspection", "inspect_log", "parse_start", "ANYWHERE", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
 MISMATCH_SHARE = 0.2
 """A log whose unknown sensors, or whose sightings of markers not on the map, reach this share is
 reported as probably recorded on another site (our choice; a few stray ids are noise, a fifth is not)."""
+ANYWHERE = "anywhere"
+"""``--start anywhere``: start from ignorance over free space, also when true poses are given."""
 SET_ASIDE_WARN = 0.05
 """A replay that sets aside this share of the log's lines or more says so as a warning (our choice)."""
 FRAME_WIDTH = 44
@@ -115,6 +116,8 @@ class Inspection:
     warnings: list[str] = field(default_factory=list)
     truth: bool = False
     errors: dict = field(default_factory=dict)  # back end -> (median, p95) true error, m
+    heading_errors: dict = field(default_factory=dict)  # back end -> median true heading error, degrees
+    found_after: dict = field(default_factory=dict)  # back end -> s until the estimate held (fusion.scoring)
     interrupted: bool = False
     seconds: float = 0.0
     files: list[str] = field(default_factory=list)
@@ -148,6 +151,8 @@ class Inspection:
             },
             "true_error_m": {b: {"median": round(m, 4), "p95": round(p, 4)} for b, (m, p) in self.errors.items()}
             or None,
+            "heading_error_deg": {b: {"median": round(v, 3)} for b, v in self.heading_errors.items()} or None,
+            "found_after_s": {b: (None if v is None else round(v, 3)) for b, v in self.found_after.items()} or None,
             "warnings": self.warnings,
             "interrupted": self.interrupted,
         }
@@ -204,17 +209,22 @@ def inspect_log(
     frames: bool = True,
     report: bool = True,
     progress=None,
+    layout=None,
 ) -> Inspection:
     """Replay ``log_path`` on ``case``'s site and sensors; write the findings into ``out_dir``.
 
     ``progress(line, total_lines)`` is called every few ticks.  Ctrl-C ends the replay early: the
-    files and the report then cover the lines read so far (``Inspection.interrupted``)."""
+    files and the report then cover the lines read so far (``Inspection.interrupted``).  ``layout`` (a
+    ``fusion.io.layout.Layout``) reads a robot's own recording; its ``[truth]`` table scores the replay
+    when no ``truth_path`` is given."""
     began = time.perf_counter()
     log_path, out_dir = Path(log_path), Path(out_dir)
-    require_readable(log_path, "log")  # a missing or unreadable file is refused before anything is written
+    if layout is None or layout.needs_recording:
+        require_readable(log_path, "log")  # a missing or unreadable file is refused before anything is written
     if truth_path is not None:
         require_readable(truth_path, "truth file")
-    total_lines = count_lines(log_path)  # None for a pipe: it is read once, by the replay
+    scored = truth_path is not None or (layout is not None and layout.truth is not None)
+    total_lines = count_lines(log_path) if layout is None else None  # None for a pipe: read once, by the replay
     grid = case.site.grid(case.headings)
     sensors = SensorSet(case.site, grid, case.sensors)
     policy = Policy(**case.run.policy)
@@ -224,20 +234,21 @@ def inspect_log(
         )
         for b in backends
     }
-    found = Inspection(str(log_path), case.site.name, tuple(backends), truth=truth_path is not None)
+    found = Inspection(str(log_path), case.site.name, tuple(backends), truth=scored)
     position = ReadPosition()
     truth_rows: list[SetAside] = []
-    truth = _TruthCursor(iter_truth(truth_path, truth_rows)) if truth_path is not None else None
+    truth = _TruthCursor(recording.truth(truth_path, layout, truth_rows)) if scored else None
     found.start = _place_start(locs, start, truth)  # a start off the site is refused before anything is written
     out_dir.mkdir(parents=True, exist_ok=True)
     out = _Outputs(out_dir, frames)
     replay = _Replay(case, sensors, locs, policy, found, out)
     try:
-        records = iter_observations(log_path, on_set_aside=replay.set_aside, position=position)
-        for group in _ticks(records, found):
+        records = recording.observations(log_path, layout, replay.set_aside, position)
+        odometry = sensors.odometry.name if sensors.odometry else None
+        for group in _ticks(records, found, odometry, case.run.tick_s):
             replay.tick(group, truth)
             if progress is not None and found.ticks % 8 == 0:
-                progress(group[-1][0], total_lines)
+                progress(max(line for line, _ in group), total_lines)
     except KeyboardInterrupt:
         found.interrupted = True
         found.warnings.append(f"the replay was interrupted after {found.ticks:,} ticks: the report covers those only")
@@ -264,24 +275,23 @@ def inspect_log(
     return found
 
 
-def _ticks(records, found: Inspection):
-    """Group ``(line, observation)`` into ticks: a new tick at each odometry record, after MAX_TICK_S, or where
-    the clock restarted (the only place the reader lets time go back)."""
-    group: list[tuple[int, Observation]] = []
-    for line, obs in records:
-        found.records += 1
-        if group and (obs.kind == "odometry" or obs.t - group[0][1].t > MAX_TICK_S or obs.t < group[-1][1].t):
-            yield group
-            group = []
-        group.append((line, obs))
-    if group:
-        yield group
+def _ticks(records, found: Inspection, odometry: str | None, min_tick_s: float):
+    """The ticks of ``(line, observation)`` records (``fusion.io.ticks``), counting the records read."""
+
+    def counted():
+        for item in records:
+            found.records += 1
+            yield item
+
+    yield from form_ticks(counted(), lambda obs: obs.kind == "odometry" and obs.sensor == odometry, min_tick_s)
 
 
 def _place_start(locs: dict, start, truth) -> str:
     """Start every back end at the given pose, else at the first true pose, else anywhere in free space."""
     first = truth.first() if truth is not None else None
-    if start is not None:
+    if start == ANYWHERE:
+        first = None
+    elif start is not None:
         for loc in locs.values():
             loc.start_at(*start)
         return f"given pose ({start[0]:g}, {start[1]:g}) m, {start[2]:g}°"
@@ -291,6 +301,8 @@ def _place_start(locs: dict, start, truth) -> str:
         return f"first true pose ({first.x_m:g}, {first.y_m:g}) m, {first.heading_deg:g}°"
     for loc in locs.values():
         loc.start_anywhere()
+    if start == ANYWHERE:
+        return "anywhere in free space (--start anywhere)"
     return "anywhere in free space (no start pose and no truth file given)"
 
 
@@ -326,7 +338,7 @@ class _Replay:
         self.index: dict = {"t": [], "line": [], "truth": [], "est": defaultdict(list), "action": defaultdict(list)}
         self.series = {"t": array("d"), "episode": array("l")}
         for b in locs:
-            for key in ("conflict", "surprise", "jousselme", "error"):
+            for key in ("conflict", "surprise", "jousselme", "error", "heading_error"):
                 self.series[f"{key}:{b}"] = array("d")
         self.wall = None
         self.frame_shape = None
@@ -343,12 +355,13 @@ class _Replay:
     # ---------------------------------------------------------------- one tick
     def tick(self, group, truth) -> None:
         f = self.found
+        first = min(line for line, _ in group)  # a split odometry record comes first but may stand later in the log
         if f.ticks and group[0][1].t < f.duration_s:
             self.odometry_t = None
             for loc in self.locs.values():
                 loc.restart_clock()
             f.warnings.append(
-                f"line {group[0][0]}: the log's clock restarted (from {f.duration_s:g} s back to {group[0][1].t:g} s, "
+                f"line {first}: the log's clock restarted (from {f.duration_s:g} s back to {group[0][1].t:g} s, "
                 "confirmed by the records after it); odometry across the restart is not integrated"
             )
         odometry, readings, lines = None, [], {}
@@ -371,20 +384,20 @@ class _Replay:
         pose = truth.at(t) if truth is not None else None
         decisions = {b: loc.step(odometry, readings) for b, loc in self.locs.items()}
         conflict = {b: float(d.figures.get("conflict", 0.0)) for b, d in decisions.items()}
-        episode, closed = self.finder.add(tick, t, group[0][0], conflict)
+        episode, closed = self.finder.add(tick, t, first, conflict)
         planes = {b: self._plane(loc) for b, loc in self.locs.items()}
         if closed is not None:
             self._close(closed)
         if episode is not None:
             self._in_episode(episode, tick, decisions, readings, planes, pose)
         for b, d in decisions.items():
-            self._row(tick, t, group[0][0], b, d, len(readings), episode, pose)
+            self._row(tick, t, first, b, d, len(readings), episode, pose)
             if d.action != CARRY_ON:
                 act = (t, b, d.action, d.reasons[0] if d.reasons else "")
                 f.actions.append(act)
                 if episode is not None:
                     episode.actions.append(act)
-        self._frame(t, group[0][0], decisions, planes, pose)
+        self._frame(t, first, decisions, planes, pose)
         self.prev_planes = planes
 
     def _usable(self, obs: Observation) -> None:
@@ -486,6 +499,7 @@ class _Replay:
         s[f"surprise:{backend}"].append(float(fig.get("surprise", 0.0)))
         s[f"jousselme:{backend}"].append(float(fig.get("jousselme", 0.0)))
         s[f"error:{backend}"].append(err if err is not None else math.nan)
+        s[f"heading_error:{backend}"].append(herr if herr is not None else math.nan)
 
     def _frame(self, t, line, decisions, planes, pose) -> None:
         idx = self.index
@@ -516,6 +530,9 @@ class _Replay:
                 e = e[np.isfinite(e)]
                 if len(e):
                     f.errors[b] = (float(np.median(e)), float(np.percentile(e, 95)))
+                    h = f.series[f"heading_error:{b}"]
+                    f.heading_errors[b] = float(np.median(h[np.isfinite(h)]))
+                    f.found_after[b] = time_to_hold(f.series["t"], f.series[f"error:{b}"], h)
         self._site_check()
 
     def _site_check(self) -> None:
@@ -552,6 +569,7 @@ class _Replay:
             "shape": list(self.frame_shape) if self.frame_shape else [0, 0],
             "step": self.frame_step,
             "resolution_m": self.case.site.resolution_m,
+            "origin_m": list(self.case.site.origin_m),
             "wall": self.wall.astype(int).tolist() if self.wall is not None else [],
             "ticks": len(self.index["t"]),
             "t": self.index["t"],
@@ -601,12 +619,17 @@ def _reason_kind(reason: str) -> str:
     return next((kind for needle, kind in _REASON_KINDS if needle in reason), "other")
 
 
-def parse_start(text: str) -> tuple[float, float, float]:
-    """``x,y,heading_deg`` (metres, degrees) from the command line."""
+def parse_start(text: str) -> tuple[float, float, float] | str:
+    """``x,y,heading_deg`` (metres, degrees) from the command line, or ``anywhere`` (``ANYWHERE``: start from
+    ignorance even when a truth file is given, to score a localization from an unknown start)."""
+    if text.strip().lower() == ANYWHERE:
+        return ANYWHERE
     try:
         x, y, h = (float(v) for v in text.split(","))
     except ValueError:
-        raise ObservationError(f"--start must be x,y,heading_deg in metres and degrees, got {text!r}") from None
+        raise ObservationError(
+            f"--start must be x,y,heading_deg in metres and degrees, or 'anywhere', got {text!r}"
+        ) from None
     if not all(math.isfinite(v) for v in (x, y, h)):
         raise ObservationError(f"--start must be finite numbers, got {text!r}")
     return x, y, h

@@ -8,6 +8,7 @@ from rich.text import Text
 
 from fusion import SAFETY_NOTICE
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
+from fusion.scoring import HOLD_S, WITHIN_DEG, WITHIN_M
 from fusion.text import literal, plain
 
 __all__ = ["summary_renderables", "EPISODE_ROWS"]
@@ -42,6 +43,13 @@ def summary_renderables(found):
         head.add_row(
             "true error",
             "; ".join(f"{b}: median {m:.2f} m, 95th percentile {p:.2f} m" for b, (m, p) in found.errors.items()),
+        )
+        head.add_row("heading error", "; ".join(f"{b}: median {v:.1f}°" for b, v in found.heading_errors.items()))
+    if found.found_after and found.start.startswith("anywhere"):
+        head.add_row(
+            "found itself",
+            "; ".join(f"{b}: " + ("never" if v is None else f"after {v:.1f} s") for b, v in found.found_after.items())
+            + f" (the estimate then held within {WITHIN_M:g} m and {WITHIN_DEG:g}° for {HOLD_S:g} s or to the end)",
         )
     yield Panel(head, title="incident replay", border_style="blue")
     yield _episode_table(found)

@@ -37,6 +37,7 @@ __all__ = [
     "count_lines",
     "require_readable",
     "ReadPosition",
+    "text_lines",
 ]
 
 MAX_LINE_BYTES = 64 * 1024
@@ -89,7 +90,7 @@ _UTF16_BOMS = (b"\xff\xfe", b"\xfe\xff")
 _UTF8_BOM = b"\xef\xbb\xbf"
 
 
-def _lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, str | None, str]]:
+def text_lines(path, position: ReadPosition | None = None) -> Iterator[tuple[int, str | None, str]]:
     """``(line number, text, problem)`` read once from a file or a pipe.  ``text`` is None, and ``problem``
     says why, for a line that is over-long (skipped unread in blocks), not UTF-8 or holds NUL bytes.  A
     UTF-8 byte-order mark is dropped; UTF-16 or UTF-32 text with its mark is refused with what to do."""
@@ -218,7 +219,7 @@ def _released(verdicts, aside) -> Iterator[tuple[int, Observation]]:
 def _json_records(path, aside, position=None) -> Iterator[tuple[int, object, str]]:
     """``(line, JSON value, text)`` of every line; the value None for a line set aside (or blank), so the
     caller sees every line and can tell an input that is no log."""
-    for number, text, problem in _lines(path, position):
+    for number, text, problem in text_lines(path, position):
         rejected: list[SetAside] = []
         rec = _decode(number, text, problem, rejected)
         for row in rejected:
@@ -259,7 +260,7 @@ def _csv_records(path, aside, position=None) -> Iterator[tuple[int, object, str]
 
     header = None
     unknown: list[str] = []
-    for number, text, problem in _lines(path, position):
+    for number, text, problem in text_lines(path, position):
         if text is None:
             if header is None:
                 raise InputFileError(path, number, None, f"the header row is {problem}")
@@ -399,7 +400,7 @@ def iter_truth(
     set_aside = [] if set_aside is None else set_aside
     timeline = Timeline(hold=True, strict=True, restarts=False)
     usable = False
-    for number, text, problem in _lines(path, position):
+    for number, text, problem in text_lines(path, position):
         if not usable and number >= NOTHING_USABLE_LINES:
             _no_log(path, number, set_aside[-1:])
         rec = _decode(number, text, problem, set_aside)

@@ -34,6 +34,7 @@ from fusion.grid import PoseGrid
 from fusion.sensors.limits import require_valid
 
 __all__ = [
+    "split_reading",
     "OdometryParams",
     "OdometryReading",
     "Motion",
@@ -120,6 +121,20 @@ def moved_pose(x: float, y: float, heading_rad: float, r: OdometryReading) -> tu
         y + s * r.forward_m + c * r.left_m,
         heading_rad + math.radians(r.turn_deg),
     )
+
+
+def split_reading(r: OdometryReading, share: float) -> tuple[OdometryReading, OdometryReading]:
+    """Record ``r`` cut at ``share`` (0–1) of its time: the first part moves ``share`` of its translation
+    and turn (constant velocity over the record); the rest is the remaining move seen from where the first
+    part ends, so that the two composed (``moved_pose``) give exactly ``r``, and their path lengths and
+    turns add up to ``r``'s."""
+    share = min(max(share, 0.0), 1.0)
+    first = OdometryReading(r.forward_m * share, r.left_m * share, r.turn_deg * share)
+    a = math.radians(first.turn_deg)
+    c, s = math.cos(a), math.sin(a)
+    fx, fy = r.forward_m * (1 - share), r.left_m * (1 - share)
+    rest = OdometryReading(c * fx + s * fy, -s * fx + c * fy, r.turn_deg * (1 - share))
+    return first, rest
 
 
 def check_odometry_step(previous_t: float | None, t: float, sensor: str) -> None:
