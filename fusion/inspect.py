@@ -41,6 +41,7 @@ from fusion.errors import FusionError, ObservationError
 from fusion.io import recording
 from fusion.io.case import Case
 from fusion.io.logs import ReadPosition, SetAside, count_lines, require_readable
+from fusion.io.mcap_feed import CUT_REASON
 from fusion.io.observations import Observation
 from fusion.io.outdir import PartialFile, atomic_write
 from fusion.io.ticks import form_ticks
@@ -350,6 +351,8 @@ class _Replay:
         f.reasons[_reason_kind(row.reason)] += 1
         if len(f.first_set_aside) < 200:
             f.first_set_aside.append(row)
+        if row.reason.startswith(CUT_REASON):
+            f.warnings.append(row.reason)
         self.out.aside.write(json.dumps({"line": row.line, "reason": row.reason, "text": row.text}) + "\n")
 
     # ---------------------------------------------------------------- one tick

@@ -96,6 +96,8 @@ class Feed:
     stamp: str = "log"  # MCAP: "log" (the time the recorder wrote it) or "header" (the message's header stamp)
     line: int | None = None  # of the [[feeds]] table in the layout file, for messages
     where: str = ""  # "layout.toml, line 12" for messages
+    layout_path: str = ""
+    bearings: tuple[float, ...] = ()  # a ranging sensor's beam bearings in the case (degrees)
 
 
 @dataclass(frozen=True)
@@ -169,7 +171,10 @@ def load_layout(path, case) -> Layout:
             r.fail(w, "give either 'file' (a table) or 'topic' (in an MCAP recording), not both")
         topic = r.text(d, w, "topic") if "topic" in d else None
         file = _inside(r, d, w, folder) if "file" in d else None
-        odometry = r.text(d, w, "odometry", "steps", choices=tuple(ODOMETRY_FORMS)) if kind == "odometry" else "steps"
+        default_form = "steps" if topic is None else "poses"  # an odometry message carries the integrated pose
+        odometry = (
+            r.text(d, w, "odometry", default_form, choices=tuple(ODOMETRY_FORMS)) if kind == "odometry" else "steps"
+        )
         key = "fields" if topic is not None else "columns"
         if topic is not None and "columns" in d:
             r.fail((*w, "columns"), "an MCAP feed names message 'fields', not table 'columns'")
@@ -212,6 +217,8 @@ def load_layout(path, case) -> Layout:
                 r.text(d, w, "stamp", "log", choices=("log", "header")),
                 r.lines.get(w),
                 f"{path}, line {r.lines.get(w)}" if r.lines.get(w) else str(path),
+                str(path),
+                tuple(getattr(case.sensor(sensor).params, "bearings_deg", ())),
             )
         )
     truth = _truth(r, r.table(data, (), "truth", required=False), folder, time_unit)
@@ -267,6 +274,6 @@ def _inside(r: TomlReader, d: dict, w: tuple, folder: Path) -> Path:
     return path
 
 
-def refuse(layout: Layout, feed: Feed, problem: str) -> InputFileError:
+def refuse(feed: Feed, problem: str) -> InputFileError:
     """An error about ``feed`` that names the layout file and the feed's line."""
-    return InputFileError(layout.path, feed.line, f"feeds (sensor {feed.sensor!r})", problem)
+    return InputFileError(feed.layout_path, feed.line, f"feeds (sensor {feed.sensor!r})", problem)

@@ -20,7 +20,7 @@ from collections.abc import Iterator
 from pathlib import Path
 
 from fusion.errors import InputFileError
-from fusion.io.layout import Layout
+from fusion.io.layout import Layout, refuse
 from fusion.io.logs import ReadPosition, SetAside, iter_observations, iter_truth
 from fusion.io.timeline import Timeline
 
@@ -63,7 +63,7 @@ def _feed(feed, log, layout: Layout, aside) -> Iterator:
 
     path = feed.file if feed.file is not None else Path(log)
     if feed.file is None and (log is None or is_mcap(log)):
-        raise InputFileError(layout.path, feed.line, "file", f"the feed of {feed.sensor!r} names no file")
+        raise refuse(feed, "the feed names no file, and no table was given beside the layout")
     return feed_observations(feed, path, aside)
 
 
