@@ -14,7 +14,7 @@ from fusion.cli_args import (
     seed_value,
 )
 from fusion.cli_outputs import calibration_name, claim_output, known_rule, runs_in, where
-from fusion.errors import FusionError
+from fusion.errors import FusionError, InputFileError
 from fusion.io.outdir import release_unfinished, shorten
 from fusion.text import literal, plain
 
@@ -272,6 +272,11 @@ def _calibrate(args: argparse.Namespace) -> int:
     from fusion.io.outdir import atomic_write, writable_file
 
     case = load_case(args.site)
+    layout = _layout_of(args, case)
+    if args.truth is None and (layout is None or layout.truth is None):
+        raise InputFileError(
+            args.log, None, None, "calibration needs true poses: --truth FILE, or a log layout with [truth]"
+        )
     out = writable_file(args.out or calibration_name(args.log), args.replace, "calibration file")  # before the fit
     settings = FitSettings(
         method=args.method,
@@ -284,27 +289,40 @@ def _calibrate(args: argparse.Namespace) -> int:
     console = Console()
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
     with console.status("fitting…") as status:
-        result = calibrate(case, args.log, args.truth, settings, progress=lambda s: status.update(f"fitting {s}…"))
-    table = Table(title=f"Calibrated sensor parameters ({result.observations:,} readings, {result.poses:,} true poses)")
-    for col in ("sensor", "parameter", "in the case", "posterior mean", "90% interval", "R-hat", "ESS", "method"):
-        table.add_column(col, justify="left" if col in ("sensor", "parameter", "method") else "right")
+        result = calibrate(
+            case, args.log, args.truth, settings, progress=lambda s: status.update(f"fitting {s}…"), layout=layout
+        )
+    console.print(
+        f"[bold]Calibrated sensor parameters[/] ({result.observations:,} readings, {result.poses:,} true poses)"
+    )
+    longest = max((len(n) for e in result.summary for n in e["parameters"]), default=9)
     for entry in result.summary:
         spec = case.sensor(entry["sensor"])
+        method = "/".join(dict.fromkeys(entry["methods"]))
+        table = Table(title=f"{literal(entry['sensor'])} ({entry['kind']}, {method}, {entry['points']:,} points)")
+        for col in ("parameter", "case", "fitted", "90% interval", "R-hat", "ESS"):
+            # no cell is cut or wrapped: a shortened name cannot be looked up, a wrapped number is misread
+            table.add_column(
+                col,
+                justify="left" if col == "parameter" else "right",
+                no_wrap=True,
+                min_width=longest if col == "parameter" else None,
+            )
         rows = list(entry["parameters"].items())
         if entry["reliability"] is not None:
-            rows.append(("reliability", {"mean": entry["reliability"], "low": None, "high": None}))
-        for i, (name, s) in enumerate(rows):
+            rows.append(("reliability*", {"mean": entry["reliability"], "low": None, "high": None}))
+        for name, s in rows:
             table.add_row(
-                entry["sensor"] if i == 0 else "",
                 name,
-                f"{getattr(spec.params, name):.4g}",
-                f"{s['mean']:.4g}" + (" (5% bound)" if name == "reliability" else ""),
-                "" if s["low"] is None else f"{s['low']:.4g} – {s['high']:.4g}",
+                f"{getattr(spec.params, name.rstrip('*')):.3g}",
+                f"{s['mean']:.3g}",
+                "" if s["low"] is None else f"{s['low']:.3g}–{s['high']:.3g}",
                 _maybe(s.get("r_hat"), "{:.3f}"),
                 _maybe(s.get("ess"), "{:.0f}"),
-                "/".join(dict.fromkeys(entry["methods"])) if i == 0 else "",
             )
-    console.print(table)
+        console.print(table)
+    if any(e["reliability"] is not None for e in result.summary):
+        console.print("* reliability: the 5% lower credible bound of the share of readings the working model explains")
     for entry in result.summary:
         for w in entry["warnings"]:
             console.print(f"[yellow]warning[/] {literal(entry['sensor'])}: {literal(w)}")
@@ -315,12 +333,24 @@ def _calibrate(args: argparse.Namespace) -> int:
     if result.set_aside:
         console.print(f"{len(result.set_aside):,} rows set aside, first ones:")
         for path, s in result.set_aside[:5]:
-            console.print(f"  {literal(path)}:{s.line}: {literal(s.reason)}")
-    atomic_write(out, calibration_toml(result.summary, case.site.name, str(args.log), str(args.truth)))
+            console.print(f"  {literal(s.file or path)}:{s.line}: {literal(s.reason)}")
+    truth_name = str(args.truth) if args.truth else f"{args.log} ([truth] of the layout)"
+    atomic_write(out, calibration_toml(result.summary, case.site.name, str(args.log), truth_name))
     console.print(
         f"written to [bold]{literal(out)}[/]; use it with --calibration {literal(out)} (run, compare, stream)"
     )
     return 0
+
+
+def _layout_of(args: argparse.Namespace, case):
+    """The log layout of ``--layout``, or of the log itself when it is a layout (a ``.toml`` naming its tables)."""
+    if args.layout is None and str(args.log).lower().endswith(".toml"):
+        args.layout = args.log
+    if not args.layout:
+        return None
+    from fusion.io.layout import load_layout
+
+    return load_layout(args.layout, case)
 
 
 def _maybe(value, fmt: str) -> str:
@@ -362,13 +392,7 @@ def _inspect(args: argparse.Namespace) -> int:
     case = load_case(args.site)
     if args.calibration:
         case = apply_calibration(case, args.calibration)
-    layout = None
-    if args.layout is None and str(args.log).lower().endswith(".toml"):
-        args.layout = args.log  # a layout that names its tables is the recording itself
-    if args.layout:
-        from fusion.io.layout import load_layout
-
-        layout = load_layout(args.layout, case)
+    layout = _layout_of(args, case)
     start = parse_start(args.start) if args.start else None
     settings = {
         "log": where(args.log),
@@ -383,8 +407,7 @@ def _inspect(args: argparse.Namespace) -> int:
     }
     folder = claim_output(args, "inspect", args.log, settings, [case.run.rule])
     out_dir = folder.path
-    console = Console()
-    console.print(f"[dim]{SAFETY_NOTICE}[/]")
+    console = Console()  # the summary opens with the safety notice
     total = count_lines(args.log) if layout is None else None  # None for a pipe: it is read once, by the replay
     counter = "line {task.completed:,.0f}" + ("/{task.total:,.0f}" if total is not None else "")
     progress = _progress(console, "replaying", args.quiet, counter)
@@ -591,8 +614,14 @@ def _parser() -> argparse.ArgumentParser:
     cmp.add_argument("--calibration", help="calibration file: also run every setting with its sensor parameters")
     cmp.set_defaults(run=_compare)
     cal = commands.add_parser("calibrate", help="fit the sensor models' parameters to a log with known poses (pyro)")
-    cal.add_argument("log", help="observations, JSON lines (as fusion run writes them)")
-    cal.add_argument("--truth", required=True, help="true poses, JSON lines (t, x_m, y_m, heading_deg)")
+    cal.add_argument(
+        "log",
+        help="observations: JSON lines or CSV, or a robot's tables or MCAP file with --layout (docs/recordings.md)",
+    )
+    cal.add_argument("--layout", help="log layout (TOML): which tables or MCAP topics feed which sensor")
+    cal.add_argument(
+        "--truth", help="true poses, JSON lines (t, x_m, y_m, heading_deg); optional when the layout names them"
+    )
     cal.add_argument("--site", required=True, help="case file whose site and sensors to calibrate")
     cal.add_argument("--out", help="calibration file to write (default: <log>-calibrated.toml beside the log)")
     cal.add_argument("--replace", action="store_true", help="overwrite the calibration file if it exists")

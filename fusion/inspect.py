@@ -40,6 +40,7 @@ from fusion.episodes import Episode, EpisodeFinder, blame_shares
 from fusion.errors import FusionError, ObservationError
 from fusion.io import recording
 from fusion.io.case import Case
+from fusion.io.csv_cells import number_cell
 from fusion.io.logs import ReadPosition, SetAside, count_lines, require_readable
 from fusion.io.mcap_feed import CUT_REASON
 from fusion.io.observations import Observation
@@ -59,6 +60,9 @@ reported as probably recorded on another site (our choice; a few stray ids are n
 ANYWHERE = "anywhere"
 """``--start anywhere``: start from ignorance over free space, also when true poses are given."""
 SET_ASIDE_WARN = 0.05
+EPOCH_LIKE_S = 1e6
+"""A log whose clock starts past this many seconds (11.6 days) is stamped from an epoch; the views
+then count from its first tick (our choice)."""
 """A replay that sets aside this share of the log's lines or more says so as a warning (our choice)."""
 FRAME_WIDTH = 44
 """Character columns of the stored belief maps (what the scrubber draws)."""
@@ -107,7 +111,9 @@ class Inspection:
     records: int = 0  # observations that parsed
     used: int = 0  # readings both back ends absorbed
     ticks: int = 0
-    duration_s: float = 0.0
+    first_t: float | None = None  # the log's clock at its first tick and its last
+    last_t: float = 0.0
+    duration_s: float = 0.0  # the log's time covered (a clock restart adds nothing for its jump)
     set_aside: int = 0
     reasons: Counter = field(default_factory=Counter)
     first_set_aside: list = field(default_factory=list)  # first rows set aside, for the summary
@@ -126,6 +132,13 @@ class Inspection:
     series: dict = field(default_factory=dict)  # per-tick arrays for the plots (t, conflict per back end, …)
     maps: dict = field(default_factory=dict)  # episode number -> {"before"|"peak"|"end": {back end: plane}}
 
+    @property
+    def time_origin(self) -> float:
+        """What the views subtract from the log's times: its first time when the log is stamped by a clock
+        counting from an epoch (past ``EPOCH_LIKE_S``), so that 1248446289.23 reads 23.19 s; else 0, and
+        the views show the log's own times, as steps.csv holds them."""
+        return self.first_t if self.first_t is not None and abs(self.first_t) >= EPOCH_LIKE_S else 0.0
+
     def ranking(self) -> list[tuple[str, float]]:
         """Sensors by their share of the blame over all episodes, averaged over the back ends."""
         return blame_shares(self.blame)
@@ -142,6 +155,7 @@ class Inspection:
             "records": self.records,
             "readings_used": self.used,
             "ticks": self.ticks,
+            "first_t": self.first_t,
             "duration_s": round(self.duration_s, 6),
             "set_aside": self.set_aside,
             "set_aside_reasons": dict(self.reasons.most_common()),
@@ -259,7 +273,7 @@ def inspect_log(
     found.lines = position.lines
     replay.finish()
     for row in truth_rows:
-        found.warnings.append(f"truth file line {row.line} set aside: {row.reason}")
+        found.warnings.append(f"truth {row.where} set aside: {row.reason}")
         if len(found.warnings) > 20:
             break
     found.files = out.close()
@@ -353,18 +367,21 @@ class _Replay:
             f.first_set_aside.append(row)
         if row.reason.startswith(CUT_REASON):
             f.warnings.append(row.reason)
-        self.out.aside.write(json.dumps({"line": row.line, "reason": row.reason, "text": row.text}) + "\n")
+        record = {"line": row.line, "reason": row.reason, "text": row.text}
+        if row.file:
+            record["file"] = row.file
+        self.out.aside.write(json.dumps(record) + "\n")
 
     # ---------------------------------------------------------------- one tick
     def tick(self, group, truth) -> None:
         f = self.found
         first = min(line for line, _ in group)  # a split odometry record comes first but may stand later in the log
-        if f.ticks and group[0][1].t < f.duration_s:
+        if f.ticks and group[0][1].t < f.last_t:
             self.odometry_t = None
             for loc in self.locs.values():
                 loc.restart_clock()
             f.warnings.append(
-                f"line {first}: the log's clock restarted (from {f.duration_s:g} s back to {group[0][1].t:g} s, "
+                f"line {first}: the log's clock restarted (from {f.last_t:g} s back to {group[0][1].t:g} s, "
                 "confirmed by the records after it); odometry across the restart is not integrated"
             )
         odometry, readings, lines = None, [], {}
@@ -383,7 +400,11 @@ class _Replay:
         tick = f.ticks
         f.ticks += 1
         f.used += len(readings)
-        f.duration_s = t
+        if f.first_t is None:
+            f.first_t = t
+        elif t >= f.last_t:
+            f.duration_s += t - f.last_t
+        f.last_t = t
         pose = truth.at(t) if truth is not None else None
         decisions = {b: loc.step(odometry, readings) for b, loc in self.locs.items()}
         conflict = {b: float(d.figures.get("conflict", 0.0)) for b, d in decisions.items()}
@@ -396,7 +417,7 @@ class _Replay:
         for b, d in decisions.items():
             self._row(tick, t, first, b, d, len(readings), episode, pose)
             if d.action != CARRY_ON:
-                act = (t, b, d.action, d.reasons[0] if d.reasons else "")
+                act = (t, b, d.action, " | ".join(d.reasons))
                 f.actions.append(act)
                 if episode is not None:
                     episode.actions.append(act)
@@ -484,7 +505,7 @@ class _Replay:
             "surprise": fig.get("surprise", 0.0),
             "evidence_ratio": fig.get("evidence_ratio", 1.0),
             "action": d.action,
-            "reason": d.reasons[0] if d.reasons else "",
+            "reason": " | ".join(d.reasons),
             "blame": ";".join(f"{s}={v:.3f}" for s, v in d.blame[:3]),
             "quarantined": ";".join(d.quarantined),
             "episode": episode.number if episode is not None else "",
@@ -493,7 +514,7 @@ class _Replay:
             "error_m": err if err is not None else "",
             "heading_error_deg": herr if herr is not None else "",
         }
-        self.out.steps_csv.writerow({k: (_fmt(v) if isinstance(v, float) else v) for k, v in row.items()})
+        self.out.steps_csv.writerow({k: (_fmt(k, v) if isinstance(v, float) else v) for k, v in row.items()})
         s = self.series
         if backend == next(iter(self.locs)):
             s["t"].append(t)
@@ -593,13 +614,14 @@ def _write_summary(found: Inspection, out_dir: Path) -> None:
     found.files += ["episodes.json", "summary.json"]
 
 
-def _fmt(v: float) -> str:
-    return f"{v:.6g}" if math.isfinite(v) else ""
+def _fmt(key: str, v: float) -> str:
+    return number_cell(key, v) if math.isfinite(v) else ""
 
 
 _REASON_KINDS = (
     ("unknown sensor", "unknown sensor"),
     ("not on the map", "marker not on the map"),
+    ("the layout's not_markers", "id in the layout's not_markers"),
     ("is before the previous", "out of time order"),
     ("time outlier", "time outlier"),
     ("time step after the previous odometry", "odometry time step"),

@@ -50,7 +50,9 @@ def _plots(found, case) -> dict[str, bytes]:
 
     out: dict[str, bytes] = {}
     s = found.series
-    t = s.get("t", np.zeros(0))
+    o = found.time_origin
+    t = np.asarray(s.get("t", np.zeros(0))) - o
+    axis = "time in the log (s)" if not o else f"time from the log's first tick at {o:.2f} (s)"
     if len(t):
         fig, axes = plt.subplots(
             len(found.backends), 1, figsize=(10, 2.4 * len(found.backends) + 0.6), dpi=110, sharex=True
@@ -59,9 +61,9 @@ def _plots(found, case) -> dict[str, bytes]:
         for ax, b in zip(axes, found.backends):
             ax.plot(t, s[f"conflict:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"))
             for e in found.episodes:
-                ax.axvspan(e.start_t, max(e.end_t, e.start_t + 1e-3), color="#f2c14e", alpha=0.3, lw=0)
+                ax.axvspan(e.start_t - o, max(e.end_t, e.start_t + 1e-3) - o, color="#f2c14e", alpha=0.3, lw=0)
             for action, (marker, colour, label) in _ACTION_MARKS.items():
-                when = [a[0] for a in found.actions if a[1] == b and a[2] == action]
+                when = [a[0] - o for a in found.actions if a[1] == b and a[2] == action]
                 if when:
                     ax.scatter(when, [1.04] * len(when), marker=marker, color=colour, s=28, label=label, clip_on=False)
             ax.set_ylim(0, 1.08)
@@ -70,7 +72,7 @@ def _plots(found, case) -> dict[str, bytes]:
             ax.grid(alpha=0.3)
             if any(a[1] == b for a in found.actions):
                 ax.legend(fontsize=7, loc="upper right", ncol=3)
-        axes[-1].set_xlabel("time in the log (s); shaded: conflict episodes")
+        axes[-1].set_xlabel(f"{axis}; shaded: conflict episodes")
         out["conflict.png"] = png_of(fig)
         plt.close(fig)
     ranking = found.ranking()
@@ -103,9 +105,9 @@ def _plots(found, case) -> dict[str, bytes]:
         for b in found.backends:
             ax.plot(t, s[f"error:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"), label=b)
         for e in found.episodes:
-            ax.axvspan(e.start_t, max(e.end_t, e.start_t + 1e-3), color="#f2c14e", alpha=0.3, lw=0)
+            ax.axvspan(e.start_t - o, max(e.end_t, e.start_t + 1e-3) - o, color="#f2c14e", alpha=0.3, lw=0)
         ax.set_yscale("symlog", linthresh=0.5)
-        ax.set_xlabel("time in the log (s)")
+        ax.set_xlabel(axis)
         ax.set_ylabel("true position error (m)")
         ax.grid(alpha=0.3)
         ax.legend(fontsize=8)
@@ -118,11 +120,12 @@ def _maps(found, case, e) -> bytes:
     plt = pyplot()
 
     site = case.site
+    o = found.time_origin
     maps = found.maps[e.number]
     moments = [
-        ("before", f"before (t < {e.start_t:.2f} s)"),
-        ("peak", f"peak ({e.peak_t:.2f} s)"),
-        ("end", f"end ({e.end_t:.2f} s)"),
+        ("before", f"before (t < {e.start_t - o:.2f} s)"),
+        ("peak", f"peak ({e.peak_t - o:.2f} s)"),
+        ("end", f"end ({e.end_t - o:.2f} s)"),
     ]
     fig, axes = plt.subplots(
         len(found.backends), 3, figsize=(11, 2.6 * len(found.backends) + 0.8), dpi=100, squeeze=False
@@ -158,6 +161,7 @@ def _maps(found, case, e) -> bytes:
 
 def _html(found, images: dict[str, bytes]) -> str:
     e = html.escape
+    o = found.time_origin
     warn = "".join(f'<p class="warning">{e(w)}</p>' for w in found.warnings)
     aside = ", ".join(f"{n:,} {e(kind)}" for kind, n in found.reasons.most_common()) or "none"
     errors = "".join(
@@ -171,7 +175,7 @@ def _html(found, images: dict[str, bytes]) -> str:
         acts = "<br>".join(
             f"{e(b)}: "
             + ", ".join(
-                f"{e(a.split()[0])} {ep.acted(b, a):.2f} s"
+                f"{e(a.split()[0])} {ep.acted(b, a) - o:.2f} s"
                 for a in (ALERT, RELOCALIZE, QUARANTINE)
                 if ep.acted(b, a) is not None
             )
@@ -180,7 +184,7 @@ def _html(found, images: dict[str, bytes]) -> str:
         )
         peaks = "".join(f"<td>{ep.peak.get(b, 0.0):.3f}</td>" for b in found.backends)
         rows.append(
-            f"<tr><td>{ep.number}</td><td>{ep.start_t:.2f}</td><td>{ep.peak_t:.2f}</td><td>{ep.end_t:.2f}</td>"
+            f"<tr><td>{ep.number}</td><td>{ep.start_t - o:.2f}</td><td>{ep.peak_t - o:.2f}</td><td>{ep.end_t - o:.2f}</td>"
             f"<td>{ep.start_line}</td><td>{ep.ticks}</td>{peaks}<td>{shares}</td><td>{pairs}</td><td>{acts}</td></tr>"
         )
     peak_head = "".join(f"<th>peak K {e(b)}</th>" for b in found.backends)
@@ -188,7 +192,7 @@ def _html(found, images: dict[str, bytes]) -> str:
         f"<tr><td>{i}</td><td>{e(s)}</td><td>{v:.0%}</td></tr>" for i, (s, v) in enumerate(found.ranking(), 1)
     )
     listed = "".join(
-        f"<tr><td>{r.line}</td><td>{e(r.reason)}</td><td><code>{e(r.text)}</code></td></tr>"
+        f"<tr><td>{e(f'{r.file}:{r.line}' if r.file else str(r.line))}</td><td>{e(r.reason)}</td><td><code>{e(r.text)}</code></td></tr>"
         for r in found.first_set_aside
     )
     more = (
@@ -205,7 +209,7 @@ Start: {e(found.start)}. Rows set aside: {found.set_aside:,} ({aside}).{" <b>Int
 <p>An episode opens when a back end's conflict K reaches the policy's threshold and closes after
 {QUIET_TICKS} calm ticks. Blame: how much leaving a sensor's reading out lowers the tick's conflict, summed over the
 episode, as a share per back end, averaged. Pairwise: mean conflict K between two sensors' readings.
-The terminal shows the {EPISODE_ROWS} most severe.</p>
+The terminal shows the {EPISODE_ROWS} most severe.{f" Times count from the log's first tick, at {o:.3f} s on its clock." if o else ""}</p>
 <table><tr><th>#</th><th>start (s)</th><th>peak (s)</th><th>end (s)</th><th>log line</th><th>ticks</th>{peak_head}
 <th>most to blame</th><th>pairwise conflict</th><th>first action (s)</th></tr>{"".join(rows)}</table>
 <h2>Sensors ranked by blame over all episodes</h2>

@@ -63,7 +63,8 @@ def _episode_table(found) -> Table:
         + (f", the {len(eps)} most severe shown" if len(found.episodes) > len(eps) else "")
     )
     table.add_column("#", justify="right")
-    table.add_column("start–end (s)", justify="right")
+    o = found.time_origin
+    table.add_column("start–end (s)" if not o else "start–end (s from the first tick)", justify="right")
     table.add_column("ticks", justify="right")
     table.add_column("peak K " + " / ".join(found.backends), justify="right")
     table.add_column("most to blame")
@@ -74,12 +75,14 @@ def _episode_table(found) -> Table:
         acts = []
         for b in found.backends:
             taken = [
-                f"{_SHORT[a]} {e.acted(b, a):.2f}" for a in (ALERT, RELOCALIZE, QUARANTINE) if e.acted(b, a) is not None
+                f"{_SHORT[a]} {e.acted(b, a) - o:.2f}"
+                for a in (ALERT, RELOCALIZE, QUARANTINE)
+                if e.acted(b, a) is not None
             ]
             acts.append(f"{b}: {', '.join(taken) or 'none'}")
         table.add_row(
             str(e.number),
-            f"{e.start_t:.2f}–{e.end_t:.2f}",
+            f"{e.start_t - o:.2f}–{e.end_t - o:.2f}",
             str(e.ticks),
             " / ".join(f"{e.peak.get(b, 0.0):.2f}" for b in found.backends),
             blame,

@@ -30,13 +30,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from fusion.at_fault import ReadingAtFault, TickReading, reading_at_fault
 from fusion.backends import BACKENDS, build
 from fusion.conflict import EvidenceAverages, pairwise_conflict, weight_of_conflict
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
 from fusion.monitor import ALERT, CARRY_ON, INFORMATIVE, QUARANTINE, RELOCALIZE, Monitor, Policy
-from fusion.sensors.base import Evidence
+from fusion.sensors.base import Evidence, SensorModel
 from fusion.sensors.doors import DoorSensor
 from fusion.sensors.markers import MarkerSensor
 from fusion.sensors.odometry import OdometryReading, OdometrySensor, Travel, check_odometry_step, moved_pose
@@ -57,7 +58,7 @@ class SensorSet:
     def __init__(self, site: SiteMap, grid: PoseGrid, specs):
         self.site, self.grid = site, grid
         self.kinds: dict[str, str] = {}
-        self.models: dict[str, object] = {}
+        self.models: dict[str, SensorModel] = {}
         self.odometry: OdometrySensor | None = None
         self._cache: dict[int, tuple] = {}
         for spec in specs:
@@ -70,6 +71,10 @@ class SensorSet:
                 self.models[spec.name] = MarkerSensor(spec.name, site, grid, spec.params)
             elif spec.kind == "door":
                 self.models[spec.name] = DoorSensor(spec.name, spec.door, site, grid, spec.params)
+
+    def explain(self, sensor: str, reading, x: float, y: float, heading_deg: float) -> str:
+        """What ``sensor``'s ``reading`` measured against what the map gives at the pose, in words."""
+        return self.models[sensor].explain(reading, x, y, heading_deg)
 
     def odd_rates(self) -> dict[str, float]:
         """Per sensor, the share of its readings its own error model says contradict the true pose."""
@@ -116,6 +121,8 @@ class Decision:
     seconds: float = 0.0
     # At an alert or a quarantine: Dempster's K between each two sensors' readings of the tick.
     pairs: list[tuple[str, str, float]] = field(default_factory=list)
+    # At an action: the blamed sensor's reading that conflicted most, against the estimate before the tick.
+    at_fault: ReadingAtFault | None = None
 
     def to_record(self) -> dict:
         def clean(v):
@@ -139,6 +146,13 @@ class Decision:
             "rejected": [{"sensor": s, "reason": r} for s, r in self.rejected],
             "seconds": round(self.seconds, 6),
             "pairwise_conflict": [[a, b, round(k, 6)] for a, b, k in self.pairs],
+            "reading_at_fault": None
+            if self.at_fault is None
+            else {
+                "sensor": self.at_fault.sensor,
+                "conflict": round(self.at_fault.conflict, 6),
+                "said": self.at_fault.said,
+            },
         }
 
 
@@ -240,7 +254,7 @@ class Localizer:
                     self._odometry_t = odometry.t
             except FusionError as err:
                 rejected.append((getattr(odometry, "sensor", "odometry"), str(err)))
-        encoded = []
+        encoded, given = [], []
         for obs in observations:
             try:
                 if not isinstance(obs, Observation):
@@ -249,6 +263,7 @@ class Localizer:
                     raise ObservationError("odometry goes in the first argument of step(), not among the readings")
                 when = self._check_time(obs.t)
                 encoded.append((obs.sensor, self.sensors.encode(obs)))
+                given.append(obs.reading)
                 t = max(t, when)
             except FusionError as err:
                 rejected.append((getattr(obs, "sensor", "?"), str(err)))
@@ -262,7 +277,7 @@ class Localizer:
         if pending is not None and (encoded or pending.path_m >= FLUSH_M or pending.turned_deg >= FLUSH_DEG):
             motion = self.sensors.odometry.motion(pending.reading, pending)
             self._pending = None
-        return self._absorb(t, motion, encoded, rejected, start)
+        return self._absorb(t, motion, encoded, rejected, start, given)
 
     def _check_time(self, t: float) -> float:
         if not math.isfinite(t):
@@ -271,7 +286,9 @@ class Localizer:
             raise ObservationError(f"out of time order: t = {t:g} s comes after t = {self.last_t:g} s")
         return t
 
-    def _absorb(self, t, motion, encoded, rejected, start) -> Decision:
+    def _absorb(self, t, motion, encoded, rejected, start, given=()) -> Decision:
+        """``given``: the readings of ``encoded`` as the sensors gave them, in the same order (named in
+        the reasons of an action); empty when unknown."""
         f = self.filter
         if motion is not None:
             f.predict(motion)
@@ -279,7 +296,7 @@ class Localizer:
         figures = self._calm_figures()
         tick_conflicting = False
         tick_clear = True
-        applied, undiscounted = [], []
+        applied, undiscounted, met = [], [], []
         clear_level = self.policy.clear_fraction * self.policy.conflict_k
         for sensor, evidence in encoded:
             original = evidence
@@ -310,6 +327,8 @@ class Localizer:
                 if sensor not in self.monitor.quarantined and ratio > self.policy.lost_ratio:
                     disagree, clear = True, False
             self.monitor.record_reading(sensor, disagree, self._informative(original))
+            if len(given) == len(encoded):
+                met.append(TickReading(sensor, given[len(met)], figure))
             if sensor not in self.monitor.quarantined:
                 tick_conflicting |= disagree
                 tick_clear &= clear
@@ -330,6 +349,11 @@ class Localizer:
         verdict = self.monitor.judge(tick_conflicting, calm, blame, moved, persistent is None or bool(persistent))
         if calm:
             self._episode.clear()
+        fault = None
+        if verdict.action in (ALERT, QUARANTINE, RELOCALIZE) and not moved:
+            fault = self._at_fault(before, met, verdict, blame)
+            if fault is not None:
+                verdict.reasons.append(fault.sentence())
         if verdict.action == RELOCALIZE and not moved:  # a move found elsewhere has re-seeded already
             self._relocalize()
         pairs = pairwise_conflict(undiscounted) if verdict.action in (ALERT, QUARANTINE) else []
@@ -337,10 +361,24 @@ class Localizer:
             a, b, k = pairs[0]
             verdict.reasons.append(f"of this tick's readings, {a} and {b} conflict most with each other (K {k:.2f})")
         return self._decision(
-            t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start, pairs
+            t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start, pairs, fault
         )
 
-    def _decision(self, t, action, reasons, figures, blame, quarantined, rejected, start, pairs=()) -> Decision:
+    def _at_fault(self, before, met, verdict, blame) -> ReadingAtFault | None:
+        """The reading at fault of an acting tick (``fusion.at_fault``), against the estimate before it."""
+        if not met:
+            return None
+        suspects = [s for s in verdict.newly] if verdict.action == QUARANTINE else []
+        suspects += [s for s, v in blame if v > 0]
+        ref = self.filter.fork()
+        ref.restore(before)
+        est = ref.pose_estimate()
+        pose = (est.x_m, est.y_m, math.degrees(est.heading_rad) % 360)
+        return reading_at_fault(met, suspects, self.sensors.explain, pose)
+
+    def _decision(
+        self, t, action, reasons, figures, blame, quarantined, rejected, start, pairs=(), fault=None
+    ) -> Decision:
         est = self.filter.pose_estimate()
         x, y, heading = est.x_m, est.y_m, est.heading_rad
         if self._pending is not None:  # carried along by the odometry not yet applied to the belief
@@ -361,6 +399,7 @@ class Localizer:
             rejected,
             time.perf_counter() - start,
             list(pairs),
+            fault,
         )
 
     def _unchanged(self, t, rejected, start) -> Decision:

@@ -73,6 +73,7 @@ class TickVerdict:
     conflicting: bool = False
     quarantined: tuple[str, ...] = ()
     released: tuple[str, ...] = ()
+    newly: tuple[str, ...] = ()  # sensors quarantined on this tick
 
 
 class Monitor:
@@ -147,6 +148,7 @@ class Monitor:
                     f"while the other sensors agreed; it is discounted until it agrees again"
                 )
             newly = [sensor for sensor, _, _ in newly]
+            verdict.newly = tuple(newly)
         if released:
             verdict.reasons.append(f"{', '.join(released)} agrees again; its quarantine is lifted")
         verdict.quarantined, verdict.released = tuple(sorted(self.quarantined)), tuple(released)

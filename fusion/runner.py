@@ -20,6 +20,7 @@ import numpy as np
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.io.case import Case
+from fusion.io.csv_cells import number_cell
 from fusion.io.outdir import atomic_write
 from fusion.localizer import Decision, Localizer, SensorSet
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Policy
@@ -202,7 +203,7 @@ def write_results(result: RunResult, out_dir) -> Path:
     writer = csv.DictWriter(buf, fieldnames=STEP_COLUMNS)
     writer.writeheader()
     for r in result.rows:
-        writer.writerow({k: (f"{v:.6g}" if isinstance(v, float) else v) for k, v in r.values.items()})
+        writer.writerow({k: (number_cell(k, v) if isinstance(v, float) else v) for k, v in r.values.items()})
     summary = result.summary()
     summary["events"] = result.events
     # Wall times go to their own file, so that summary.json is byte-identical for the same case and seed.

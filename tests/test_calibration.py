@@ -156,9 +156,11 @@ def test_calibrate_command_writes_a_file_the_case_reads(tmp_path, capsys):
     calibrated = apply_calibration(case, out)
     door = calibrated.sensor("contact").params
     assert 0 < door.false_alarm_rate < 0.5
-    # The test bay's route barely enters the door's zone: the hit rate stays uncertain, so the
-    # reliability is not derived from it and the case's is kept, with a warning.
-    assert door.reliability == case.sensor("contact").params.reliability and "says little" in text
+    # The test bay's route never enters the door's zone: the hit rate cannot be learned from this log,
+    # so it is not calibrated (the case's is kept, with a warning saying why), nor is the reliability.
+    assert door.hit_rate == case.sensor("contact").params.hit_rate
+    assert "hit_rate is not calibrated: the robot was never inside the door's contact zone" in " ".join(text.split())
+    assert door.reliability == case.sensor("contact").params.reliability
     ranger = calibrated.sensor("ranger").params
     assert ranger.z_hit + ranger.z_short + ranger.z_max + ranger.z_rand == pytest.approx(1.0, abs=1e-6)
     assert calibrated.sensor("wheels").params.sigma_per_m > 0

@@ -293,3 +293,56 @@ def test_the_actions_timeline_says_what_was_injected_at_each_action():
     whole.print(actions_timeline(result))
     late = f"{events[-1]['t']:.2f} s"  # one tick past the carry's window: no longer "just carried"
     assert "injected: nothing" in [line for line in whole.export_text().splitlines() if late in line][0]
+
+
+@pytest.mark.parametrize("backend", ["bayes", "evidential"])
+def test_an_alert_names_each_sensor_once_and_the_reading_at_fault(case, backend):
+    import re
+
+    from fusion.monitor import CARRY_ON
+    from fusion.sensors.markers import MarkerSighting
+
+    # Ticks 22-29: a camera that keeps reporting marker R-west 0.6 m dead ahead while the robot
+    # drives east along y = 1.5 m with R-west behind it.  The expected sighting is plane geometry
+    # (range = Euclidean distance, bearing = atan2 less the heading), checked against the true pose.
+    def ghost(t):
+        return Observation(t, "camera", "markers", MarkerSighting("R-west", 0.6, 0.0))
+
+    decisions = _replayed(case, backend, {i: [ghost] for i in range(22, 30)})
+    acted = [(i, d) for i, d in enumerate(decisions) if d.action != CARRY_ON]
+    assert acted, "a camera stuck on a ghost marker for 2 s must make the monitor act"
+    truths = [tick.truth for tick in simulate(case)]
+    for i, d in acted:
+        named = re.search(r"most to blame: ([^;|]*)", " ".join(d.reasons))
+        if named:
+            sensors = [part.split(" (")[0] for part in named.group(1).split(", ")]
+            assert len(sensors) == len(set(sensors)), d.reasons  # each sensor once
+        fault = d.at_fault
+        assert fault is not None and fault.sensor == "camera", d.reasons
+        assert "marker R-west measured at 0.60 m, +0°" in fault.said
+        assert any("reading at fault: camera, marker R-west" in r for r in d.reasons)
+        expected_m = float(re.search(r"expected at ([0-9.]+) m", fault.said).group(1))
+        truth = truths[i]
+        true_range = math.hypot(3.75 - truth.x_m, 3.0 - truth.y_m)
+        assert abs(expected_m - true_range) < 1.0  # from the estimate before the tick, within two cells
+        assert d.to_record()["reading_at_fault"]["sensor"] == "camera"
+
+
+def test_each_sensor_says_its_reading_against_a_pose(case):
+    import re
+
+    from fusion.localizer import SensorSet
+    from fusion.sensors.markers import MarkerMiss
+    from fusion.sensors.ranging import RangeScan
+
+    sensors = SensorSet(case.site, case.site.grid(case.headings), case.sensors)
+    # At (2, 1.5) facing east: the site's border wall fills its top row of cells (y ≥ 5.5 m), so it
+    # lies 4.0 m to the left (plane geometry); a 1.00 m return there is the beam furthest from the map.
+    said = sensors.explain("ranger", RangeScan((1.5, 6.0, 1.0)), 2.0, 1.5, 0.0)
+    first = re.match(r"beam at \+90° measured 1.00 m, expected ([0-9.]+) m", said)
+    assert case.site.occupied[-1].all() and not case.site.occupied[-2, 4]  # the premise holds
+    assert first and abs(float(first.group(1)) - 4.0) <= 0.125, said  # marched at a quarter cell
+    door = sensors.explain("contact", DoorReading(True), 4.75, 3.0, 0.0)
+    assert "fired" in door and "4.00 m from the door" in door  # |4.75 − 0.75| m
+    miss = sensors.explain("camera", MarkerMiss(), 2.0, 1.5, 0.0)
+    assert "R-east" in miss or "R-west" in miss

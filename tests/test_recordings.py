@@ -196,8 +196,8 @@ columns = {t = 1, active = 2}
     seen = [obs.reading for _, obs in got if obs.kind == "markers"]
     assert seen[0] == MarkerSighting("7", 2.5, math.degrees(0.1))
     assert len([o for _, o in got if o.kind == "door"]) == 2
-    reasons = " ".join(row.reason for row in aside)
-    assert "bump.csv" in reasons and "'active' must be true or false" in reasons
+    reasons = " ".join(f"{row.where}: {row.reason}" for row in aside)
+    assert "bump.csv:" in reasons and "'active' must be true or false" in reasons
     # marker 99 is read (it is the replay that sets aside a marker not on the map)
     assert any(r.marker_id == "99" for r in seen)
 

@@ -20,6 +20,10 @@ from fusion.errors import FusionError
 __all__ = ["Fit", "FitSettings", "fit_sensor", "NUTS_MAX_POINTS", "require_pyro"]
 
 NUTS_MAX_POINTS = 20_000
+MIN_TRAVEL_M = 5.0
+MIN_TURN_DEG = 360.0
+"""Least driving and turning from which odometry noise per metre and per turn is learned (our choice: a few
+windows' worth; less leaves the posterior to the prior)."""
 RHAT_WARN = 1.05
 """Split R-hat above this means the chains disagree (Gelman et al. 2013 suggest 1.1; we are stricter)."""
 ESS_WARN = 100
@@ -46,6 +50,7 @@ class Fit:
     diagnostics: dict[str, dict] = field(default_factory=dict)  # parameter -> {"r_hat", "ess"}
     elbo: list[float] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
+    unidentified: dict[str, str] = field(default_factory=dict)  # parameter -> why this log cannot teach it
 
 
 def require_pyro():
@@ -72,18 +77,38 @@ def _door_model(inside, active):
         pyro.sample("active", dist.Bernoulli(probs=p), obs=active)
 
 
-def _marker_detection_model(visible, outcome):
+def _marker_model(visible, outcome, dr, db, false_density):
+    """Detection and noise of a marker camera in one model, false readings as a mixture component.
+
+    Every firing is a miss, a sighting of a marker in view (with range and bearing residuals
+    ``dr``, ``db`` against the truth), or a sighting no marker in view explains.  A working firing
+    (probability 1 − false_rate) sees a marker in view with probability p_detect, its residuals
+    Gaussian (σ_range, σ_bearing); a false firing (false_rate) gives a reading spread uniformly
+    over the sensor's range and field of view (density ``false_density`` per metre and degree),
+    whatever marker id it names.  So a sighting far off its marker is counted as false, not as a
+    wider σ (the usual mixture treatment of outliers; Thrun, Burgard & Fox 2005, §6.3, does the
+    same for range beams)."""
     import pyro
     import pyro.distributions as dist
     import torch
 
     p_detect = pyro.sample("p_detect", dist.Beta(1.0, 1.0))
     false_rate = pyro.sample("false_rate", dist.Beta(1.0, 1.0))
-    seen = torch.stack([(1 - false_rate) * (1 - p_detect), (1 - false_rate) * p_detect, false_rate])
-    unseen = torch.stack([1 - false_rate, torch.zeros(()), false_rate])
-    probs = torch.where(visible[:, None], seen[None, :], unseen[None, :])
-    with pyro.plate("firings", len(outcome)):
-        pyro.sample("outcome", dist.Categorical(probs=probs), obs=outcome)
+    shape, scale = NOISE_PRIORS["sigma_range_m"]
+    var_r = pyro.sample("sigma_range_m_variance", dist.InverseGamma(shape, scale))
+    shape, scale = NOISE_PRIORS["sigma_bearing_deg"]
+    var_b = pyro.sample("sigma_bearing_deg_variance", dist.InverseGamma(shape, scale))
+    miss = torch.where(visible & (outcome == 0), (1 - false_rate) * (1 - p_detect), 1 - false_rate)
+    log_p = torch.where(outcome == 0, torch.log(miss), torch.log(false_rate).expand(outcome.shape))
+    pyro.factor("firings", log_p[outcome != 1].sum())
+    if len(dr):
+        working = (
+            torch.log((1 - false_rate) * p_detect)
+            + dist.Normal(0.0, var_r.sqrt()).log_prob(dr)
+            + dist.Normal(0.0, var_b.sqrt()).log_prob(db)
+        )
+        spurious = torch.log(false_rate) + math.log(false_density)
+        pyro.factor("sightings", torch.logaddexp(working, spurious).sum())
 
 
 NOISE_PRIORS = {"sigma_range_m": (2.0, 0.02), "sigma_bearing_deg": (2.0, 10.0)}
@@ -209,7 +234,7 @@ def _run(model, args, points: int, settings: FitSettings, sensor: str, kind: str
     return fit
 
 
-_OBSERVED = {"active", "outcome", "residual", "forward", "turn"}
+_OBSERVED = {"active", "outcome", "residual", "forward", "turn"}  # sampled sites that hold data, not parameters
 
 
 def _worst(values, pick) -> float:
@@ -225,32 +250,36 @@ def fit_sensor(name: str, kind: str, data, settings: FitSettings = FitSettings()
     torch.set_default_dtype(torch.float64)
     t = lambda a, dtype=torch.float64: torch.as_tensor(np.asarray(a), dtype=dtype)  # noqa: E731
     if kind == "door":
-        return [_run(_door_model, (t(data.inside, torch.bool), t(data.active)), len(data.active), settings, name, kind)]
+        fit = _run(_door_model, (t(data.inside, torch.bool), t(data.active)), len(data.active), settings, name, kind)
+        if not data.inside.any():
+            fit.unidentified["hit_rate"] = "the robot was never inside the door's contact zone in this log"
+        if data.inside.all():
+            fit.unidentified["false_alarm_rate"] = "the robot was never outside the door's contact zone in this log"
+        return [fit]
     if kind == "markers":
-        fits = [
-            _run(
-                _marker_detection_model,
-                (t(data.visible, torch.bool), t(data.outcome, torch.int64)),
-                len(data.outcome),
-                settings,
-                name,
-                kind,
+        args = (
+            t(data.visible, torch.bool),
+            t(data.outcome, torch.int64),
+            t(data.range_residual_m),
+            t(data.bearing_residual_deg),
+            data.false_density,
+        )
+        fit = _run(_marker_model, args, len(data.outcome), settings, name, kind)
+        for param in ("sigma_range_m", "sigma_bearing_deg"):
+            fit.draws[param] = np.sqrt(fit.draws.pop(f"{param}_variance"))
+            # R-hat and ESS of the variance stand for σ too (a monotone transform of the same draws).
+            diag = fit.diagnostics.pop(f"{param}_variance", None)
+            if diag is not None:
+                fit.diagnostics[param] = diag
+        if not (data.visible & (data.outcome == 0)).any():
+            fit.unidentified["p_detect"] = (
+                "the log has no 'looked, saw nothing' record while a marker was in view, so how often the sensor "
+                "misses cannot be learned from it"
             )
-        ]
-        for param, residual in (
-            ("sigma_range_m", data.range_residual_m),
-            ("sigma_bearing_deg", data.bearing_residual_deg),
-        ):
-            if len(residual) >= 2:
-                shape, scale = NOISE_PRIORS[param]
-                fit = _run(noise_model, (t(residual), param, shape, scale), len(residual), settings, name, kind)
-                fit.draws[param] = np.sqrt(fit.draws.pop(f"{param}_variance"))
-                # R-hat and ESS of the variance stand for σ too (a monotone transform of the same draws).
-                variance_diag = fit.diagnostics.pop(f"{param}_variance", None)
-                if variance_diag is not None:
-                    fit.diagnostics[param] = variance_diag
-                fits.append(fit)
-        return fits
+        if len(data.range_residual_m) < 2:
+            for param in ("sigma_range_m", "sigma_bearing_deg"):
+                fit.unidentified[param] = "fewer than two sightings of a marker in view"
+        return [fit]
     if kind == "ranging":
         fit = _run(
             _range_model,
@@ -267,5 +296,11 @@ def fit_sensor(name: str, kind: str, data, settings: FitSettings = FitSettings()
         return [fit]
     if kind == "odometry":
         args = (t(data.measured_forward_m), t(data.true_forward_m), t(data.measured_turn_deg), t(data.true_turn_deg))
-        return [_run(_odometry_model, args, len(data.measured_forward_m), settings, name, kind)]
+        fit = _run(_odometry_model, args, len(data.measured_forward_m), settings, name, kind)
+        if np.abs(data.true_forward_m).sum() < MIN_TRAVEL_M:
+            for param in ("sigma_per_m", "turn_sigma_per_m_deg"):
+                fit.unidentified[param] = f"the robot drove less than {MIN_TRAVEL_M:g} m in this log"
+        if np.abs(data.true_turn_deg).sum() < MIN_TURN_DEG:
+            fit.unidentified["turn_sigma_per_turn"] = f"the robot turned less than {MIN_TURN_DEG:g}° in this log"
+        return [fit]
     raise FusionError(f"no calibration model for sensor kind {kind!r}")

@@ -57,8 +57,10 @@ def summarise_fits(fits) -> list[dict]:
         entry["methods"].append(fit.method)
         entry["points"] += fit.points
         entry["warnings"] += fit.warnings
+        for name, why in fit.unidentified.items():
+            entry["warnings"].append(f"{name} is not calibrated: {why}; the case's value is kept")
         for name in FITTED[fit.kind]:
-            if name in fit.draws:
+            if name in fit.draws and name not in fit.unidentified:
                 d = np.asarray(fit.draws[name], dtype=float).reshape(-1)
                 diag = fit.diagnostics.get(name, {})
                 entry["parameters"][name] = {
@@ -68,7 +70,10 @@ def summarise_fits(fits) -> list[dict]:
                     "r_hat": diag.get("r_hat", math.nan),
                     "ess": diag.get("ess", math.nan),
                 }
-        entry["_draws"] = {**entry.get("_draws", {}), **fit.draws}
+        entry["_draws"] = {
+            **entry.get("_draws", {}),
+            **{k: v for k, v in fit.draws.items() if k not in fit.unidentified},
+        }
     for entry in out.values():
         rel = reliability_draws(entry["kind"], entry.pop("_draws"))
         entry["reliability"] = None

@@ -8,9 +8,24 @@ from fusion.calibration.data import datasets
 from fusion.calibration.models import FitSettings, fit_sensor, require_pyro
 from fusion.calibration.output import summarise_fits
 from fusion.io.case import Case
-from fusion.io.logs import SetAside, read_observations, read_truth, require_records
+from fusion.io.logs import LogRead, ReadPosition, SetAside, held, read_observations, read_truth, require_records
 
 __all__ = ["Calibration", "calibrate"]
+
+
+def _read_recording(log_path, truth_path, layout) -> tuple[LogRead, LogRead]:
+    """Observations and true poses of a recording read through a layout, held in memory as a log's are."""
+    from fusion.io import recording
+
+    aside: list[SetAside] = []
+    position = ReadPosition()
+    records = held(recording.observations(log_path, layout, aside.append, position), log_path, "observations")
+    log = LogRead(str(log_path), records, aside, position.lines)
+    if truth_path is not None:
+        return log, read_truth(truth_path)
+    truth_aside: list[SetAside] = []
+    poses = held(recording.truth(None, layout, truth_aside), layout.path, "true poses")
+    return log, LogRead(str(layout.truth.file), poses, truth_aside, len(poses) + len(truth_aside))
 
 
 @dataclass
@@ -22,10 +37,17 @@ class Calibration:
     skipped: list[str]  # sensors with no reading in the log
 
 
-def calibrate(case: Case, log_path, truth_path, settings: FitSettings | None = None, progress=None) -> Calibration:
+def calibrate(
+    case: Case, log_path, truth_path, settings: FitSettings | None = None, progress=None, layout=None
+) -> Calibration:
+    """Fit the sensors of ``case`` on the log (our format, or a robot's recording through ``layout``) against
+    true poses (``truth_path``, or the layout's ``[truth]`` table when it is None)."""
     settings = settings or FitSettings()
     require_pyro()  # fail before reading a large log
-    log, truth = read_observations(log_path), read_truth(truth_path)
+    if layout is None:
+        log, truth = read_observations(log_path), read_truth(truth_path)
+    else:
+        log, truth = _read_recording(log_path, truth_path, layout)
     require_records(log, "observations")
     require_records(truth, "true poses")
     data = datasets(case, log.records, truth.records)

@@ -38,6 +38,7 @@ __all__ = [
     "require_readable",
     "ReadPosition",
     "text_lines",
+    "held",
 ]
 
 MAX_LINE_BYTES = 64 * 1024
@@ -57,6 +58,11 @@ class SetAside:
     line: int
     reason: str
     text: str  # the start of the line, for the report
+    file: str = ""  # the table or recording it is in, when a layout reads several (the line is in that file)
+
+    @property
+    def where(self) -> str:
+        return f"{self.file}:{self.line}" if self.file else f"line {self.line}"
 
 
 @dataclass(frozen=True)
@@ -338,11 +344,11 @@ def read_observations(path) -> LogRead:
     """Every observation of a log (JSON lines or CSV), in file order; bad lines are set aside."""
     set_aside: list[SetAside] = []
     position = ReadPosition()
-    records = _held(iter_observations(path, set_aside, position=position), path, "observations")
+    records = held(iter_observations(path, set_aside, position=position), path, "observations")
     return LogRead(str(path), records, set_aside, position.lines)
 
 
-def _held(rows, path, what: str) -> list:
+def held(rows, path, what: str) -> list:
     """The rows as a list, refusing more than ``MAX_HELD_RECORDS`` (memory must stay bounded)."""
     out = []
     for row in rows:
@@ -420,7 +426,7 @@ def read_truth(path) -> LogRead:
     """True poses of a JSON-lines truth file, in time order; bad lines are set aside."""
     set_aside: list[SetAside] = []
     position = ReadPosition()
-    records = _held(iter_truth(path, set_aside, position), path, "true poses")
+    records = held(iter_truth(path, set_aside, position), path, "true poses")
     return LogRead(str(path), records, set_aside, position.lines)
 
 

@@ -94,6 +94,7 @@ def topic_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obs
                         f"{CUT_REASON} at byte {fh.tell():,} of {size:,} ({problem}): the {seen:,} complete messages "
                         f"on {feed.topic} before it are replayed",
                         "",
+                        path.name,
                     )
                 )
                 return
@@ -108,12 +109,12 @@ def topic_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obs
             try:
                 decoded = decode(message.data)
             except Exception as err:  # noqa: BLE001 - one undecodable message costs that message only
-                aside(SetAside(number, f"{path.name}: message {number} on {feed.topic} cannot be decoded: {err}", ""))
+                aside(SetAside(number, f"message on {feed.topic} cannot be decoded: {err}", "", path.name))
                 continue
             try:
                 obs = reading.observation(schema.name if schema else "", decoded, message.log_time)
             except ObservationError as err:
-                aside(SetAside(number, f"{path.name}: message {number} on {feed.topic}: {err}", ""))
+                aside(SetAside(number, f"message on {feed.topic}: {err}", "", path.name))
                 continue
             if obs is not None:
                 yield number, obs

@@ -40,7 +40,9 @@ def observations(log, layout: Layout | None, on_set_aside, position: ReadPositio
             )
         yield from iter_observations(log, on_set_aside=on_set_aside, position=position)
         return
-    streams = [_ordered(_feed(feed, log, layout, on_set_aside), on_set_aside) for feed in layout.feeds]
+    streams = [
+        _ordered(_feed(feed, log, layout, on_set_aside), on_set_aside, _source(feed, log)) for feed in layout.feeds
+    ]
     for line, obs in heapq.merge(*streams, key=lambda item: item[1].t):
         if position is not None:
             position.lines += 1
@@ -67,22 +69,27 @@ def _feed(feed, log, layout: Layout, aside) -> Iterator:
     return feed_observations(feed, path, aside)
 
 
-def _ordered(rows, aside) -> Iterator:
+def _source(feed, log) -> str:
+    """The name of the file a feed reads, for set-aside rows."""
+    return Path(feed.file if feed.file is not None else log or "").name
+
+
+def _ordered(rows, aside, source: str) -> Iterator:
     """A feed's rows with times going back set aside (``fusion.io.timeline``; a feed's clock never restarts)."""
     timeline = Timeline(hold=True, restarts=False)
     for line, obs in rows:
         for verdict in timeline.offer(obs.t, (line, obs)):
-            yield from _kept(verdict, aside)
+            yield from _kept(verdict, aside, source)
     for verdict in timeline.flush():
-        yield from _kept(verdict, aside)
+        yield from _kept(verdict, aside, source)
 
 
-def _kept(verdict, aside) -> Iterator:
+def _kept(verdict, aside, source: str) -> Iterator:
     line, obs = verdict.item
     if verdict.accepted:
         yield line, obs
     else:
-        aside(SetAside(line, f"{obs.sensor}: {verdict.reason}", ""))
+        aside(SetAside(line, f"{obs.sensor}: {verdict.reason}", "", source))
 
 
 def truth(path, layout: Layout | None, set_aside: list) -> Iterator:
@@ -93,19 +100,19 @@ def truth(path, layout: Layout | None, set_aside: list) -> Iterator:
         raise ValueError("no truth source")
     from fusion.io.tables import truth_poses
 
-    return _ordered_truth(truth_poses(layout.truth, set_aside.append), set_aside)
+    return _ordered_truth(truth_poses(layout.truth, set_aside.append), set_aside, layout.truth.file.name)
 
 
-def _ordered_truth(rows, set_aside) -> Iterator:
+def _ordered_truth(rows, set_aside, source: str) -> Iterator:
     timeline = Timeline(hold=True, strict=True, restarts=False)
     for line, pose in rows:
         for verdict in timeline.offer(pose.t, (line, pose)):
             if verdict.accepted:
                 yield verdict.item
             else:
-                set_aside.append(SetAside(line, verdict.reason, ""))
+                set_aside.append(SetAside(line, verdict.reason, "", source))
     for verdict in timeline.flush():
         if verdict.accepted:
             yield verdict.item
         else:
-            set_aside.append(SetAside(verdict.item[0], verdict.reason, ""))
+            set_aside.append(SetAside(verdict.item[0], verdict.reason, "", source))

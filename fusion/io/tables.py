@@ -36,7 +36,7 @@ def table_rows(path: Path, fmt: str, header: bool, comment: str, aside) -> Itera
     seen = 0
     for number, text, problem in text_lines(path):
         if text is None:
-            aside(SetAside(number, f"{path.name}: {problem}", ""))
+            aside(SetAside(number, problem, "", path.name))
             continue
         stripped = text.strip()
         if not stripped or (comment and stripped.startswith(comment)):
@@ -47,7 +47,7 @@ def table_rows(path: Path, fmt: str, header: bool, comment: str, aside) -> Itera
             try:
                 cells = next(csv.reader([text.rstrip("\r\n")], delimiter=delimiter, strict=True))
             except csv.Error as err:
-                aside(SetAside(number, f"{path.name}: not a {fmt} row: {err}", stripped[:80]))
+                aside(SetAside(number, f"not a {fmt} row: {err}", stripped[:80], path.name))
                 continue
         cells = [c.strip() for c in cells]
         if waiting_header:
@@ -111,7 +111,7 @@ def feed_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obse
         try:
             obs = _observation(feed, columns, cells, odometry)
         except ObservationError as err:
-            aside(SetAside(number, f"{path.name}: {err}", " ".join(cells)[:80]))
+            aside(SetAside(number, str(err), " ".join(cells)[:80], path.name))
             if not usable and number >= NOTHING_USABLE_LINES:
                 raise InputFileError(
                     path, number, None, f"none of the first {number:,} rows is usable ({err})"
@@ -185,7 +185,7 @@ def truth_poses(truth: TruthFeed, aside) -> Iterator[tuple[int, TruthPose]]:
             x, y = columns.number(cells, "x") * truth.length_unit, columns.number(cells, "y") * truth.length_unit
             heading = columns.number(cells, "heading")
         except ObservationError as err:
-            aside(SetAside(number, f"{truth.file.name}: {err}", " ".join(cells)[:80]))
+            aside(SetAside(number, str(err), " ".join(cells)[:80], truth.file.name))
             continue
         heading = heading if truth.angle_unit == "deg" else math.degrees(heading)
         yield number, TruthPose(t, x, y, heading)

@@ -92,12 +92,16 @@ class SensorModel(Protocol):
     """What every sensor model offers: a name, ``encode(reading) -> Evidence``, and ``odd_rate``: the
     share of a working sensor's readings that its own error model says contradict the true pose
     (false detections, misread identities, false alarms, misses); the monitor does not quarantine a
-    sensor for disagreeing about as often as that (``fusion.monitor``)."""
+    sensor for disagreeing about as often as that (``fusion.monitor``); ``explain(reading, x, y,
+    heading_deg)`` says in words what the reading measured against what the map gives at that pose
+    (the reading at fault in an alert)."""
 
     name: str
     odd_rate: float
 
     def encode(self, reading) -> Evidence: ...
+
+    def explain(self, reading, x: float, y: float, heading_deg: float) -> str: ...
 
 
 def contour_from_log(log_likelihood: np.ndarray) -> np.ndarray:

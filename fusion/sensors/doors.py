@@ -8,6 +8,7 @@ The reading says nothing about heading.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -57,6 +58,14 @@ class DoorSensor:
         p = self.params
         inside, outside = (p.hit_rate, p.false_alarm_rate) if active else (1 - p.hit_rate, 1 - p.false_alarm_rate)
         return self.grid.broadcast(np.where(self.zone, inside, outside))
+
+    def explain(self, reading, x: float, y: float, heading_deg: float) -> str:
+        """The contact against the position (x, y): how far that is from the door."""
+        active = getattr(reading, "active", reading)
+        d = self.door
+        away = math.hypot(x - d.x, y - d.y)
+        said = "fired" if active else "stayed quiet"
+        return f"door {d.name}'s contact {said}; the pose is {away:.2f} m from the door (zone radius {d.radius_m:g} m)"
 
     def encode(self, reading) -> Evidence:
         lik = self.likelihood(reading)

@@ -165,6 +165,30 @@ class MarkerSensor:
         uniform = 1.0 / (p.max_range_m * math.radians(p.fov_deg))
         return (1 - p.false_rate) * dens + p.false_rate * uniform
 
+    def explain(self, reading, x: float, y: float, heading_deg: float) -> str:
+        """The reading against the pose (x, y, heading): where the marker was seen and where it would be."""
+        if isinstance(reading, MarkerMiss):
+            seen = visible_markers(self.site, self.params, x, y, heading_deg)
+            if not seen:
+                return "saw no marker, and from there none is in view"
+            names = ", ".join(f"{m} at {r:.2f} m, {b:+.0f}°" for r, b, m in seen[:3])
+            return f"saw no marker, yet from there {names} would be in view"
+        k = self._index.get(reading.marker_id)
+        if k is None:
+            return f"marker {reading.marker_id} is not on the map"
+        m = self.site.markers[k]
+        r = math.hypot(m.x - x, m.y - y)
+        b = (math.degrees(math.atan2(m.y - y, m.x - x)) - heading_deg + 180.0) % 360.0 - 180.0
+        view = (
+            ""
+            if r <= self.params.max_range_m and abs(b) <= self.params.fov_deg / 2
+            else " (out of the camera's view from there)"
+        )
+        return (
+            f"marker {reading.marker_id} measured at {reading.range_m:.2f} m, {reading.bearing_deg:+.0f}°; "
+            f"expected at {r:.2f} m, {b:+.0f}°{view}"
+        )
+
     def encode(self, reading) -> Evidence:
         lik = self.likelihood(reading).reshape(-1)
         top = lik.max()

@@ -127,6 +127,22 @@ class RangeSensor:
     # whose beam a person blocks still allows the true pose, so its model declares no odd readings.
     odd_rate = 0.0
 
+    def explain(self, scan, x: float, y: float, heading_deg: float, beams: int = 2) -> str:
+        """The ``beams`` returns furthest from what the map gives at the pose (x, y, heading)."""
+        z, p = self._ranges(scan), self.params
+        rows = []
+        for measured, bearing in zip(z, p.bearings_deg):
+            expected = self.site.ray_range(x, y, math.radians(heading_deg + bearing), p.max_range_m)
+            rows.append((abs(min(measured, p.max_range_m) - expected), bearing, measured, expected))
+        rows.sort(key=lambda row: -row[0])
+
+        def said(m: float) -> str:
+            return "no return" if m >= p.max_range_m else f"{m:.2f} m"
+
+        return "; ".join(
+            f"beam at {bearing:+.0f}° measured {said(m)}, expected {said(e)}" for _, bearing, m, e in rows[:beams]
+        )
+
     def encode(self, scan) -> Evidence:
         z = self._ranges(scan)
         return Evidence(
