@@ -192,3 +192,62 @@ def test_a_bad_calibration_file_names_file_line_and_field(tmp_path):
     bad.write_text('[calibration]\n[[sensors]]\nname = "lidar"\nkind = "ranging"\n')
     with pytest.raises(InputFileError, match="no sensor 'lidar'"):
         apply_calibration(case, bad)
+
+
+# ----------------------------------------------------------------------------- what a log can teach
+@needs_pyro
+def test_false_sightings_are_fitted_as_a_mixture_component_not_a_wider_sigma():
+    # Data drawn from the camera model itself (fusion.sensors.markers: a firing is false with rate f and
+    # then uniform over range × field of view; else a detection with probability p_detect and Gaussian
+    # residuals): a fit of the right model covers the values it was drawn with (fake-data check, Gelman
+    # et al. 2013, Bayesian Data Analysis, §6; the 99% bounds here are our choice, four parameters at once).
+    from fusion.calibration.data import MarkerData
+
+    rng = np.random.default_rng(21)
+    n, f, p_detect, s_r, s_b = 800, 0.06, 0.85, 0.08, 1.0
+    false = rng.random(n) < f
+    seen = ~false & (rng.random(n) < p_detect)
+    outcome = np.where(false | seen, 1, 0)
+    dr = np.where(false, rng.uniform(-3.0, 3.0, n), rng.normal(0.0, s_r, n))[outcome == 1]
+    db = np.where(false, rng.uniform(-60.0, 60.0, n), rng.normal(0.0, s_b, n))[outcome == 1]
+    data = MarkerData(np.ones(n, bool), outcome, dr, db, 1.0 / (6.0 * 120.0))
+    assert dr.std() > 5 * s_r  # the premise: one Gaussian for all sightings would be five times too wide
+    (fit,) = fit_sensor("camera", "markers", data, FAST)
+    for name, truth in (("false_rate", f), ("p_detect", p_detect), ("sigma_range_m", s_r), ("sigma_bearing_deg", s_b)):
+        lo, hi = np.quantile(fit.draws[name], [0.005, 0.995])
+        assert lo <= truth <= hi, (name, lo, hi)
+    assert not fit.unidentified
+
+
+@needs_pyro
+def test_a_log_without_misses_leaves_the_detection_probability_uncalibrated():
+    from fusion.calibration.data import MarkerData
+
+    rng = np.random.default_rng(3)
+    dr, db = rng.normal(0, 0.1, 300), rng.normal(0, 2.0, 300)
+    data = MarkerData(np.ones(300, bool), np.ones(300, np.int64), dr, db, 1.0 / (6.0 * 120.0))
+    (fit,) = fit_sensor("camera", "markers", data, FitSettings(samples=200, warmup=100, chains=1, seed=1))
+    assert "p_detect" in fit.unidentified and "saw nothing" in fit.unidentified["p_detect"]
+    assert "sigma_range_m" not in fit.unidentified
+
+
+def test_odometry_noise_is_per_metre_whatever_the_record_rate():
+    # Independent per-record errors of variance a²·|d| add up over a window to a²·|D| (variances of
+    # independent errors add): windows of 0.5 s see the same noise per metre at 10 and at 50 records
+    # per second.  Checked on the data the fit sees, by the closed-form estimate Σ e² / Σ |D|.
+    from fusion.calibration.data import _odometry
+    from fusion.io.logs import TruthPose
+    from fusion.sensors.odometry import OdometryReading
+
+    a, speed = 0.05, 0.8  # m per √m; m/s
+    truth = [TruthPose(i / 100, speed * i / 100, 0.0, 0.0) for i in range(6001)]  # a minute of straight driving
+    for rate in (10, 50):
+        rng = np.random.default_rng(rate)
+        d = speed / rate
+        pairs = [
+            (None, OdometryReading(d + rng.normal(0.0, a * np.sqrt(d))), k / rate) for k in range(1, 60 * rate + 1)
+        ]
+        data = _odometry(None, None, pairs, truth)
+        assert len(data.true_forward_m) >= 100
+        estimate = np.sqrt(((data.measured_forward_m - data.true_forward_m) ** 2).sum() / data.true_forward_m.sum())
+        assert abs(estimate - a) < 0.2 * a, (rate, estimate)
