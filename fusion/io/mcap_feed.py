@@ -109,12 +109,17 @@ def topic_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obs
             try:
                 decoded = decode(message.data)
             except Exception as err:  # noqa: BLE001 - one undecodable message costs that message only
-                aside(SetAside(number, f"message on {feed.topic} cannot be decoded: {err}", "", path.name))
+                aside(SetAside(number, f"message on {feed.topic} cannot be decoded: {_said(err)}", "", path.name))
                 continue
             try:
                 obs = reading.observation(schema.name if schema else "", decoded, message.log_time)
+            except InputFileError:
+                raise
             except ObservationError as err:
                 aside(SetAside(number, f"message on {feed.topic}: {err}", "", path.name))
+                continue
+            except Exception as err:  # noqa: BLE001 - a message whose values are not what its type says
+                aside(SetAside(number, f"message on {feed.topic} cannot be read: {_said(err)}", "", path.name))
                 continue
             if obs is not None:
                 yield number, obs
@@ -125,10 +130,24 @@ def topic_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obs
             )
 
 
+def _said(err: Exception) -> str:
+    return f"{type(err).__name__}: {err}" if str(err) else type(err).__name__
+
+
 def _decoder(ros2, schema, channel, feed: Feed):
+    """The channel's decoder; a schema the library cannot parse (a damaged file) gives a decoder that
+    refuses every message with the reason, so each is set aside, never a traceback."""
     if channel.message_encoding == "json":
         return lambda data: json.loads(data)
-    decode = ros2.decoder_for(channel.message_encoding, schema)
+    try:
+        decode = ros2.decoder_for(channel.message_encoding, schema)
+    except Exception as err:  # noqa: BLE001 - whatever the schema parser raises
+        problem = f"its schema ({schema.name if schema else 'none'}) cannot be parsed: {_said(err)}"
+
+        def decode(data, problem=problem):
+            raise ValueError(problem)
+
+        return decode
     if decode is None:
         raise refuse(
             feed,

@@ -63,10 +63,9 @@ def _feed(feed, log, layout: Layout, aside) -> Iterator:
         return topic_observations(feed, Path(log), aside)
     from fusion.io.tables import feed_observations
 
-    path = feed.file if feed.file is not None else Path(log)
     if feed.file is None and (log is None or is_mcap(log)):
         raise refuse(feed, "the feed names no file, and no table was given beside the layout")
-    return feed_observations(feed, path, aside)
+    return feed_observations(feed, feed.file if feed.file is not None else Path(log), aside)
 
 
 def _source(feed, log) -> str:
