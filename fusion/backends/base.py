@@ -156,10 +156,25 @@ class Backend(Protocol):
 def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:
     """Number of cells in the smallest set holding ``level`` of ``p`` (most probable cells first)."""
     nz = p[p > 0]
-    if nz.size == 0:
+    n = nz.size
+    if n == 0:
         return 0
-    desc = np.sort(nz)[::-1]  # numpy's sort beat a log-bucketing scheme here (measured on 1.4 M cells)
-    return int(min(np.searchsorted(np.cumsum(desc), level * float(desc.sum()) * (1 - 1e-12)) + 1, desc.size))
+    target = level * float(nz.sum()) * (1 - 1e-12)
+    # A tracked belief holds its mass in a few hundred cells: a partial selection of the largest
+    # REGION_PROBE (linear time) and a sort of those settles it, a tenth of a full sort's cost on
+    # 1.4 M cells (measured).  The top k values, sorted, are the first k of the full sort (ties are
+    # equal values), so the count is the full sort's.  A spread belief falls back to the full sort.
+    if n > 2 * REGION_PROBE:
+        desc = np.sort(np.partition(nz, n - REGION_PROBE)[n - REGION_PROBE :])[::-1]
+        cum = np.cumsum(desc)
+        if cum[-1] >= target:
+            return int(np.searchsorted(cum, target) + 1)
+    desc = np.sort(nz)[::-1]
+    return int(min(np.searchsorted(np.cumsum(desc), target) + 1, n))
+
+
+REGION_PROBE = 4096
+"""Cells taken by the partial selection of ``region_size`` before it falls back to a full sort (our choice)."""
 
 
 def estimate_pose(grid: PoseGrid, p: np.ndarray) -> PoseEstimate:
