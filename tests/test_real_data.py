@@ -15,6 +15,7 @@ not fitted to this log.
 
 from __future__ import annotations
 
+import importlib.util
 import runpy
 import sys
 from pathlib import Path
@@ -75,3 +76,23 @@ def test_unknown_start_finds_itself_within_30_s(converted, tmp_path):
     assert found.start.startswith("anywhere")
     for backend in ("bayes", "evidential"):
         assert found.found_after[backend] is not None and found.found_after[backend] <= 30.0, found.found_after
+
+
+@pytest.mark.skipif(importlib.util.find_spec("pyro") is None, reason="needs the calibrate extra (pyro, torch)")
+def test_calibration_on_the_real_log_says_what_it_cannot_learn(converted):
+    # The data set logs sightings only, never "looked, saw nothing": the detection probability cannot be
+    # learned from it and must be reported so, not fitted to the prior's edge.  The sightings a few
+    # barcodes off (the data set's README: a few carry a wrong barcode) are a false share, so the
+    # range noise stays a camera's (under 0.2 m; the data set's authors give no figure: our bound).
+    from fusion.calibration.models import FitSettings
+    from fusion.calibration.pipeline import calibrate
+
+    out, case, layout = converted
+    result = calibrate(case, out / "layout.toml", None, FitSettings(samples=150, warmup=100, chains=1), layout=layout)
+    camera = next(entry for entry in result.summary if entry["sensor"] == "camera")
+    assert any(w.startswith("p_detect is not calibrated") for w in camera["warnings"]), camera["warnings"]
+    assert "p_detect" not in camera["parameters"]
+    assert camera["parameters"]["false_rate"]["low"] > 0.01  # the off sightings are counted as false
+    assert camera["parameters"]["sigma_range_m"]["high"] < 0.2, camera["parameters"]
+    wheels = next(entry for entry in result.summary if entry["sensor"] == "wheels")
+    assert set(wheels["parameters"]) == {"sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"}

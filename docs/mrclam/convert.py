@@ -19,7 +19,8 @@ The sensor parameters are generic guesses written before any replay, not fitted 
 run ``fusion calibrate`` on a log with its true poses to fit them.
 
     python docs/mrclam/convert.py DATA_FOLDER --robot 1 --out OUT [--seconds 150]
-    fusion inspect OUT/case.toml OUT/layout.toml --site OUT/case.toml
+    fusion inspect OUT/layout.toml --site OUT/case.toml
+    fusion calibrate OUT/layout.toml --site OUT/case.toml        # the truth comes from the layout
 """
 
 from __future__ import annotations
