@@ -13,7 +13,6 @@ line and field.
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 from fusion.errors import FusionError
 from fusion.io.toml_reader import TomlReader, finite_numbers
@@ -122,13 +121,6 @@ def on_map(r: TomlReader, where: tuple, site: SiteMap, x: float, y: float, what:
     """Refuse a point off the site's map, giving the map's extent."""
     if not site.contains(x, y):
         r.fail(where, f"{what} at ({x} m, {y} m) is off the map ({site.grid(1).spans()})")
-
-
-def case_folder(case_path: str) -> Path | None:
-    """The folder of the case file, or None for a case given as text (no file to be relative to)."""
-    if not case_path or case_path.startswith("<"):
-        return None
-    return Path(case_path).resolve().parent
 
 
 def free_point(r: TomlReader, where: tuple, site: SiteMap, p, what: str) -> None:

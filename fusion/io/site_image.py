@@ -67,9 +67,14 @@ def read_site_image(
         r.fail(w, str(err))
 
 
-def _inside_case_folder(r: TomlReader, d: dict, w: tuple, case_path: str) -> Path:
-    from fusion.io.site_file import case_folder
+def case_folder(case_path: str) -> Path | None:
+    """The folder of the case file, or None for a case given as text (no file to be relative to)."""
+    if not case_path or case_path.startswith("<"):
+        return None
+    return Path(case_path).resolve().parent
 
+
+def _inside_case_folder(r: TomlReader, d: dict, w: tuple, case_path: str) -> Path:
     text = r.text(d, w, "file")
     folder = case_folder(case_path)
     if folder is None:
