@@ -359,28 +359,3 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
             )
         )
     return rows
-
-
-def render(rows: list[BenchRow]):
-    from rich.table import Table
-
-    table = Table(title="Back-end cost as a ratio to a floor measured in the same run")
-    for col in ("grid", "back end", "operation", "best ms", "floor ms", "ratio", "peak memory", "note"):
-        table.add_column(col, justify="right" if col in ("best ms", "floor ms", "ratio", "peak memory") else "left")
-    for r in rows:
-        peak = "" if r.peak_copies is None else f"{r.peak_copies:.1f} beliefs"
-        table.add_row(
-            r.size,
-            r.backend,
-            r.operation,
-            f"{r.best_ms:.1f}",
-            f"{r.floor_ms:.2f}",
-            f"{r.ratio:.2f}×" if r.ratio < 10 else f"{r.ratio:.1f}×",
-            peak,
-            r.note,
-        )
-    table.caption = (
-        "floor: Bayes and evidential = one multiply-and-normalise pass; focal sets = bare AND of all "
-        "focal-set word pairs. Fastest of repeated runs after a warm-up; peak memory of one call via tracemalloc."
-    )
-    return table

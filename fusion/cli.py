@@ -44,7 +44,7 @@ def _run(args: argparse.Namespace) -> int:
     from fusion.io.case import load_case
     from fusion.runner import RESULT_FILES, run_case, write_results
     from fusion.simulate import simulate
-    from fusion.tui import RunView, actions_timeline, summary_table
+    from fusion.view.live import RunView, actions_timeline, summary_table
 
     case = load_case(args.case)  # validated before anything is written
     if getattr(args, "calibration", None):
@@ -91,7 +91,7 @@ def _check(args: argparse.Namespace) -> int:
     case = load_case(args.case)  # the same validation as every command: what passes here can run
     print(describe(case, args.case))
     if not args.no_preview:
-        from fusion.site_preview import preview_path, write_preview
+        from fusion.view.site_preview import preview_path, write_preview
 
         path = write_preview(case, args.preview or preview_path(args.case), args.replace)
         print(f"site drawn in {literal(path)} (walls, doors, markers{', route' if case.route else ''}; metres)")
@@ -103,9 +103,10 @@ def _bench(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.bench import SIZES, bench_localizer, render, run_bench
+    from fusion.bench import SIZES, bench_localizer, run_bench
     from fusion.bench_sweep import bench_sweep
-    from fusion.fidelity import measure_fidelity, render_fidelity
+    from fusion.fidelity import measure_fidelity
+    from fusion.view.tables import bench_table, fidelity_table
 
     console = Console(stderr=args.json)
     sizes = SIZES[:1] if args.quick else SIZES
@@ -121,8 +122,8 @@ def _bench(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps({"cost": [r.as_dict() for r in rows], "fidelity": [r.as_dict() for r in fidelity]}, indent=2))
     else:
-        console.print(render(rows))
-        console.print(render_fidelity(fidelity))
+        console.print(bench_table(rows))
+        console.print(fidelity_table(fidelity))
     return 0
 
 
@@ -131,7 +132,8 @@ def _targets(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.targets import ATTRIBUTION_CASES, FAULT_CASES, measure_attribution, measure_targets, render
+    from fusion.targets import ATTRIBUTION_CASES, FAULT_CASES, measure_attribution, measure_targets
+    from fusion.view.tables import targets_table
 
     console = Console(stderr=args.json)
     known = ATTRIBUTION_CASES if args.attribution else FAULT_CASES
@@ -161,7 +163,7 @@ def _targets(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps([r.__dict__ for r in rows], indent=1))
     else:
-        console.print(render(rows))
+        console.print(targets_table(rows))
     if interrupted:
         console.print(f"interrupted: the {len(rows)} verdicts above are the runs that finished")
         return 130
@@ -184,8 +186,8 @@ def _compare(args: argparse.Namespace) -> int:
         sweep_digest,
     )
     from fusion.compare import verdicts as verdicts_of
-    from fusion.compare_report import identity_words, tables, write_report
     from fusion.io.case import apply_calibration, load_case
+    from fusion.view.compare_report import identity_words, tables, write_report
 
     for path in (args.case, args.calibration):
         if path is not None and Path(path).exists() and not Path(path).is_file():
@@ -263,13 +265,13 @@ def _compare(args: argparse.Namespace) -> int:
 def _calibrate(args: argparse.Namespace) -> int:
 
     from rich.console import Console
-    from rich.table import Table
 
     from fusion.calibration.models import FitSettings
     from fusion.calibration.output import calibration_toml
     from fusion.calibration.pipeline import calibrate
     from fusion.io.case import load_case
     from fusion.io.outdir import atomic_write, writable_file
+    from fusion.view.tables import calibration_tables
 
     case = load_case(args.site)
     layout = _layout_of(args, case)
@@ -295,37 +297,7 @@ def _calibrate(args: argparse.Namespace) -> int:
     console.print(
         f"[bold]Calibrated sensor parameters[/] ({result.observations:,} readings, {result.poses:,} true poses)"
     )
-    longest = max((len(n) for e in result.summary for n in e["parameters"]), default=9)
-    for entry in result.summary:
-        spec = case.sensor(entry["sensor"])
-        method = "/".join(dict.fromkeys(entry["methods"]))
-        table = Table(title=f"{literal(entry['sensor'])} ({entry['kind']}, {method}, {entry['points']:,} points)")
-        for col in ("parameter", "case", "fitted", "90% interval", "R-hat", "ESS"):
-            # no cell is cut or wrapped: a shortened name cannot be looked up, a wrapped number is misread
-            table.add_column(
-                col,
-                justify="left" if col == "parameter" else "right",
-                no_wrap=True,
-                min_width=longest if col == "parameter" else None,
-            )
-        rows = list(entry["parameters"].items())
-        if entry["reliability"] is not None:
-            rows.append(("reliability*", {"mean": entry["reliability"], "low": None, "high": None}))
-        for name, s in rows:
-            table.add_row(
-                name,
-                f"{getattr(spec.params, name.rstrip('*')):.3g}",
-                f"{s['mean']:.3g}",
-                "" if s["low"] is None else f"{s['low']:.3g}–{s['high']:.3g}",
-                _maybe(s.get("r_hat"), "{:.3f}"),
-                _maybe(s.get("ess"), "{:.0f}"),
-            )
-        console.print(table)
-    if any(e["reliability"] is not None for e in result.summary):
-        console.print("* reliability: the 5% lower credible bound of the share of readings the working model explains")
-    for entry in result.summary:
-        for w in entry["warnings"]:
-            console.print(f"[yellow]warning[/] {literal(entry['sensor'])}: {literal(w)}")
+    console.print(*calibration_tables(result, case))
     if result.skipped:
         console.print(
             f"no readings in the log for: {literal(', '.join(result.skipped))} (their parameters are unchanged)"
@@ -351,12 +323,6 @@ def _layout_of(args: argparse.Namespace, case):
     from fusion.io.layout import load_layout
 
     return load_layout(args.layout, case)
-
-
-def _maybe(value, fmt: str) -> str:
-    import math
-
-    return "" if value is None or not math.isfinite(value) else fmt.format(value)
 
 
 def _stream(args: argparse.Namespace) -> int:
@@ -388,6 +354,8 @@ def _inspect(args: argparse.Namespace) -> int:
     from fusion.inspect import inspect_log, parse_start
     from fusion.io.case import apply_calibration, load_case
     from fusion.io.logs import count_lines
+    from fusion.view.inspect_report import write_report
+    from fusion.view.inspect_summary import summary_renderables
 
     case = load_case(args.site)
     if args.calibration:
@@ -422,12 +390,13 @@ def _inspect(args: argparse.Namespace) -> int:
             frames=not args.no_frames,
             progress=lambda line, lines: progress.update(task, completed=line, total=lines if total else None),
             layout=layout,
+            report=write_report,
         )
     folder.finish(found.files)
-    console.print(found)
+    console.print(*summary_renderables(found))
     console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(found.files)}")
     if args.scrub and not args.no_frames:
-        from fusion.scrub import scrub
+        from fusion.view.scrub import scrub
 
         scrub(out_dir, console)
     elif not args.no_frames:
@@ -438,7 +407,7 @@ def _inspect(args: argparse.Namespace) -> int:
 def _scrub(args: argparse.Namespace) -> int:
     from rich.console import Console
 
-    from fusion.scrub import scrub
+    from fusion.view.scrub import scrub
 
     scrub(args.folder, Console())
     return 0
@@ -448,13 +417,12 @@ def _soak(args: argparse.Namespace) -> int:
     import functools
     import json
 
-    from rich import box
     from rich.console import Console
-    from rich.table import Table
 
     from fusion.io.case import load_case
     from fusion.io.outdir import atomic_write
-    from fusion.soak import MEMORY_EVERY, SUM_TOLERANCE, soak_steps, soak_stream
+    from fusion.soak import soak_steps, soak_stream
+    from fusion.view.tables import soak_table
 
     case = load_case(args.case)
     if not 0 <= args.corrupt <= 1:
@@ -496,31 +464,7 @@ def _soak(args: argparse.Namespace) -> int:
         folder.finish(["soak.json"])
         if report.interrupted:
             break
-    table = Table(
-        title=f"soak of {literal(case.name)}: {'stream lines' if lines else 'localizer steps'}", box=box.SIMPLE_HEAD
-    )
-    for col in ("back end", "steps", "ms/step", "|Σ−1|", "min", "focal", "NaN", "rej.", "MiB"):
-        table.add_column(col, justify="right", no_wrap=True)
-    for r in records:
-        mem = r.memory_mb
-        table.add_row(
-            r.backend,
-            f"{r.steps:,}" + ("*" if r.interrupted else ""),
-            f"{r.seconds / max(r.steps, 1) * 1e3:.2f}",
-            f"{r.worst_sum_error:.0e}",
-            f"{r.lowest_value:.0e}",
-            f"{r.most_focal_sets}/{r.focal_bound}" if r.focal_bound else "–",
-            str(r.nan_decisions),
-            f"{r.rejected:,}",
-            f"{mem[1][1] if len(mem) > 2 else mem[0][1]:.0f}→{mem[-1][1]:.0f}",
-        )
-    console.print(table)
-    console.print(
-        f"|Σ−1|: worst distance of the belief's total from 1 (limit {SUM_TOLERANCE:g}); min: lowest mass or "
-        f"probability; focal: most focal sets / bound; rej.: rejected steps or lines; MiB: resident memory after the first {MEMORY_EVERY:,} "
-        f"steps (warm-up) → at the end{'; * interrupted' if any(r.interrupted for r in records) else ''}. "
-        f"Written to {out_dir / 'soak.json'}"
-    )
+    console.print(*soak_table(records, case.name, lines, out_dir))
     bad = [r for r in records if not r.ok]
     for r in bad:
         console.print(f"[red]{r.backend}: {r.violations} violations; first at {r.first_violation}[/]")

@@ -27,7 +27,7 @@ from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import OdometryParams, OdometryReading, OdometrySensor
 
-__all__ = ["FidelityRow", "measure_fidelity", "render_fidelity"]
+__all__ = ["FidelityRow", "measure_fidelity"]
 
 
 @dataclass(frozen=True)
@@ -116,18 +116,3 @@ def _identity_row(rng) -> FidelityRow:
         "TV",
         f"{grid.n_cells} cells, 50 predict/update cycles (Shafer 1976; exact up to rounding)",
     )
-
-
-def render_fidelity(rows: list[FidelityRow]):
-    from rich.table import Table
-
-    table = Table(title="Fidelity: evidential outputs against the exact mass function (small site)")
-    for col in ("output", "how the contour filter gets it", "distance", "measure", "where"):
-        table.add_column(col, justify="right" if col == "distance" else "left", overflow="fold")
-    for r in rows:
-        table.add_row(r.output, r.reading, f"{r.distance:.3g}", r.measure, r.note)
-    table.caption = (
-        "Largest distance over the ticks. Exact: the focal-set filter with no cap; readings are discounted "
-        "consonant contours on random levels per cell (a harsh case: real readings are smooth)."
-    )
-    return table

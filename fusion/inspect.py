@@ -35,6 +35,7 @@ from pathlib import Path
 import numpy as np
 
 from fusion import SAFETY_NOTICE, __version__
+from fusion.belief.coarse import coarse_plane
 from fusion.conflict import pairwise_conflict
 from fusion.episodes import Episode, EpisodeFinder, blame_shares
 from fusion.errors import FusionError, ObservationError
@@ -51,7 +52,6 @@ from fusion.monitor import CARRY_ON, Policy
 from fusion.scoring import time_to_hold
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step
-from fusion.tui import coarse_plane
 
 __all__ = ["Inspection", "inspect_log", "parse_start", "ANYWHERE", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
 MISMATCH_SHARE = 0.2
@@ -172,11 +172,6 @@ class Inspection:
             "interrupted": self.interrupted,
         }
 
-    def __rich_console__(self, console, options):
-        from fusion.inspect_view import summary_renderables
-
-        yield from summary_renderables(self)
-
 
 class _Outputs:
     """The replay's files, written as it goes under temporary names and renamed into place by ``close``."""
@@ -222,14 +217,16 @@ def inspect_log(
     start: tuple[float, float, float] | None = None,
     backends=("bayes", "evidential"),
     frames: bool = True,
-    report: bool = True,
+    report=None,
     progress=None,
     layout=None,
 ) -> Inspection:
     """Replay ``log_path`` on ``case``'s site and sensors; write the findings into ``out_dir``.
 
     ``progress(line, total_lines)`` is called every few ticks.  Ctrl-C ends the replay early: the
-    files and the report then cover the lines read so far (``Inspection.interrupted``).  ``layout`` (a
+    files and the report then cover the lines read so far (``Inspection.interrupted``).  ``report(found,
+    case, out_dir) -> file name`` draws the incident report (``fusion.view.inspect_report.write_report``;
+    None: no report), so that the job imports no view.  ``layout`` (a
     ``fusion.io.layout.Layout``) reads a robot's own recording; its ``[truth]`` table scores the replay
     when no ``truth_path`` is given."""
     began = time.perf_counter()
@@ -281,9 +278,7 @@ def inspect_log(
     found.seconds = time.perf_counter() - began
     _write_summary(found, out_dir)
     if report:
-        from fusion.inspect_report import write_report
-
-        found.files.append(write_report(found, case, out_dir))
+        found.files.append(report(found, case, out_dir))
     found.files.sort()
     if progress is not None:
         progress(found.lines, found.lines)

@@ -98,20 +98,6 @@ def measure_targets(
     return out
 
 
-def render(rows: list[TargetRow]):
-    from rich.table import Table
-
-    table = Table(title="Monitor targets on the fault cases")
-    for col in ("case", "back end", "runs", "success", "share"):
-        table.add_column(col, justify="right" if col in ("runs", "success", "share") else "left")
-    keys = sorted({(r.case, r.backend) for r in rows})
-    for case, backend in keys:
-        mine = [r for r in rows if r.case == case and r.backend == backend]
-        good = sum(r.success for r in mine)
-        table.add_row(case, backend, str(len(mine)), str(good), f"{good / len(mine):.0%}" if mine else "")
-    return table
-
-
 def measure_attribution(cases_dir, seeds, cases=tuple(ATTRIBUTION_CASES), progress=None, out=None) -> list[TargetRow]:
     """Simulate each case and seed, replay its log with ``inspect_log`` and check who is ranked first
     (``out`` and ``progress`` as for ``measure_targets``)."""

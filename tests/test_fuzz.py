@@ -30,8 +30,8 @@ from fusion.inspect import parse_start
 from fusion.io.case import apply_calibration, load_case, parse_case
 from fusion.io.logs import CSV_COLUMNS, MAX_LINE_BYTES, iter_observations, iter_truth
 from fusion.localizer import Localizer
-from fusion.scrub import Scrubber
 from fusion.stream import stream
+from fusion.view.scrub import Scrubber
 
 TINY = Path(__file__).parent / "data" / "tiny.toml"
 CASE_TEXT = TINY.read_text(encoding="utf-8")

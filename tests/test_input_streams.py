@@ -91,8 +91,8 @@ def _fifo_with(tmp_path: Path, text: str) -> Path:
 def test_a_log_through_a_pipe_is_replayed_whole(tmp_path, case, log_lines):
     text = "\n".join(log_lines) + "\n"
     (tmp_path / "file.jsonl").write_text(text)
-    expected = inspect_log(case, tmp_path / "file.jsonl", tmp_path / "a", frames=False, report=False)
-    piped = inspect_log(case, _fifo_with(tmp_path, text), tmp_path / "b", frames=False, report=False)
+    expected = inspect_log(case, tmp_path / "file.jsonl", tmp_path / "a", frames=False)
+    piped = inspect_log(case, _fifo_with(tmp_path, text), tmp_path / "b", frames=False)
     assert piped.records == expected.records == len(log_lines) and piped.lines == len(log_lines)
     assert piped.used == expected.used and piped.set_aside == 0
     os.unlink(tmp_path / "pipe.jsonl")
@@ -125,7 +125,7 @@ def test_one_mis_stamped_reading_is_set_aside_alone(tmp_path, case, log_lines, s
     aside: list = []
     got = list(iter_observations(path, aside))
     assert len(got) == len(log_lines) - 1 and [s.line for s in aside] == [k + 1]
-    found = inspect_log(case, path, tmp_path / "o", frames=False, report=False)
+    found = inspect_log(case, path, tmp_path / "o", frames=False)
     assert found.set_aside == 1 and found.records == len(log_lines) - 1
     # the stream refuses the same line and answers every other one as it would without it
     answers = _streamed(case, lines)
@@ -145,7 +145,7 @@ def _streamed(case, lines: list[str]) -> list[dict]:
 def test_a_clock_that_restarts_is_followed_not_fought(tmp_path, case, log_lines):
     path = tmp_path / "twice.jsonl"
     path.write_text("\n".join(log_lines + log_lines) + "\n")  # a second shift, its clock from 0 again
-    found = inspect_log(case, path, tmp_path / "o", frames=False, report=False)
+    found = inspect_log(case, path, tmp_path / "o", frames=False)
     assert found.set_aside == 0 and found.records == 2 * len(log_lines)
     assert any("clock restarted" in w for w in found.warnings)
     answers = _streamed(case, log_lines + log_lines)

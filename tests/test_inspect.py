@@ -22,8 +22,9 @@ from fusion.inspect import inspect_log
 from fusion.io.case import load_case
 from fusion.io.logs import CSV_COLUMNS, iter_observations
 from fusion.runner import log_text
-from fusion.scrub import scrub
 from fusion.simulate import simulate
+from fusion.view.inspect_report import write_report
+from fusion.view.scrub import scrub
 
 TINY = Path(__file__).parent / "data" / "tiny.toml"
 
@@ -120,7 +121,13 @@ def _corrupt(src: Path, dst: Path, share: float = 0.1) -> set[int]:
 
 def test_a_log_with_a_tenth_of_its_rows_corrupted_still_gives_a_report_listing_them(tiny_log, tmp_path):
     damaged = _corrupt(tiny_log / "log.jsonl", tmp_path / "bad.jsonl")
-    found = inspect_log(load_case(TINY), tmp_path / "bad.jsonl", tmp_path / "out", truth_path=tiny_log / "truth.jsonl")
+    found = inspect_log(
+        load_case(TINY),
+        tmp_path / "bad.jsonl",
+        tmp_path / "out",
+        truth_path=tiny_log / "truth.jsonl",
+        report=write_report,
+    )
     listed = {json.loads(line)["line"] for line in (tmp_path / "out" / "set_aside.jsonl").read_text().splitlines()}
     assert listed == damaged and found.set_aside == len(damaged)
     assert found.ticks > 50 and found.errors  # the replay went on, with the true error
@@ -135,7 +142,7 @@ def test_a_log_with_a_tenth_of_its_rows_corrupted_still_gives_a_report_listing_t
 def test_a_log_from_another_site_is_reported(tiny_log, tmp_path):
     text = (tiny_log / "log.jsonl").read_text().replace('"R-west"', '"Q-17"').replace('"R-east"', '"Q-18"')
     (tmp_path / "elsewhere.jsonl").write_text(text)
-    found = inspect_log(load_case(TINY), tmp_path / "elsewhere.jsonl", tmp_path / "out", frames=False, report=False)
+    found = inspect_log(load_case(TINY), tmp_path / "elsewhere.jsonl", tmp_path / "out", frames=False)
     assert found.warnings and "another site" in found.warnings[0]
     assert found.reasons["marker not on the map"] > 0
 
@@ -183,7 +190,13 @@ def test_blame_shares_weigh_each_back_end_alike():
 
 
 def test_scrubbing_moves_by_the_keys(tiny_log, tmp_path):
-    found = inspect_log(load_case(TINY), tiny_log / "log.jsonl", tmp_path / "out", truth_path=tiny_log / "truth.jsonl")
+    found = inspect_log(
+        load_case(TINY),
+        tiny_log / "log.jsonl",
+        tmp_path / "out",
+        truth_path=tiny_log / "truth.jsonl",
+        report=write_report,
+    )
     console = Console(file=io.StringIO(), width=130, record=True)
     view = scrub(tmp_path / "out", console, keys=iter(["l", "l", "]", "h", "G"]))
     assert view.tick == found.ticks - 1
@@ -204,7 +217,9 @@ def test_an_interrupted_replay_leaves_complete_files(tiny_log, tmp_path):
         if len(calls) == 3:
             raise KeyboardInterrupt
 
-    found = inspect_log(load_case(TINY), tiny_log / "log.jsonl", tmp_path / "out", progress=stop_after_a_while)
+    found = inspect_log(
+        load_case(TINY), tiny_log / "log.jsonl", tmp_path / "out", progress=stop_after_a_while, report=write_report
+    )
     assert found.interrupted and 0 < found.ticks < 77
     out = tmp_path / "out"
     steps = pd.read_csv(out / "steps.csv")
@@ -217,7 +232,7 @@ def test_an_interrupted_replay_leaves_complete_files(tiny_log, tmp_path):
 
 
 def test_without_a_truth_file_there_is_no_true_error(tiny_log, tmp_path):
-    found = inspect_log(load_case(TINY), tiny_log / "log.jsonl", tmp_path / "out", frames=False, report=False)
+    found = inspect_log(load_case(TINY), tiny_log / "log.jsonl", tmp_path / "out", frames=False)
     assert not found.errors and found.start.startswith("anywhere")
     assert json.loads((tmp_path / "out" / "summary.json").read_text())["true_error_m"] is None
 

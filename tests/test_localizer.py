@@ -269,7 +269,7 @@ def test_the_actions_timeline_says_what_was_injected_at_each_action():
 
     from fusion.compare import CARRY_WINDOW_TICKS
     from fusion.simulate import Tick, TruePose
-    from fusion.tui import actions_timeline
+    from fusion.view.live import actions_timeline
 
     truths = [TruePose(0.25 * i, 1.0, 1.0, 0.0) for i in range(40)]
     truths[4] = TruePose(1.0, 1.0, 1.0, 0.0, faults=("door: stuck",))

@@ -131,9 +131,7 @@ def drive(tmp_path_factory):
 def test_an_mcap_recording_gives_the_decisions_of_the_same_readings_in_json_lines(drive):
     root, case = drive
     layout = load_layout(root / "layout.toml", case)
-    a = inspect_log(
-        case, root / "log.jsonl", root / "from_json", truth_path=root / "truth.jsonl", frames=False, report=False
-    )
+    a = inspect_log(case, root / "log.jsonl", root / "from_json", truth_path=root / "truth.jsonl", frames=False)
     b = inspect_log(
         case,
         root / "drive.mcap",
@@ -163,7 +161,7 @@ def test_a_cut_recording_replays_its_complete_messages_and_says_where_it_was_cut
     cut.write_bytes(data[: len(data) // 2])
     (tmp_path / "layout.toml").write_text(LAYOUT)
     layout = load_layout(tmp_path / "layout.toml", case)
-    found = inspect_log(case, cut, tmp_path / "out", frames=False, report=False, layout=layout)
+    found = inspect_log(case, cut, tmp_path / "out", frames=False, layout=layout)
     assert 0 < found.used and found.duration_s < ticks[-1].truth.t
     cuts = [w for w in found.warnings if "the recording is cut at byte" in w]
     assert cuts and f"of {len(data) // 2:,}" in cuts[0], found.warnings
@@ -175,12 +173,12 @@ def test_an_absent_topic_or_field_and_a_file_that_is_no_mcap_are_refused(drive, 
     (tmp_path / "layout.toml").write_text(bad_topic)
     layout = load_layout(tmp_path / "layout.toml", case)
     with pytest.raises(InputFileError, match=r"layout.toml, line \d+: .*no messages on topic '/lidar' \(its topics: "):
-        inspect_log(case, root / "drive.mcap", tmp_path / "o1", frames=False, report=False, layout=layout)
+        inspect_log(case, root / "drive.mcap", tmp_path / "o1", frames=False, layout=layout)
     bad_field = LAYOUT.replace('marker = "id"', 'marker = "name"')
     (tmp_path / "layout.toml").write_text(bad_field)
     layout = load_layout(tmp_path / "layout.toml", case)
     with pytest.raises(InputFileError, match="have no field 'name'"):
-        inspect_log(case, root / "drive.mcap", tmp_path / "o2", frames=False, report=False, layout=layout)
+        inspect_log(case, root / "drive.mcap", tmp_path / "o2", frames=False, layout=layout)
     (tmp_path / "fake.mcap").write_text("hello\n")
     with pytest.raises(InputFileError, match="not an MCAP recording"):
-        inspect_log(case, tmp_path / "fake.mcap", tmp_path / "o3", frames=False, report=False, layout=layout)
+        inspect_log(case, tmp_path / "fake.mcap", tmp_path / "o3", frames=False, layout=layout)

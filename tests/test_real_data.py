@@ -56,7 +56,7 @@ def test_the_converted_case_keeps_the_surveyed_coordinates(converted):
 
 def test_known_start_meets_the_accuracy_targets(converted, tmp_path):
     out, case, layout = converted
-    found = inspect_log(case, out / "layout.toml", tmp_path / "known", layout=layout, frames=False, report=False)
+    found = inspect_log(case, out / "layout.toml", tmp_path / "known", layout=layout, frames=False)
     assert found.duration_s >= 120.0 and found.last_t - found.series["t"][0] >= 120.0
     # Only the other robots' barcodes are set aside: every row of the real tables is read.
     assert found.set_aside == len(found.first_set_aside) > 0
@@ -70,9 +70,7 @@ def test_known_start_meets_the_accuracy_targets(converted, tmp_path):
 
 def test_unknown_start_finds_itself_within_30_s(converted, tmp_path):
     out, case, layout = converted
-    found = inspect_log(
-        case, out / "layout.toml", tmp_path / "lost", layout=layout, start=ANYWHERE, frames=False, report=False
-    )
+    found = inspect_log(case, out / "layout.toml", tmp_path / "lost", layout=layout, start=ANYWHERE, frames=False)
     assert found.start.startswith("anywhere")
     for backend in ("bayes", "evidential"):
         assert found.found_after[backend] is not None and found.found_after[backend] <= 30.0, found.found_after

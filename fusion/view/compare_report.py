@@ -17,8 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from fusion.compare import FIGURES, Setting
-from fusion.html_page import figures_html, page, png_of, pyplot
 from fusion.io.outdir import atomic_write
+from fusion.view.html_page import figures_html, page, png_of, pyplot
 
 __all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame", "identity_words"]
 

@@ -16,11 +16,11 @@ from pathlib import Path
 import numpy as np
 
 from fusion.episodes import QUIET_TICKS
-from fusion.html_page import figures_html, page, png_of, pyplot
-from fusion.inspect_view import EPISODE_ROWS
 from fusion.io.outdir import atomic_write
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
-from fusion.tui import BACKEND_TITLES
+from fusion.view.html_page import figures_html, page, png_of, pyplot
+from fusion.view.inspect_summary import EPISODE_ROWS
+from fusion.view.live import BACKEND_TITLES
 
 __all__ = ["write_report", "MAP_EPISODES"]
 

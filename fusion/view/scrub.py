@@ -23,7 +23,7 @@ from rich.text import Text
 from fusion import SAFETY_NOTICE
 from fusion.errors import InputFileError
 from fusion.io.bounded import read_text
-from fusion.tui import BACKEND_TITLES, draw_plane, sparkline
+from fusion.view.live import BACKEND_TITLES, draw_plane, sparkline
 
 __all__ = ["Scrubber", "scrub", "KEYS"]
 

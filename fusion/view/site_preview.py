@@ -15,9 +15,9 @@ from pathlib import Path
 import numpy as np
 
 from fusion import __version__
-from fusion.html_page import pyplot
 from fusion.io.case import Case
 from fusion.io.outdir import FolderError, atomic_write
+from fusion.view.html_page import pyplot
 
 __all__ = ["draw_site", "write_preview", "preview_path", "PREVIEW_MARK"]
 
