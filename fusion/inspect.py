@@ -7,7 +7,7 @@ payload) is set aside with its line and reason, like a malformed row; nothing is
 
 Both back ends absorb identical readings tick by tick (one shared sensor set, so each reading is
 encoded once).  Conflict episodes are found on the larger of the two conflict figures
-(``fusion.episodes``); on every busy tick each back end computes leave-one-out blame, and the
+(``fusion.monitor.episodes``); on every busy tick each back end computes leave-one-out blame, and the
 pairwise conflict between the sensors' readings is computed too.  If a truth file is given the
 true error is added.
 
@@ -37,7 +37,6 @@ import numpy as np
 from fusion import SAFETY_NOTICE, __version__
 from fusion.belief.coarse import coarse_plane
 from fusion.conflict import pairwise_conflict
-from fusion.episodes import Episode, EpisodeFinder, blame_shares
 from fusion.errors import FusionError, ObservationError
 from fusion.io import recording
 from fusion.io.case import Case
@@ -49,6 +48,7 @@ from fusion.io.outdir import PartialFile, atomic_write
 from fusion.io.ticks import form_ticks
 from fusion.localizer import Localizer, SensorSet
 from fusion.monitor import CARRY_ON, Policy
+from fusion.monitor.episodes import Episode, EpisodeFinder, blame_shares
 from fusion.scoring import time_to_hold
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step

@@ -25,18 +25,18 @@ from __future__ import annotations
 import dataclasses
 import math
 import time
-from collections import deque
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from fusion.at_fault import ReadingAtFault, TickReading, reading_at_fault
 from fusion.backends import BACKENDS, build
 from fusion.conflict import EvidenceAverages, pairwise_conflict, weight_of_conflict
 from fusion.errors import FusionError, ObservationError
 from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
-from fusion.monitor import ALERT, CARRY_ON, INFORMATIVE, QUARANTINE, RELOCALIZE, Monitor, Policy
+from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
+from fusion.monitor.at_fault import ReadingAtFault, TickReading, reading_at_fault
+from fusion.monitor.recovery import Recovery, informative
 from fusion.sensors.base import Evidence, SensorModel
 from fusion.sensors.doors import DoorSensor
 from fusion.sensors.markers import MarkerSensor
@@ -188,9 +188,8 @@ class Localizer:
         self.last_t = -math.inf
         self._odometry_t: float | None = None  # time of the last accepted odometry record
         self._pending: Travel | None = None  # odometry composed since the last prediction
-        self._episode: deque = deque(maxlen=policy.relocalize_after + 4)
         self._free_prior = grid.broadcast(free).astype(np.float64)
-        self._anchor = None  # see _remember
+        self.recovery = Recovery(policy, self.monitor, self._free_prior)
 
     @classmethod
     def from_case(cls, case, backend: str, **options) -> Localizer:
@@ -300,7 +299,7 @@ class Localizer:
         clear_level = self.policy.clear_fraction * self.policy.conflict_k
         for sensor, evidence in encoded:
             original = evidence
-            if sensor in self.monitor.quarantined:
+            if self.monitor.is_quarantined(sensor):
                 evidence = dataclasses.replace(
                     evidence, reliability=evidence.reliability * self.policy.quarantine_reliability
                 )
@@ -324,12 +323,12 @@ class Localizer:
                 ratio = self.averages.add(report.log_evidence)
                 figures["surprise"] = max(figures["surprise"], -report.log_evidence)
                 figures["evidence_ratio"] = ratio
-                if sensor not in self.monitor.quarantined and ratio > self.policy.lost_ratio:
+                if not self.monitor.is_quarantined(sensor) and ratio > self.policy.lost_ratio:
                     disagree, clear = True, False
-            self.monitor.record_reading(sensor, disagree, self._informative(original))
+            self.monitor.record_reading(sensor, disagree, informative(original))
             if len(given) == len(encoded):
                 met.append(TickReading(sensor, given[len(met)], figure))
-            if sensor not in self.monitor.quarantined:
+            if not self.monitor.is_quarantined(sensor):
                 tick_conflicting |= disagree
                 tick_clear &= clear
         figures["weight_of_conflict"] = weight_of_conflict(figures["conflict"])
@@ -341,21 +340,29 @@ class Localizer:
             if distance is not None:
                 figures["jousselme"] = distance
         # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
-        blame = self._leave_one_out(before, undiscounted) if tick_conflicting or (self.explain and busy) else []
-        self._remember(before, motion, applied, undiscounted)
-        persistent, against = self._dissenters() if tick_conflicting and self._would_act() else (None, set())
-        moved = self._moved_elsewhere(against) if len(against) >= 2 else None
+        recovery = self.recovery
+        blame = recovery.blame(f, before, undiscounted) if tick_conflicting or (self.explain and busy) else []
+        recovery.remember(f, before, motion, applied, undiscounted)
+        wanted = tick_conflicting and self.monitor.would_act()
+        persistent, against = recovery.dissenters(f) if wanted else (None, set())
+        moved = None
+        if len(against) >= 2:
+            trial = recovery.moved_elsewhere(f, against)
+            if trial is not None:
+                self.filter, moved = trial
+                self.averages.reset()
         calm = tick_clear and not tick_conflicting
         verdict = self.monitor.judge(tick_conflicting, calm, blame, moved, persistent is None or bool(persistent))
         if calm:
-            self._episode.clear()
+            recovery.clear()
         fault = None
         if verdict.action in (ALERT, QUARANTINE, RELOCALIZE) and not moved:
             fault = self._at_fault(before, met, verdict, blame)
             if fault is not None:
                 verdict.reasons.append(fault.sentence())
         if verdict.action == RELOCALIZE and not moved:  # a move found elsewhere has re-seeded already
-            self._relocalize()
+            self.averages.reset()
+            recovery.reseed(self.filter)
         pairs = pairwise_conflict(undiscounted) if verdict.action in (ALERT, QUARANTINE) else []
         if pairs and pairs[0][2] > 0:
             a, b, k = pairs[0]
@@ -365,7 +372,7 @@ class Localizer:
         )
 
     def _at_fault(self, before, met, verdict, blame) -> ReadingAtFault | None:
-        """The reading at fault of an acting tick (``fusion.at_fault``), against the estimate before it."""
+        """The reading at fault of an acting tick (``fusion.monitor.at_fault``), against the estimate before it."""
         if not met:
             return None
         suspects = [s for s in verdict.newly] if verdict.action == QUARANTINE else []
@@ -407,9 +414,7 @@ class Localizer:
         monitor stay as they were (a rejected observation must not count as a calm tick either)."""
         figures = self._calm_figures()
         reasons = ["every input of this tick was rejected; nothing was applied"]
-        return self._decision(
-            t, CARRY_ON, reasons, figures, [], tuple(sorted(self.monitor.quarantined)), rejected, start
-        )
+        return self._decision(t, CARRY_ON, reasons, figures, [], self.monitor.quarantined_sensors(), rejected, start)
 
     # ----------------------------------------------------------------- helpers
     def _calm_figures(self) -> dict:
@@ -423,144 +428,3 @@ class Localizer:
 
     def _snapshot(self):
         return self.filter.snapshot()
-
-    @staticmethod
-    def _informative(evidence: Evidence) -> float:
-        """How much the reading says about where the robot is: the share of cells it rules out (contour
-        < ½).  A quiet door contact rules out almost nothing and so cannot vouch for a belief
-        against a sensor that disagrees with it."""
-        return float(np.mean(evidence.contour < 0.5))
-
-    def _conflict_with(self, reference, evidence: Evidence) -> float:
-        """The conflict of one reading with a belief snapshot, as the back end scores it."""
-        return self.filter.reading_conflict(reference, evidence)
-
-    def _remember(self, before, motion, applied, undiscounted) -> None:
-        """Keep this tick for a re-seed or a trial, and the belief the episode started from, carried
-        along by the odometry alone (``_anchor``: the belief before the oldest kept tick's readings)."""
-        episode = self._episode
-        if not episode:
-            self._anchor = before
-        elif len(episode) == episode.maxlen:  # the oldest tick leaves; the anchor moves on by the next one's motion
-            self._anchor = self._dead_reckoned(self._anchor, [episode[1][0]])
-        episode.append((motion, applied, undiscounted))
-
-    def _dead_reckoned(self, belief, motions):
-        """``belief`` carried along by ``motions`` (no readings), in snapshot form."""
-        ref = self.filter.fork()
-        ref.restore(belief)
-        for motion in motions:
-            if motion is not None:
-                ref.predict(motion)
-        return ref.snapshot()
-
-    def _dissenters(self) -> tuple[set[str], set[str]]:
-        """Who disagrees with where the robot was: this episode's readings, as given, against the belief the
-        episode started from, carried along by the odometry alone (``_anchor``).  Against the belief of the
-        moment, one faulty reading absorbed would make the next good reading disagree with it.  Two sets:
-
-        - persistent: sensors whose weights of conflict −log(1 − K) with it, added up (weights of
-          independent conflicts add, Shafer 1976), reach twice the weight of the conflict threshold; one
-          odd reading of a good sensor, at the time of another's fault, is not yet a second voice;
-        - against: the sensors that testify to a move (``_moved_elsewhere`` wants two).  The persistent
-          ones, and, when exactly one is persistent and no sensor's informative reading (ruling out at
-          least half the site, see ``_informative``) still fits the old place, also the sensors each of
-          whose informative readings disagrees with it.  A camera that sees a marker once in two ticks
-          cannot reach twice the weight with one sighting (its reliability caps K), yet that sighting
-          rules the old place out; while a ranger that still fits the old place says a stuck contact
-          and a lone odd sighting are faults, not a move.
-        """
-        weights: dict[str, float] = {}
-        odd: dict[str, list[bool]] = {}
-        single = weight_of_conflict(self.policy.conflict_k)
-        reference = self._anchor
-        for i, (motion, _, given) in enumerate(self._episode):
-            if i:
-                reference = self._dead_reckoned(reference, [motion])
-            for sensor, evidence in given:
-                weight = weight_of_conflict(self._conflict_with(reference, evidence))
-                weights[sensor] = weights.get(sensor, 0.0) + weight
-                if self._informative(evidence) >= INFORMATIVE:
-                    odd.setdefault(sensor, []).append(weight > single)
-        persistent = {sensor for sensor, w in weights.items() if w >= 2.0 * single}
-        unanimous = {sensor for sensor, flags in odd.items() if all(flags)}
-        if len(persistent) == 1 and set(odd) <= persistent | unanimous:
-            return persistent, persistent | unanimous
-        return persistent, persistent
-
-    def _leave_one_out(self, before, applied) -> list[tuple[str, float]]:
-        """For each sensor of this tick: how much the tick's conflict falls when its readings are left out.
-
-        One entry per sensor, however many readings it gave this tick, so the work grows with
-        sensors × readings, never with the square of the readings (a log with hundreds of readings
-        at one time stamp stays linear)."""
-        sensors = list(dict.fromkeys(s for s, _ in applied))
-        if len(sensors) < 2:
-            return [(s, self._tick_conflict(before, applied)) for s in sensors]
-        whole = self._tick_conflict(before, applied)
-        out = []
-        for sensor in sensors:
-            rest = [r for r in applied if r[0] != sensor]
-            out.append((sensor, whole - self._tick_conflict(before, rest)))
-        return sorted(out, key=lambda sv: -sv[1])
-
-    def _tick_conflict(self, before, applied) -> float:
-        """Conflict of absorbing ``applied`` into ``before`` at once, as the back end scores it."""
-        return self.filter.joint_conflict(before, applied) if applied else 0.0
-
-    def _relocalize(self) -> None:
-        """Reset to ignorance over free space, then replay this episode's readings (re-seed from them)."""
-        self.averages.reset()
-        self._replay(self.filter, as_given=False)
-        self._episode.clear()
-        self.monitor.forget_history()
-
-    def _replay(self, f, as_given: bool) -> float:
-        """Reset ``f`` to ignorance over free space and replay this episode into it (the readings as
-        the sensors gave them, or as applied, quarantine discounts included); returns the worst
-        conflict of a replayed reading with the belief built from the readings before it."""
-        f.reset(self._free_prior)
-        worst = 0.0
-        for motion, applied, undiscounted in list(self._episode):
-            if motion is not None:
-                f.predict(motion)
-            for _, evidence in undiscounted if as_given else applied:
-                prior = f.snapshot()
-                report = f.update(evidence)
-                k = report.conflict if report.conflict is not None else f.reading_conflict(prior, evidence)
-                worst = max(worst, k)
-        return worst
-
-    def _would_act(self) -> bool:
-        """Would one more conflicting tick reach the alert, or the window for a trial re-seed?"""
-        p, m = self.policy, self.monitor
-        due = m.run + 1 >= p.alert_after
-        return due and (not m.alerted or (not m.cooldown and m.run + 1 <= p.relocalize_after))
-
-    def _moved_elsewhere(self, dissenters: set[str]) -> str | None:
-        """On a conflicting tick from the one that would alert to the one that would re-localize: was
-        the robot moved, rather than a sensor gone wrong?  Yes when at least two sensors disagree with
-        where the robot was (``dissenters``, see ``_dissenters``) and the episode's readings agree with one another
-        somewhere else: a trial belief built from them alone, from ignorance over free space, has no
-        replayed reading that conflicts with it.  The trial then becomes the belief (re-localized now,
-        no sensor quarantined).  A faulty sensor fails one test or the other.  Two conflicting ticks in
-        a row at least, so a single spurious reading never re-localizes."""
-        p = self.policy
-        if self.monitor.cooldown or not p.alert_after <= self.monitor.run + 1 <= p.relocalize_after:
-            return None
-        if len(self._episode) < 2 or len(dissenters) < 2:  # one sensor against the rest: a fault, not a move
-            return None
-        trial = self.filter.fork()
-        worst = self._replay(trial, as_given=True)
-        if worst >= p.clear_fraction * p.conflict_k:  # every replayed reading must be clear, not merely neutral
-            return None
-        self.filter = trial
-        self.averages.reset()
-        ticks = len(self._episode)
-        self._episode.clear()
-        self.monitor.forget_history()
-        return (
-            f"{' and '.join(sorted(dissenters))} disagree with where the robot was, and the readings of the last {ticks} "
-            f"ticks agree with one another at another place (worst conflict {worst:.2f} there): the robot was "
-            "probably moved; the belief is re-seeded from them"
-        )

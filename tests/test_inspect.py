@@ -17,7 +17,7 @@ import pytest
 from rich.console import Console
 
 from fusion.cli import main
-from fusion.episodes import EpisodeFinder, blame_shares
+from fusion.monitor.episodes import EpisodeFinder, blame_shares
 from fusion.inspect import inspect_log
 from fusion.io.case import load_case
 from fusion.io.logs import CSV_COLUMNS, iter_observations

@@ -15,9 +15,9 @@ from pathlib import Path
 
 import numpy as np
 
-from fusion.episodes import QUIET_TICKS
 from fusion.io.outdir import atomic_write
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
+from fusion.monitor.episodes import QUIET_TICKS
 from fusion.view.html_page import figures_html, page, png_of, pyplot
 from fusion.view.inspect_summary import EPISODE_ROWS
 from fusion.view.live import BACKEND_TITLES

@@ -1,26 +1,24 @@
 """The conflict policy: turns each tick's conflict figures into an action, without crying wolf.
 
 A tick is *conflicting* when its readings disagree with the belief:
-- evidential: Dempster's K above ``conflict_k`` **and** pignistic disagreement above
-  ``disagreement`` (two-dimensional conflict, Liu 2006: a large K alone can come from
-  sources that agree but are each uncertain); or, for a reading whose K is between the clear
-  level and ``conflict_k``, its conflict with the belief's core above ``conflict_k`` (the cells
-  of pignistic probability at least a tenth of the peak; Dempster's normalisation moves mass
-  toward a conflicting reading, so a second one like it conflicts less with the belief);
-- Bayesian: the reading's conflict r·(1 − pl) with the cells the belief still allows above
-  ``conflict_k`` (pl: the plausibility of the best fit among them; see ``Localizer`` and
-  ``fusion.conflict.fit_plausibility``), or the slow/fast evidence ratio above ``lost_ratio``.
+- its conflict figure K (as the back end scores it) is above ``conflict_k``, and the back end's
+  second opinion (``fusion.backends.base.SecondOpinion``) does not veto it: a disagreement
+  figure, when the back end gives one, must also be above ``disagreement`` (two-dimensional
+  conflict, Liu 2006: a large K alone can come from sources that agree but are each
+  uncertain); or, for a reading whose K is between the clear level and ``conflict_k``, its
+  conflict with the belief's core is above ``conflict_k``; each back end documents its figures;
+- or the slow/fast evidence ratio is above ``lost_ratio`` (back ends that report log evidence).
 It is *clear* when both figures are below ``clear_fraction`` of their thresholds, and
 neutral in between (hysteresis: a neutral tick neither starts nor ends an episode).
 
 Actions: ``carry on``; ``alert operator`` after ``alert_after`` conflicting ticks in a row
 (once per episode, naming the sensors most to blame), once some sensor's readings of the episode
 disagree with where the robot was by twice the weight of conflict of ``conflict_k`` (see
-``Localizer._dissenters``: two lone odd readings of two sensors are no alert); ``re-localize`` after
+``fusion.monitor.recovery.Recovery.dissenters``: two lone odd readings of two sensors are no alert); ``re-localize`` after
 ``relocalize_after`` conflicting ticks in a row, then not again for ``cooldown_ticks``;
 ``re-localize`` at once, on a conflicting tick from the alert count to the re-localization count,
 when two sensors disagree with where the robot was and the episode's readings agree with one
-another at another place (the robot was moved; see ``Localizer._moved_elsewhere``);
+another at another place (the robot was moved; see ``Recovery.moved_elsewhere``);
 ``quarantine sensor`` when one sensor keeps disagreeing while the others agree: it is
 then discounted (its reliability multiplied by ``quarantine_reliability``) until it has
 agreed ``release_after`` times in a row.  "Keeps disagreeing" is measured against the sensor's
@@ -177,6 +175,24 @@ class Monitor:
             verdict.reasons.append(f"{self.run} conflicting ticks in a row; most to blame: {top}")
             self.alerted = True
         return verdict
+
+    def is_quarantined(self, sensor: str) -> bool:
+        return sensor in self.quarantined
+
+    def quarantined_sensors(self) -> tuple[str, ...]:
+        return tuple(sorted(self.quarantined))
+
+    def would_act(self) -> bool:
+        """Would one more conflicting tick reach the alert, or the window for a trial re-seed?"""
+        p = self.policy
+        due = self.run + 1 >= p.alert_after
+        return due and (not self.alerted or (not self.cooldown and self.run + 1 <= p.relocalize_after))
+
+    def may_test_a_move(self) -> bool:
+        """Is one more conflicting tick inside the window, from the alert count to the re-localization
+        count and out of the cool-down, in which the "was the robot moved?" test may run?"""
+        p = self.policy
+        return not self.cooldown and p.alert_after <= self.run + 1 <= p.relocalize_after
 
     def quarantine_count(self, sensor: str) -> tuple[int, float]:
         """How many of its last ``quarantine_window`` readings must disagree before ``sensor`` is

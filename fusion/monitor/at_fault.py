@@ -1,6 +1,6 @@
 """The reading at fault in an alert, a re-localization or a quarantine, in words.
 
-Blame (leave-one-out, ``Localizer._leave_one_out``) names the sensor; this names its reading: of the
+Blame (leave-one-out, ``fusion.monitor.recovery.Recovery.blame``) names the sensor; this names its reading: of the
 blamed sensor's readings of the tick, the one that conflicted most with the belief before the tick,
 described against the pose estimate of that belief ("marker 7 measured at 3.10 m, +40°; expected at
 2.31 m, +12°").  The estimate before the tick is the right reference: after it, a wrong reading has
