@@ -25,6 +25,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
+from fusion.backends import BACKENDS
 from fusion.backends.bayes import HistogramFilter
 from fusion.backends.evidential import MassFilter
 from fusion.belief.mass import MassFunction
@@ -333,7 +334,7 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
     floor_s = _best_seconds(floor, 9)
     run = simulate(case)[:ticks]
     rows = []
-    for backend in ("bayes", "evidential"):
+    for backend in BACKENDS:
         loc = Localizer.from_case(case, backend)
         first = run[0].truth
         loc.start_at(first.x_m, first.y_m, first.heading_deg)

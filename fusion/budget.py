@@ -37,8 +37,6 @@ _READING_S_PER_CELL = 15e-9  # encode and absorb one reading
 _BEAM_S_PER_CELL = 2e-9  # each beam of a range scan
 _FOCAL_S_PER_CELL = 3.5e-9  # each focal set kept by the focal-set filter, per reading
 _FOCAL_BYTES_PER_CELL = 6  # each focal set kept: the bitsets of the belief, the pair products and their merge
-# Bytes per cell of one back end's working arrays (belief and the copies of one step; measured, rounded up).
-_BACKEND_BYTES_PER_CELL = {"bayes": 48, "evidential": 64}
 _READING_BYTES_PER_CELL = 24  # contour, likelihood and plausibility of one reading
 _TICK_BYTES = 1500  # one row of per-tick results and its log records, per back end
 _READING_BYTES = 400  # one simulated reading (a beam adds 8 more)
@@ -83,6 +81,7 @@ def route_seconds(case) -> float:
 
 def estimate(case, backends=None, rule: str | None = None) -> Estimate:
     """The memory and time one run of ``case`` needs (see the module docstring for what is counted)."""
+    from fusion.backends import BACKENDS
     from fusion.backends.contour import CONTOUR_RULES
 
     site, run = case.site, case.run
@@ -115,14 +114,15 @@ def estimate(case, backends=None, rule: str | None = None) -> Estimate:
             est.memory[f"door zone of {s.name}"] = plane
     focal = run.max_focal if rule not in CONTOUR_RULES else 0
     for b in backends:
-        est.memory[f"{b} back end"] = cells * _BACKEND_BYTES_PER_CELL.get(b, 64)
-        if b == "evidential" and focal:
+        kind = BACKENDS[b]  # bytes per cell of its working arrays: belief and the copies of one step (measured)
+        est.memory[f"{b} back end"] = cells * kind.bytes_per_cell
+        if kind.focal_sets and focal:
             est.memory[f"{b} back end"] += cells * focal * _FOCAL_BYTES_PER_CELL
         per_tick = cells * (
             _TICK_S_PER_CELL
             + readings_per_tick * _READING_S_PER_CELL
             + beams_per_tick * _BEAM_S_PER_CELL
-            + (readings_per_tick * focal * _FOCAL_S_PER_CELL if b == "evidential" else 0.0)
+            + (readings_per_tick * focal * _FOCAL_S_PER_CELL if kind.focal_sets else 0.0)
         )
         est.seconds[f"{b} back end"] = per_tick * est.ticks
     est.memory["readings of one tick"] = cells * _READING_BYTES_PER_CELL * max(1.0, readings_per_tick)

@@ -337,7 +337,7 @@ def _stream(args: argparse.Namespace) -> int:
         case = apply_calibration(case, args.calibration)
     loc = Localizer.from_case(case, args.backend)
     if args.start:
-        from fusion.inspect import ANYWHERE, parse_start
+        from fusion.io.start_pose import ANYWHERE, parse_start
 
         start = parse_start(args.start)
         loc.start_anywhere() if start == ANYWHERE else loc.start_at(*start)
@@ -351,9 +351,10 @@ def _inspect(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.inspect import inspect_log, parse_start
+    from fusion.inspect import inspect_log
     from fusion.io.case import apply_calibration, load_case
     from fusion.io.logs import count_lines
+    from fusion.io.start_pose import parse_start
     from fusion.view.inspect_report import write_report
     from fusion.view.inspect_summary import summary_renderables
 
@@ -492,6 +493,9 @@ def _progress(console, label: str, quiet: bool, counter: str = "{task.completed:
 
 
 def _parser() -> argparse.ArgumentParser:
+    from fusion.backends import BACKENDS
+
+    first = next(iter(BACKENDS))
     parser = argparse.ArgumentParser(
         prog="fusion",
         description="Evidence fusion for mobile-robot localization (Bayesian and Dempster–Shafer).",
@@ -507,7 +511,7 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument(
         "--backend",
         action="append",
-        choices=("bayes", "evidential"),
+        choices=tuple(BACKENDS),
         help="back end to run (repeat for both; default: the case's [run] backends)",
     )
     run.add_argument("--rule", help="combination rule of the evidential back end (default: the case's)")
@@ -535,7 +539,7 @@ def _parser() -> argparse.ArgumentParser:
     bench.set_defaults(run=_bench)
     st = commands.add_parser("stream", help="read observations as JSON lines on stdin, write one decision per line")
     st.add_argument("--site", required=True, help="case file whose site and sensors to use")
-    st.add_argument("--backend", choices=("bayes", "evidential"), default="bayes", help="back end (default bayes)")
+    st.add_argument("--backend", choices=tuple(BACKENDS), default=first, help=f"back end (default {first})")
     st.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
     st.add_argument("--start", help="known start pose x,y,heading_deg (default: anywhere in free space)")
     st.set_defaults(run=_stream)
@@ -616,7 +620,7 @@ def _parser() -> argparse.ArgumentParser:
     )
     soak.add_argument("--stream-lines", type=count_up_to(10**9), help="instead push this many lines through the stream")
     soak.add_argument("--corrupt", type=number, default=0.1, help="share of stream lines corrupted (default 0.1)")
-    soak.add_argument("--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable)")
+    soak.add_argument("--backend", action="append", choices=tuple(BACKENDS), help="back end (repeatable)")
     soak.add_argument("--seed", type=seed_value, help="first seed of the simulated runs (default: the case's)")
     soak.add_argument("--out", help="folder for soak.json (default: fusion-out/<case>-soak-…)")
     replace_option(soak)
@@ -627,7 +631,7 @@ def _parser() -> argparse.ArgumentParser:
     targets.add_argument("--first-seed", type=seed_value, default=1, help="first seed (default 1)")
     targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
     targets.add_argument(
-        "--backend", action="append", choices=("bayes", "evidential"), help="back end (repeatable; default: both)"
+        "--backend", action="append", choices=tuple(BACKENDS), help="back end (repeatable; default: both)"
     )
     targets.add_argument("--json", action="store_true", help="print every run's verdict as JSON")
     targets.add_argument(

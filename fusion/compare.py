@@ -31,9 +31,10 @@ from pathlib import Path
 import numpy as np
 
 from fusion import __version__
+from fusion.backends import BACKENDS, backend_kind
 from fusion.errors import FusionError
 from fusion.io.bounded import read_text
-from fusion.io.case import BACKENDS, Case, SweepSpec, load_case
+from fusion.io.case import Case, SweepSpec, load_case
 from fusion.monitor import CARRY_ON
 
 __all__ = [
@@ -113,7 +114,7 @@ class Setting:
 
     @property
     def label(self) -> str:
-        out = "Bayes" if self.backend == "bayes" else f"evidential/{self.rule}"
+        out = backend_kind(self.backend).label(self.rule)
         if self.reliability is not None:
             out += f" r={self.reliability:g}"
         if self.fault_rate is not None:
@@ -144,8 +145,9 @@ def check_sweep(spec: SweepSpec, where: str = "the sweep") -> None:
                 raise FusionError(f"{where}: {name} {v!r} is outside its range [0, 1]")
     if not spec.backends:
         raise FusionError(f"{where}: no back end to run; choose among: {', '.join(BACKENDS)}")
-    if "evidential" in spec.backends and not spec.rules:
-        raise FusionError(f"{where}: the evidential back end needs at least one rule: {', '.join(FILTER_RULES)}")
+    for b in spec.backends:
+        if BACKENDS[b].takes_rule and not spec.rules:
+            raise FusionError(f"{where}: the {b} back end needs at least one rule: {', '.join(FILTER_RULES)}")
 
 
 def settings_of(spec: SweepSpec, calibrated: bool = False) -> list[Setting]:
@@ -156,10 +158,11 @@ def settings_of(spec: SweepSpec, calibrated: bool = False) -> list[Setting]:
     out = []
     for f in fault_rates:
         for r in reliabilities:
-            if "bayes" in spec.backends:
-                out.append(Setting("bayes", None, r, f))
-            if "evidential" in spec.backends:
-                out.extend(Setting("evidential", rule, r, f) for rule in spec.rules)
+            for b in (b for b in BACKENDS if b in spec.backends):  # in the table's order, as tools list them
+                if BACKENDS[b].takes_rule:
+                    out.extend(Setting(b, rule, r, f) for rule in spec.rules)
+                else:
+                    out.append(Setting(b, None, r, f))
     if calibrated:
         out += [dataclasses.replace(s, calibrated=True) for s in out]
     return out
@@ -430,11 +433,11 @@ def longest_measured_first(records) -> Callable[[list], list]:
 
     def cost(job) -> float:
         times = [r["wall_s"] for r in records if r["key"] == job[1].key and "wall_s" in r]
-        # Unmeasured first; among them the evidential back end, which costs several Bayes runs.
+        # Unmeasured first; among them the back ends with a rule (the evidential one costs several Bayes runs).
         return math.inf if not times else float(np.mean(times))
 
     def order(jobs: list) -> list:
-        return sorted(jobs, key=lambda job: (-cost(job), job[1].backend == "bayes"))
+        return sorted(jobs, key=lambda job: (-cost(job), not BACKENDS[job[1].backend].takes_rule))
 
     return order
 

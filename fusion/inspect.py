@@ -35,9 +35,10 @@ from pathlib import Path
 import numpy as np
 
 from fusion import SAFETY_NOTICE, __version__
+from fusion.backends import BACKENDS
 from fusion.belief.coarse import coarse_plane
 from fusion.conflict import pairwise_conflict
-from fusion.errors import FusionError, ObservationError
+from fusion.errors import FusionError
 from fusion.io import recording
 from fusion.io.case import Case
 from fusion.io.csv_cells import number_cell
@@ -45,6 +46,7 @@ from fusion.io.logs import ReadPosition, SetAside, count_lines, require_readable
 from fusion.io.mcap_feed import CUT_REASON
 from fusion.io.observations import Observation
 from fusion.io.outdir import PartialFile, atomic_write
+from fusion.io.start_pose import ANYWHERE
 from fusion.io.ticks import form_ticks
 from fusion.localizer import Localizer, SensorSet
 from fusion.monitor import CARRY_ON, Policy
@@ -53,12 +55,10 @@ from fusion.scoring import time_to_hold
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step
 
-__all__ = ["Inspection", "inspect_log", "parse_start", "ANYWHERE", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
+__all__ = ["Inspection", "inspect_log", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
 MISMATCH_SHARE = 0.2
 """A log whose unknown sensors, or whose sightings of markers not on the map, reach this share is
 reported as probably recorded on another site (our choice; a few stray ids are noise, a fifth is not)."""
-ANYWHERE = "anywhere"
-"""``--start anywhere``: start from ignorance over free space, also when true poses are given."""
 SET_ASIDE_WARN = 0.05
 EPOCH_LIKE_S = 1e6
 """A log whose clock starts past this many seconds (11.6 days) is stamped from an epoch; the views
@@ -215,7 +215,7 @@ def inspect_log(
     *,
     truth_path=None,
     start: tuple[float, float, float] | None = None,
-    backends=("bayes", "evidential"),
+    backends=tuple(BACKENDS),
     frames: bool = True,
     report=None,
     progress=None,
@@ -637,19 +637,3 @@ _REASON_KINDS = (
 def _reason_kind(reason: str) -> str:
     """A short name for a set-aside reason, to count them by kind in the report."""
     return next((kind for needle, kind in _REASON_KINDS if needle in reason), "other")
-
-
-def parse_start(text: str) -> tuple[float, float, float] | str:
-    """``x,y,heading_deg`` (metres, degrees) from the command line, or ``anywhere`` (``ANYWHERE``: start from
-    ignorance even when a truth file is given, to score a localization from an unknown start)."""
-    if text.strip().lower() == ANYWHERE:
-        return ANYWHERE
-    try:
-        x, y, h = (float(v) for v in text.split(","))
-    except ValueError:
-        raise ObservationError(
-            f"--start must be x,y,heading_deg in metres and degrees, or 'anywhere', got {text!r}"
-        ) from None
-    if not all(math.isfinite(v) for v in (x, y, h)):
-        raise ObservationError(f"--start must be finite numbers, got {text!r}")
-    return x, y, h

@@ -172,7 +172,7 @@ class Localizer:
         """``full_figures``: compute the distance between beliefs on every tick, not only on conflicting ones.
         ``explain``: compute the leave-one-out blame on every tick whose conflict reaches the clear level
         (what an investigation needs), not only on the ticks the monitor counts as conflicting."""
-        if backend not in BACKENDS:
+        if backend not in BACKENDS:  # the same refusal as build's, as an ObservationError
             raise ObservationError(f"unknown back end {backend!r}; choose one of: {', '.join(BACKENDS)}")
         policy = Policy() if policy is None else policy
         self.sensors, self.policy, self.full_figures, self.explain = sensors, policy, full_figures, explain

@@ -17,10 +17,10 @@ import pytest
 from rich.console import Console
 
 from fusion.cli import main
-from fusion.monitor.episodes import EpisodeFinder, blame_shares
 from fusion.inspect import inspect_log
 from fusion.io.case import load_case
 from fusion.io.logs import CSV_COLUMNS, iter_observations
+from fusion.monitor.episodes import EpisodeFinder, blame_shares
 from fusion.runner import log_text
 from fusion.simulate import simulate
 from fusion.view.inspect_report import write_report

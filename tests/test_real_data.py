@@ -22,9 +22,10 @@ from pathlib import Path
 
 import pytest
 
-from fusion.inspect import ANYWHERE, inspect_log
+from fusion.inspect import inspect_log
 from fusion.io.case import load_case
 from fusion.io.layout import load_layout
+from fusion.io.start_pose import ANYWHERE
 
 ROOT = Path(__file__).resolve().parents[1]
 SLICE = ROOT / "tests" / "data" / "mrclam-ds7-robot1-150s"

@@ -12,12 +12,14 @@ name into a filter; nothing outside this package compares back-end names.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from fusion.backends.base import Backend
 from fusion.errors import RuleError
 
-__all__ = ["BACKENDS", "build", "Backend"]
+__all__ = ["BACKENDS", "BackendKind", "build", "Backend", "backend_kind"]
 
 
 def _bayes(grid, free, *, rule, motion, max_focal, report_region):
@@ -37,8 +39,54 @@ def _evidential(grid, free, *, rule, motion, max_focal, report_region):
     return MassFilter(grid, free, rule=rule, max_focal=max_focal, report_region=report_region)
 
 
-BACKENDS = {"bayes": _bayes, "evidential": _evidential}
-"""Back-end name -> builder; the order is the order tools list them in."""
+@dataclass(frozen=True)
+class BackendKind:
+    """What the other stages need to know of a back end, so that none of them compares its name."""
+
+    name: str
+    build: object  # (grid, free, *, rule, motion, max_focal, report_region) -> Backend
+    title: str  # for views
+    short: str  # in setting labels
+    takes_rule: bool  # runs once per combination rule in a sweep
+    bytes_per_cell: int  # resident memory per pose cell (measured on the demo case; fusion.budget)
+    focal_sets: bool  # the rules that keep focal sets cost memory and time per focal set (fusion.budget)
+    figure: tuple[str, str]  # the conflict figure the live view plots: (key of the figures, label)
+
+    def label(self, rule: str | None) -> str:
+        """Short name of a setting: the back end, with its rule when it takes one."""
+        return f"{self.short}/{rule}" if self.takes_rule and rule else self.short
+
+
+BACKENDS = {
+    "bayes": BackendKind(
+        "bayes",
+        _bayes,
+        "Bayesian histogram filter",
+        "Bayes",
+        False,
+        48,
+        False,
+        ("surprise", "surprise −log p(z|past), nats"),
+    ),
+    "evidential": BackendKind(
+        "evidential",
+        _evidential,
+        "Dempster–Shafer mass filter",
+        "evidential",
+        True,
+        64,
+        True,
+        ("conflict", "conflict K = m(∅)"),
+    ),
+}
+"""Back-end name -> what it is and how to build it; the order is the order tools list them in."""
+
+
+def backend_kind(name: str) -> BackendKind:
+    kind = BACKENDS.get(name)
+    if kind is None:
+        raise RuleError(f"unknown back end {name!r}; choose one of: {', '.join(BACKENDS)}")
+    return kind
 
 
 def build(
@@ -54,9 +102,7 @@ def build(
     """The filter called ``name`` on ``grid`` (cells off ``free`` are impossible)."""
     from fusion.motion import MOTION_MODELS
 
-    builder = BACKENDS.get(name)
-    if builder is None:
-        raise RuleError(f"unknown back end {name!r}; choose one of: {', '.join(BACKENDS)}")
+    builder = backend_kind(name).build
     if motion not in MOTION_MODELS:
         raise RuleError(f"unknown motion model {motion!r}; choose one of: {', '.join(MOTION_MODELS)}")
     return builder(grid, free, rule=rule, motion=motion, max_focal=max_focal, report_region=report_region)

@@ -1,4 +1,5 @@
-"""Case files: a site, its sensors and their faults, a route, and the run settings, in TOML.
+"""Case files: a site, its sensors and their faults, a route, and the run settings, read from TOML into
+the settings model of ``fusion.case_model`` (whose names this module also offers).
 
 The format is ours; ``cases/README.md`` documents it with the demo case.  Loading
 validates everything before anything runs, and every error names the file, the
@@ -15,19 +16,30 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from dataclasses import dataclass, field
 from pathlib import Path
 
 from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
-from fusion.errors import InputFileError
+from fusion.case_model import (
+    BACKENDS,
+    FAULT_KINDS,
+    SENSOR_KINDS,
+    SWEEP_RULES,
+    CarryEvent,
+    Case,
+    FaultSpec,
+    RouteSpec,
+    RunSpec,
+    SensorSpec,
+    SweepSpec,
+    filter_rules,
+    motion_models,
+    policy_defaults,
+)
 from fusion.io.bounded import read_text
 from fusion.io.site_file import MAX_BOXES, MAX_ITEMS, free_point, free_segment, read_site
 from fusion.io.toml_reader import TomlReader, finite_numbers, load_toml
-from fusion.sensors.doors import DoorParams
 from fusion.sensors.limits import problems
-from fusion.sensors.markers import MarkerParams
-from fusion.sensors.odometry import REMOVED_FIELDS, OdometryParams
-from fusion.sensors.ranging import RangeParams
+from fusion.sensors.odometry import REMOVED_FIELDS
 from fusion.site import SiteMap
 
 __all__ = [
@@ -59,118 +71,6 @@ MAX_DESCRIPTION_CHARS = 4000
 """Longest case description."""
 MAX_CASE_BYTES = 1024**2
 """Case files larger than this are refused (a real case is a few kilobytes)."""
-
-SENSOR_KINDS = {"ranging": RangeParams, "markers": MarkerParams, "door": DoorParams, "odometry": OdometryParams}
-FAULT_KINDS = {
-    "ranging": {"people": "short returns from people walking through the beams (rate: chance per beam)"},
-    "markers": {"ghost": "sightings of a marker where it is not (marker, at_m = [x, y], rate: chance per firing)"},
-    "door": {"stuck": "the contact reads a fixed value (value = true or false)"},
-    "odometry": {
-        "drift": "heading drift (turn_deg_per_m) and scale error (scale) on every move",
-        "slip": "one wheel slip at start_s: forward_m and turn_deg added to the true move",
-    },
-}
-BACKENDS = ("bayes", "evidential")
-
-
-@dataclass(frozen=True)
-class FaultSpec:
-    kind: str
-    start_s: float
-    end_s: float
-    options: dict = field(default_factory=dict)
-
-    def active(self, t: float) -> bool:
-        return self.start_s <= t < self.end_s
-
-
-@dataclass(frozen=True)
-class SensorSpec:
-    name: str
-    kind: str
-    rate_hz: float
-    params: object
-    faults: tuple[FaultSpec, ...] = ()
-    door: str | None = None  # for kind = "door": which door's contact
-
-
-@dataclass(frozen=True)
-class CarryEvent:
-    at_s: float
-    to: tuple[float, float, float]  # x, y (m), heading (deg)
-    resume_waypoint: int
-
-
-@dataclass(frozen=True)
-class RouteSpec:
-    waypoints: tuple[tuple[float, float], ...]
-    speed_mps: float
-    turn_rate_deg_s: float
-    carries: tuple[CarryEvent, ...] = ()
-    start_known: bool = True  # the robot starts at the first waypoint, facing the second (a dock)
-
-
-@dataclass(frozen=True)
-class RunSpec:
-    backends: tuple[str, ...] = BACKENDS
-    rule: str = "dempster"
-    max_focal: int = 32
-    seed: int = 1
-    tick_s: float = 0.25
-    policy: dict = field(default_factory=dict)
-    motion: str = "probabilistic"  # how the evidential back end applies odometry (fusion.motion.MOTION_MODELS)
-    budget_gib: float = MEMORY_BUDGET_GIB  # memory a run may take (fusion.budget)
-    budget_minutes: float = WORK_BUDGET_MINUTES  # processor time a run may take (fusion.budget)
-
-
-SWEEP_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy")
-"""Rules a comparison sweeps by default: Dempster's, the unnormalised conjunctive, Yager's,
-Dubois–Prade's, PCR5 and Murphy's averaging."""
-
-
-@dataclass(frozen=True)
-class SweepSpec:
-    """The ``[compare]`` table: which settings ``fusion compare`` runs, each on every seed.
-
-    ``reliabilities``: discount factors applied to every sensor but odometry (empty: as in the case);
-    ``fault_rates``: the ``rate`` of every people/ghost fault (empty: as in the case)."""
-
-    seeds: int = 50
-    backends: tuple[str, ...] = BACKENDS
-    rules: tuple[str, ...] = SWEEP_RULES
-    reliabilities: tuple[float, ...] = ()
-    fault_rates: tuple[float, ...] = ()
-
-
-@dataclass(frozen=True)
-class Case:
-    name: str
-    path: str
-    site: SiteMap
-    headings: int
-    sensors: tuple[SensorSpec, ...]
-    route: RouteSpec | None  # None: a site for replaying logs only (nothing to simulate)
-    run: RunSpec
-    description: str = ""
-    sweep: SweepSpec = field(default_factory=SweepSpec)
-
-    def require_route(self) -> RouteSpec:
-        """The route, or ``InputFileError`` saying that simulating needs one and this case has none."""
-        if self.route is None:
-            raise InputFileError(
-                self.path,
-                None,
-                "route",
-                "the case has no [route], and this command simulates a drive along one; add a [route] with at "
-                "least two waypoints, or replay a recorded log with 'fusion inspect' or 'fusion stream'",
-            )
-        return self.route
-
-    def sensor(self, name: str) -> SensorSpec:
-        for s in self.sensors:
-            if s.name == name:
-                return s
-        raise KeyError(name)
 
 
 def load_case(path) -> Case:
@@ -331,8 +231,7 @@ def _route(r: TomlReader, d, site: SiteMap) -> RouteSpec:
 
 
 def _run(r: TomlReader, d: dict, sensors) -> RunSpec:
-    from fusion.backends.evidential import FILTER_RULES
-
+    FILTER_RULES = filter_rules()
     w = ("run",)
     r.only(
         d, w, {"backends", "rule", "max_focal", "seed", "tick_s", "policy", "motion", "budget_gib", "budget_minutes"}
@@ -342,18 +241,15 @@ def _run(r: TomlReader, d: dict, sensors) -> RunSpec:
         r.fail((*w, "backends"), f"must be a non-empty array naming back ends among: {', '.join(BACKENDS)}")
     rule = r.text(d, w, "rule", "dempster", choices=FILTER_RULES)
     max_focal = r.number(d, w, "max_focal", 32, whole=True, low=2, high=4096)
-    from fusion.motion import MOTION_MODELS
-
-    motion = r.text(d, w, "motion", "probabilistic", choices=MOTION_MODELS)
+    motion = r.text(d, w, "motion", "probabilistic", choices=motion_models())
     seed = r.number(d, w, "seed", 1, whole=True, low=0, high=2**63 - 1)
     tick = r.number(d, w, "tick_s", 0.25, positive=True, high=5)
     policy = r.table(d, w, "policy", required=False)
-    from fusion.monitor import Policy
-
-    known = {f.name for f in dataclasses.fields(Policy)}
+    defaults = policy_defaults()
+    known = {f.name for f in dataclasses.fields(defaults)}
     r.only(policy, (*w, "policy"), known)
     for key in policy:
-        default = getattr(Policy(), key)
+        default = getattr(defaults, key)
         if isinstance(default, bool):
             r.flag(policy, (*w, "policy"), key)
         elif isinstance(default, int):  # counts of ticks or readings; a bound keeps the binomial search short
@@ -370,8 +266,7 @@ def _run(r: TomlReader, d: dict, sensors) -> RunSpec:
 
 
 def _sweep(r: TomlReader, d: dict) -> SweepSpec:
-    from fusion.backends.evidential import FILTER_RULES
-
+    FILTER_RULES = filter_rules()
     w = ("compare",)
     r.only(d, w, {"seeds", "backends", "rules", "reliabilities", "fault_rates"})
     seeds = r.number(d, w, "seeds", 50, whole=True, low=1, high=10_000)

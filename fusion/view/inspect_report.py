@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
+from fusion.backends import BACKENDS
 from fusion.io.outdir import atomic_write
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
 from fusion.monitor.episodes import QUIET_TICKS
@@ -32,7 +33,7 @@ _ACTION_MARKS = {
     RELOCALIZE: ("X", "#b00020", "re-localize"),
     QUARANTINE: ("s", "#5a3fa0", "quarantine"),
 }
-_BACKEND_COLOURS = {"bayes": "#1f6f8b", "evidential": "#b5523b"}
+_BACKEND_COLOURS = dict(zip(BACKENDS, ("#1f6f8b", "#b5523b", "#4f7a28", "#7a4f9a")))  # in the table's order
 
 
 def write_report(found, case, out_dir) -> str:

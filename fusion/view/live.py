@@ -20,6 +20,7 @@ from rich.table import Table
 from rich.text import Text
 
 from fusion import SAFETY_NOTICE
+from fusion.backends import BACKENDS
 from fusion.belief.coarse import coarse_plane
 from fusion.text import literal, plain
 
@@ -35,8 +36,8 @@ __all__ = [
 
 _SHADES = " ·░▒▓█"
 _SPARKS = "▁▂▃▄▅▆▇█"
-BACKEND_TITLES = {"bayes": "Bayesian histogram filter", "evidential": "Dempster–Shafer mass filter"}
-_FIGURE = {"bayes": ("surprise", "surprise −log p(z|past), nats"), "evidential": ("conflict", "conflict K = m(∅)")}
+BACKEND_TITLES = {name: kind.title for name, kind in BACKENDS.items()}
+_FIGURE = {name: kind.figure for name, kind in BACKENDS.items()}
 
 
 def draw_plane(
