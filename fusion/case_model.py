@@ -1,6 +1,7 @@
 """The case's settings model: a site, its sensors and their faults, a route, the run and the sweep settings,
 as typed values, and the vocabulary they are checked against (back ends, rules, motion models, policy
-fields, sensor and fault kinds), taken from the stages that define them.
+fields), taken from the stages that define them; sensor and fault kinds are in the registry of
+``fusion.sensors.kinds``.
 
 ``fusion.io.case`` reads it from TOML; nothing here reads a file."""
 
@@ -11,10 +12,6 @@ from dataclasses import dataclass, field
 from fusion.backends import BACKENDS as _BACKEND_TABLE
 from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
 from fusion.errors import InputFileError
-from fusion.sensors.doors import DoorParams
-from fusion.sensors.markers import MarkerParams
-from fusion.sensors.odometry import OdometryParams
-from fusion.sensors.ranging import RangeParams
 from fusion.site import SiteMap
 
 __all__ = [
@@ -27,8 +24,6 @@ __all__ = [
     "SweepSpec",
     "SWEEP_RULES",
     "BACKENDS",
-    "SENSOR_KINDS",
-    "FAULT_KINDS",
     "filter_rules",
     "motion_models",
     "policy_defaults",
@@ -36,16 +31,6 @@ __all__ = [
 
 BACKENDS = tuple(_BACKEND_TABLE)
 """Back-end names, in the order tools list them (``fusion.backends.BACKENDS``)."""
-SENSOR_KINDS = {"ranging": RangeParams, "markers": MarkerParams, "door": DoorParams, "odometry": OdometryParams}
-FAULT_KINDS = {
-    "ranging": {"people": "short returns from people walking through the beams (rate: chance per beam)"},
-    "markers": {"ghost": "sightings of a marker where it is not (marker, at_m = [x, y], rate: chance per firing)"},
-    "door": {"stuck": "the contact reads a fixed value (value = true or false)"},
-    "odometry": {
-        "drift": "heading drift (turn_deg_per_m) and scale error (scale) on every move",
-        "slip": "one wheel slip at start_s: forward_m and turn_deg added to the true move",
-    },
-}
 
 
 def filter_rules() -> tuple[str, ...]:

@@ -298,6 +298,10 @@ def _calibrate(args: argparse.Namespace) -> int:
         f"[bold]Calibrated sensor parameters[/] ({result.observations:,} readings, {result.poses:,} true poses)"
     )
     console.print(*calibration_tables(result, case))
+    if result.no_model:
+        console.print(
+            f"no calibration model for the kind of: {literal(', '.join(result.no_model))} (their parameters are unchanged)"
+        )
     if result.skipped:
         console.print(
             f"no readings in the log for: {literal(', '.join(result.skipped))} (their parameters are unchanged)"

@@ -38,10 +38,8 @@ from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Pol
 from fusion.monitor.at_fault import ReadingAtFault, TickReading, reading_at_fault
 from fusion.monitor.recovery import Recovery, informative
 from fusion.sensors.base import Evidence, SensorModel
-from fusion.sensors.doors import DoorSensor
-from fusion.sensors.markers import MarkerSensor
+from fusion.sensors.kinds import kinds, sensor_kind
 from fusion.sensors.odometry import OdometryReading, OdometrySensor, Travel, check_odometry_step, moved_pose
-from fusion.sensors.ranging import RangeSensor
 from fusion.site import SiteMap
 
 __all__ = ["SensorSet", "Decision", "Localizer", "FLUSH_M", "FLUSH_DEG"]
@@ -63,14 +61,11 @@ class SensorSet:
         self._cache: dict[int, tuple] = {}
         for spec in specs:
             self.kinds[spec.name] = spec.kind
-            if spec.kind == "odometry":
-                self.odometry = OdometrySensor(spec.name, grid, spec.params)
-            elif spec.kind == "ranging":
-                self.models[spec.name] = RangeSensor(spec.name, site, grid, spec.params)
-            elif spec.kind == "markers":
-                self.models[spec.name] = MarkerSensor(spec.name, site, grid, spec.params)
-            elif spec.kind == "door":
-                self.models[spec.name] = DoorSensor(spec.name, spec.door, site, grid, spec.params)
+            kind = sensor_kind(spec.kind)  # the registry builds each model (fusion.sensors.kinds)
+            if kind.motion:
+                self.odometry = kind.model(spec, site, grid)
+            else:
+                self.models[spec.name] = kind.model(spec, site, grid)
 
     def explain(self, sensor: str, reading, x: float, y: float, heading_deg: float) -> str:
         """What ``sensor``'s ``reading`` measured against what the map gives at the pose, in words."""
@@ -258,7 +253,8 @@ class Localizer:
             try:
                 if not isinstance(obs, Observation):
                     raise ObservationError(f"expected an Observation, got {type(obs).__name__}")
-                if obs.kind == "odometry":
+                moving = kinds().get(obs.kind)
+                if moving is not None and moving.motion:
                     raise ObservationError("odometry goes in the first argument of step(), not among the readings")
                 when = self._check_time(obs.t)
                 encoded.append((obs.sensor, self.sensors.encode(obs)))

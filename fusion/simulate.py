@@ -20,12 +20,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fusion.io.case import Case, SensorSpec
+from fusion.io.case import Case
 from fusion.io.observations import Observation
-from fusion.sensors.doors import DoorReading
-from fusion.sensors.markers import MarkerMiss, MarkerSighting, visible_markers
-from fusion.sensors.odometry import OdometryReading
-from fusion.sensors.ranging import RangeScan
+from fusion.sensors.kinds import sensor_kind
 
 __all__ = ["Tick", "TruePose", "simulate"]
 
@@ -136,94 +133,14 @@ def simulate(case: Case, seed: int | None = None, max_ticks: int = 100_000) -> l
         truth = TruePose(t, driver.x, driver.y, driver.heading, active, carry is not None)
         observations = []
         for i, spec in enumerate(case.sensors):
-            if spec.kind == "odometry":
+            kind = sensor_kind(spec.kind)
+            if kind.motion:
                 observations.append(
-                    Observation(t, spec.name, "odometry", _odometry(spec, forward, turn, t, dt, rngs[i]))
+                    Observation(t, spec.name, spec.kind, kind.simulate(spec, forward, turn, t, dt, rngs[i]))
                 )
             elif _fires(i, k, spec.rate_hz, dt):
-                reading = _SIMULATORS[spec.kind](case, spec, truth, rngs[i])
-                observations.append(Observation(t, spec.name, spec.kind, reading))
-        observations.sort(key=lambda o: o.kind != "odometry")  # motion first, then the readings
+                observations.append(Observation(t, spec.name, spec.kind, kind.simulate(case, spec, truth, rngs[i])))
+        observations.sort(key=lambda o: not sensor_kind(o.kind).motion)  # motion first, then the readings
         ticks.append(Tick(truth, tuple(observations)))
         k += 1
     return ticks
-
-
-def _odometry(spec: SensorSpec, forward: float, turn: float, t: float, dt: float, rng) -> OdometryReading:
-    p = spec.params
-    measured_f = forward + rng.normal(0.0, p.sigma_per_m * abs(forward) + 1e-4)
-    measured_t = turn + rng.normal(
-        0.0, p.turn_sigma_per_m_deg * abs(forward) + p.turn_sigma_per_turn * abs(turn) + 0.05
-    )
-    for fault in spec.faults:
-        if fault.kind == "drift" and fault.active(t):
-            measured_f *= float(fault.options.get("scale", 1.0))
-            measured_t += float(fault.options.get("turn_deg_per_m", 0.0)) * abs(forward)
-        if fault.kind == "slip" and t <= fault.start_s < t + dt:
-            measured_f += float(fault.options.get("forward_m", 0.0))
-            measured_t += float(fault.options.get("turn_deg", 0.0))
-    return OdometryReading(float(measured_f), 0.0, float(measured_t))
-
-
-def _ranging(case: Case, spec: SensorSpec, truth: TruePose, rng) -> RangeScan:
-    p = spec.params
-    people = [f for f in spec.faults if f.kind == "people" and f.active(truth.t)]
-    ranges = []
-    for bearing in p.bearings_deg:
-        z = case.site.ray_range(truth.x_m, truth.y_m, math.radians(truth.heading_deg + bearing), p.max_range_m)
-        if z < p.max_range_m:
-            z = max(0.0, z + rng.normal(0.0, p.sigma_hit_m))
-        for f in people:
-            if rng.random() < float(f.options["rate"]):
-                z = float(rng.uniform(0.3, max(0.31, min(z, p.max_range_m))))
-        ranges.append(min(z, p.max_range_m))
-    return RangeScan(tuple(ranges))
-
-
-def _bearing_to(truth: TruePose, x: float, y: float) -> tuple[float, float]:
-    r = math.hypot(x - truth.x_m, y - truth.y_m)
-    b = _wrap_deg(math.degrees(math.atan2(y - truth.y_m, x - truth.x_m)) - truth.heading_deg)
-    return r, b
-
-
-def _markers(case: Case, spec: SensorSpec, truth: TruePose, rng):
-    p = spec.params
-    site = case.site
-    for f in spec.faults:
-        if f.kind == "ghost" and f.active(truth.t) and rng.random() < float(f.options["rate"]):
-            gx, gy = f.options["at_m"]
-            r, b = _bearing_to(truth, float(gx), float(gy))
-            if r <= p.max_range_m and abs(b) <= p.fov_deg / 2:
-                return MarkerSighting(
-                    str(f.options["marker"]), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg)
-                )
-    seen = []
-    for r, b, marker_id in visible_markers(site, p, truth.x_m, truth.y_m, truth.heading_deg):
-        if rng.random() < p.p_detect:
-            seen.append((r, b, marker_id))
-    if rng.random() < p.false_rate:  # a look-alike print somewhere in view
-        fake = site.markers[int(rng.integers(len(site.markers)))].marker_id
-        return MarkerSighting(
-            fake, float(rng.uniform(0.5, p.max_range_m)), float(rng.uniform(-p.fov_deg / 2, p.fov_deg / 2))
-        )
-    if not seen:
-        return MarkerMiss()
-    r, b, marker_id = min(seen)
-    if len(site.markers) > 1 and rng.random() < p.confusion:
-        marker_id = rng.choice([m.marker_id for m in site.markers if m.marker_id != marker_id])
-    return MarkerSighting(str(marker_id), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg))
-
-
-def _door(case: Case, spec: SensorSpec, truth: TruePose, rng) -> DoorReading:
-    for f in spec.faults:
-        if f.kind == "stuck" and f.active(truth.t):
-            return DoorReading(bool(f.options["value"]))
-    site = case.site
-    zone = site.door_zone(site.door(spec.door))
-    iy, ix = site.grid(1).plane_index(truth.x_m, truth.y_m)
-    inside = bool(zone[iy, ix])
-    rate = spec.params.hit_rate if inside else spec.params.false_alarm_rate
-    return DoorReading(bool(rng.random() < rate))
-
-
-_SIMULATORS = {"ranging": _ranging, "markers": _markers, "door": _door}

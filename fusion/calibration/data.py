@@ -74,6 +74,7 @@ class OdometryData:
 class Datasets:
     by_sensor: dict = field(default_factory=dict)  # name -> one of the data classes above
     set_aside: list[SetAside] = field(default_factory=list)
+    no_model: list[str] = field(default_factory=list)  # sensors of a kind calibration has no model for
 
 
 def _wrap(a):
@@ -103,8 +104,11 @@ def datasets(case: Case, observations, truth) -> Datasets:
             continue
         rows[obs.sensor].append((pose, obs.reading, obs.t))
     for name, pairs in rows.items():
-        if pairs:
-            out.by_sensor[name] = _BUILDERS[specs[name].kind](case, specs[name], pairs, poses)
+        build = _BUILDERS.get(specs[name].kind)
+        if build is None:
+            out.no_model.append(name)
+        elif pairs:
+            out.by_sensor[name] = build(case, specs[name], pairs, poses)
     return out
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 from fusion.calibration.data import datasets
@@ -35,6 +36,7 @@ class Calibration:
     observations: int
     poses: int
     skipped: list[str]  # sensors with no reading in the log
+    no_model: list[str] = dataclasses.field(default_factory=list)  # sensors of a kind calibration cannot fit
 
 
 def calibrate(
@@ -59,5 +61,5 @@ def calibrate(
             progress(spec.name)
         fits += fit_sensor(spec.name, spec.kind, data.by_sensor[spec.name], settings)
     aside = [(log.path, s) for s in log.set_aside + data.set_aside] + [(truth.path, s) for s in truth.set_aside]
-    skipped = [s.name for s in case.sensors if s.name not in data.by_sensor]
-    return Calibration(summarise_fits(fits), aside, len(log.records), len(truth.records), skipped)
+    skipped = [s.name for s in case.sensors if s.name not in data.by_sensor and s.name not in data.no_model]
+    return Calibration(summarise_fits(fits), aside, len(log.records), len(truth.records), skipped, data.no_model)

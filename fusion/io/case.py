@@ -21,8 +21,6 @@ from pathlib import Path
 from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
 from fusion.case_model import (
     BACKENDS,
-    FAULT_KINDS,
-    SENSOR_KINDS,
     SWEEP_RULES,
     CarryEvent,
     Case,
@@ -38,8 +36,8 @@ from fusion.case_model import (
 from fusion.io.bounded import read_text
 from fusion.io.site_file import MAX_BOXES, MAX_ITEMS, free_point, free_segment, read_site
 from fusion.io.toml_reader import TomlReader, finite_numbers, load_toml
+from fusion.sensors.kinds import kinds, sensor_kind
 from fusion.sensors.limits import problems
-from fusion.sensors.odometry import REMOVED_FIELDS
 from fusion.site import SiteMap
 
 __all__ = [
@@ -54,8 +52,6 @@ __all__ = [
     "load_case",
     "apply_calibration",
     "parse_case",
-    "SENSOR_KINDS",
-    "FAULT_KINDS",
     "MAX_CASE_BYTES",
     "MAX_ITEMS",
     "MAX_BOXES",
@@ -123,75 +119,73 @@ def _params(r: TomlReader, d: dict, where: tuple, cls, skip: set) -> object:
 
 
 def _sensors(r: TomlReader, data: dict, site: SiteMap) -> tuple[SensorSpec, ...]:
-    out = []
     tables = r.tables(data, (), "sensors")
     if len(tables) > MAX_SENSORS:
         r.fail(("sensors",), f"{len(tables):,} sensors are given; the limit is {MAX_SENSORS}")
     if not tables:
         r.fail((), "no [[sensors]] are given; a case needs at least odometry and one other sensor")
-    for i, d in enumerate(tables):
-        w = ("sensors", i)
-        name = r.name(d, w, "name")
-        kind = r.text(d, w, "kind", choices=tuple(SENSOR_KINDS))
-        rate = r.number(d, w, "rate_hz", 10.0 if kind == "odometry" else None, positive=True, high=100)
-        door = None
-        if kind == "door":
-            door = r.name(d, w, "door")
-            if door not in {x.name for x in site.doors}:
-                known = ", ".join(x.name for x in site.doors) or "none"
-                r.fail((*w, "door"), f"no door {door!r} on the site (doors: {known})")
-        if kind == "markers" and not site.markers:
-            r.fail((*w, "kind"), "a marker sensor needs markers on the site ([[site.markers]])")
-        if kind == "odometry":
-            for old, why in REMOVED_FIELDS.items():
-                if old in d:
-                    r.fail((*w, old), f"'{old}' is no longer read: {why}; remove it (see cases/README.md)")
-        params = _params(r, d, w, SENSOR_KINDS[kind], {"name", "kind", "rate_hz", "door", "faults"})
-        for f, problem in problems(params):  # the sensor models' own rules: check accepts what a run can start
-            r.fail((*w, f), problem)
-        if kind == "door" and not site.door_zone(site.door(door)).any():
-            r.fail((*w, "door"), f"the zone of door {door!r} holds no free cell; check its position, facing and radius")
-        faults = []
-        for j, fd in enumerate(r.tables(d, w, "faults")):
-            fw = (*w, "faults", j)
-            fkind = r.text(fd, fw, "kind", choices=tuple(FAULT_KINDS[kind]))
-            start = r.number(fd, fw, "start_s", 0.0, low=0)
-            end = r.number(fd, fw, "end_s", math.inf if fkind != "slip" else start + 1e-9, low=0)
-            if end <= start and fkind != "slip":
-                r.fail((*fw, "end_s"), f"must be after start_s ({start} s), got {end!r}")
-            options = {k: v for k, v in fd.items() if k not in ("kind", "start_s", "end_s")}
-            allowed = {
-                "people": {"rate"},
-                "ghost": {"marker", "at_m", "rate"},
-                "stuck": {"value"},
-                "drift": {"turn_deg_per_m", "scale"},
-                "slip": {"forward_m", "turn_deg"},
-            }[fkind]
-            r.only(options, fw, allowed)
-            if fkind in ("people", "ghost"):
-                r.number(fd, fw, "rate", high=1, low=0)
-            if fkind == "ghost":
-                marker = r.name(fd, fw, "marker")
-                if marker not in {m.marker_id for m in site.markers}:
-                    r.fail((*fw, "marker"), f"no marker {marker!r} on the site")
-                r.numbers(fd, fw, "at_m", length=2)
-            if fkind == "stuck":
-                r.flag(fd, fw, "value")
-            if fkind == "drift":
-                r.number(fd, fw, "turn_deg_per_m", 0.0)
-                r.number(fd, fw, "scale", 1.0, positive=True)
-            if fkind == "slip":
-                r.number(fd, fw, "forward_m", 0.0)
-                r.number(fd, fw, "turn_deg", 0.0)
-            faults.append(FaultSpec(fkind, float(start), float(end), options))
-        out.append(SensorSpec(name, kind, float(rate), params, tuple(faults), door))
+    out = [_sensor(r, d, ("sensors", i), site) for i, d in enumerate(tables)]
     names = [s.name for s in out]
     for i, n in enumerate(names):
         if names.index(n) != i:
             r.fail(("sensors", i, "name"), f"sensor name {n!r} is used twice; names must be unique")
-    if sum(s.kind == "odometry" for s in out) != 1:
-        r.fail(("sensors",), "exactly one sensor of kind 'odometry' is needed (it drives the prediction)")
+    moving = [name for name, k in kinds().items() if k.motion]
+    if sum(s.kind in moving for s in out) != 1:
+        said = " or ".join(repr(m) for m in moving)
+        r.fail(("sensors",), f"exactly one sensor of kind {said} is needed (it drives the prediction)")
     return tuple(out)
+
+
+def _sensor(r: TomlReader, d: dict, w: tuple, site: SiteMap) -> SensorSpec:
+    """One ``[[sensors]]`` table, checked by what its kind declares (``fusion.sensors.kinds``)."""
+    name = r.name(d, w, "name")
+    kind_name = r.text(d, w, "kind", choices=tuple(kinds()))
+    kind = sensor_kind(kind_name)
+    rate = r.number(d, w, "rate_hz", 10.0 if kind.motion else None, positive=True, high=100)
+    door = None
+    if kind.needs_door:
+        door = r.name(d, w, "door")
+        if door not in {x.name for x in site.doors}:
+            known = ", ".join(x.name for x in site.doors) or "none"
+            r.fail((*w, "door"), f"no door {door!r} on the site (doors: {known})")
+    if kind.needs_markers and not site.markers:
+        r.fail((*w, "kind"), "a marker sensor needs markers on the site ([[site.markers]])")
+    for old, why in kind.removed_fields.items():
+        if old in d:
+            r.fail((*w, old), f"'{old}' is no longer read: {why}; remove it (see cases/README.md)")
+    params = _params(r, d, w, kind.params, {"name", "kind", "rate_hz", "door", "faults"})
+    for f, problem in problems(params):  # the sensor models' own rules: check accepts what a run can start
+        r.fail((*w, f), problem)
+    if kind.needs_door and not site.door_zone(site.door(door)).any():
+        r.fail((*w, "door"), f"the zone of door {door!r} holds no free cell; check its position, facing and radius")
+    faults = tuple(_fault(r, fd, (*w, "faults", j), kind, site) for j, fd in enumerate(r.tables(d, w, "faults")))
+    return SensorSpec(name, kind_name, float(rate), params, faults, door)
+
+
+def _fault(r: TomlReader, fd: dict, fw: tuple, kind, site: SiteMap) -> FaultSpec:
+    """One fault of a sensor: its kind among the sensor kind's, its window, its declared options."""
+    fkind = r.text(fd, fw, "kind", choices=tuple(kind.faults))
+    declared = kind.faults[fkind]
+    start = r.number(fd, fw, "start_s", 0.0, low=0)
+    end = r.number(fd, fw, "end_s", math.inf if not declared.instant else start + 1e-9, low=0)
+    if end <= start and not declared.instant:
+        r.fail((*fw, "end_s"), f"must be after start_s ({start} s), got {end!r}")
+    options = {k: v for k, v in fd.items() if k not in ("kind", "start_s", "end_s")}
+    r.only(options, fw, set(declared.options))
+    for key, option in declared.options.items():
+        if option.type == "rate":
+            r.number(fd, fw, key, high=1, low=0)
+        elif option.type == "marker":
+            marker = r.name(fd, fw, key)
+            if marker not in {m.marker_id for m in site.markers}:
+                r.fail((*fw, key), f"no marker {marker!r} on the site")
+        elif option.type == "point":
+            r.numbers(fd, fw, key, length=2)
+        elif option.type == "flag":
+            r.flag(fd, fw, key)
+        else:  # number or positive, with a default
+            r.number(fd, fw, key, option.default, positive=option.type == "positive")
+    return FaultSpec(fkind, float(start), float(end), options)
 
 
 def _route(r: TomlReader, d, site: SiteMap) -> RouteSpec:
@@ -310,19 +304,17 @@ def apply_calibration(case: Case, path) -> Case:
             r.fail((*w, "kind"), f"sensor {name!r} is a {spec.kind} sensor in the case, not {kind}")
         interval = r.table(d, w, "interval", required=False)
         values = {k: v for k, v in d.items() if k not in ("name", "kind", "interval")}
-        params = _params(r, values, w, SENSOR_KINDS[kind], set())
+        params = _params(r, values, w, sensor_kind(kind).params, set())
         for key, bounds in interval.items():
             if not finite_numbers(bounds, 2) or bounds[0] > bounds[1]:
                 r.fail((*w, "interval", key), f"must be [low, high] with low ≤ high, got {bounds!r}")
         merged = dataclasses.replace(spec.params, **{k: getattr(params, k) for k in values})
-        if kind == "ranging":
-            total = merged.z_hit + merged.z_short + merged.z_max + merged.z_rand
-            if abs(total - 1.0) > 1e-6:
-                r.fail(w, f"z_hit + z_short + z_max + z_rand must sum to 1, got {total:.6g}")
-            # The file rounds to 6 digits; the model wants the sum exact.
-            merged = dataclasses.replace(
-                merged, **{k: getattr(merged, k) / total for k in ("z_hit", "z_short", "z_max", "z_rand")}
-            )
+        settle = sensor_kind(kind).settle
+        if settle is not None:  # e.g. mixture weights the file rounded, summed to exactly 1 again
+            try:
+                merged = settle(merged)
+            except ValueError as err:
+                r.fail(w, str(err))
         for f, problem in problems(merged):
             r.fail((*w, f), problem)
         replaced[name] = dataclasses.replace(spec, params=merged)

@@ -12,7 +12,7 @@ import math
 
 from fusion.errors import ObservationError
 
-__all__ = ["decode_line", "finite_number", "shown"]
+__all__ = ["decode_line", "finite_number", "number_field", "shown"]
 
 
 def _no_constant(name: str):
@@ -48,3 +48,13 @@ def shown(value) -> str:
     """A value for an error message, cut short (a hostile line may hold a megabyte in one field)."""
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
+
+
+def number_field(rec: dict, key: str, where: str) -> float:
+    """Field ``key`` of a record as a finite number; ``ObservationError`` naming it otherwise."""
+    if key not in rec:
+        raise ObservationError(f"{where}: the field '{key}' is missing")
+    v = finite_number(rec[key])
+    if v is None:
+        raise ObservationError(f"{where}: field '{key}' must be a finite number, got {shown(rec[key])}")
+    return v

@@ -14,20 +14,15 @@ previous odometry record.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 from fusion.errors import ObservationError
-from fusion.io.json_line import finite_number, shown
-from fusion.sensors.doors import DoorReading
-from fusion.sensors.markers import MarkerMiss, MarkerSighting
-from fusion.sensors.odometry import OdometryReading
-from fusion.sensors.ranging import RangeScan
+from fusion.io.json_line import number_field, shown
+from fusion.sensors.kinds import kinds, sensor_kind
 from fusion.text import MAX_NAME_CHARS
 
-__all__ = ["Observation", "from_record", "KINDS"]
+__all__ = ["Observation", "from_record"]
 
-KINDS = ("ranging", "markers", "door", "odometry")
 MAX_NAME = MAX_NAME_CHARS  # the same limit as in a case file
 """Longest sensor or marker name a record may hold."""
 
@@ -40,35 +35,18 @@ class Observation:
     reading: object
 
     def to_record(self) -> dict:
+        """The log record: time, sensor, kind, and the reading's fields as its kind writes them
+        (``fusion.sensors.kinds``)."""
         rec = {"t": round(self.t, 6), "sensor": self.sensor, "kind": self.kind}
-        r = self.reading
-        if isinstance(r, RangeScan):
-            rec["ranges_m"] = [round(float(z), 4) for z in r.ranges_m]
-        elif isinstance(r, MarkerSighting):
-            rec.update(marker=r.marker_id, range_m=round(r.range_m, 4), bearing_deg=round(r.bearing_deg, 3))
-        elif isinstance(r, MarkerMiss):
-            rec["marker"] = None
-        elif isinstance(r, DoorReading):
-            rec["active"] = bool(r.active)
-        elif isinstance(r, OdometryReading):
-            rec.update(forward_m=round(r.forward_m, 5), left_m=round(r.left_m, 5), turn_deg=round(r.turn_deg, 4))
+        rec.update(sensor_kind(self.kind).to_record(self.reading))
         return rec
-
-
-def _number(rec: dict, key: str, where: str) -> float:
-    if key not in rec:
-        raise ObservationError(f"{where}: the field '{key}' is missing")
-    v = finite_number(rec[key])
-    if v is None:
-        raise ObservationError(f"{where}: field '{key}' must be a finite number, got {shown(rec[key])}")
-    return v
 
 
 def from_record(rec) -> Observation:
     """Validate a decoded JSON object and turn it into an ``Observation``; ``ObservationError`` names the field."""
     if not isinstance(rec, dict):
         raise ObservationError(f"an observation must be a JSON object, got {type(rec).__name__}")
-    t = _number(rec, "t", "observation")
+    t = number_field(rec, "t", "observation")
     if t < 0:
         raise ObservationError(f"observation: field 't' must be ≥ 0 seconds, got {t!r}")
     sensor = rec.get("sensor")
@@ -78,36 +56,7 @@ def from_record(rec) -> Observation:
         )
     kind = rec.get("kind")
     where = f"observation of {sensor!r} at t={t:g}"
-    if kind not in KINDS:
-        raise ObservationError(f"{where}: field 'kind' must be one of {', '.join(KINDS)}, got {shown(kind)}")
-    if kind == "ranging":
-        ranges = rec.get("ranges_m")
-        if not isinstance(ranges, list) or not ranges:
-            raise ObservationError(f"{where}: field 'ranges_m' must be a non-empty array of numbers")
-        values = []
-        for i, z in enumerate(ranges):
-            # +inf is allowed: a beam with no return
-            value = math.inf if isinstance(z, float) and z == math.inf else finite_number(z)
-            if value is None or value < 0:
-                raise ObservationError(f"{where}: ranges_m[{i}] must be a number ≥ 0, got {shown(z)}")
-            values.append(value)
-        reading = RangeScan(tuple(values))
-    elif kind == "markers":
-        marker = rec.get("marker", "missing")
-        if marker is None:
-            reading = MarkerMiss()
-        elif not isinstance(marker, str) or not marker or len(marker) > MAX_NAME:
-            raise ObservationError(f"{where}: field 'marker' must be a marker id, or null for no sighting")
-        else:
-            reading = MarkerSighting(marker, _number(rec, "range_m", where), _number(rec, "bearing_deg", where))
-            if reading.range_m < 0:
-                raise ObservationError(f"{where}: field 'range_m' must be ≥ 0, got {reading.range_m!r}")
-    elif kind == "door":
-        active = rec.get("active")
-        if not isinstance(active, bool):
-            raise ObservationError(f"{where}: field 'active' must be true or false, got {shown(active)}")
-        reading = DoorReading(active)
-    else:
-        left = _number(rec, "left_m", where) if rec.get("left_m") is not None else 0.0
-        reading = OdometryReading(_number(rec, "forward_m", where), left, _number(rec, "turn_deg", where))
-    return Observation(t, sensor, kind, reading)
+    known = kinds()
+    if not isinstance(kind, str) or kind not in known:
+        raise ObservationError(f"{where}: field 'kind' must be one of {', '.join(known)}, got {shown(kind)}")
+    return Observation(t, sensor, kind, known[kind].from_record(rec, where))

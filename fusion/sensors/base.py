@@ -18,7 +18,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import cached_property
-from typing import Protocol
+from typing import Protocol, runtime_checkable
 
 import numpy as np
 
@@ -88,6 +88,7 @@ class Evidence:
         )
 
 
+@runtime_checkable
 class SensorModel(Protocol):
     """What every sensor model offers: a name, ``encode(reading) -> Evidence``, and ``odd_rate``: the
     share of a working sensor's readings that its own error model says contradict the true pose

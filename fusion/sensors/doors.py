@@ -72,3 +72,48 @@ class DoorSensor:
         top = lik.max()
         contour = lik / top if top > 0 else np.zeros(lik.shape)
         return Evidence(self.name, contour, self.params.reliability, self.params.levels)
+
+
+# ----------------------------------------------------------------------------- the kind
+def _from_record(rec: dict, where: str) -> DoorReading:
+    from fusion.io.json_line import shown
+
+    active = rec.get("active")
+    if not isinstance(active, bool):
+        raise ObservationError(f"{where}: field 'active' must be true or false, got {shown(active)}")
+    return DoorReading(active)
+
+
+def _simulate(case, spec, truth, rng) -> DoorReading:
+    """The contact from the true pose: fires in the door's zone at its hit rate, elsewhere at its false-alarm
+    rate; stuck at a value (fault)."""
+    for f in spec.faults:
+        if f.kind == "stuck" and f.active(truth.t):
+            return DoorReading(bool(f.options["value"]))
+    site = case.site
+    zone = site.door_zone(site.door(spec.door))
+    iy, ix = site.grid(1).plane_index(truth.x_m, truth.y_m)
+    inside = bool(zone[iy, ix])
+    rate = spec.params.hit_rate if inside else spec.params.false_alarm_rate
+    return DoorReading(bool(rng.random() < rate))
+
+
+def _register() -> None:
+    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+
+    stuck = FaultKind("stuck", "the contact reads a fixed value (value = true or false)", {"value": Option("flag")})
+    register(
+        SensorKind(
+            "door",
+            DoorParams,
+            lambda spec, site, grid: DoorSensor(spec.name, spec.door, site, grid, spec.params),
+            lambda reading: {"active": bool(reading.active)},
+            _from_record,
+            _simulate,
+            {"stuck": stuck},
+            needs_door=True,
+        )
+    )
+
+
+_register()

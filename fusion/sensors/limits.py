@@ -63,7 +63,7 @@ FIELD_RULES = {
 def problems(params) -> list[tuple[str, str]]:
     """``(field, what is wrong)`` for every parameter of ``params`` that a sensor model would refuse."""
     out = []
-    for name, rule in FIELD_RULES.items():
+    for name, rule in {**FIELD_RULES, **_kind_rules(params)}.items():
         if not hasattr(params, name):
             continue
         value = getattr(params, name)
@@ -76,6 +76,16 @@ def problems(params) -> list[tuple[str, str]]:
             out.append((name, f"{words}, got {value!r}"))
     out += _joint(params)
     return out
+
+
+def _kind_rules(params) -> dict[str, str]:
+    """The rules a registered sensor kind declares for its own parameter fields (``SensorKind.rules``)."""
+    from fusion.sensors.kinds import kinds
+
+    for kind in kinds().values():
+        if type(params) is kind.params:
+            return kind.rules
+    return {}
 
 
 def _joint(params) -> list[tuple[str, str]]:

@@ -220,3 +220,90 @@ def _wrap(angle):
 
 
 _TWO_PI = 2.0 * math.pi
+
+
+# ----------------------------------------------------------------------------- the kind
+def _record(reading) -> dict:
+    if isinstance(reading, MarkerMiss):
+        return {"marker": None}
+    return {
+        "marker": reading.marker_id,
+        "range_m": round(reading.range_m, 4),
+        "bearing_deg": round(reading.bearing_deg, 3),
+    }
+
+
+def _from_record(rec: dict, where: str):
+    from fusion.io.json_line import number_field
+    from fusion.text import MAX_NAME_CHARS
+
+    marker = rec.get("marker", "missing")
+    if marker is None:
+        return MarkerMiss()
+    if not isinstance(marker, str) or not marker or len(marker) > MAX_NAME_CHARS:
+        raise ObservationError(f"{where}: field 'marker' must be a marker id, or null for no sighting")
+    reading = MarkerSighting(marker, number_field(rec, "range_m", where), number_field(rec, "bearing_deg", where))
+    if reading.range_m < 0:
+        raise ObservationError(f"{where}: field 'range_m' must be ≥ 0, got {reading.range_m!r}")
+    return reading
+
+
+def _bearing_to(truth, x: float, y: float) -> tuple[float, float]:
+    r = math.hypot(x - truth.x_m, y - truth.y_m)
+    b = (math.degrees(math.atan2(y - truth.y_m, x - truth.x_m)) - truth.heading_deg + 180.0) % 360.0 - 180.0
+    return r, b
+
+
+def _simulate(case, spec, truth, rng):
+    """A firing from the true pose: the nearest marker seen (detection, confusion, noise), a false sighting, a
+    miss; a ghost marker where none is (fault)."""
+    p = spec.params
+    site = case.site
+    for f in spec.faults:
+        if f.kind == "ghost" and f.active(truth.t) and rng.random() < float(f.options["rate"]):
+            gx, gy = f.options["at_m"]
+            r, b = _bearing_to(truth, float(gx), float(gy))
+            if r <= p.max_range_m and abs(b) <= p.fov_deg / 2:
+                return MarkerSighting(
+                    str(f.options["marker"]), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg)
+                )
+    seen = []
+    for r, b, marker_id in visible_markers(site, p, truth.x_m, truth.y_m, truth.heading_deg):
+        if rng.random() < p.p_detect:
+            seen.append((r, b, marker_id))
+    if rng.random() < p.false_rate:  # a look-alike print somewhere in view
+        fake = site.markers[int(rng.integers(len(site.markers)))].marker_id
+        return MarkerSighting(
+            fake, float(rng.uniform(0.5, p.max_range_m)), float(rng.uniform(-p.fov_deg / 2, p.fov_deg / 2))
+        )
+    if not seen:
+        return MarkerMiss()
+    r, b, marker_id = min(seen)
+    if len(site.markers) > 1 and rng.random() < p.confusion:
+        marker_id = rng.choice([m.marker_id for m in site.markers if m.marker_id != marker_id])
+    return MarkerSighting(str(marker_id), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg))
+
+
+def _register() -> None:
+    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+
+    ghost = FaultKind(
+        "ghost",
+        "sightings of a marker where it is not (marker, at_m = [x, y], rate: chance per firing)",
+        {"rate": Option("rate"), "marker": Option("marker"), "at_m": Option("point")},
+    )
+    register(
+        SensorKind(
+            "markers",
+            MarkerParams,
+            lambda spec, site, grid: MarkerSensor(spec.name, site, grid, spec.params),
+            _record,
+            _from_record,
+            _simulate,
+            {"ghost": ghost},
+            needs_markers=True,
+        )
+    )
+
+
+_register()

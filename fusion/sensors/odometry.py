@@ -205,3 +205,65 @@ class OdometrySensor:
             slip=int(math.ceil(p.slip_m / res)),
             slip_turn=int(math.ceil(p.slip_deg / step_deg)),
         )
+
+
+# ----------------------------------------------------------------------------- the kind
+def _record(r: OdometryReading) -> dict:
+    return {"forward_m": round(r.forward_m, 5), "left_m": round(r.left_m, 5), "turn_deg": round(r.turn_deg, 4)}
+
+
+def _from_record(rec: dict, where: str) -> OdometryReading:
+    from fusion.io.json_line import number_field
+
+    left = number_field(rec, "left_m", where) if rec.get("left_m") is not None else 0.0
+    return OdometryReading(number_field(rec, "forward_m", where), left, number_field(rec, "turn_deg", where))
+
+
+def simulate_odometry(spec, forward: float, turn: float, t: float, dt: float, rng) -> OdometryReading:
+    """The wheels' report of a true move (forward m, turn deg) over (t, t + dt]: noise per the error model;
+    drift and a wheel slip (faults)."""
+    p = spec.params
+    measured_f = forward + rng.normal(0.0, p.sigma_per_m * abs(forward) + 1e-4)
+    measured_t = turn + rng.normal(
+        0.0, p.turn_sigma_per_m_deg * abs(forward) + p.turn_sigma_per_turn * abs(turn) + 0.05
+    )
+    for fault in spec.faults:
+        if fault.kind == "drift" and fault.active(t):
+            measured_f *= float(fault.options.get("scale", 1.0))
+            measured_t += float(fault.options.get("turn_deg_per_m", 0.0)) * abs(forward)
+        if fault.kind == "slip" and t <= fault.start_s < t + dt:
+            measured_f += float(fault.options.get("forward_m", 0.0))
+            measured_t += float(fault.options.get("turn_deg", 0.0))
+    return OdometryReading(float(measured_f), 0.0, float(measured_t))
+
+
+def _register() -> None:
+    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+
+    drift = FaultKind(
+        "drift",
+        "heading drift (turn_deg_per_m) and scale error (scale) on every move",
+        {"turn_deg_per_m": Option("number", 0.0), "scale": Option("positive", 1.0)},
+    )
+    slip = FaultKind(
+        "slip",
+        "one wheel slip at start_s: forward_m and turn_deg added to the true move",
+        {"forward_m": Option("number", 0.0), "turn_deg": Option("number", 0.0)},
+        instant=True,
+    )
+    register(
+        SensorKind(
+            "odometry",
+            OdometryParams,
+            lambda spec, site, grid: OdometrySensor(spec.name, grid, spec.params),
+            _record,
+            _from_record,
+            simulate_odometry,
+            {"drift": drift, "slip": slip},
+            motion=True,
+            removed_fields=REMOVED_FIELDS,
+        )
+    )
+
+
+_register()

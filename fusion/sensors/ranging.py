@@ -152,3 +152,77 @@ class RangeSensor:
             self.params.levels,
             dof=int(np.sum(z < self.params.max_range_m)),  # max-range returns carry no position information
         )
+
+
+# ----------------------------------------------------------------------------- the kind
+def _record(scan: RangeScan) -> dict:
+    return {"ranges_m": [round(float(z), 4) for z in scan.ranges_m]}
+
+
+def _from_record(rec: dict, where: str) -> RangeScan:
+    from fusion.io.json_line import finite_number, shown
+
+    ranges = rec.get("ranges_m")
+    if not isinstance(ranges, list) or not ranges:
+        raise ObservationError(f"{where}: field 'ranges_m' must be a non-empty array of numbers")
+    values = []
+    for i, z in enumerate(ranges):
+        # +inf is allowed: a beam with no return
+        value = math.inf if isinstance(z, float) and z == math.inf else finite_number(z)
+        if value is None or value < 0:
+            raise ObservationError(f"{where}: ranges_m[{i}] must be a number ≥ 0, got {shown(z)}")
+        values.append(value)
+    return RangeScan(tuple(values))
+
+
+def _simulate(case, spec, truth, rng) -> RangeScan:
+    """A scan from the true pose: the map's ranges with Gaussian noise; people in the beams (fault)."""
+    p = spec.params
+    people = [f for f in spec.faults if f.kind == "people" and f.active(truth.t)]
+    ranges = []
+    for bearing in p.bearings_deg:
+        z = case.site.ray_range(truth.x_m, truth.y_m, math.radians(truth.heading_deg + bearing), p.max_range_m)
+        if z < p.max_range_m:
+            z = max(0.0, z + rng.normal(0.0, p.sigma_hit_m))
+        for f in people:
+            if rng.random() < float(f.options["rate"]):
+                z = float(rng.uniform(0.3, max(0.31, min(z, p.max_range_m))))
+        ranges.append(min(z, p.max_range_m))
+    return RangeScan(tuple(ranges))
+
+
+def _settle(params: RangeParams) -> RangeParams:
+    """The mixture weights summed to exactly 1 (a calibration file rounds them to 6 digits)."""
+    import dataclasses
+
+    total = params.z_hit + params.z_short + params.z_max + params.z_rand
+    if abs(total - 1.0) > 1e-6:
+        raise ValueError(f"z_hit + z_short + z_max + z_rand must sum to 1, got {total:.6g}")
+    return dataclasses.replace(
+        params, **{k: getattr(params, k) / total for k in ("z_hit", "z_short", "z_max", "z_rand")}
+    )
+
+
+def _register() -> None:
+    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+
+    people = FaultKind(
+        "people",
+        "short returns from people walking through the beams (rate: chance per beam)",
+        {"rate": Option("rate")},
+    )
+    register(
+        SensorKind(
+            "ranging",
+            RangeParams,
+            lambda spec, site, grid: RangeSensor(spec.name, site, grid, spec.params),
+            _record,
+            _from_record,
+            _simulate,
+            {"people": people},
+            settle=_settle,
+        )
+    )
+
+
+_register()

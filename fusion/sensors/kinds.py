@@ -1,0 +1,84 @@
+"""The registry of sensor kinds: one entry per kind, read by every stage that depends on the kind.
+
+A sensor kind is one module that defines its parameters, its readings, its model (a ``SensorModel``:
+likelihood and mass function from one set of parameters), how its readings are written in a log
+record and read back, how the simulator draws them, and its faults; and one ``register(SensorKind(…))``
+call.  Case validation (``fusion.io.case``), observation records (``fusion.io.observations``), the
+sensor set of a localizer (``fusion.localizer.SensorSet``) and the simulator (``fusion.simulate``) read
+this registry and nothing else about a kind.  The built-in kinds (ranging, markers, door, odometry)
+register themselves when their modules are imported; ``kinds()`` imports them first.
+
+Fault options are declared, not coded: each option names its type (``OPTION_TYPES``), and the case
+reader checks them with file, line and field.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+__all__ = ["SensorKind", "FaultKind", "Option", "register", "kinds", "sensor_kind", "OPTION_TYPES"]
+
+OPTION_TYPES = ("rate", "number", "positive", "flag", "marker", "point")
+"""rate: a number in [0, 1], required; number / positive: a number (positive: > 0) with a default; flag: true or
+false, required; marker: the id of a marker of the site, required; point: [x, y] in metres, required."""
+
+
+@dataclass(frozen=True)
+class Option:
+    type: str
+    default: float | None = None
+
+
+@dataclass(frozen=True)
+class FaultKind:
+    name: str
+    description: str
+    options: dict[str, Option] = field(default_factory=dict)
+    instant: bool = False  # happens once, at start_s (no end_s)
+
+
+@dataclass(frozen=True)
+class SensorKind:
+    name: str
+    params: type  # the parameter dataclass: the case's fields of a sensor of this kind
+    model: Callable  # (spec, site, grid) -> the sensor model (for odometry: the motion model)
+    to_record: Callable  # reading -> the fields of its log record (``fusion.io.observations``)
+    from_record: Callable  # (record, where) -> reading; ObservationError naming the field
+    # (case, spec, truth, rng) -> reading, for a sensor that fires at rate_hz; for a motion kind
+    # (spec, forward_m, turn_deg, t, dt, rng) -> its report of the true move over (t, t + dt]
+    simulate: Callable | None = None
+    faults: dict[str, FaultKind] = field(default_factory=dict)
+    motion: bool = False  # drives the prediction (odometry); exactly one per case
+    needs_door: bool = False  # the case names the door whose contact it is (``door = "…"``)
+    needs_markers: bool = False  # the site must have markers
+    removed_fields: dict[str, str] = field(default_factory=dict)  # old case fields refused, with the reason
+    settle: Callable | None = None  # params -> params after a calibration file replaced some (or ValueError)
+    # field -> rule of ``fusion.sensors.limits`` (probability, positive, non_negative, range, angle, levels) for
+    # parameter fields that rules by name do not cover yet
+    rules: dict[str, str] = field(default_factory=dict)
+
+
+_KINDS: dict[str, SensorKind] = {}
+_BUILTINS = ("fusion.sensors.ranging", "fusion.sensors.markers", "fusion.sensors.doors", "fusion.sensors.odometry")
+
+
+def register(kind: SensorKind) -> SensorKind:
+    """Add (or replace) a sensor kind; returns it."""
+    _KINDS[kind.name] = kind
+    return kind
+
+
+def kinds() -> dict[str, SensorKind]:
+    """Every registered kind by name, the built-in ones first."""
+    if not all(name in _KINDS for name in ("ranging", "markers", "door", "odometry")):
+        import importlib
+
+        for module in _BUILTINS:
+            importlib.import_module(module)
+    return _KINDS
+
+
+def sensor_kind(name: str) -> SensorKind:
+    """The kind called ``name``; KeyError when none is registered."""
+    return kinds()[name]
