@@ -25,7 +25,16 @@ from fusion.io.case import Case
 from fusion.localizer import Localizer
 from fusion.simulate import simulate
 
-__all__ = ["SoakReport", "soak_steps", "soak_stream", "resident_mb", "SUM_TOLERANCE", "CORRUPTIONS", "MEMORY_EVERY"]
+__all__ = [
+    "SoakReport",
+    "soak_steps",
+    "soak_stream",
+    "soak_backends",
+    "resident_mb",
+    "SUM_TOLERANCE",
+    "CORRUPTIONS",
+    "MEMORY_EVERY",
+]
 
 SUM_TOLERANCE = 1e-9
 MEMORY_EVERY = 1000  # steps (or lines) between two memory samples
@@ -279,3 +288,34 @@ def soak_stream(
     report.memory_mb.append((report.steps, resident_mb()))
     report.seconds = time.perf_counter() - began
     return report, tally
+
+
+def soak_backends(
+    case, backends, *, steps: int, lines: int | None, corrupt: float, seed, out_dir, progress_for, on_written=None
+):
+    """Soak each back end in turn (``soak_stream`` when ``lines``, else ``soak_steps``), writing ``soak.json`` into
+    ``out_dir`` after each one, so an interrupted soak keeps what it finished.  ``progress_for(backend, total)``
+    is a context manager giving a ``tick(n)`` callback; ``on_written()`` is called after each write.  Returns the
+    reports, stopping after an interrupted one."""
+    import json
+    from pathlib import Path
+
+    from fusion.io.outdir import atomic_write
+
+    records, corruptions = [], {}
+    for backend in backends:
+        with progress_for(backend, lines or steps) as tick:
+            if lines:
+                report, tally = soak_stream(case, backend, lines, corrupt, seed, tick)
+                corruptions[backend] = dict(tally)
+            else:
+                report = soak_steps(case, backend, steps, seed, tick)
+            tick(report.steps)
+        records.append(report)
+        record = {"case": case.path, "runs": [r.to_record() for r in records], "corruptions": corruptions}
+        atomic_write(Path(out_dir) / "soak.json", json.dumps(record, indent=1))
+        if on_written is not None:
+            on_written()
+        if report.interrupted:
+            break
+    return records

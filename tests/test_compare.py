@@ -13,7 +13,6 @@ from scipy import stats
 from fusion.cli import main
 from fusion.compare import (
     Setting,
-    _figures,
     bayes_dempster_identity,
     calibration,
     check_sweep,
@@ -25,6 +24,7 @@ from fusion.compare import (
     variant,
     verdicts,
 )
+from fusion.compare.runs import _figures
 from fusion.errors import FusionError, InputFileError
 from fusion.io.case import FaultSpec, SweepSpec, load_case, parse_case
 from fusion.monitor import ALERT, CARRY_ON

@@ -183,7 +183,7 @@ def test_an_unwritable_out_is_refused_before_any_work(tmp_path, capsys, monkeypa
 
 
 def test_calibration_files_are_one_per_log_and_never_overwritten_unasked(tmp_path, capsys):
-    from fusion.cli_outputs import calibration_name as _calibration_name
+    from fusion.cli.outputs import calibration_name as _calibration_name
 
     assert _calibration_name(tmp_path / "a.jsonl") != _calibration_name(tmp_path / "b.jsonl")
     existing = tmp_path / "cal.toml"
@@ -200,7 +200,8 @@ def test_calibration_files_are_one_per_log_and_never_overwritten_unasked(tmp_pat
 
 
 def test_a_sweep_resumes_past_a_run_file_that_lacks_a_figure(tmp_path):
-    from fusion.compare import FIGURES, _load_done
+    from fusion.compare import FIGURES
+    from fusion.compare.engine import _load_done
 
     runs = tmp_path / "runs"
     runs.mkdir()

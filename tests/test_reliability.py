@@ -95,7 +95,9 @@ def test_an_unexpected_error_reaches_the_user_as_a_message_and_a_kept_trace(monk
     def broken(args):
         raise RuntimeError("a defect planted by the test")
 
-    monkeypatch.setattr(cli, "_check", broken)
+    from fusion.cli import simulating
+
+    monkeypatch.setattr(simulating, "check_command", broken)
     code = cli.main(["check", str(TINY)])
     err = capsys.readouterr().err
     assert code == cli.EXIT_DEFECT

@@ -1,0 +1,124 @@
+"""The commands that measure: bench, targets, soak."""
+
+from __future__ import annotations
+
+import argparse
+
+from fusion.cli.opening import builtin_case, notice, open_case, progress_for
+from fusion.cli.outputs import claim_output, where
+from fusion.errors import FusionError
+
+__all__ = ["bench_command", "targets_command", "soak_command"]
+
+
+def bench_command(args: argparse.Namespace) -> int:
+    import json
+
+    from rich.console import Console
+
+    from fusion.bench import SIZES, bench_localizer, run_bench
+    from fusion.bench_sweep import bench_sweep
+    from fusion.fidelity import measure_fidelity
+    from fusion.view.tables import bench_table, fidelity_table
+
+    console = Console(stderr=args.json)
+    sizes = SIZES[:1] if args.quick else SIZES
+    with console.status("measuring… (each figure is the fastest of several runs)"):
+        rows = run_bench(sizes=sizes, repeats=args.repeats, seed=args.seed)
+        if not args.quick:
+            rows += bench_localizer(builtin_case("depot.toml"))
+    if args.sweep:
+        with console.status(f"timing the demo case's compare sweep on {args.sweep} seeds, 1 worker then 2…"):
+            rows += bench_sweep(builtin_case("depot.toml"), seeds=args.sweep, workers=2)
+    with console.status("measuring the evidential outputs' distance from the exact mass function…"):
+        fidelity = measure_fidelity(seed=args.seed)
+    if args.json:
+        print(json.dumps({"cost": [r.as_dict() for r in rows], "fidelity": [r.as_dict() for r in fidelity]}, indent=2))
+    else:
+        console.print(bench_table(rows))
+        console.print(fidelity_table(fidelity))
+    return 0
+
+
+def targets_command(args: argparse.Namespace) -> int:
+    import json
+
+    from rich.console import Console
+
+    from fusion.targets import ATTRIBUTION_CASES, FAULT_CASES, measure_attribution, measure_targets
+    from fusion.view.tables import targets_table
+
+    console = Console(stderr=args.json)
+    known = ATTRIBUTION_CASES if args.attribution else FAULT_CASES
+    cases = args.case or list(known)
+    unknown = [c for c in cases if c not in known]
+    if unknown:
+        raise FusionError(f"unknown fault case {unknown[0]!r}; choose among: {', '.join(known)}")
+
+    def landed(case: str, seed: int, verdicts) -> None:
+        # Each verdict is printed as it lands, so a run stopped part-way keeps what it measured.
+        said = "; ".join(f"{r.backend} {'met' if r.success else 'missed'} ({r.detail})" for r in verdicts)
+        console.print(f"[dim]{case} seed {seed}: {said}[/]")
+
+    rows: list = []
+    interrupted = False
+    try:
+        (measure_attribution if args.attribution else measure_targets)(
+            builtin_case(""),
+            range(args.first_seed, args.first_seed + args.seeds),
+            cases,
+            progress=landed,
+            out=rows,
+            **({} if args.attribution else {"backends": args.backend}),
+        )
+    except KeyboardInterrupt:
+        interrupted = True
+    if args.json:
+        print(json.dumps([r.__dict__ for r in rows], indent=1))
+    else:
+        console.print(targets_table(rows))
+    if interrupted:
+        console.print(f"interrupted: the {len(rows)} verdicts above are the runs that finished")
+        return 130
+    return 0
+
+
+def soak_command(args: argparse.Namespace) -> int:
+    from rich.console import Console
+
+    from fusion.soak import soak_backends
+    from fusion.view.tables import soak_table
+
+    case = open_case(args.case)
+    if not 0 <= args.corrupt <= 1:
+        raise FusionError(f"--corrupt is a share of lines in [0, 1], got {args.corrupt}")
+    backends = args.backend or list(case.run.backends)
+    lines = args.stream_lines
+    settings = {
+        "case": where(args.case),
+        "backends": backends,
+        "steps": None if lines else args.steps,
+        "stream_lines": lines,
+        "corrupt": args.corrupt,
+        "seed": args.seed,
+    }
+    folder = claim_output(args, "soak", args.case, settings, ["+".join(backends)])
+    out_dir = folder.path
+    console = Console()
+    notice(console)
+    records = soak_backends(
+        case,
+        backends,
+        steps=args.steps,
+        lines=lines,
+        corrupt=args.corrupt,
+        seed=args.seed,
+        out_dir=out_dir,
+        progress_for=progress_for(console, args.quiet, "lines" if lines else "steps"),
+        on_written=lambda: folder.finish(["soak.json"]),
+    )
+    console.print(*soak_table(records, case.name, lines, out_dir))
+    bad = [r for r in records if not r.ok]
+    for r in bad:
+        console.print(f"[red]{r.backend}: {r.violations} violations; first at {r.first_violation}[/]")
+    return 1 if bad else 0

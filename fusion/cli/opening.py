@@ -1,0 +1,65 @@
+"""The opening steps every command shares: find a shipped case, load a case (with a calibration file and a
+seed when given), print the safety notice, and draw a progress bar."""
+
+from __future__ import annotations
+
+import contextlib
+
+from fusion import SAFETY_NOTICE
+
+__all__ = ["builtin_case", "open_case", "notice", "progress_bar", "progress_for"]
+
+
+def builtin_case(name: str):
+    """A case shipped with the package (``fusion/cases``)."""
+    from importlib import resources
+
+    return resources.files("fusion") / "cases" / name
+
+
+def open_case(path, calibration=None, seed=None):
+    """The case of ``path``, validated before anything is written, with the sensor parameters of
+    ``calibration`` and the ``seed`` when given."""
+    from fusion.io.case import apply_calibration, load_case
+
+    case = load_case(path)
+    if calibration:
+        case = apply_calibration(case, calibration)
+    if seed is not None:
+        import dataclasses
+
+        case = dataclasses.replace(case, run=dataclasses.replace(case.run, seed=seed))
+    return case
+
+
+def notice(console) -> None:
+    console.print(f"[dim]{SAFETY_NOTICE}[/]")
+
+
+def progress_bar(console, label: str, quiet: bool, counter: str = "{task.completed:,.0f}/{task.total:,.0f}"):
+    """The progress bar of every long command: label, bar, count, elapsed time and ETA."""
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+
+    return Progress(
+        TextColumn(label),
+        BarColumn(),
+        TextColumn(counter),
+        TimeElapsedColumn(),
+        TextColumn("ETA"),
+        TimeRemainingColumn(),
+        console=console,
+        disable=quiet,
+    )
+
+
+def progress_for(console, quiet: bool, what: str):
+    """A factory of ``(name, total) -> context manager giving tick(n)``: one bar per back end of a long job."""
+
+    @contextlib.contextmanager
+    def bar(name: str, total: int):
+        progress = progress_bar(console, f"{name} {what}", quiet)
+        task = progress.add_task(name, total=total)
+        with progress:
+            yield lambda n: progress.update(task, completed=n)
+
+    return bar

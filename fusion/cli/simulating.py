@@ -1,0 +1,168 @@
+"""The commands that simulate a case: demo, run, check, compare."""
+
+from __future__ import annotations
+
+import argparse
+
+from fusion.cli.opening import builtin_case, notice, open_case, progress_bar
+from fusion.cli.outputs import claim_output, known_rule, runs_in, where
+from fusion.errors import FusionError
+from fusion.text import literal, plain
+
+__all__ = ["demo_command", "run_command", "check_command", "compare_command", "MAX_SWEEP_RUNS"]
+
+MAX_SWEEP_RUNS = 100_000
+"""Most runs one compare command may start (settings × seeds; the case's [compare] seeds are at most 10,000)."""
+
+
+def demo_command(args: argparse.Namespace) -> int:
+    args.case = str(builtin_case("depot.toml"))
+    args.backend, args.rule = None, None
+    return run_command(args)
+
+
+def run_command(args: argparse.Namespace) -> int:
+
+    from rich.console import Console
+    from rich.live import Live
+
+    from fusion.runner import RESULT_FILES, run_case, write_results
+    from fusion.simulate import simulate
+    from fusion.view.live import RunView, actions_timeline, summary_table
+
+    case = open_case(args.case, getattr(args, "calibration", None), args.seed)  # validated before anything is written
+    backends = list(dict.fromkeys(args.backend or case.run.backends))
+    rule = known_rule(args.rule or case.run.rule)
+    settings = {
+        "case": where(args.case),
+        "seed": case.run.seed,
+        "backends": backends,
+        "rule": rule,
+        "motion": case.run.motion,
+        "calibration": where(args.calibration),
+    }
+    folder = claim_output(args, "run", args.case, settings, [f"seed{case.run.seed}", "+".join(backends), rule])
+    console = Console()
+    live = console.is_terminal and not args.quiet
+    notice(console)
+    if live:
+        view = RunView(case, backends, len(simulate(case)))
+        with Live(view, console=console, refresh_per_second=8, transient=False):
+            result = run_case(case, backends=backends, rule=rule, on_tick=view.on_tick)
+    else:
+        result = run_case(case, backends=backends, rule=rule)
+    write_results(result, folder.path)
+    folder.finish(RESULT_FILES)
+    console.print(summary_table(result.summary()))
+    if result.events:
+        console.print(actions_timeline(result))
+    console.print(f"results written to [bold]{literal(folder.path)}[/] ({', '.join(RESULT_FILES)})")
+    return 0
+
+
+def check_command(args: argparse.Namespace) -> int:
+    from fusion.io.case import load_case
+    from fusion.site_check import describe
+
+    case = load_case(args.case)  # the same validation as every command: what passes here can run
+    print(describe(case, args.case))
+    if not args.no_preview:
+        from fusion.view.site_preview import preview_path, write_preview
+
+        path = write_preview(case, args.preview or preview_path(args.case), args.replace)
+        print(f"site drawn in {literal(path)} (walls, doors, markers{', route' if case.route else ''}; metres)")
+    return 0
+
+
+def compare_command(args: argparse.Namespace) -> int:
+    from rich.console import Console
+
+    from fusion.budget import estimate
+    from fusion.compare import SweepInterrupted, bayes_dempster_identity, run_sweep, summarise, sweep_digest
+    from fusion.compare import verdicts as verdicts_of
+    from fusion.view.compare_report import identity_words, tables, write_report
+
+    case, settings, spec, seeds = _sweep_plan(args)
+    runs = len(settings) * spec.seeds
+    per_run = estimate(case).total_seconds / max(len(case.run.backends), 1)  # a setting runs one back end
+    # Runs of the same case (and calibration) file are reused: the folder resumes the same work.
+    identity_of_work = {"case_sha256": sweep_digest(args.case, args.calibration)}
+    folder = claim_output(args, "compare", args.case, identity_of_work, [], folders=("runs",))
+    out_dir = folder.path
+    console = Console()
+    notice(console)
+    console.print(
+        f"{literal(case.name)}: {len(settings)} settings × {spec.seeds} seeds = {runs:,} runs "
+        f"on the {args.engine} engine (roughly {runs * per_run / 3600:,.1f} h of processor time by the case's "
+        f"estimate, shared by the workers); results go to {literal(out_dir)}"
+    )
+    progress = progress_bar(console, "runs", args.quiet, "{task.completed}/{task.total}")
+    task = progress.add_task("runs", total=None)
+    try:
+        with progress:
+            records = run_sweep(
+                args.case,
+                settings,
+                seeds,
+                out_dir,
+                workers=args.workers,
+                engine=args.engine,
+                address=args.scheduler,
+                calibration=args.calibration,
+                on_start=lambda total, done: progress.update(task, total=total, completed=done),
+                on_done=lambda rec: progress.advance(task),
+            )
+    except SweepInterrupted as err:
+        folder.finish(["sweep.json", *runs_in(out_dir)])
+        console.print(f"[yellow]{literal(err)}[/]")
+        return 130
+    summary = summarise(records, settings)
+    verdict_list = verdicts_of(records, settings)
+    identity = bayes_dempster_identity(case)
+    files = write_report(out_dir, records, settings, summary, verdict_list, identity, args.rank_by, case.name)
+    folder.finish(["sweep.json", *files, *runs_in(out_dir)])
+    for t in tables(summary, settings, args.rank_by, f"{literal(case.name)}, {len(records)} runs"):
+        console.print(t)
+    for v in verdict_list:
+        console.print(f"• {v['sentence']}")
+    console.print(
+        f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {identity_words(identity)}"
+    )
+    console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
+    return 0
+
+
+def _sweep_plan(args: argparse.Namespace):
+    """The case, the settings and seeds of the sweep the command line asks for; refused before any run."""
+    import dataclasses
+    from pathlib import Path
+
+    from fusion.compare import settings_of
+    from fusion.io.case import apply_calibration, load_case
+
+    for path in (args.case, args.calibration):
+        if path is not None and Path(path).exists() and not Path(path).is_file():
+            raise FusionError(
+                f"{plain(path)}: compare's workers each read this file, so it must be a regular file, not a pipe; "
+                "save it to a file first"
+            )
+    case = load_case(args.case)
+    overrides = {
+        "seeds": args.seeds,
+        "backends": tuple(args.backend) if args.backend else None,
+        "rules": tuple(args.rule) if args.rule else None,
+        "reliabilities": tuple(args.reliability) if args.reliability else None,
+        "fault_rates": tuple(args.fault_rate) if args.fault_rate else None,
+    }
+    spec = dataclasses.replace(case.sweep, **{k: v for k, v in overrides.items() if v is not None})
+    if args.calibration:
+        apply_calibration(case, args.calibration)  # a bad calibration file is refused before any run
+    settings = settings_of(spec, calibrated=bool(args.calibration))  # refuses unknown rules, out-of-range values
+    seeds = range(case.run.seed, case.run.seed + spec.seeds)
+    runs = len(settings) * spec.seeds
+    if runs > MAX_SWEEP_RUNS:
+        raise FusionError(
+            f"{len(settings)} settings × {spec.seeds:,} seeds = {runs:,} runs; a sweep is limited to "
+            f"{MAX_SWEEP_RUNS:,}: fewer seeds or settings"
+        )
+    return case, settings, spec, seeds

@@ -1,0 +1,177 @@
+"""Summaries and verdicts over seeds: Student-t intervals, paired Wilcoxon tests, ties, and the Bayes-Dempster sanity row."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Iterable
+
+import numpy as np
+
+from fusion.compare.settings import FIGURES, Figure, Setting, variant
+from fusion.io.case import Case
+
+
+# ----------------------------------------------------------------------------- figures over seeds
+def summarise(records: list[dict], settings: list[Setting], level: float = 0.95):
+    """One row per setting and figure: runs, mean and its Student-t interval over seeds (pandas DataFrame)."""
+    import pandas as pd
+    from scipy import stats
+
+    rows = []
+    for s in settings:
+        mine = [r for r in records if r["key"] == s.key]
+        for name in FIGURES:
+            values = np.array([r[name] for r in mine], dtype=float)
+            values = values[np.isfinite(values)]
+            n = len(values)
+            mean = float(values.mean()) if n else math.nan
+            lo = hi = math.nan
+            if n >= 2:
+                sem = float(stats.sem(values))
+                lo, hi = (mean, mean) if sem == 0 else (float(v) for v in stats.t.interval(level, n - 1, mean, sem))
+            rows.append(
+                {"setting": s.label, "key": s.key, "figure": name, "runs": n, "mean": mean, "low": lo, "high": hi}
+            )
+    return pd.DataFrame(rows, columns=["setting", "key", "figure", "runs", "mean", "low", "high"])
+
+
+def verdicts(records: list[dict], settings: list[Setting], figures: Iterable[str] = FIGURES) -> list[dict]:
+    """Per figure: the best setting, the runner-up, and how sure that order is (paired over seeds)."""
+    from scipy import stats
+
+    by_key = {s.key: s for s in settings}
+    out = []
+    for name in figures:
+        fig = FIGURES[name]
+        sign = 1.0 if fig.better == "low" else -1.0
+        per = {}
+        for s in settings:
+            vals = {r["seed"]: float(r[name]) for r in records if r["key"] == s.key and math.isfinite(float(r[name]))}
+            if vals:
+                per[s.key] = vals
+        if len(per) < 2:
+            continue
+        ranked = sorted(per, key=lambda k: sign * float(np.mean(list(per[k].values()))))
+        best, second = ranked[0], ranked[1]
+        common = sorted(set(per[best]) & set(per[second]))
+        diff = np.array([sign * (per[second][k] - per[best][k]) for k in common])  # > 0: best is better
+        # Rounding is no difference: exact Dempster-Shafer with probabilistic motion places the robot as
+        # Bayes does, and their figures then differ by 1e-16, which a rank test would call "clear".
+        scale = np.array([max(1.0, abs(per[second][k]), abs(per[best][k])) for k in common])
+        diff[np.abs(diff) <= ROUNDING * scale] = 0.0
+        wins, losses = int((diff > 0).sum()), int((diff < 0).sum())
+        mb = float(np.mean(list(per[best].values())))
+        ms = float(np.mean(list(per[second].values())))
+        p = math.nan
+        if len(common) >= 6 and np.any(diff != 0):
+            with warnings.catch_warnings():  # scipy notes when ties force its normal approximation
+                warnings.simplefilter("ignore")
+                p = float(stats.wilcoxon(diff, alternative="two-sided").pvalue)
+        if all(_same(float(np.mean(list(v.values()))), mb) for k, v in per.items() if k != best):
+            out.append(_tie(name, fig, mb, len(per)))
+            continue
+        if len(common) < 6:
+            sure = "too few paired seeds to tell"
+        elif not np.any(diff != 0):
+            sure = "a tie on every seed (to rounding)"
+        elif p < 0.01:
+            sure = "clear"
+        elif p < 0.05:
+            sure = "likely"
+        else:
+            sure = "not distinguishable"
+        out.append(
+            {
+                "figure": name,
+                "best": by_key[best].label,
+                "runner_up": by_key[second].label,
+                "best_mean": mb,
+                "runner_up_mean": ms,
+                "paired_seeds": len(common),
+                "wins": wins,
+                "losses": losses,
+                "p_value": p,
+                "sureness": sure,
+                "sentence": (
+                    f"{fig.label}: {by_key[best].label} is best ({_fmt(mb, fig)}) ahead of {by_key[second].label} "
+                    f"({_fmt(ms, fig)}); better on {wins} of {len(common)} paired seeds, worse on {losses}"
+                    + (f", Wilcoxon p = {p:.2g}" if math.isfinite(p) else "")
+                    + f": {sure}."
+                ),
+            }
+        )
+    return out
+
+
+ROUNDING = 1e-9
+"""Relative difference below which two settings' figures count as equal (rounding, our choice)."""
+
+
+def _same(a: float, b: float) -> bool:
+    return abs(a - b) <= ROUNDING * max(1.0, abs(a), abs(b))
+
+
+def _tie(name: str, fig: Figure, value: float, settings: int) -> dict:
+    return {
+        "figure": name,
+        "best": None,
+        "runner_up": None,
+        "best_mean": value,
+        "runner_up_mean": value,
+        "paired_seeds": 0,
+        "wins": 0,
+        "losses": 0,
+        "p_value": math.nan,
+        "sureness": "a tie",
+        "sentence": f"{fig.label}: all {settings} settings tie at {_fmt(value, fig)}.",
+    }
+
+
+def _fmt(v: float, fig: Figure) -> str:
+    if fig.unit in ("", "nats"):
+        return f"{v:.3g}" + (f" {fig.unit}" if fig.unit else "")
+    return f"{v:.3g} {fig.unit}"
+
+
+# ----------------------------------------------------------------------------- sanity row
+def bayes_dempster_identity(case: Case, seed: int | None = None, cells: int = 512, readings: int = 12) -> dict:
+    """Bayes' rule and Dempster's rule on Bayesian mass functions from fully reliable sensors must agree.
+
+    Shafer (1976), A Mathematical Theory of Evidence: Dempster's rule restricted to Bayesian
+    mass functions is Bayes' rule with a uniform prior.  Checked on the case's own readings
+    (the first ``readings`` of the run, reliability forced to 1) over the ``cells`` free cells
+    nearest the start pose, so the general set-based rule stays cheap.
+    """
+    from fusion.belief.mass import MassFunction
+    from fusion.belief.posterior import Posterior
+    from fusion.belief.rules import dempster
+    from fusion.localizer import SensorSet
+    from fusion.simulate import simulate
+
+    reliable = variant(case, 1.0, None)
+    grid = reliable.site.grid(reliable.headings)
+    sensors = SensorSet(reliable.site, grid, reliable.sensors)
+    ticks = simulate(reliable, seed=seed)
+    x0, y0 = ticks[0].truth.x_m, ticks[0].truth.y_m
+    xs, ys, _ = grid.poses_of(np.arange(grid.n_cells))
+    free = grid.broadcast(reliable.site.free).astype(bool)
+    d2 = np.where(free, (xs - x0) ** 2 + (ys - y0) ** 2, np.inf)
+    window = np.sort(np.argsort(d2, kind="stable")[: min(cells, int(free.sum()))])
+    post = Posterior.uniform(len(window))
+    mass = MassFunction.bayesian(np.full(len(window), 1.0 / len(window)))
+    used = 0
+    for tick in ticks:
+        for obs in tick.observations:
+            if obs.kind == "odometry" or used >= readings:
+                continue
+            lik = sensors.encode(obs).likelihood[window]
+            if float(lik @ post.probabilities) <= 0:
+                continue  # this reading rules the whole window out: both rules refuse it alike
+            post.update(lik)
+            mass = dempster(mass, MassFunction.bayesian(lik / lik.sum()))
+            used += 1
+        if used >= readings:
+            break
+    gap = float(np.max(np.abs(mass.pignistic() - post.probabilities))) if used else math.nan
+    return {"readings": used, "cells": int(len(window)), "max_abs_difference": gap, "holds": bool(gap < 1e-9)}
