@@ -1,288 +1,42 @@
-"""Incident investigation: replay a recorded log on both back ends and explain where and why it conflicted.
-
-The log is streamed (JSON lines or CSV, see ``fusion.io.logs``), never loaded whole.  Records
-are formed into ticks by ``fusion.io.ticks``: each reading is applied at the pose odometry gives
-at its own time (an odometry record is split at the readings inside its span).  A reading the site cannot use (unknown sensor, a marker not on its map, a bad
-payload) is set aside with its line and reason, like a malformed row; nothing is dropped silently.
-
-Both back ends absorb identical readings tick by tick (one shared sensor set, so each reading is
-encoded once).  Conflict episodes are found on the larger of the two conflict figures
-(``fusion.monitor.episodes``); on every busy tick each back end computes leave-one-out blame, and the
-pairwise conflict between the sensors' readings is computed too.  If a truth file is given the
-true error is added.
-
-Written to the output folder, each under a temporary name renamed into place when the replay
-ends — also when it is interrupted (Ctrl-C), in which case the report covers what was read:
-``steps.csv`` (a row per tick and back end), ``set_aside.jsonl`` (every row not used, with its
-reason), ``episodes.json``, ``summary.json``, ``frames.u8`` + ``frames.json`` (coarse belief
-maps of every tick, for ``fusion scrub``) and ``report.html``.
-
-Decision support and monitoring only: not a certified safety function.
-"""
+"""The replay itself: ticks of a log on every back end, episodes, blame, the per-tick rows and frames."""
 
 from __future__ import annotations
 
-import csv
 import heapq
 import json
 import math
-import time
 from array import array
-from collections import Counter, defaultdict
-from dataclasses import dataclass, field
+from collections import defaultdict
 from pathlib import Path
 
 import numpy as np
 
-from fusion import SAFETY_NOTICE, __version__
-from fusion.backends import BACKENDS
+from fusion import __version__
 from fusion.belief.coarse import coarse_plane
 from fusion.conflict import pairwise_conflict
 from fusion.errors import FusionError
-from fusion.io import recording
+from fusion.inspect.findings import (
+    FRAME_WIDTH,
+    KEEP_MAPS,
+    MISMATCH_SHARE,
+    PAIR_TICKS,
+    SET_ASIDE_WARN,
+    Inspection,
+)
+from fusion.inspect.outputs import _fmt, _Outputs
 from fusion.io.case import Case
-from fusion.io.csv_cells import number_cell
-from fusion.io.logs import ReadPosition, SetAside, count_lines, require_readable
+from fusion.io.logs import SetAside
 from fusion.io.mcap_feed import CUT_REASON
 from fusion.io.observations import Observation
-from fusion.io.outdir import PartialFile, atomic_write
+from fusion.io.outdir import atomic_write
 from fusion.io.start_pose import ANYWHERE
 from fusion.io.ticks import form_ticks
 from fusion.localizer import Localizer, SensorSet
 from fusion.monitor import CARRY_ON, Policy
-from fusion.monitor.episodes import Episode, EpisodeFinder, blame_shares
+from fusion.monitor.episodes import Episode, EpisodeFinder
 from fusion.scoring import time_to_hold
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step
-
-__all__ = ["Inspection", "inspect_log", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
-MISMATCH_SHARE = 0.2
-"""A log whose unknown sensors, or whose sightings of markers not on the map, reach this share is
-reported as probably recorded on another site (our choice; a few stray ids are noise, a fifth is not)."""
-SET_ASIDE_WARN = 0.05
-EPOCH_LIKE_S = 1e6
-"""A log whose clock starts past this many seconds (11.6 days) is stamped from an epoch; the views
-then count from its first tick (our choice)."""
-"""A replay that sets aside this share of the log's lines or more says so as a warning (our choice)."""
-FRAME_WIDTH = 44
-"""Character columns of the stored belief maps (what the scrubber draws)."""
-KEEP_MAPS = 12
-"""Full-resolution maps (before, peak, end) are kept for this many of the most severe episodes."""
-PAIR_TICKS = 16
-"""Ticks per episode on which the pairwise conflict between sensors is computed (it costs a pass per pair)."""
-
-STEP_COLUMNS = (
-    "tick",
-    "t",
-    "line",
-    "backend",
-    "readings",
-    "x_m",
-    "y_m",
-    "heading_deg",
-    "spread_m",
-    "region_cells",
-    "conflict",
-    "weight_of_conflict",
-    "disagreement",
-    "jousselme",
-    "surprise",
-    "evidence_ratio",
-    "action",
-    "reason",
-    "blame",
-    "quarantined",
-    "episode",
-    "true_x_m",
-    "true_y_m",
-    "error_m",
-    "heading_error_deg",
-)
-
-
-@dataclass
-class Inspection:
-    """What a replay found; renders itself for rich (the terminal summary)."""
-
-    log: str
-    site: str
-    backends: tuple[str, ...]
-    lines: int = 0
-    records: int = 0  # observations that parsed
-    used: int = 0  # readings both back ends absorbed
-    ticks: int = 0
-    first_t: float | None = None  # the log's clock at its first tick and its last
-    last_t: float = 0.0
-    duration_s: float = 0.0  # the log's time covered (a clock restart adds nothing for its jump)
-    set_aside: int = 0
-    reasons: Counter = field(default_factory=Counter)
-    first_set_aside: list = field(default_factory=list)  # first rows set aside, for the summary
-    episodes: list[Episode] = field(default_factory=list)
-    blame: dict = field(default_factory=lambda: defaultdict(lambda: defaultdict(float)))  # over all episodes
-    actions: list = field(default_factory=list)  # (t, back end, action, reason) of every non-"carry on" tick
-    warnings: list[str] = field(default_factory=list)
-    truth: bool = False
-    errors: dict = field(default_factory=dict)  # back end -> (median, p95) true error, m
-    heading_errors: dict = field(default_factory=dict)  # back end -> median true heading error, degrees
-    found_after: dict = field(default_factory=dict)  # back end -> s until the estimate held (fusion.scoring)
-    interrupted: bool = False
-    seconds: float = 0.0
-    files: list[str] = field(default_factory=list)
-    start: str = ""
-    series: dict = field(default_factory=dict)  # per-tick arrays for the plots (t, conflict per back end, …)
-    maps: dict = field(default_factory=dict)  # episode number -> {"before"|"peak"|"end": {back end: plane}}
-
-    @property
-    def time_origin(self) -> float:
-        """What the views subtract from the log's times: its first time when the log is stamped by a clock
-        counting from an epoch (past ``EPOCH_LIKE_S``), so that 1248446289.23 reads 23.19 s; else 0, and
-        the views show the log's own times, as steps.csv holds them."""
-        return self.first_t if self.first_t is not None and abs(self.first_t) >= EPOCH_LIKE_S else 0.0
-
-    def ranking(self) -> list[tuple[str, float]]:
-        """Sensors by their share of the blame over all episodes, averaged over the back ends."""
-        return blame_shares(self.blame)
-
-    def summary(self) -> dict:
-        return {
-            "tool": f"fusion {__version__}",
-            "notice": SAFETY_NOTICE,
-            "log": self.log,
-            "site": self.site,
-            "backends": list(self.backends),
-            "start": self.start,
-            "lines": self.lines,
-            "records": self.records,
-            "readings_used": self.used,
-            "ticks": self.ticks,
-            "first_t": self.first_t,
-            "duration_s": round(self.duration_s, 6),
-            "set_aside": self.set_aside,
-            "set_aside_reasons": dict(self.reasons.most_common()),
-            "episodes": len(self.episodes),
-            "blame_share": [[s, round(v, 4)] for s, v in self.ranking()],
-            "actions": {
-                b: dict(Counter(a for _, bb, a, _ in self.actions if bb == b).most_common()) for b in self.backends
-            },
-            "true_error_m": {b: {"median": round(m, 4), "p95": round(p, 4)} for b, (m, p) in self.errors.items()}
-            or None,
-            "heading_error_deg": {b: {"median": round(v, 3)} for b, v in self.heading_errors.items()} or None,
-            "found_after_s": {b: (None if v is None else round(v, 3)) for b, v in self.found_after.items()} or None,
-            "warnings": self.warnings,
-            "interrupted": self.interrupted,
-        }
-
-
-class _Outputs:
-    """The replay's files, written as it goes under temporary names and renamed into place by ``close``."""
-
-    def __init__(self, out_dir: Path, frames: bool):
-        self.dir = out_dir
-        self._files: dict[str, PartialFile] = {}
-        try:
-            self.steps = self._open("steps.csv")
-            self.steps_csv = csv.DictWriter(self.steps, fieldnames=STEP_COLUMNS)
-            self.steps_csv.writeheader()
-            self.aside = self._open("set_aside.jsonl")
-            self.frames = self._open("frames.u8", binary=True) if frames else None
-        except BaseException:
-            self.abandon()
-            raise
-
-    def _open(self, name: str, binary: bool = False) -> PartialFile:
-        self._files[name] = PartialFile(self.dir / name, binary=binary)
-        return self._files[name]
-
-    def abandon(self) -> None:
-        """Remove the temporary files (the replay failed; nothing half-written is left)."""
-        for f in self._files.values():
-            f.abandon()
-
-    def close(self) -> list[str]:
-        try:
-            for f in self._files.values():
-                f.commit()
-        except BaseException:
-            self.abandon()
-            raise
-        return list(self._files)
-
-
-def inspect_log(
-    case: Case,
-    log_path,
-    out_dir,
-    *,
-    truth_path=None,
-    start: tuple[float, float, float] | None = None,
-    backends=tuple(BACKENDS),
-    frames: bool = True,
-    report=None,
-    progress=None,
-    layout=None,
-) -> Inspection:
-    """Replay ``log_path`` on ``case``'s site and sensors; write the findings into ``out_dir``.
-
-    ``progress(line, total_lines)`` is called every few ticks.  Ctrl-C ends the replay early: the
-    files and the report then cover the lines read so far (``Inspection.interrupted``).  ``report(found,
-    case, out_dir) -> file name`` draws the incident report (``fusion.view.inspect_report.write_report``;
-    None: no report), so that the job imports no view.  ``layout`` (a
-    ``fusion.io.layout.Layout``) reads a robot's own recording; its ``[truth]`` table scores the replay
-    when no ``truth_path`` is given."""
-    began = time.perf_counter()
-    log_path, out_dir = Path(log_path), Path(out_dir)
-    if layout is None or layout.needs_recording:
-        require_readable(log_path, "log")  # a missing or unreadable file is refused before anything is written
-    if truth_path is not None:
-        require_readable(truth_path, "truth file")
-    scored = truth_path is not None or (layout is not None and layout.truth is not None)
-    total_lines = count_lines(log_path) if layout is None else None  # None for a pipe: read once, by the replay
-    grid = case.site.grid(case.headings)
-    sensors = SensorSet(case.site, grid, case.sensors)
-    policy = Policy(**case.run.policy)
-    locs = {
-        b: Localizer(
-            b, sensors, policy, rule=case.run.rule, max_focal=case.run.max_focal, motion=case.run.motion, explain=True
-        )
-        for b in backends
-    }
-    found = Inspection(str(log_path), case.site.name, tuple(backends), truth=scored)
-    position = ReadPosition()
-    truth_rows: list[SetAside] = []
-    truth = _TruthCursor(recording.truth(truth_path, layout, truth_rows)) if scored else None
-    found.start = _place_start(locs, start, truth)  # a start off the site is refused before anything is written
-    out_dir.mkdir(parents=True, exist_ok=True)
-    out = _Outputs(out_dir, frames)
-    replay = _Replay(case, sensors, locs, policy, found, out)
-    try:
-        records = recording.observations(log_path, layout, replay.set_aside, position)
-        odometry = sensors.odometry.name if sensors.odometry else None
-        for group in _ticks(records, found, odometry, case.run.tick_s):
-            replay.tick(group, truth)
-            if progress is not None and found.ticks % 8 == 0:
-                progress(max(line for line, _ in group), total_lines)
-    except KeyboardInterrupt:
-        found.interrupted = True
-        found.warnings.append(f"the replay was interrupted after {found.ticks:,} ticks: the report covers those only")
-    except BaseException:
-        out.abandon()
-        raise
-    found.lines = position.lines
-    replay.finish()
-    for row in truth_rows:
-        found.warnings.append(f"truth {row.where} set aside: {row.reason}")
-        if len(found.warnings) > 20:
-            break
-    found.files = out.close()
-    found.files += replay.write_frames_index(out_dir) if frames else []
-    found.seconds = time.perf_counter() - began
-    _write_summary(found, out_dir)
-    if report:
-        found.files.append(report(found, case, out_dir))
-    found.files.sort()
-    if progress is not None:
-        progress(found.lines, found.lines)
-    return found
 
 
 def _ticks(records, found: Inspection, odometry: str | None, min_tick_s: float):
@@ -601,16 +355,6 @@ class _Replay:
         }
         atomic_write(out_dir / "frames.json", json.dumps(index, allow_nan=False) + "\n")
         return ["frames.json"]
-
-
-def _write_summary(found: Inspection, out_dir: Path) -> None:
-    atomic_write(out_dir / "episodes.json", json.dumps([e.to_record() for e in found.episodes], indent=1) + "\n")
-    atomic_write(out_dir / "summary.json", json.dumps(found.summary(), indent=2, allow_nan=False) + "\n")
-    found.files += ["episodes.json", "summary.json"]
-
-
-def _fmt(key: str, v: float) -> str:
-    return number_cell(key, v) if math.isfinite(v) else ""
 
 
 _REASON_KINDS = (
