@@ -32,70 +32,20 @@ import numpy as np
 from fusion.backends import BACKENDS, build
 from fusion.conflict import EvidenceAverages, pairwise_conflict, weight_of_conflict
 from fusion.errors import FusionError, ObservationError
-from fusion.grid import PoseGrid
 from fusion.io.observations import Observation
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
 from fusion.monitor.at_fault import ReadingAtFault, TickReading, reading_at_fault
 from fusion.monitor.recovery import Recovery, informative
-from fusion.sensors.base import Evidence, SensorModel
-from fusion.sensors.kinds import kinds, sensor_kind
-from fusion.sensors.odometry import OdometryReading, OdometrySensor, Travel, check_odometry_step, moved_pose
-from fusion.site import SiteMap
+from fusion.sensors.kinds import kinds
+from fusion.sensors.odometry import OdometryReading, Travel, check_odometry_step, moved_pose
+from fusion.sensors.sensor_set import SensorSet
 
-__all__ = ["SensorSet", "Decision", "Localizer", "FLUSH_M", "FLUSH_DEG"]
+__all__ = ["Decision", "Localizer", "FLUSH_M", "FLUSH_DEG"]
 
 FLUSH_M = 2.0
 FLUSH_DEG = 90.0
 """Composed odometry is applied to the belief at the latest after this path or turning, even with no
 reading to absorb (our choice: the belief map then lags the robot by at most a couple of metres)."""
-
-
-class SensorSet:
-    """The sensor models of a site, by name; turns observations into evidence and motion."""
-
-    def __init__(self, site: SiteMap, grid: PoseGrid, specs):
-        self.site, self.grid = site, grid
-        self.kinds: dict[str, str] = {}
-        self.models: dict[str, SensorModel] = {}
-        self.odometry: OdometrySensor | None = None
-        self._cache: dict[int, tuple] = {}
-        for spec in specs:
-            self.kinds[spec.name] = spec.kind
-            kind = sensor_kind(spec.kind)  # the registry builds each model (fusion.sensors.kinds)
-            if kind.motion:
-                self.odometry = kind.model(spec, site, grid)
-            else:
-                self.models[spec.name] = kind.model(spec, site, grid)
-
-    def explain(self, sensor: str, reading, x: float, y: float, heading_deg: float) -> str:
-        """What ``sensor``'s ``reading`` measured against what the map gives at the pose, in words."""
-        return self.models[sensor].explain(reading, x, y, heading_deg)
-
-    def odd_rates(self) -> dict[str, float]:
-        """Per sensor, the share of its readings its own error model says contradict the true pose."""
-        return {name: float(model.odd_rate) for name, model in self.models.items()}
-
-    def check(self, obs: Observation) -> None:
-        kind = self.kinds.get(obs.sensor)
-        if kind is None:
-            raise ObservationError(f"unknown sensor {obs.sensor!r}; this site's sensors: {', '.join(self.kinds)}")
-        if kind != obs.kind:
-            raise ObservationError(
-                f"sensor {obs.sensor!r} is a {kind} sensor, but the observation is of kind {obs.kind!r}"
-            )
-
-    def encode(self, obs: Observation) -> Evidence:
-        """Evidence of one reading; the same observation object is encoded once even when several
-        localizers (e.g. both back ends side by side) share this sensor set."""
-        hit = self._cache.get(id(obs))
-        if hit is not None and hit[0] is obs:
-            return hit[1]
-        self.check(obs)
-        evidence = self.models[obs.sensor].encode(obs.reading)
-        if len(self._cache) > 64:
-            self._cache.clear()
-        self._cache[id(obs)] = (obs, evidence)
-        return evidence
 
 
 @dataclass
@@ -149,6 +99,18 @@ class Decision:
                 "said": self.at_fault.said,
             },
         }
+
+
+@dataclass
+class _Tick:
+    """What one tick's readings did to the belief (``Localizer._update``)."""
+
+    figures: dict
+    conflicting: bool = False
+    clear: bool = True
+    applied: list = field(default_factory=list)  # (sensor, evidence as absorbed: a quarantined one discounted)
+    undiscounted: list = field(default_factory=list)  # (sensor, evidence as the sensor gave it)
+    met: list = field(default_factory=list)  # TickReading per reading, when the readings were given
 
 
 class Localizer:
@@ -282,51 +244,14 @@ class Localizer:
         return t
 
     def _absorb(self, t, motion, encoded, rejected, start, given=()) -> Decision:
-        """``given``: the readings of ``encoded`` as the sensors gave them, in the same order (named in
-        the reasons of an action); empty when unknown."""
+        """Predict, update with each reading, report the figures, ask the monitor, act.  ``given``: the readings of
+        ``encoded`` as the sensors gave them, in the same order (named in the reasons of an action)."""
         f = self.filter
         if motion is not None:
             f.predict(motion)
         before = self._snapshot()
-        figures = self._calm_figures()
-        tick_conflicting = False
-        tick_clear = True
-        applied, undiscounted, met = [], [], []
-        clear_level = self.policy.clear_fraction * self.policy.conflict_k
-        for sensor, evidence in encoded:
-            original = evidence
-            if self.monitor.is_quarantined(sensor):
-                evidence = dataclasses.replace(
-                    evidence, reliability=evidence.reliability * self.policy.quarantine_reliability
-                )
-            prior = f.snapshot()
-            report = f.update(evidence)
-            applied.append((sensor, evidence))
-            undiscounted.append((sensor, original))
-            # The reading as the sensor gave it decides; ``k`` is what the belief absorbed (the
-            # discounted reading of a quarantined sensor, where the back end scores it on update).
-            if report.conflict is not None and evidence is original:
-                figure = report.conflict
-            else:
-                figure = f.reading_conflict(prior, original)
-            k = figure if report.conflict is None else report.conflict
-            opinion = f.second_opinion(prior, original, figure, self.policy.conflict_k, clear_level)
-            clear = figure < clear_level
-            disagree = self.monitor.disagrees(figure, opinion)
-            figures["conflict"] = max(figures["conflict"], k)
-            figures["disagreement"] = max(figures["disagreement"], opinion.disagreement or 0.0)
-            if report.log_evidence is not None:  # the slow/fast evidence averages (augmented MCL)
-                ratio = self.averages.add(report.log_evidence)
-                figures["surprise"] = max(figures["surprise"], -report.log_evidence)
-                figures["evidence_ratio"] = ratio
-                if not self.monitor.is_quarantined(sensor) and ratio > self.policy.lost_ratio:
-                    disagree, clear = True, False
-            self.monitor.record_reading(sensor, disagree, informative(original))
-            if len(given) == len(encoded):
-                met.append(TickReading(sensor, given[len(met)], figure))
-            if not self.monitor.is_quarantined(sensor):
-                tick_conflicting |= disagree
-                tick_clear &= clear
+        tick = self._update(f, encoded, given)
+        figures = tick.figures
         figures["weight_of_conflict"] = weight_of_conflict(figures["conflict"])
         busy = figures["conflict"] >= self.policy.clear_fraction * self.policy.conflict_k
         if encoded and (self.full_figures or busy):
@@ -337,9 +262,9 @@ class Localizer:
                 figures["jousselme"] = distance
         # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
         recovery = self.recovery
-        blame = recovery.blame(f, before, undiscounted) if tick_conflicting or (self.explain and busy) else []
-        recovery.remember(f, before, motion, applied, undiscounted)
-        wanted = tick_conflicting and self.monitor.would_act()
+        blame = recovery.blame(f, before, tick.undiscounted) if tick.conflicting or (self.explain and busy) else []
+        recovery.remember(f, before, motion, tick.applied, tick.undiscounted)
+        wanted = tick.conflicting and self.monitor.would_act()
         persistent, against = recovery.dissenters(f) if wanted else (None, set())
         moved = None
         if len(against) >= 2:
@@ -347,25 +272,72 @@ class Localizer:
             if trial is not None:
                 self.filter, moved = trial
                 self.averages.reset()
-        calm = tick_clear and not tick_conflicting
-        verdict = self.monitor.judge(tick_conflicting, calm, blame, moved, persistent is None or bool(persistent))
+        calm = tick.clear and not tick.conflicting
+        verdict = self.monitor.judge(tick.conflicting, calm, blame, moved, persistent is None or bool(persistent))
         if calm:
             recovery.clear()
-        fault = None
-        if verdict.action in (ALERT, QUARANTINE, RELOCALIZE) and not moved:
-            fault = self._at_fault(before, met, verdict, blame)
-            if fault is not None:
-                verdict.reasons.append(fault.sentence())
-        if verdict.action == RELOCALIZE and not moved:  # a move found elsewhere has re-seeded already
-            self.averages.reset()
-            recovery.reseed(self.filter)
-        pairs = pairwise_conflict(undiscounted) if verdict.action in (ALERT, QUARANTINE) else []
-        if pairs and pairs[0][2] > 0:
-            a, b, k = pairs[0]
-            verdict.reasons.append(f"of this tick's readings, {a} and {b} conflict most with each other (K {k:.2f})")
+        fault, pairs = self._act(verdict, before, tick, blame, moved)
         return self._decision(
             t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start, pairs, fault
         )
+
+    def _update(self, f, encoded, given) -> _Tick:
+        """Absorb the tick's readings one by one (a quarantined sensor's discounted), scoring each as the sensor
+        gave it: the tick's figures, whether it conflicts or is clear, and the readings as applied and as given."""
+        tick = _Tick(self._calm_figures())
+        p = self.policy
+        clear_level = p.clear_fraction * p.conflict_k
+        for sensor, evidence in encoded:
+            original = evidence
+            quarantined = self.monitor.is_quarantined(sensor)
+            if quarantined:
+                evidence = dataclasses.replace(evidence, reliability=evidence.reliability * p.quarantine_reliability)
+            prior = f.snapshot()
+            report = f.update(evidence)
+            tick.applied.append((sensor, evidence))
+            tick.undiscounted.append((sensor, original))
+            # The reading as the sensor gave it decides; ``k`` is what the belief absorbed (the
+            # discounted reading of a quarantined sensor, where the back end scores it on update).
+            if report.conflict is not None and evidence is original:
+                figure = report.conflict
+            else:
+                figure = f.reading_conflict(prior, original)
+            k = figure if report.conflict is None else report.conflict
+            opinion = f.second_opinion(prior, original, figure, p.conflict_k, clear_level)
+            clear = figure < clear_level
+            disagree = self.monitor.disagrees(figure, opinion)
+            tick.figures["conflict"] = max(tick.figures["conflict"], k)
+            tick.figures["disagreement"] = max(tick.figures["disagreement"], opinion.disagreement or 0.0)
+            if report.log_evidence is not None:  # the slow/fast evidence averages (augmented MCL)
+                ratio = self.averages.add(report.log_evidence)
+                tick.figures["surprise"] = max(tick.figures["surprise"], -report.log_evidence)
+                tick.figures["evidence_ratio"] = ratio
+                if not quarantined and ratio > p.lost_ratio:
+                    disagree, clear = True, False
+            self.monitor.record_reading(sensor, disagree, informative(original))
+            if len(given) == len(encoded):
+                tick.met.append(TickReading(sensor, given[len(tick.met)], figure))
+            if not self.monitor.is_quarantined(sensor):
+                tick.conflicting |= disagree
+                tick.clear &= clear
+        return tick
+
+    def _act(self, verdict, before, tick: _Tick, blame, moved):
+        """Carry out the verdict: name the reading at fault, re-seed on a re-localization (a move found elsewhere has
+        re-seeded already), and at an alert or quarantine the pairwise conflict of the tick's readings."""
+        fault = None
+        if verdict.action in (ALERT, QUARANTINE, RELOCALIZE) and not moved:
+            fault = self._at_fault(before, tick.met, verdict, blame)
+            if fault is not None:
+                verdict.reasons.append(fault.sentence())
+        if verdict.action == RELOCALIZE and not moved:
+            self.averages.reset()
+            self.recovery.reseed(self.filter)
+        pairs = pairwise_conflict(tick.undiscounted) if verdict.action in (ALERT, QUARANTINE) else []
+        if pairs and pairs[0][2] > 0:
+            a, b, k = pairs[0]
+            verdict.reasons.append(f"of this tick's readings, {a} and {b} conflict most with each other (K {k:.2f})")
+        return fault, pairs
 
     def _at_fault(self, before, met, verdict, blame) -> ReadingAtFault | None:
         """The reading at fault of an acting tick (``fusion.monitor.at_fault``), against the estimate before it."""

@@ -22,8 +22,9 @@ from fusion import SAFETY_NOTICE, __version__
 from fusion.io.case import Case
 from fusion.io.csv_cells import number_cell
 from fusion.io.outdir import atomic_write
-from fusion.localizer import Decision, Localizer, SensorSet
+from fusion.localizer import Decision, Localizer
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Policy
+from fusion.sensors.sensor_set import SensorSet
 from fusion.simulate import Tick, simulate
 
 __all__ = ["StepRow", "RunResult", "run_case", "write_results", "log_text", "RESULT_FILES", "STEP_COLUMNS"]

@@ -30,9 +30,10 @@ from fusion.io import outdir
 from fusion.io.case import load_case, parse_case
 from fusion.io.logs import iter_observations
 from fusion.io.outdir import MARK, TEMP_PREFIX, atomic_write, claim
-from fusion.localizer import Localizer, SensorSet
+from fusion.localizer import Localizer
 from fusion.monitor import Policy
 from fusion.runner import log_text
+from fusion.sensors.sensor_set import SensorSet
 from fusion.simulate import simulate
 
 TINY = Path(__file__).parent / "data" / "tiny.toml"

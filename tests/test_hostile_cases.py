@@ -18,8 +18,9 @@ from fusion.cli import main
 from fusion.errors import InputFileError
 from fusion.io.case import load_case, parse_case
 from fusion.io.toml_lines import key_lines
-from fusion.localizer import Localizer, SensorSet
+from fusion.localizer import Localizer
 from fusion.monitor import Policy
+from fusion.sensors.sensor_set import SensorSet
 from fusion.text import MAX_NAME_CHARS, literal, plain
 
 TINY = Path(__file__).parent / "data" / "tiny.toml"

@@ -331,9 +331,9 @@ def test_an_alert_names_each_sensor_once_and_the_reading_at_fault(case, backend)
 def test_each_sensor_says_its_reading_against_a_pose(case):
     import re
 
-    from fusion.localizer import SensorSet
     from fusion.sensors.markers import MarkerMiss
     from fusion.sensors.ranging import RangeScan
+    from fusion.sensors.sensor_set import SensorSet
 
     sensors = SensorSet(case.site, case.site.grid(case.headings), case.sensors)
     # At (2, 1.5) facing east: the site's border wall fills its top row of cells (y ≥ 5.5 m), so it

@@ -17,9 +17,10 @@ import pytest
 
 from fusion.io.case import load_case
 from fusion.io.observations import Observation
-from fusion.localizer import Localizer, SensorSet
+from fusion.localizer import Localizer
 from fusion.monitor import Policy
 from fusion.sensors.odometry import OdometryReading, Travel
+from fusion.sensors.sensor_set import SensorSet
 from fusion.simulate import simulate
 
 CASE = pathlib.Path(__file__).resolve().parents[1] / "cases" / "calm.toml"

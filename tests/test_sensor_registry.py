@@ -154,8 +154,8 @@ def test_every_back_end_and_sensor_model_satisfies_its_protocol(compass):
     # (typing.runtime_checkable) for every back end and rule family and every registered sensor kind.
     from fusion.backends import BACKENDS, build
     from fusion.backends.base import Backend
-    from fusion.localizer import SensorSet
     from fusion.sensors.base import SensorModel
+    from fusion.sensors.sensor_set import SensorSet
 
     case = parse_case(_case_text(), str(TINY))
     grid = case.site.grid(case.headings)

@@ -28,7 +28,7 @@ from fusion.monitor import CARRY_ON
 def _prepared(case_path: str, reliability: float | None, calibration_file: str | None):
     """Case and sensor set per process: building the sensor models dominates a short run."""
     from fusion.io.case import apply_calibration
-    from fusion.localizer import SensorSet
+    from fusion.sensors.sensor_set import SensorSet
 
     case = load_case(case_path)
     if calibration_file is not None:

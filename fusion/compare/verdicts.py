@@ -146,7 +146,7 @@ def bayes_dempster_identity(case: Case, seed: int | None = None, cells: int = 51
     from fusion.belief.mass import MassFunction
     from fusion.belief.posterior import Posterior
     from fusion.belief.rules import dempster
-    from fusion.localizer import SensorSet
+    from fusion.sensors.sensor_set import SensorSet
     from fusion.simulate import simulate
 
     reliable = variant(case, 1.0, None)

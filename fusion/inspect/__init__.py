@@ -32,8 +32,9 @@ from fusion.inspect.replay import _place_start, _Replay, _ticks, _TruthCursor
 from fusion.io import recording
 from fusion.io.case import Case
 from fusion.io.logs import ReadPosition, SetAside, count_lines, require_readable
-from fusion.localizer import Localizer, SensorSet
+from fusion.localizer import Localizer
 from fusion.monitor import Policy
+from fusion.sensors.sensor_set import SensorSet
 
 __all__ = ["Inspection", "inspect_log", "MISMATCH_SHARE", "STEP_COLUMNS", "FRAME_WIDTH"]
 

@@ -31,12 +31,13 @@ from fusion.io.observations import Observation
 from fusion.io.outdir import atomic_write
 from fusion.io.start_pose import ANYWHERE
 from fusion.io.ticks import form_ticks
-from fusion.localizer import Localizer, SensorSet
+from fusion.localizer import Localizer
 from fusion.monitor import CARRY_ON, Policy
 from fusion.monitor.episodes import Episode, EpisodeFinder
 from fusion.scoring import time_to_hold
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step
+from fusion.sensors.sensor_set import SensorSet
 
 
 def _ticks(records, found: Inspection, odometry: str | None, min_tick_s: float):

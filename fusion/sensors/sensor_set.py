@@ -1,0 +1,62 @@
+"""The sensors of a site: each sensor's model built from the registry of kinds, observations checked against
+them and turned into evidence (and odometry into motion)."""
+
+from __future__ import annotations
+
+from fusion.errors import ObservationError
+from fusion.grid import PoseGrid
+from fusion.io.observations import Observation
+from fusion.sensors.base import Evidence, SensorModel
+from fusion.sensors.kinds import sensor_kind
+from fusion.sensors.odometry import OdometrySensor
+from fusion.site import SiteMap
+
+__all__ = ["SensorSet"]
+
+
+class SensorSet:
+    """The sensor models of a site, by name; turns observations into evidence and motion."""
+
+    def __init__(self, site: SiteMap, grid: PoseGrid, specs):
+        self.site, self.grid = site, grid
+        self.kinds: dict[str, str] = {}
+        self.models: dict[str, SensorModel] = {}
+        self.odometry: OdometrySensor | None = None
+        self._cache: dict[int, tuple] = {}
+        for spec in specs:
+            self.kinds[spec.name] = spec.kind
+            kind = sensor_kind(spec.kind)  # the registry builds each model (fusion.sensors.kinds)
+            if kind.motion:
+                self.odometry = kind.model(spec, site, grid)
+            else:
+                self.models[spec.name] = kind.model(spec, site, grid)
+
+    def explain(self, sensor: str, reading, x: float, y: float, heading_deg: float) -> str:
+        """What ``sensor``'s ``reading`` measured against what the map gives at the pose, in words."""
+        return self.models[sensor].explain(reading, x, y, heading_deg)
+
+    def odd_rates(self) -> dict[str, float]:
+        """Per sensor, the share of its readings its own error model says contradict the true pose."""
+        return {name: float(model.odd_rate) for name, model in self.models.items()}
+
+    def check(self, obs: Observation) -> None:
+        kind = self.kinds.get(obs.sensor)
+        if kind is None:
+            raise ObservationError(f"unknown sensor {obs.sensor!r}; this site's sensors: {', '.join(self.kinds)}")
+        if kind != obs.kind:
+            raise ObservationError(
+                f"sensor {obs.sensor!r} is a {kind} sensor, but the observation is of kind {obs.kind!r}"
+            )
+
+    def encode(self, obs: Observation) -> Evidence:
+        """Evidence of one reading; the same observation object is encoded once even when several
+        localizers (e.g. both back ends side by side) share this sensor set."""
+        hit = self._cache.get(id(obs))
+        if hit is not None and hit[0] is obs:
+            return hit[1]
+        self.check(obs)
+        evidence = self.models[obs.sensor].encode(obs.reading)
+        if len(self._cache) > 64:
+            self._cache.clear()
+        self._cache[id(obs)] = (obs, evidence)
+        return evidence
