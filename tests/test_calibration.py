@@ -13,7 +13,8 @@ from fusion.calibration.data import DoorData, datasets
 from fusion.calibration.models import FitSettings, _run, fit_sensor, noise_model
 from fusion.errors import InputFileError
 from fusion.io.case import apply_calibration, load_case
-from fusion.io.logs import read_observations, read_truth
+from fusion.io.logs import read_observations
+from fusion.io.truth_file import read_truth
 
 TINY = Path(__file__).parent / "data" / "tiny.toml"
 

@@ -27,8 +27,9 @@ from hypothesis import strategies as st
 from fusion.cli import EXIT_DEFECT, main
 from fusion.errors import FusionError, InputFileError
 from fusion.io.case import apply_calibration, load_case, parse_case
-from fusion.io.logs import CSV_COLUMNS, MAX_LINE_BYTES, iter_observations, iter_truth
+from fusion.io.logs import CSV_COLUMNS, MAX_LINE_BYTES, iter_observations
 from fusion.io.start_pose import parse_start
+from fusion.io.truth_file import iter_truth
 from fusion.localizer import Localizer
 from fusion.stream import stream
 from fusion.view.scrub import Scrubber

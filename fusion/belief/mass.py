@@ -19,6 +19,17 @@ from typing import NamedTuple
 import numpy as np
 
 from fusion.belief import bitset
+from fusion.belief.accumulator import MERGE_STRATEGIES, FocalAccumulator
+from fusion.belief.frame_checks import (
+    MASS_TOLERANCE,
+    _as_float,
+    _as_vector,
+    _cells,
+    _check_frame_size,
+    _check_masses,
+    _check_table,
+    _short,
+)
 from fusion.errors import (
     CellIndexError,
     FrameMismatchError,
@@ -29,18 +40,11 @@ from fusion.errors import (
 
 __all__ = ["MassFunction", "FocalSet", "FocalAccumulator", "MASS_TOLERANCE", "MERGE_STRATEGIES", "check_same_frame"]
 
-MERGE_STRATEGIES = ("union", "nearest")
-"""How ``FocalAccumulator.reduced`` merges the focal sets beyond the cap."""
-
-MASS_TOLERANCE = 1e-9
-"""How far the masses given to a constructor may sum from 1 (they are then rescaled)."""
 
 # Distinct contour values turned into nested focal sets without quantisation.
 _MAX_EXACT_LEVELS = 256
 # Words of each focal set unpacked at once when spreading masses over cells (64 Ki cells).
 _SPREAD_BLOCK_WORDS = 1024
-# Largest focal-set table a constructor will allocate, in bytes.
-_MAX_TABLE_BYTES = 2 * 1024**3
 
 
 class FocalSet(NamedTuple):
@@ -48,167 +52,6 @@ class FocalSet(NamedTuple):
 
     cells: np.ndarray
     mass: float
-
-
-class FocalAccumulator:
-    """Collects (set, weight) rows and adds up the weights of equal sets.
-
-    Combination rules produce many candidate sets, often equal; this merges them
-    batch by batch without holding all candidates at once.  Equal sets are found
-    by fingerprint and confirmed by an exact comparison, so a fingerprint
-    collision never merges two different sets.
-    """
-
-    def __init__(self, n: int):
-        self.n = int(n)
-        self._w = bitset.n_words(n)
-        self._slots: dict[int, list[int]] = {}  # fingerprint -> slots holding sets with it
-        self._blocks: list[np.ndarray] = []  # distinct sets, in slot order, one array per batch
-        self._where: list[tuple[int, int]] = []  # slot -> (block, row)
-        self._fps: list[int] = []  # slot -> fingerprint
-        self._weights: list[float] = []
-
-    def add(self, rows: np.ndarray, weights, *, owned: bool = False, fingerprints=None) -> None:
-        """Add ``weights[i]`` to the set ``rows[i]``.  With ``owned=True`` the caller hands
-        ``rows`` over (it will not change them), which saves a copy; ``fingerprints`` may be
-        passed when already computed (``bitset.fingerprint`` of the rows)."""
-        rows = np.asarray(rows, dtype=bitset.WORD).reshape(-1, self._w)
-        weights = np.asarray(weights, dtype=np.float64).reshape(-1)
-        keep = weights != 0.0
-        if not keep.all():
-            rows, weights, owned = rows[keep], weights[keep], True
-            fingerprints = None if fingerprints is None else np.asarray(fingerprints)[keep]
-        if len(weights) == 0:
-            return
-        fps = bitset.fingerprint(rows) if fingerprints is None else np.asarray(fingerprints, dtype=np.uint64)
-        uniq, first, inverse, counts = np.unique(fps, return_index=True, return_inverse=True, return_counts=True)
-        if (counts > 1).any() and not _groups_equal(rows, fps, uniq[counts > 1]):
-            # A fingerprint collision inside the batch: merge one row at a time.
-            for i, (fp, w) in enumerate(zip(fps.tolist(), weights.tolist())):
-                if not self._add_to_existing(fp, rows[i], w):
-                    self._append(rows[i : i + 1].copy(), [0], [fp], [w])
-            return
-        sums = np.bincount(inverse, weights=weights, minlength=len(uniq))
-        positions, new_fps, new_weights = [], [], []
-        for fp, pos, w in zip(uniq.tolist(), first.tolist(), sums.tolist()):
-            if not self._add_to_existing(fp, rows[pos], w):
-                positions.append(pos)
-                new_fps.append(fp)
-                new_weights.append(w)
-        if not positions:
-            return
-        order = np.argsort(positions)
-        positions = [positions[i] for i in order]
-        new_fps, new_weights = [new_fps[i] for i in order], [new_weights[i] for i in order]
-        if owned:
-            self._append(rows, positions, new_fps, new_weights)  # rows are referenced, not copied
-        else:
-            self._append(rows[positions], list(range(len(positions))), new_fps, new_weights)
-
-    def _add_to_existing(self, fp: int, row: np.ndarray, weight: float) -> bool:
-        for slot in self._slots.get(fp, ()):
-            if np.array_equal(self._row(slot), row):
-                self._weights[slot] += weight
-                return True
-        return False
-
-    def _append(self, rows: np.ndarray, positions: list[int], fps: list[int], weights: list[float]) -> None:
-        block = len(self._blocks)
-        self._blocks.append(rows)
-        for r, fp, w in zip(positions, fps, weights):
-            self._slots.setdefault(fp, []).append(len(self._weights))
-            self._where.append((block, r))
-            self._fps.append(fp)
-            self._weights.append(w)
-
-    def _gather(self, slots) -> np.ndarray:
-        """Rows of the given slots, in order, as one new (or, when possible, the original) array."""
-        slots = list(slots)
-        if len(self._blocks) == 1 and len(slots) == len(self._blocks[0]):
-            rows = [self._where[s][1] for s in slots]
-            if rows == list(range(len(rows))):
-                return self._blocks[0]
-        out = np.empty((len(slots), self._w), dtype=bitset.WORD)
-        for i, s in enumerate(slots):
-            block, r = self._where[s]
-            out[i] = self._blocks[block][r]
-        return out
-
-    def result(self) -> MassFunction:
-        if not self._weights:
-            raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
-        sets = self._gather(range(len(self._weights)))
-        masses = np.asarray(self._weights, dtype=np.float64)
-        return MassFunction._trusted(self.n, sets, masses)
-
-    def reduced(self, max_focal: int, merge: str = "union") -> tuple[MassFunction, float, int]:
-        """Like ``result`` followed by ``rules.reduce_focal_sets``, but copies only the rows it keeps.
-
-        The ``max_focal − 1`` most massive non-empty sets are kept.  With ``merge="union"`` every
-        other set is merged into their common union; with ``merge="nearest"`` each is merged into
-        the kept set it overlaps most (judged on which 64-cell words they occupy), so the
-        approximation stays local: a set near the robot is not blurred with one across the
-        site.  Sets that overlap no kept set go to their common union.  Either way mass only
-        moves to supersets.  Returns (mass function, mass moved to a larger set, sets merged).
-        The empty set (fingerprint 0, confirmed exactly) is never merged.
-        """
-        if merge not in MERGE_STRATEGIES:
-            raise RuleError(f"unknown merge strategy {merge!r}; choose one of: {', '.join(MERGE_STRATEGIES)}")
-        if not self._weights:
-            raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
-        w = np.asarray(self._weights, dtype=np.float64)
-        fps = np.asarray(self._fps, dtype=np.uint64)
-        empty = np.zeros(len(w), dtype=bool)
-        for s in np.flatnonzero(fps == 0).tolist():
-            empty[s] = not self._row(s).any()
-        nonempty = np.flatnonzero(~empty & (w > 0))
-        if len(nonempty) <= max_focal:
-            return self.result(), 0.0, 0
-        order = nonempty[np.argsort(-w[nonempty], kind="stable")]
-        keep, dropped = order[: max_focal - 1].tolist(), order[max_focal - 1 :].tolist()
-        rows = [self._row(s).copy() for s in keep]
-        masses = [float(w[s]) for s in keep]
-        moved = float(w[dropped].sum())
-        orphans = dropped
-        if merge == "nearest":
-            signatures = np.stack([np.packbits(r != 0) for r in rows])
-            sizes = np.bitwise_count(signatures).sum(axis=1)
-            grown: set[int] = set()
-            orphans = []
-            for s in dropped:
-                sig = np.packbits(self._row(s) != 0)
-                overlap = np.bitwise_count(signatures & sig).sum(axis=1)
-                if not overlap.any():
-                    orphans.append(s)
-                    continue
-                score = overlap / (sizes + np.bitwise_count(sig).sum() - overlap)
-                j = int(np.argmax(score))
-                before = rows[j].copy() if j not in grown else None
-                np.bitwise_or(rows[j], self._row(s), out=rows[j])
-                if before is not None and not np.array_equal(before, rows[j]):
-                    grown.add(j)
-                    moved += masses[j]  # the kept set's own mass now sits on a larger set too
-                masses[j] += float(w[s])
-        if orphans:
-            union = np.zeros(self._w, dtype=bitset.WORD)
-            for s in orphans:
-                np.bitwise_or(union, self._row(s), out=union)
-            rows.append(union)
-            masses.append(float(w[orphans].sum()))
-        empty_slots = np.flatnonzero(empty & (w > 0)).tolist()
-        acc = FocalAccumulator(self.n)  # enlarged sets may now coincide: merge them exactly
-        acc.add(np.stack(rows), masses, owned=True)
-        if empty_slots:
-            acc.add(np.stack([self._row(s) for s in empty_slots]), w[empty_slots])
-        return acc.result(), moved, len(dropped)
-
-    def _row(self, slot: int) -> np.ndarray:
-        block, r = self._where[slot]
-        return self._blocks[block][r]
-
-    def residual(self) -> np.ndarray:
-        """Weights accumulated so far, one per distinct set (for comparisons within a tolerance)."""
-        return np.asarray(self._weights, dtype=np.float64)
 
 
 class MassFunction:
@@ -523,16 +366,6 @@ class MassFunction:
         return out
 
 
-def _groups_equal(rows: np.ndarray, fps: np.ndarray, repeated: np.ndarray) -> bool:
-    """True when all rows sharing each repeated fingerprint are identical (exact check, no row copies)."""
-    for fp in repeated.tolist():
-        members = np.flatnonzero(fps == fp)
-        head = rows[members[0]]
-        if not all(np.array_equal(head, rows[i]) for i in members[1:].tolist()):
-            return False
-    return True
-
-
 def geometric_level_index(contour: np.ndarray, levels: int) -> np.ndarray:
     """Each cell's level after rounding its plausibility *up* to 1, 1/2, …, 2^−(levels−1): 0 for the top
     level, ``levels`` for a plausibility of 0 (in no focal set)."""
@@ -558,79 +391,3 @@ def check_same_frame(*ms: MassFunction) -> int:
                 "beliefs can only be combined on the same frame of discernment"
             )
     return n
-
-
-def _check_frame_size(n) -> int:
-    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or int(n) < 1:
-        raise MassValueError(f"a frame needs a whole number of cells ≥ 1, got {n!r}")
-    return int(n)
-
-
-def _check_masses(masses: np.ndarray, keys=None) -> None:
-    def where(i):
-        return f"the focal set {_short(keys[i])}" if keys is not None else f"entry {i}"
-
-    bad = ~np.isfinite(masses)
-    if bad.any():
-        i = int(np.flatnonzero(bad)[0])
-        raise MassValueError(f"mass {float(masses[i])!r} of {where(i)} is not a finite number")
-    neg = masses < 0
-    if neg.any():
-        i = int(np.flatnonzero(neg)[0])
-        raise MassValueError(f"mass {float(masses[i])!r} of {where(i)} is negative; masses lie in [0, 1]")
-    total = float(masses.sum())
-    if abs(total - 1.0) > MASS_TOLERANCE:
-        raise MassValueError(
-            f"masses sum to {total!r}, not 1 (tolerance {MASS_TOLERANCE:g}); "
-            "rescale them, or put the missing mass on the whole frame to express ignorance"
-        )
-
-
-def _check_table(k: int, n: int) -> None:
-    need = k * bitset.n_words(n) * 8
-    if need > _MAX_TABLE_BYTES:
-        raise MassValueError(
-            f"{k} focal sets on {n} cells would need {need / 1024**3:.1f} GiB of packed sets "
-            f"(limit {_MAX_TABLE_BYTES / 1024**3:.0f} GiB); use fewer focal sets, or the Bayesian back end"
-        )
-
-
-def _cells(cells):
-    """Cell indices (or a boolean mask) as an array; ``pack_indices`` checks their range."""
-    if isinstance(cells, (int, np.integer)) and not isinstance(cells, bool):
-        return np.array([int(cells)])
-    if isinstance(cells, np.ndarray):
-        return cells
-    if isinstance(cells, Iterable) and not isinstance(cells, (str, bytes)):
-        return np.array(list(cells))
-    raise CellIndexError(f"a set of cells must be a collection of whole-number indices, got {cells!r}")
-
-
-def _as_float(value, key) -> float:
-    try:
-        return float(value)
-    except (TypeError, ValueError):
-        raise MassValueError(f"mass of the focal set {_short(key)} must be a number, got {value!r}") from None
-
-
-def _as_vector(values, name: str) -> np.ndarray:
-    try:
-        v = np.asarray(values, dtype=np.float64)
-    except (TypeError, ValueError):
-        raise MassValueError(f"{name} must be a vector of numbers, one per cell") from None
-    if v.ndim != 1 or v.size == 0:
-        raise MassValueError(f"{name} must be a non-empty vector with one entry per cell, got shape {v.shape}")
-    if not np.isfinite(v).all():
-        i = int(np.flatnonzero(~np.isfinite(v))[0])
-        raise MassValueError(f"{name} has the non-finite value {float(v[i])!r} at cell {i}")
-    return v
-
-
-def _short(cells) -> str:
-    try:
-        items = sorted(int(c) for c in (np.flatnonzero(cells) if getattr(cells, "dtype", None) == np.bool_ else cells))
-    except (TypeError, ValueError):
-        return repr(cells)
-    if len(items) > 6:
-        return "{" + ", ".join(map(str, items[:3])) + f", … ({len(items)} cells)" + "}"
-    return "{" + ", ".join(map(str, items)) + "}"

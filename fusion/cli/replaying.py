@@ -102,7 +102,7 @@ def inspect_command(args: argparse.Namespace) -> int:
     from rich.console import Console
 
     from fusion.inspect import inspect_log
-    from fusion.io.logs import count_lines
+    from fusion.io.line_count import count_lines
     from fusion.io.start_pose import parse_start
     from fusion.view.inspect_report import write_report
     from fusion.view.inspect_summary import summary_renderables

@@ -31,7 +31,8 @@ from fusion.inspect.outputs import _Outputs, _write_summary
 from fusion.inspect.replay import _place_start, _Replay, _ticks, _TruthCursor
 from fusion.io import recording
 from fusion.io.case import Case
-from fusion.io.logs import ReadPosition, SetAside, count_lines, require_readable
+from fusion.io.line_count import count_lines
+from fusion.io.logs import ReadPosition, SetAside, require_readable
 from fusion.localizer import Localizer
 from fusion.monitor import Policy
 from fusion.sensors.sensor_set import SensorSet

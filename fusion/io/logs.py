@@ -20,7 +20,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from fusion.errors import InputFileError, ObservationError
-from fusion.io.json_line import decode_line, finite_number, shown
+from fusion.io.json_line import decode_line
 from fusion.io.observations import Observation, from_record
 from fusion.io.timeline import Timeline
 
@@ -29,12 +29,9 @@ __all__ = [
     "LogRead",
     "iter_observations",
     "read_observations",
-    "read_truth",
-    "iter_truth",
     "TruthPose",
     "MAX_LINE_BYTES",
     "CSV_COLUMNS",
-    "count_lines",
     "require_readable",
     "ReadPosition",
     "text_lines",
@@ -379,70 +376,6 @@ def require_readable(path, what: str = "file") -> None:
         raise InputFileError(path, None, None, f"cannot read the {what}: {err.strerror}") from None
     if not os.access(path, os.R_OK):  # a pipe: opening it to try would take it from its writer
         raise InputFileError(path, None, None, f"cannot read the {what}: Permission denied")
-
-
-def count_lines(path) -> int | None:
-    """Lines in a regular file, read in binary blocks (fast enough for a progress bar's total); None for a
-    pipe or device, which can be read only once (the reader then counts as it goes)."""
-    import stat
-
-    try:
-        if not stat.S_ISREG(os.stat(path).st_mode):
-            return None
-        with open(path, "rb") as fh:
-            lines, last = 0, b"\n"
-            for block in iter(lambda: fh.read(1 << 20), b""):
-                lines, last = lines + block.count(b"\n"), block[-1:]
-            return lines + (last != b"\n")
-    except OSError as err:
-        raise InputFileError(path, None, None, f"cannot read the log: {err.strerror}") from None
-
-
-def iter_truth(
-    path, set_aside: list[SetAside] | None = None, position: ReadPosition | None = None
-) -> Iterator[tuple[int, TruthPose]]:
-    """Stream ``(line, pose)`` from a JSON-lines truth file, times strictly increasing (an outlier is set
-    aside by the rule of ``fusion.io.timeline``; the clock of a truth file never restarts)."""
-    set_aside = [] if set_aside is None else set_aside
-    timeline = Timeline(hold=True, strict=True, restarts=False)
-    usable = False
-    for number, text, problem in text_lines(path, position):
-        if not usable and number >= NOTHING_USABLE_LINES:
-            _no_log(path, number, set_aside[-1:])
-        rec = _decode(number, text, problem, set_aside)
-        if rec is None:
-            continue
-        try:
-            pose = _truth(rec)
-        except ObservationError as err:
-            set_aside.append(SetAside(number, str(err), text.strip()[:80]))
-            continue
-        usable = True
-        yield from _released(timeline.offer(pose.t, (number, pose, "")), set_aside.append)
-    yield from _released(timeline.flush(), set_aside.append)
-
-
-def read_truth(path) -> LogRead:
-    """True poses of a JSON-lines truth file, in time order; bad lines are set aside."""
-    set_aside: list[SetAside] = []
-    position = ReadPosition()
-    records = held(iter_truth(path, set_aside, position), path, "true poses")
-    return LogRead(str(path), records, set_aside, position.lines)
-
-
-def _truth(rec) -> TruthPose:
-    if not isinstance(rec, dict):
-        raise ObservationError(f"a truth record must be a JSON object, got {type(rec).__name__}")
-    values = []
-    for key in ("t", "x_m", "y_m", "heading_deg"):
-        v = finite_number(rec.get(key))
-        if v is None:
-            raise ObservationError(f"truth: field '{key}' must be a finite number, got {shown(rec.get(key))}")
-        values.append(v)
-    carried = rec.get("carried", False)
-    if not isinstance(carried, bool):
-        raise ObservationError(f"truth: field 'carried' must be true or false, got {carried!r}")
-    return TruthPose(*values, carried)
 
 
 def require_records(read: LogRead, what: str) -> None:

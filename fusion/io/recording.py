@@ -21,8 +21,9 @@ from pathlib import Path
 
 from fusion.errors import InputFileError
 from fusion.io.layout import Layout, refuse
-from fusion.io.logs import ReadPosition, SetAside, iter_observations, iter_truth
+from fusion.io.logs import ReadPosition, SetAside, iter_observations
 from fusion.io.timeline import Timeline
+from fusion.io.truth_file import iter_truth
 
 __all__ = ["observations", "truth", "is_mcap"]
 
