@@ -248,59 +248,79 @@ def fit_sensor(name: str, kind: str, data, settings: FitSettings = FitSettings()
     import torch
 
     torch.set_default_dtype(torch.float64)
-    t = lambda a, dtype=torch.float64: torch.as_tensor(np.asarray(a), dtype=dtype)  # noqa: E731
-    if kind == "door":
-        fit = _run(_door_model, (t(data.inside, torch.bool), t(data.active)), len(data.active), settings, name, kind)
-        if not data.inside.any():
-            fit.unidentified["hit_rate"] = "the robot was never inside the door's contact zone in this log"
-        if data.inside.all():
-            fit.unidentified["false_alarm_rate"] = "the robot was never outside the door's contact zone in this log"
-        return [fit]
-    if kind == "markers":
-        args = (
-            t(data.visible, torch.bool),
-            t(data.outcome, torch.int64),
-            t(data.range_residual_m),
-            t(data.bearing_residual_deg),
-            data.false_density,
+    fitter = _FITTERS.get(kind)
+    if fitter is None:
+        raise FusionError(f"no calibration model for sensor kind {kind!r}")
+    return [fitter(name, kind, data, settings)]
+
+
+def _tensor(a, dtype=None):
+    import torch
+
+    return torch.as_tensor(np.asarray(a), dtype=dtype or torch.float64)
+
+
+def _fit_door(name, kind, data, settings) -> Fit:
+    import torch
+
+    args = (_tensor(data.inside, torch.bool), _tensor(data.active))
+    fit = _run(_door_model, args, len(data.active), settings, name, kind)
+    if not data.inside.any():
+        fit.unidentified["hit_rate"] = "the robot was never inside the door's contact zone in this log"
+    if data.inside.all():
+        fit.unidentified["false_alarm_rate"] = "the robot was never outside the door's contact zone in this log"
+    return fit
+
+
+def _fit_markers(name, kind, data, settings) -> Fit:
+    import torch
+
+    args = (
+        _tensor(data.visible, torch.bool),
+        _tensor(data.outcome, torch.int64),
+        _tensor(data.range_residual_m),
+        _tensor(data.bearing_residual_deg),
+        data.false_density,
+    )
+    fit = _run(_marker_model, args, len(data.outcome), settings, name, kind)
+    for param in ("sigma_range_m", "sigma_bearing_deg"):
+        fit.draws[param] = np.sqrt(fit.draws.pop(f"{param}_variance"))
+        # R-hat and ESS of the variance stand for σ too (a monotone transform of the same draws).
+        diag = fit.diagnostics.pop(f"{param}_variance", None)
+        if diag is not None:
+            fit.diagnostics[param] = diag
+    if not (data.visible & (data.outcome == 0)).any():
+        fit.unidentified["p_detect"] = (
+            "the log has no 'looked, saw nothing' record while a marker was in view, so how often the sensor "
+            "misses cannot be learned from it"
         )
-        fit = _run(_marker_model, args, len(data.outcome), settings, name, kind)
+    if len(data.range_residual_m) < 2:
         for param in ("sigma_range_m", "sigma_bearing_deg"):
-            fit.draws[param] = np.sqrt(fit.draws.pop(f"{param}_variance"))
-            # R-hat and ESS of the variance stand for σ too (a monotone transform of the same draws).
-            diag = fit.diagnostics.pop(f"{param}_variance", None)
-            if diag is not None:
-                fit.diagnostics[param] = diag
-        if not (data.visible & (data.outcome == 0)).any():
-            fit.unidentified["p_detect"] = (
-                "the log has no 'looked, saw nothing' record while a marker was in view, so how often the sensor "
-                "misses cannot be learned from it"
-            )
-        if len(data.range_residual_m) < 2:
-            for param in ("sigma_range_m", "sigma_bearing_deg"):
-                fit.unidentified[param] = "fewer than two sightings of a marker in view"
-        return [fit]
-    if kind == "ranging":
-        fit = _run(
-            _range_model,
-            (t(data.measured_m), t(data.expected_m), data.max_range_m),
-            len(data.measured_m),
-            settings,
-            name,
-            kind,
-        )
-        w = fit.draws.pop("weights")
-        zmax = fit.draws["z_max"]
-        for i, part in enumerate(("z_hit", "z_short", "z_rand")):
-            fit.draws[part] = (1 - zmax) * w[:, i]
-        return [fit]
-    if kind == "odometry":
-        args = (t(data.measured_forward_m), t(data.true_forward_m), t(data.measured_turn_deg), t(data.true_turn_deg))
-        fit = _run(_odometry_model, args, len(data.measured_forward_m), settings, name, kind)
-        if np.abs(data.true_forward_m).sum() < MIN_TRAVEL_M:
-            for param in ("sigma_per_m", "turn_sigma_per_m_deg"):
-                fit.unidentified[param] = f"the robot drove less than {MIN_TRAVEL_M:g} m in this log"
-        if np.abs(data.true_turn_deg).sum() < MIN_TURN_DEG:
-            fit.unidentified["turn_sigma_per_turn"] = f"the robot turned less than {MIN_TURN_DEG:g}° in this log"
-        return [fit]
-    raise FusionError(f"no calibration model for sensor kind {kind!r}")
+            fit.unidentified[param] = "fewer than two sightings of a marker in view"
+    return fit
+
+
+def _fit_ranging(name, kind, data, settings) -> Fit:
+    args = (_tensor(data.measured_m), _tensor(data.expected_m), data.max_range_m)
+    fit = _run(_range_model, args, len(data.measured_m), settings, name, kind)
+    w = fit.draws.pop("weights")
+    zmax = fit.draws["z_max"]
+    for i, part in enumerate(("z_hit", "z_short", "z_rand")):
+        fit.draws[part] = (1 - zmax) * w[:, i]
+    return fit
+
+
+def _fit_odometry(name, kind, data, settings) -> Fit:
+    args = tuple(
+        _tensor(a) for a in (data.measured_forward_m, data.true_forward_m, data.measured_turn_deg, data.true_turn_deg)
+    )
+    fit = _run(_odometry_model, args, len(data.measured_forward_m), settings, name, kind)
+    if np.abs(data.true_forward_m).sum() < MIN_TRAVEL_M:
+        for param in ("sigma_per_m", "turn_sigma_per_m_deg"):
+            fit.unidentified[param] = f"the robot drove less than {MIN_TRAVEL_M:g} m in this log"
+    if np.abs(data.true_turn_deg).sum() < MIN_TURN_DEG:
+        fit.unidentified["turn_sigma_per_turn"] = f"the robot turned less than {MIN_TURN_DEG:g}° in this log"
+    return fit
+
+
+_FITTERS = {"door": _fit_door, "markers": _fit_markers, "ranging": _fit_ranging, "odometry": _fit_odometry}

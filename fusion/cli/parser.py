@@ -22,6 +22,7 @@ def build_parser() -> argparse.ArgumentParser:
     _add_simulating(commands)
     _add_measuring(commands)
     _add_replaying(commands)
+    _add_calibrate(commands)
     return parser
 
 
@@ -118,7 +119,7 @@ def _add_measuring(commands) -> None:
 
 def _add_replaying(commands) -> None:
     from fusion.backends import BACKENDS
-    from fusion.cli.replaying import calibrate_command, inspect_command, scrub_command, stream_command
+    from fusion.cli.replaying import inspect_command, scrub_command, stream_command
 
     first = next(iter(BACKENDS))
     st = commands.add_parser("stream", help="read observations as JSON lines on stdin, write one decision per line")
@@ -127,34 +128,6 @@ def _add_replaying(commands) -> None:
     st.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
     st.add_argument("--start", help="known start pose x,y,heading_deg (default: anywhere in free space)")
     st.set_defaults(run=stream_command)
-    cal = commands.add_parser("calibrate", help="fit the sensor models' parameters to a log with known poses (pyro)")
-    cal.add_argument(
-        "log",
-        help="observations: JSON lines or CSV, or a robot's tables or MCAP file with --layout (docs/recordings.md)",
-    )
-    cal.add_argument("--layout", help="log layout (TOML): which tables or MCAP topics feed which sensor")
-    cal.add_argument(
-        "--truth", help="true poses, JSON lines (t, x_m, y_m, heading_deg); optional when the layout names them"
-    )
-    cal.add_argument("--site", required=True, help="case file whose site and sensors to calibrate")
-    cal.add_argument("--out", help="calibration file to write (default: <log>-calibrated.toml beside the log)")
-    cal.add_argument("--replace", action="store_true", help="overwrite the calibration file if it exists")
-    cal.add_argument("--method", choices=("auto", "nuts", "svi"), default="auto", help="inference (default auto)")
-    cal.add_argument(
-        "--samples",
-        type=count_up_to(100_000),
-        default=500,
-        help="posterior draws per chain (default 500, at most 100,000)",
-    )
-    cal.add_argument("--warmup", type=count_up_to(100_000), default=300, help="NUTS warm-up steps (default 300)")
-    cal.add_argument(
-        "--chains", type=count_up_to(16), default=2, help="NUTS chains; R-hat needs ≥ 2 (default 2, at most 16)"
-    )
-    cal.add_argument(
-        "--svi-steps", type=count_up_to(1_000_000), default=2000, help="SVI optimisation steps (default 2000)"
-    )
-    cal.add_argument("--seed", type=seed_value, default=0, help="seed of the inference (default 0)")
-    cal.set_defaults(run=calibrate_command)
     ins = commands.add_parser("inspect", help="replay a recorded log on both back ends and explain its conflict")
     ins.add_argument(
         "log", help="observations: JSON lines or CSV (docs/inspect.md), or a robot's tables or MCAP file with --layout"
@@ -193,3 +166,36 @@ def _figure_names() -> tuple[str, ...]:
     from fusion.compare import FIGURES
 
     return tuple(FIGURES)
+
+
+def _add_calibrate(commands) -> None:
+    from fusion.cli.replaying import calibrate_command
+
+    cal = commands.add_parser("calibrate", help="fit the sensor models' parameters to a log with known poses (pyro)")
+    cal.add_argument(
+        "log",
+        help="observations: JSON lines or CSV, or a robot's tables or MCAP file with --layout (docs/recordings.md)",
+    )
+    cal.add_argument("--layout", help="log layout (TOML): which tables or MCAP topics feed which sensor")
+    cal.add_argument(
+        "--truth", help="true poses, JSON lines (t, x_m, y_m, heading_deg); optional when the layout names them"
+    )
+    cal.add_argument("--site", required=True, help="case file whose site and sensors to calibrate")
+    cal.add_argument("--out", help="calibration file to write (default: <log>-calibrated.toml beside the log)")
+    cal.add_argument("--replace", action="store_true", help="overwrite the calibration file if it exists")
+    cal.add_argument("--method", choices=("auto", "nuts", "svi"), default="auto", help="inference (default auto)")
+    cal.add_argument(
+        "--samples",
+        type=count_up_to(100_000),
+        default=500,
+        help="posterior draws per chain (default 500, at most 100,000)",
+    )
+    cal.add_argument("--warmup", type=count_up_to(100_000), default=300, help="NUTS warm-up steps (default 300)")
+    cal.add_argument(
+        "--chains", type=count_up_to(16), default=2, help="NUTS chains; R-hat needs ≥ 2 (default 2, at most 16)"
+    )
+    cal.add_argument(
+        "--svi-steps", type=count_up_to(1_000_000), default=2000, help="SVI optimisation steps (default 2000)"
+    )
+    cal.add_argument("--seed", type=seed_value, default=0, help="seed of the inference (default 0)")
+    cal.set_defaults(run=calibrate_command)

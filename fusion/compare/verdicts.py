@@ -38,8 +38,6 @@ def summarise(records: list[dict], settings: list[Setting], level: float = 0.95)
 
 def verdicts(records: list[dict], settings: list[Setting], figures: Iterable[str] = FIGURES) -> list[dict]:
     """Per figure: the best setting, the runner-up, and how sure that order is (paired over seeds)."""
-    from scipy import stats
-
     by_key = {s.key: s for s in settings}
     out = []
     for name in figures:
@@ -54,54 +52,61 @@ def verdicts(records: list[dict], settings: list[Setting], figures: Iterable[str
             continue
         ranked = sorted(per, key=lambda k: sign * float(np.mean(list(per[k].values()))))
         best, second = ranked[0], ranked[1]
-        common = sorted(set(per[best]) & set(per[second]))
-        diff = np.array([sign * (per[second][k] - per[best][k]) for k in common])  # > 0: best is better
-        # Rounding is no difference: exact Dempster-Shafer with probabilistic motion places the robot as
-        # Bayes does, and their figures then differ by 1e-16, which a rank test would call "clear".
-        scale = np.array([max(1.0, abs(per[second][k]), abs(per[best][k])) for k in common])
-        diff[np.abs(diff) <= ROUNDING * scale] = 0.0
-        wins, losses = int((diff > 0).sum()), int((diff < 0).sum())
         mb = float(np.mean(list(per[best].values())))
-        ms = float(np.mean(list(per[second].values())))
-        p = math.nan
-        if len(common) >= 6 and np.any(diff != 0):
-            with warnings.catch_warnings():  # scipy notes when ties force its normal approximation
-                warnings.simplefilter("ignore")
-                p = float(stats.wilcoxon(diff, alternative="two-sided").pvalue)
         if all(_same(float(np.mean(list(v.values()))), mb) for k, v in per.items() if k != best):
             out.append(_tie(name, fig, mb, len(per)))
             continue
-        if len(common) < 6:
-            sure = "too few paired seeds to tell"
-        elif not np.any(diff != 0):
-            sure = "a tie on every seed (to rounding)"
-        elif p < 0.01:
-            sure = "clear"
-        elif p < 0.05:
-            sure = "likely"
-        else:
-            sure = "not distinguishable"
-        out.append(
-            {
-                "figure": name,
-                "best": by_key[best].label,
-                "runner_up": by_key[second].label,
-                "best_mean": mb,
-                "runner_up_mean": ms,
-                "paired_seeds": len(common),
-                "wins": wins,
-                "losses": losses,
-                "p_value": p,
-                "sureness": sure,
-                "sentence": (
-                    f"{fig.label}: {by_key[best].label} is best ({_fmt(mb, fig)}) ahead of {by_key[second].label} "
-                    f"({_fmt(ms, fig)}); better on {wins} of {len(common)} paired seeds, worse on {losses}"
-                    + (f", Wilcoxon p = {p:.2g}" if math.isfinite(p) else "")
-                    + f": {sure}."
-                ),
-            }
-        )
+        out.append(_paired(name, fig, sign, per, by_key[best], by_key[second]))
     return out
+
+
+def _paired(name: str, fig: Figure, sign: float, per: dict, best: Setting, second: Setting) -> dict:
+    """The verdict between the best setting and the runner-up, seed by seed (Wilcoxon signed-rank test)."""
+    from scipy import stats
+
+    a, b = per[best.key], per[second.key]
+    common = sorted(set(a) & set(b))
+    diff = np.array([sign * (b[k] - a[k]) for k in common])  # > 0: best is better
+    # Rounding is no difference: exact Dempster-Shafer with probabilistic motion places the robot as
+    # Bayes does, and their figures then differ by 1e-16, which a rank test would call "clear".
+    scale = np.array([max(1.0, abs(b[k]), abs(a[k])) for k in common])
+    diff[np.abs(diff) <= ROUNDING * scale] = 0.0
+    wins, losses = int((diff > 0).sum()), int((diff < 0).sum())
+    mb, ms = float(np.mean(list(a.values()))), float(np.mean(list(b.values())))
+    p = math.nan
+    if len(common) >= 6 and np.any(diff != 0):
+        with warnings.catch_warnings():  # scipy notes when ties force its normal approximation
+            warnings.simplefilter("ignore")
+            p = float(stats.wilcoxon(diff, alternative="two-sided").pvalue)
+    if len(common) < 6:
+        sure = "too few paired seeds to tell"
+    elif not np.any(diff != 0):
+        sure = "a tie on every seed (to rounding)"
+    elif p < 0.01:
+        sure = "clear"
+    elif p < 0.05:
+        sure = "likely"
+    else:
+        sure = "not distinguishable"
+    sentence = (
+        f"{fig.label}: {best.label} is best ({_fmt(mb, fig)}) ahead of {second.label} ({_fmt(ms, fig)}); "
+        f"better on {wins} of {len(common)} paired seeds, worse on {losses}"
+        + (f", Wilcoxon p = {p:.2g}" if math.isfinite(p) else "")
+        + f": {sure}."
+    )
+    return {
+        "figure": name,
+        "best": best.label,
+        "runner_up": second.label,
+        "best_mean": mb,
+        "runner_up_mean": ms,
+        "paired_seeds": len(common),
+        "wins": wins,
+        "losses": losses,
+        "p_value": p,
+        "sureness": sure,
+        "sentence": sentence,
+    }
 
 
 ROUNDING = 1e-9

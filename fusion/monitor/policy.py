@@ -133,20 +133,8 @@ class Monitor:
         verdict = TickVerdict(CARRY_ON, conflicting=conflicting)
         newly, released = self._quarantine_changes()
         if newly:
-            verdict.action = QUARANTINE
-            for sensor, odd, seen in newly:
-                k, chance = self.quarantine_count(sensor)
-                by_luck = (
-                    f"; a working one, by its own error rates, does so with chance {chance:.1g}"
-                    if self.odd_rates.get(sensor, 0.0) > 0
-                    else ""
-                )
-                verdict.reasons.append(
-                    f"{sensor} disagreed with the belief in {odd} of its last {seen} readings (limit {k}{by_luck}) "
-                    f"while the other sensors agreed; it is discounted until it agrees again"
-                )
-            newly = [sensor for sensor, _, _ in newly]
-            verdict.newly = tuple(newly)
+            self._quarantine(verdict, newly)
+            newly = list(verdict.newly)
         if released:
             verdict.reasons.append(f"{', '.join(released)} agrees again; its quarantine is lifted")
         verdict.quarantined, verdict.released = tuple(sorted(self.quarantined)), tuple(released)
@@ -175,6 +163,22 @@ class Monitor:
             verdict.reasons.append(f"{self.run} conflicting ticks in a row; most to blame: {top}")
             self.alerted = True
         return verdict
+
+    def _quarantine(self, verdict: TickVerdict, newly: list[tuple[str, int, int]]) -> None:
+        """Quarantine the sensors that keep disagreeing, each with its count against its limit, in words."""
+        verdict.action = QUARANTINE
+        for sensor, odd, seen in newly:
+            k, chance = self.quarantine_count(sensor)
+            by_luck = (
+                f"; a working one, by its own error rates, does so with chance {chance:.1g}"
+                if self.odd_rates.get(sensor, 0.0) > 0
+                else ""
+            )
+            verdict.reasons.append(
+                f"{sensor} disagreed with the belief in {odd} of its last {seen} readings (limit {k}{by_luck}) "
+                f"while the other sensors agreed; it is discounted until it agrees again"
+            )
+        verdict.newly = tuple(sensor for sensor, _, _ in newly)
 
     def is_quarantined(self, sensor: str) -> bool:
         return sensor in self.quarantined

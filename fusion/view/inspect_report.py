@@ -47,74 +47,93 @@ def write_report(found, case, out_dir) -> str:
 
 
 def _plots(found, case) -> dict[str, bytes]:
-    plt = pyplot()
-
+    """Every picture of the report by file name: conflict over time, blame, belief maps, true error."""
     out: dict[str, bytes] = {}
-    s = found.series
     o = found.time_origin
-    t = np.asarray(s.get("t", np.zeros(0))) - o
+    t = np.asarray(found.series.get("t", np.zeros(0))) - o
     axis = "time in the log (s)" if not o else f"time from the log's first tick at {o:.2f} (s)"
     if len(t):
-        fig, axes = plt.subplots(
-            len(found.backends), 1, figsize=(10, 2.4 * len(found.backends) + 0.6), dpi=110, sharex=True
-        )
-        axes = np.atleast_1d(axes)
-        for ax, b in zip(axes, found.backends):
-            ax.plot(t, s[f"conflict:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"))
-            for e in found.episodes:
-                ax.axvspan(e.start_t - o, max(e.end_t, e.start_t + 1e-3) - o, color="#f2c14e", alpha=0.3, lw=0)
-            for action, (marker, colour, label) in _ACTION_MARKS.items():
-                when = [a[0] - o for a in found.actions if a[1] == b and a[2] == action]
-                if when:
-                    ax.scatter(when, [1.04] * len(when), marker=marker, color=colour, s=28, label=label, clip_on=False)
-            ax.set_ylim(0, 1.08)
-            ax.set_ylabel("conflict K")
-            ax.set_title(BACKEND_TITLES.get(b, b), fontsize=10, loc="left")
-            ax.grid(alpha=0.3)
-            if any(a[1] == b for a in found.actions):
-                ax.legend(fontsize=7, loc="upper right", ncol=3)
-        axes[-1].set_xlabel(f"{axis}; shaded: conflict episodes")
-        out["conflict.png"] = png_of(fig)
-        plt.close(fig)
-    ranking = found.ranking()
-    if ranking:
-        names = [n for n, _ in ranking]
-        fig, ax = plt.subplots(figsize=(7, 0.5 * len(names) + 1.4), dpi=110)
-        height = 0.8 / max(len(found.backends), 1)
-        for i, b in enumerate(found.backends):
-            per = found.blame[b]
-            total = sum(max(v, 0.0) for v in per.values()) or 1.0
-            ax.barh(
-                np.arange(len(names)) + i * height,
-                [max(per.get(n, 0.0), 0.0) / total for n in names],
-                height=height,
-                color=_BACKEND_COLOURS.get(b, "0.4"),
-                label=b,
-            )
-        ax.set_yticks(np.arange(len(names)) + height * (len(found.backends) - 1) / 2, names)
-        ax.invert_yaxis()
-        ax.set_xlabel("share of the leave-one-out blame over all episodes")
-        ax.legend(fontsize=8)
-        ax.grid(alpha=0.3, axis="x")
-        out["blame.png"] = png_of(fig)
-        plt.close(fig)
+        out["conflict.png"] = _conflict_plot(found, t, o, axis)
+    if found.ranking():
+        out["blame.png"] = _blame_plot(found)
     worst = sorted(found.episodes, key=lambda e: -e.severity)
     for e in [e for e in worst if e.number in found.maps][:MAP_EPISODES]:
         out[f"maps_episode{e.number}.png"] = _maps(found, case, e)
     if found.truth and len(t):
-        fig, ax = plt.subplots(figsize=(10, 3), dpi=110)
-        for b in found.backends:
-            ax.plot(t, s[f"error:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"), label=b)
-        for e in found.episodes:
-            ax.axvspan(e.start_t - o, max(e.end_t, e.start_t + 1e-3) - o, color="#f2c14e", alpha=0.3, lw=0)
-        ax.set_yscale("symlog", linthresh=0.5)
-        ax.set_xlabel(axis)
-        ax.set_ylabel("true position error (m)")
-        ax.grid(alpha=0.3)
-        ax.legend(fontsize=8)
-        out["error.png"] = png_of(fig)
-        plt.close(fig)
+        out["error.png"] = _error_plot(found, t, o, axis)
     return out
+
+
+def _shade_episodes(ax, found, o: float) -> None:
+    for e in found.episodes:
+        ax.axvspan(e.start_t - o, max(e.end_t, e.start_t + 1e-3) - o, color="#f2c14e", alpha=0.3, lw=0)
+
+
+def _conflict_plot(found, t, o: float, axis: str) -> bytes:
+    plt = pyplot()
+    s = found.series
+    fig, axes = plt.subplots(
+        len(found.backends), 1, figsize=(10, 2.4 * len(found.backends) + 0.6), dpi=110, sharex=True
+    )
+    axes = np.atleast_1d(axes)
+    for ax, b in zip(axes, found.backends):
+        ax.plot(t, s[f"conflict:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"))
+        _shade_episodes(ax, found, o)
+        for action, (marker, colour, label) in _ACTION_MARKS.items():
+            when = [a[0] - o for a in found.actions if a[1] == b and a[2] == action]
+            if when:
+                ax.scatter(when, [1.04] * len(when), marker=marker, color=colour, s=28, label=label, clip_on=False)
+        ax.set_ylim(0, 1.08)
+        ax.set_ylabel("conflict K")
+        ax.set_title(BACKEND_TITLES.get(b, b), fontsize=10, loc="left")
+        ax.grid(alpha=0.3)
+        if any(a[1] == b for a in found.actions):
+            ax.legend(fontsize=7, loc="upper right", ncol=3)
+    axes[-1].set_xlabel(f"{axis}; shaded: conflict episodes")
+    data = png_of(fig)
+    plt.close(fig)
+    return data
+
+
+def _blame_plot(found) -> bytes:
+    plt = pyplot()
+    names = [n for n, _ in found.ranking()]
+    fig, ax = plt.subplots(figsize=(7, 0.5 * len(names) + 1.4), dpi=110)
+    height = 0.8 / max(len(found.backends), 1)
+    for i, b in enumerate(found.backends):
+        per = found.blame[b]
+        total = sum(max(v, 0.0) for v in per.values()) or 1.0
+        ax.barh(
+            np.arange(len(names)) + i * height,
+            [max(per.get(n, 0.0), 0.0) / total for n in names],
+            height=height,
+            color=_BACKEND_COLOURS.get(b, "0.4"),
+            label=b,
+        )
+    ax.set_yticks(np.arange(len(names)) + height * (len(found.backends) - 1) / 2, names)
+    ax.invert_yaxis()
+    ax.set_xlabel("share of the leave-one-out blame over all episodes")
+    ax.legend(fontsize=8)
+    ax.grid(alpha=0.3, axis="x")
+    data = png_of(fig)
+    plt.close(fig)
+    return data
+
+
+def _error_plot(found, t, o: float, axis: str) -> bytes:
+    plt = pyplot()
+    fig, ax = plt.subplots(figsize=(10, 3), dpi=110)
+    for b in found.backends:
+        ax.plot(t, found.series[f"error:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"), label=b)
+    _shade_episodes(ax, found, o)
+    ax.set_yscale("symlog", linthresh=0.5)
+    ax.set_xlabel(axis)
+    ax.set_ylabel("true position error (m)")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=8)
+    data = png_of(fig)
+    plt.close(fig)
+    return data
 
 
 def _maps(found, case, e) -> bytes:
