@@ -268,48 +268,18 @@ def _bench_focal(grid: PoseGrid, label: str, rng, repeats: int) -> list[BenchRow
 
     step_s = _best_seconds(step, repeats, setup=fresh)
     sets = f"{len(belief)} focal sets × {len(e)} evidence levels"
-    return [
-        BenchRow(
-            label,
-            FOCAL,
-            "update",
-            update_s * 1e3,
-            floor_s * 1e3,
-            update_s / floor_s,
-            update_peak / belief_bytes,
-            f"{sets}; target ≤ 3× floor",
-        ),
-        BenchRow(
-            label,
-            FOCAL,
+    rows = (
+        ("update", update_s, update_peak / belief_bytes, f"{sets}; target ≤ 3× floor"),
+        (
             "update as run",
-            full_s * 1e3,
-            floor_s * 1e3,
-            full_s / floor_s,
+            full_s,
             None,
             "reading conditioned on the belief, nearest-set merging (the filter's defaults)",
         ),
-        BenchRow(
-            label,
-            FOCAL,
-            "predict",
-            predict_s * 1e3,
-            floor_s * 1e3,
-            predict_s / floor_s,
-            predict_peak / belief_bytes,
-            "set-valued motion (move + dilate)",
-        ),
-        BenchRow(
-            label,
-            FOCAL,
-            "step",
-            step_s * 1e3,
-            floor_s * 1e3,
-            step_s / floor_s,
-            None,
-            f"predict + update: {1 / step_s:.1f} steps/s on one core (10 Hz needs ≥ 10)",
-        ),
-    ]
+        ("predict", predict_s, predict_peak / belief_bytes, "set-valued motion (move + dilate)"),
+        ("step", step_s, None, f"predict + update: {1 / step_s:.1f} steps/s on one core (10 Hz needs ≥ 10)"),
+    )
+    return [BenchRow(label, FOCAL, op, t * 1e3, floor_s * 1e3, t / floor_s, peak, note) for op, t, peak, note in rows]
 
 
 def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:

@@ -10,21 +10,14 @@ __all__ = ["bench_sweep"]
 
 
 def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
-    """Parallel speed-up of ``fusion compare``: the case's default sweep on ``seeds`` seeds with one
-    worker, then with ``workers``, into fresh folders (nothing resumed).  The ratio is one-worker time
-    over parallel time, both measured in this run.
-
-    Then how busy the workers were: the runs' own wall times over workers × elapsed, and how much
-    longer the same runs took side by side than with one worker.
-
-    Beside it, the machine's own ceiling for this work: one run of the sweep's longest setting alone,
-    then ``workers`` copies of it at once in as many processes (no scheduling, no imbalance, nothing
-    shared).  Copies that slow each other down (memory bandwidth, shared cache, turbo clocks) bound
-    the speed-up any scheduler can reach here."""
+    """Parallel speed-up of ``fusion compare``: the case's default sweep on ``seeds`` seeds with one worker,
+    then with ``workers`` (fresh folders), as a ratio measured in this run; how busy the workers were; and
+    the machine's own ceiling for this work (``_copies_at_once``: copies of the longest run that slow each
+    other down bound the speed-up any scheduler can reach here)."""
     import os
     import tempfile
 
-    from fusion.compare import run_in_processes, run_sweep, settings_of
+    from fusion.compare import run_sweep, settings_of
     from fusion.io.case import load_case
 
     case = load_case(case_path)
@@ -42,7 +35,14 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
     slower = sum(r["wall_s"] for r in records[workers]) / sum(r["wall_s"] for r in records[1])
     cost = {s.key: sum(r["wall_s"] for r in records[1] if r["key"] == s.key) for s in settings}
     longest = max(settings, key=lambda s: cost[s.key])  # as measured by the one-worker sweep
-    job = (str(case_path), longest, seed_list[0], None)
+    copies = _copies_at_once((str(case_path), longest, seed_list[0], None), workers)
+    return _rows(case.name, settings, seed_list, workers, seconds, busy, slower, longest, copies)
+
+
+def _copies_at_once(job, workers: int) -> dict[int, float]:
+    """Seconds for one run alone and for ``workers`` copies of it at once, in as many processes."""
+    from fusion.compare import run_in_processes
+
     copies, failures = {}, []
     for n in (1, workers):
         start = time.perf_counter()
@@ -50,12 +50,17 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
         copies[n] = time.perf_counter() - start
     if failures:
         raise failures[0]
+    return copies
+
+
+def _rows(name, settings, seed_list, workers, seconds, busy, slower, longest, copies) -> list[BenchRow]:
+    """The sweep's rows: speed-up, the workers' busy share, and the machine's ceiling."""
     runs = len(settings) * len(seed_list)
     speed_up = seconds[1] / seconds[workers]
     ceiling = workers * copies[1] / copies[workers]
     return [
         BenchRow(
-            f"{case.name}: {len(settings)} settings × {len(seed_list)} seeds",
+            f"{name}: {len(settings)} settings × {len(seed_list)} seeds",
             "both",
             f"compare sweep, {workers} workers",
             seconds[workers] * 1e3,
@@ -66,7 +71,7 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
             f"{speed_up / ceiling:.0%} of this machine's ceiling below",
         ),
         BenchRow(
-            f"{case.name}: {len(settings)} settings × {len(seed_list)} seeds",
+            f"{name}: {len(settings)} settings × {len(seed_list)} seeds",
             "both",
             f"workers busy, {workers} workers",
             busy * workers * seconds[workers] * 1e3,
@@ -77,7 +82,7 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
             f"{workers} × elapsed); the runs took {slower:.2f}× their one-worker time side by side",
         ),
         BenchRow(
-            f"{case.name}: {longest.label}, seed {seed_list[0]}",
+            f"{name}: {longest.label}, seed {seed_list[0]}",
             longest.backend,
             f"{workers} copies at once",
             copies[workers] * 1e3,

@@ -12,20 +12,20 @@ from __future__ import annotations
 import csv
 import io
 import json
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from fusion import SAFETY_NOTICE, __version__
-from fusion.io.case import Case
+from fusion.case_model import Case
 from fusion.io.csv_cells import number_cell
 from fusion.io.outdir import atomic_write
 from fusion.localizer import Decision, Localizer
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Policy
 from fusion.sensors.sensor_set import SensorSet
 from fusion.simulate import Tick, simulate
+from fusion.step_row import FIGURE_COLUMNS, decision_cells, pose_errors
 
 __all__ = ["StepRow", "RunResult", "run_case", "write_results", "log_text", "RESULT_FILES", "STEP_COLUMNS"]
 
@@ -40,15 +40,7 @@ STEP_COLUMNS = (
     "heading_deg",
     "error_m",
     "heading_error_deg",
-    "spread_m",
-    "region_cells",
-    "conflict",
-    "weight_of_conflict",
-    "disagreement",
-    "jousselme",
-    "surprise",
-    "evidence_ratio",
-    "action",
+    *FIGURE_COLUMNS,
     "blame",
     "quarantined",
     "faults",
@@ -68,9 +60,7 @@ class StepRow:
     @classmethod
     def of(cls, tick: Tick, d: Decision) -> StepRow:
         tr = tick.truth
-        err = math.hypot(d.x_m - tr.x_m, d.y_m - tr.y_m)
-        herr = abs((d.heading_deg - tr.heading_deg + 180.0) % 360.0 - 180.0)
-        fig = d.figures
+        err, herr = pose_errors(d, tr.x_m, tr.y_m, tr.heading_deg)
         return cls(
             {
                 "t": tr.t,
@@ -78,22 +68,9 @@ class StepRow:
                 "true_x_m": tr.x_m,
                 "true_y_m": tr.y_m,
                 "true_heading_deg": tr.heading_deg % 360,
-                "x_m": d.x_m,
-                "y_m": d.y_m,
-                "heading_deg": d.heading_deg,
                 "error_m": err,
                 "heading_error_deg": herr,
-                "spread_m": d.spread_m,
-                "region_cells": d.region_cells,
-                "conflict": fig.get("conflict", 0.0),
-                "weight_of_conflict": fig.get("weight_of_conflict", 0.0),
-                "disagreement": fig.get("disagreement", 0.0),
-                "jousselme": fig.get("jousselme", 0.0),
-                "surprise": fig.get("surprise", 0.0),
-                "evidence_ratio": fig.get("evidence_ratio", 1.0),
-                "action": d.action,
-                "blame": ";".join(f"{s}={v:.3f}" for s, v in d.blame[:3]),
-                "quarantined": ";".join(d.quarantined),
+                **decision_cells(d),
                 "faults": ";".join(tr.faults),
                 "carried": tr.carried,
                 "seconds": d.seconds,

@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fusion.io.case import Case
+from fusion.case_model import Case
 from fusion.io.observations import Observation
 from fusion.sensors.kinds import sensor_kind
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from fusion.budget import estimate
-from fusion.io.case import Case
+from fusion.case_model import Case
 from fusion.text import plain
 
 __all__ = ["describe"]

@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fusion.io.case import Case
+from fusion.case_model import Case
 from fusion.localizer import Localizer
 from fusion.simulate import simulate
 

@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from fusion.case_model import FaultSpec, SweepSpec
 from fusion.cli import main
 from fusion.compare import (
     Setting,
@@ -26,7 +27,7 @@ from fusion.compare import (
 )
 from fusion.compare.runs import _figures
 from fusion.errors import FusionError, InputFileError
-from fusion.io.case import FaultSpec, SweepSpec, load_case, parse_case
+from fusion.io.case import load_case, parse_case
 from fusion.monitor import ALERT, CARRY_ON
 from fusion.simulate import simulate
 

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fusion.io.case import Case
+from fusion.case_model import Case
 from fusion.io.logs import SetAside, TruthPose
 from fusion.sensors.markers import MarkerMiss, visible_markers
 

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from fusion.calibration.data import datasets
 from fusion.calibration.models import FitSettings, fit_sensor, require_pyro
 from fusion.calibration.output import summarise_fits
-from fusion.io.case import Case
+from fusion.case_model import Case
 from fusion.io.logs import LogRead, ReadPosition, SetAside, held, read_observations, require_records
 from fusion.io.truth_file import read_truth
 

@@ -93,29 +93,7 @@ def run_sweep(
     seeds = list(seeds)
     folder = Path(out_dir)
     calibration = None if calibration is None else str(calibration)
-    digest = sweep_digest(case_path, calibration)
-    manifest = folder / "sweep.json"
-    if manifest.exists():
-        try:
-            old = json.loads(read_text(manifest, MAX_RUN_FILE_BYTES, "sweep record", regular=True))
-        except (FusionError, ValueError, RecursionError):
-            old = {}
-        if not isinstance(old, dict) or old.get("case_sha256") != digest:
-            raise FusionError(
-                f"{folder} holds results of a different case file (or the case changed since); "
-                "pass --out to write elsewhere, or --replace to delete them and start again"
-            )
-    (folder / "runs").mkdir(parents=True, exist_ok=True)
-    _atomic_json(
-        manifest,
-        {
-            "case": case_path,
-            "case_sha256": digest,
-            "tool": f"fusion {__version__}",
-            "seeds": seeds,
-            "settings": [s.key for s in settings],
-        },
-    )
+    _claim_manifest(folder, case_path, sweep_digest(case_path, calibration), seeds, settings)
     wanted = [(s, seed) for seed in seeds for s in settings]
     done = _load_done(folder, {(s.key, seed) for s, seed in wanted})
     todo = [(s, seed) for s, seed in wanted if (s.key, seed) not in done]
@@ -150,6 +128,30 @@ def run_sweep(
             f"{folder / 'runs'}); first: {failures[0]}"
         )
     return [done[(s.key, seed)] for s, seed in wanted if (s.key, seed) in done]
+
+
+def _claim_manifest(folder: Path, case_path: str, digest: str, seeds: list[int], settings: list[Setting]) -> None:
+    """Write ``sweep.json`` (the case's digest, seeds, settings), refusing a folder that holds another case's runs."""
+    manifest = folder / "sweep.json"
+    if manifest.exists():
+        try:
+            old = json.loads(read_text(manifest, MAX_RUN_FILE_BYTES, "sweep record", regular=True))
+        except (FusionError, ValueError, RecursionError):
+            old = {}
+        if not isinstance(old, dict) or old.get("case_sha256") != digest:
+            raise FusionError(
+                f"{folder} holds results of a different case file (or the case changed since); "
+                "pass --out to write elsewhere, or --replace to delete them and start again"
+            )
+    (folder / "runs").mkdir(parents=True, exist_ok=True)
+    record = {
+        "case": case_path,
+        "case_sha256": digest,
+        "tool": f"fusion {__version__}",
+        "seeds": seeds,
+        "settings": [s.key for s in settings],
+    }
+    _atomic_json(manifest, record)
 
 
 def longest_measured_first(records) -> Callable[[list], list]:

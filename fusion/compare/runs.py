@@ -8,6 +8,7 @@ from functools import lru_cache
 
 import numpy as np
 
+from fusion.case_model import Case
 from fusion.compare.settings import (
     ALERT_GRACE_S,
     CARRY_WINDOW_TICKS,
@@ -19,7 +20,7 @@ from fusion.compare.settings import (
     variant,
 )
 from fusion.errors import FusionError
-from fusion.io.case import Case, load_case
+from fusion.io.case import load_case
 from fusion.monitor import CARRY_ON
 
 

@@ -7,8 +7,8 @@ import math
 from dataclasses import dataclass
 
 from fusion.backends import BACKENDS, backend_kind
+from fusion.case_model import Case, SweepSpec
 from fusion.errors import FusionError
-from fusion.io.case import Case, SweepSpec
 
 ENGINES = ("local", "dask")
 RECOVERY_TICKS = 10

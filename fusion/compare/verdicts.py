@@ -8,8 +8,8 @@ from collections.abc import Iterable
 
 import numpy as np
 
+from fusion.case_model import Case
 from fusion.compare.settings import FIGURES, Figure, Setting, variant
-from fusion.io.case import Case
 
 
 # ----------------------------------------------------------------------------- figures over seeds

@@ -26,11 +26,11 @@ import time
 from pathlib import Path
 
 from fusion.backends import BACKENDS
+from fusion.case_model import Case
 from fusion.inspect.findings import FRAME_WIDTH, MISMATCH_SHARE, STEP_COLUMNS, Inspection
 from fusion.inspect.outputs import _Outputs, _write_summary
 from fusion.inspect.replay import _place_start, _Replay, _ticks, _TruthCursor
 from fusion.io import recording
-from fusion.io.case import Case
 from fusion.io.line_count import count_lines
 from fusion.io.logs import ReadPosition, SetAside, require_readable
 from fusion.localizer import Localizer

@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.monitor.episodes import Episode, blame_shares
+from fusion.step_row import FIGURE_COLUMNS
 
 MISMATCH_SHARE = 0.2
 """A log whose unknown sensors, or whose sightings of markers not on the map, reach this share is
@@ -32,15 +33,7 @@ STEP_COLUMNS = (
     "x_m",
     "y_m",
     "heading_deg",
-    "spread_m",
-    "region_cells",
-    "conflict",
-    "weight_of_conflict",
-    "disagreement",
-    "jousselme",
-    "surprise",
-    "evidence_ratio",
-    "action",
+    *FIGURE_COLUMNS,
     "reason",
     "blame",
     "quarantined",

@@ -13,6 +13,7 @@ import numpy as np
 
 from fusion import __version__
 from fusion.belief.coarse import coarse_plane
+from fusion.case_model import Case
 from fusion.conflict import pairwise_conflict
 from fusion.errors import FusionError
 from fusion.inspect.findings import (
@@ -24,7 +25,6 @@ from fusion.inspect.findings import (
     Inspection,
 )
 from fusion.inspect.outputs import _fmt, _Outputs
-from fusion.io.case import Case
 from fusion.io.logs import SetAside
 from fusion.io.mcap_feed import CUT_REASON
 from fusion.io.observations import Observation
@@ -38,6 +38,7 @@ from fusion.scoring import time_to_hold
 from fusion.sensors.markers import MarkerSighting
 from fusion.sensors.odometry import check_odometry_step
 from fusion.sensors.sensor_set import SensorSet
+from fusion.step_row import decision_cells, pose_errors
 
 
 def _ticks(records, found: Inspection, odometry: str | None, min_tick_s: float):
@@ -235,29 +236,15 @@ class _Replay:
         fig = d.figures
         err = herr = None
         if pose is not None:
-            err = math.hypot(d.x_m - pose.x_m, d.y_m - pose.y_m)
-            herr = abs((d.heading_deg - pose.heading_deg + 180.0) % 360.0 - 180.0)
+            err, herr = pose_errors(d, pose.x_m, pose.y_m, pose.heading_deg)
         row = {
             "tick": tick,
             "t": t,
             "line": line,
             "backend": backend,
             "readings": n_readings,
-            "x_m": d.x_m,
-            "y_m": d.y_m,
-            "heading_deg": d.heading_deg,
-            "spread_m": d.spread_m,
-            "region_cells": d.region_cells,
-            "conflict": fig.get("conflict", 0.0),
-            "weight_of_conflict": fig.get("weight_of_conflict", 0.0),
-            "disagreement": fig.get("disagreement", 0.0),
-            "jousselme": fig.get("jousselme", 0.0),
-            "surprise": fig.get("surprise", 0.0),
-            "evidence_ratio": fig.get("evidence_ratio", 1.0),
-            "action": d.action,
+            **decision_cells(d),
             "reason": " | ".join(d.reasons),
-            "blame": ";".join(f"{s}={v:.3f}" for s, v in d.blame[:3]),
-            "quarantined": ";".join(d.quarantined),
             "episode": episode.number if episode is not None else "",
             "true_x_m": pose.x_m if pose is not None else "",
             "true_y_m": pose.y_m if pose is not None else "",

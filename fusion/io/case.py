@@ -21,7 +21,6 @@ from pathlib import Path
 from fusion.budget import MEMORY_BUDGET_GIB, WORK_BUDGET_MINUTES
 from fusion.case_model import (
     BACKENDS,
-    SWEEP_RULES,
     CarryEvent,
     Case,
     FaultSpec,
@@ -41,14 +40,6 @@ from fusion.sensors.limits import problems
 from fusion.site import SiteMap
 
 __all__ = [
-    "Case",
-    "SensorSpec",
-    "FaultSpec",
-    "RouteSpec",
-    "CarryEvent",
-    "RunSpec",
-    "SweepSpec",
-    "SWEEP_RULES",
     "load_case",
     "apply_calibration",
     "parse_case",

@@ -141,88 +141,91 @@ def load_layout(path, case) -> Layout:
         r.fail((), "no [[feeds]] are given; a layout needs one per sensor it replays")
     if len(tables) > MAX_FEEDS:
         r.fail(("feeds",), f"{len(tables)} feeds are given; the limit is {MAX_FEEDS}")
-    kinds = {s.name: s.kind for s in case.sensors}
-    feeds = []
-    for i, d in enumerate(tables):
-        w = ("feeds", i)
-        r.only(
-            d,
-            w,
-            {
-                "sensor",
-                "file",
-                "topic",
-                "format",
-                "header",
-                "comment",
-                "time_unit",
-                "angle_unit",
-                "length_unit",
-                "odometry",
-                "stamp",
-                "columns",
-                "fields",
-                "not_markers",
-            },
-        )
-        sensor = r.text(d, w, "sensor", choices=tuple(kinds))
-        kind = kinds[sensor]
-        if "file" in d and "topic" in d:
-            r.fail(w, "give either 'file' (a table) or 'topic' (in an MCAP recording), not both")
-        topic = r.text(d, w, "topic") if "topic" in d else None
-        file = _inside(r, d, w, folder) if "file" in d else None
-        default_form = "steps" if topic is None else "poses"  # an odometry message carries the integrated pose
-        odometry = (
-            r.text(d, w, "odometry", default_form, choices=tuple(ODOMETRY_FORMS)) if kind == "odometry" else "steps"
-        )
-        key = "fields" if topic is not None else "columns"
-        if topic is not None and "columns" in d:
-            r.fail((*w, "columns"), "an MCAP feed names message 'fields', not table 'columns'")
-        columns = r.table(d, w, key, required=topic is None and kind not in ("ranging",))
-        needed = ODOMETRY_FORMS[odometry] if kind == "odometry" else FIELDS[kind]
-        allowed = {*needed, *OPTIONAL.get(kind, ()), "t"}
-        r.only(columns, (*w, key), allowed)
-        if topic is None:
-            for name in ("t", *needed):
-                if name not in columns:
-                    r.fail((*w, key), f"the {kind} sensor {sensor!r} needs a column for '{name}'")
-        for name, value in columns.items():
-            ok = isinstance(value, str) and value.strip() or isinstance(value, int) and not isinstance(value, bool)
-            if not ok or (isinstance(value, int) and not 1 <= value <= 100_000):
-                r.fail((*w, key, name), f"must be a column name or a column number from 1, got {value!r}")
-        fmt = _format(r, d, w, file)
-        not_markers = d.get("not_markers", [])
-        if not isinstance(not_markers, list) or not all(isinstance(v, (str, int)) for v in not_markers):
-            r.fail((*w, "not_markers"), "must be an array of ids (text or whole numbers) that are no markers")
-        if not_markers and kind != "markers":
-            r.fail((*w, "not_markers"), "applies to marker sensors only")
-        header = r.flag(d, w, "header", False)
-        if topic is None and not header and any(isinstance(v, str) for v in columns.values()):
-            r.fail((*w, "header"), "columns are named, so the table needs a header row: set header = true")
-        feeds.append(
-            Feed(
-                sensor,
-                kind,
-                dict(columns),
-                file,
-                topic,
-                fmt,
-                header,
-                r.text(d, w, "comment", "#"),
-                TIME_UNITS[r.text(d, w, "time_unit", _unit_name(time_unit), choices=tuple(TIME_UNITS))],
-                r.text(d, w, "angle_unit", "deg", choices=ANGLE_UNITS),
-                LENGTH_UNITS[r.text(d, w, "length_unit", "m", choices=tuple(LENGTH_UNITS))],
-                odometry,
-                frozenset(str(v) for v in not_markers),
-                r.text(d, w, "stamp", "log", choices=("log", "header")),
-                r.lines.get(w),
-                f"{path}, line {r.lines.get(w)}" if r.lines.get(w) else str(path),
-                str(path),
-                tuple(getattr(case.sensor(sensor).params, "bearings_deg", ())),
-            )
-        )
+    feeds = tuple(_feed(r, d, ("feeds", i), case, path, folder, time_unit) for i, d in enumerate(tables))
     truth = _truth(r, r.table(data, (), "truth", required=False), folder, time_unit)
-    return Layout(str(path), tuple(feeds), truth)
+    return Layout(str(path), feeds, truth)
+
+
+_FEED_KEYS = {
+    "sensor",
+    "file",
+    "topic",
+    "format",
+    "header",
+    "comment",
+    "time_unit",
+    "angle_unit",
+    "length_unit",
+    "odometry",
+    "stamp",
+    "columns",
+    "fields",
+    "not_markers",
+}
+
+
+def _feed(r: TomlReader, d: dict, w: tuple, case, path: Path, folder: Path, time_unit: float) -> Feed:
+    """One ``[[feeds]]`` table: where a sensor's readings are, and in which units."""
+    r.only(d, w, _FEED_KEYS)
+    kinds = {s.name: s.kind for s in case.sensors}
+    sensor = r.text(d, w, "sensor", choices=tuple(kinds))
+    kind = kinds[sensor]
+    if "file" in d and "topic" in d:
+        r.fail(w, "give either 'file' (a table) or 'topic' (in an MCAP recording), not both")
+    topic = r.text(d, w, "topic") if "topic" in d else None
+    file = _inside(r, d, w, folder) if "file" in d else None
+    default_form = "steps" if topic is None else "poses"  # an odometry message carries the integrated pose
+    odometry = r.text(d, w, "odometry", default_form, choices=tuple(ODOMETRY_FORMS)) if kind == "odometry" else "steps"
+    columns = _columns(r, d, w, sensor, kind, topic, odometry)
+    fmt = _format(r, d, w, file)
+    not_markers = d.get("not_markers", [])
+    if not isinstance(not_markers, list) or not all(isinstance(v, (str, int)) for v in not_markers):
+        r.fail((*w, "not_markers"), "must be an array of ids (text or whole numbers) that are no markers")
+    if not_markers and kind != "markers":
+        r.fail((*w, "not_markers"), "applies to marker sensors only")
+    header = r.flag(d, w, "header", False)
+    if topic is None and not header and any(isinstance(v, str) for v in columns.values()):
+        r.fail((*w, "header"), "columns are named, so the table needs a header row: set header = true")
+    line = r.lines.get(w)
+    return Feed(
+        sensor,
+        kind,
+        dict(columns),
+        file,
+        topic,
+        fmt,
+        header,
+        r.text(d, w, "comment", "#"),
+        TIME_UNITS[r.text(d, w, "time_unit", _unit_name(time_unit), choices=tuple(TIME_UNITS))],
+        r.text(d, w, "angle_unit", "deg", choices=ANGLE_UNITS),
+        LENGTH_UNITS[r.text(d, w, "length_unit", "m", choices=tuple(LENGTH_UNITS))],
+        odometry,
+        frozenset(str(v) for v in not_markers),
+        r.text(d, w, "stamp", "log", choices=("log", "header")),
+        line,
+        f"{path}, line {line}" if line else str(path),
+        str(path),
+        tuple(getattr(case.sensor(sensor).params, "bearings_deg", ())),
+    )
+
+
+def _columns(r: TomlReader, d: dict, w: tuple, sensor: str, kind: str, topic, odometry: str) -> dict:
+    """The feed's columns (a table) or message fields (an MCAP topic): each a name or a number from 1."""
+    key = "fields" if topic is not None else "columns"
+    if topic is not None and "columns" in d:
+        r.fail((*w, "columns"), "an MCAP feed names message 'fields', not table 'columns'")
+    columns = r.table(d, w, key, required=topic is None and kind not in ("ranging",))
+    needed = ODOMETRY_FORMS[odometry] if kind == "odometry" else FIELDS[kind]
+    r.only(columns, (*w, key), {*needed, *OPTIONAL.get(kind, ()), "t"})
+    if topic is None:
+        for name in ("t", *needed):
+            if name not in columns:
+                r.fail((*w, key), f"the {kind} sensor {sensor!r} needs a column for '{name}'")
+    for name, value in columns.items():
+        ok = isinstance(value, str) and value.strip() or isinstance(value, int) and not isinstance(value, bool)
+        if not ok or (isinstance(value, int) and not 1 <= value <= 100_000):
+            r.fail((*w, key, name), f"must be a column name or a column number from 1, got {value!r}")
+    return columns
 
 
 def _truth(r: TomlReader, d: dict, folder: Path, time_unit: float) -> TruthFeed | None:

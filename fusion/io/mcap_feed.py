@@ -106,21 +106,7 @@ def topic_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obs
             decode = decoders.get(channel.id)
             if decode is None:
                 decode = decoders[channel.id] = _decoder(ros2, schema, channel, feed)
-            try:
-                decoded = decode(message.data)
-            except Exception as err:  # noqa: BLE001 - one undecodable message costs that message only
-                aside(SetAside(number, f"message on {feed.topic} cannot be decoded: {_said(err)}", "", path.name))
-                continue
-            try:
-                obs = reading.observation(schema.name if schema else "", decoded, message.log_time)
-            except InputFileError:
-                raise
-            except ObservationError as err:
-                aside(SetAside(number, f"message on {feed.topic}: {err}", "", path.name))
-                continue
-            except Exception as err:  # noqa: BLE001 - a message whose values are not what its type says
-                aside(SetAside(number, f"message on {feed.topic} cannot be read: {_said(err)}", "", path.name))
-                continue
+            obs = _message(reading, decode, schema, message, number, feed, path, aside)
             if obs is not None:
                 yield number, obs
         if seen == 0:
@@ -128,6 +114,25 @@ def topic_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obs
             raise refuse(
                 feed, f"the recording {path.name} has no messages on topic {feed.topic!r} (its topics: {known})"
             )
+
+
+def _message(reading, decode, schema, message, number: int, feed: Feed, path: Path, aside) -> Observation | None:
+    """One message on the feed's topic as an observation; a message that cannot be decoded or read is set aside
+    with its reason (it costs that message only), a mapping that cannot work is refused."""
+    try:
+        decoded = decode(message.data)
+    except Exception as err:  # noqa: BLE001 - one undecodable message costs that message only
+        aside(SetAside(number, f"message on {feed.topic} cannot be decoded: {_said(err)}", "", path.name))
+        return None
+    try:
+        return reading.observation(schema.name if schema else "", decoded, message.log_time)
+    except InputFileError:
+        raise
+    except ObservationError as err:
+        aside(SetAside(number, f"message on {feed.topic}: {err}", "", path.name))
+    except Exception as err:  # noqa: BLE001 - a message whose values are not what its type says
+        aside(SetAside(number, f"message on {feed.topic} cannot be read: {_said(err)}", "", path.name))
+    return None
 
 
 def _said(err: Exception) -> str:

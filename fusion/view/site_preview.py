@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from fusion import __version__
-from fusion.io.case import Case
+from fusion.case_model import Case
 from fusion.io.outdir import FolderError, atomic_write
 from fusion.view.html_page import pyplot
 
