@@ -70,6 +70,13 @@ def _simulate(case, spec, truth, rng):
     return CompassReading(truth.heading_deg + offset + rng.normal(0.0, spec.params.sigma_deg))
 
 
+def _from_fields(value, feed):
+    from fusion.sensors.field_values import number
+
+    heading = number(value("heading"), "heading")
+    return CompassReading(heading if feed.angle_unit == "deg" else math.degrees(heading))
+
+
 COMPASS = SensorKind(
     "compass",
     CompassParams,
@@ -79,6 +86,8 @@ COMPASS = SensorKind(
     _simulate,
     {"magnet": FaultKind("magnet", "a magnet nearby turns the reading", {"offset_deg": Option("number", 0.0)})},
     rules={"sigma_deg": "positive"},
+    fields=("heading",),
+    from_fields=_from_fields,
 )
 
 
@@ -166,3 +175,33 @@ def test_every_back_end_and_sensor_model_satisfies_its_protocol(compass):
     assert {s.kind for s in case.sensors} == set(kinds())  # every registered kind is in this case
     for model in sensors.models.values():
         assert isinstance(model, SensorModel), model
+
+
+def test_a_registered_kind_is_read_from_a_robots_table_through_a_layout(compass, tmp_path):
+    # The layout reader and the table reader ask the registry which values a compass row holds.
+    from fusion.io.layout import load_layout
+    from fusion.io.recording import observations
+
+    case = parse_case(_case_text(), str(tmp_path / "case.toml"))
+    (tmp_path / "wheels.csv").write_text("t,v,w\n" + "".join(f"{k / 10},0.2,0.0\n" for k in range(11)))
+    (tmp_path / "yaw.csv").write_text("t,rad\n0.25,1.5707963\n0.75,oops\n")
+    (tmp_path / "layout.toml").write_text(
+        """[[feeds]]
+sensor = "wheels"
+file = "wheels.csv"
+header = true
+odometry = "velocities"
+columns = {t = "t", forward = "v", turn = "w"}
+[[feeds]]
+sensor = "yaw"
+file = "yaw.csv"
+header = true
+angle_unit = "rad"
+columns = {t = "t", heading = "rad"}
+"""
+    )
+    layout = load_layout(tmp_path / "layout.toml", case)
+    aside = []
+    got = [obs for _, obs in observations(None, layout, aside.append) if obs.sensor == "yaw"]
+    assert [o.kind for o in got] == ["compass"] and abs(got[0].reading.heading_deg - 90.0) < 1e-5
+    assert len(aside) == 1 and "'heading' must be a number" in aside[0].reason and aside[0].file == "yaw.csv"

@@ -27,7 +27,8 @@ which units, so the recording is replayed as it is, with no conversion step:
     [truth.columns]
     t = 1; x = 2; y = 3; heading = 4
 
-The fields each kind of sensor needs (``FIELDS``): markers ``marker``, ``range``, ``bearing``;
+The fields each kind of sensor needs (``SensorKind.fields``, ``fusion.sensors.kinds``): markers ``marker``,
+``range``, ``bearing``;
 door ``active``; ranging ``ranges`` (one column holding all beams separated by ``;``, or the
 number of the first of one column per beam, read to the end of the row); odometry one of three
 forms (``odometry = "steps" | "poses" | "velocities"``, see ``fusion.io.odometry_forms``).
@@ -44,13 +45,13 @@ from pathlib import Path
 from fusion.errors import InputFileError
 from fusion.io.bounded import read_text
 from fusion.io.toml_reader import TomlReader, load_toml
+from fusion.sensors.kinds import sensor_kind
 
 __all__ = [
     "Layout",
     "Feed",
     "TruthFeed",
     "load_layout",
-    "FIELDS",
     "TIME_UNITS",
     "ANGLE_UNITS",
     "LENGTH_UNITS",
@@ -66,11 +67,6 @@ ODOMETRY_FORMS = {
     "steps": ("forward", "turn"),  # the motion since the previous record (left optional)
     "poses": ("x", "y", "heading"),  # the pose the odometry integrated; moves are their differences
     "velocities": ("forward", "turn"),  # speeds (per second), each held until the next record (left optional)
-}
-FIELDS = {
-    "markers": ("marker", "range", "bearing"),
-    "door": ("active",),
-    "ranging": ("ranges",),
 }
 OPTIONAL = {"odometry": ("left",)}
 FORMATS = {"csv": ",", "tsv": "\t", "spaces": None}
@@ -215,7 +211,7 @@ def _columns(r: TomlReader, d: dict, w: tuple, sensor: str, kind: str, topic, od
     if topic is not None and "columns" in d:
         r.fail((*w, "columns"), "an MCAP feed names message 'fields', not table 'columns'")
     columns = r.table(d, w, key, required=topic is None and kind not in ("ranging",))
-    needed = ODOMETRY_FORMS[odometry] if kind == "odometry" else FIELDS[kind]
+    needed = ODOMETRY_FORMS[odometry] if kind == "odometry" else sensor_kind(kind).fields
     r.only(columns, (*w, key), {*needed, *OPTIONAL.get(kind, ()), "t"})
     if topic is None:
         for name in ("t", *needed):

@@ -34,8 +34,7 @@ from fusion.io.layout import Feed, refuse
 from fusion.io.logs import SetAside
 from fusion.io.observations import Observation
 from fusion.io.odometry_forms import OdometryForm
-from fusion.sensors.doors import DoorReading
-from fusion.sensors.markers import MarkerMiss, MarkerSighting
+from fusion.sensors.kinds import sensor_kind
 from fusion.sensors.ranging import RangeScan
 
 __all__ = ["topic_observations", "CUT_REASON"]
@@ -57,7 +56,6 @@ _DEFAULT_FIELDS = {
         "left": "twist.twist.linear.y",
         "turn": "twist.twist.angular.z",
     },
-    ("Bool", "steps"): {"active": "data"},
 }
 
 
@@ -177,8 +175,9 @@ class _Reading:
         key = (short, self.feed.odometry if self.feed.kind == "odometry" else "steps")
         if key in _DEFAULT_FIELDS:
             return _DEFAULT_FIELDS[key]
-        if self.feed.kind == "door":
-            return {"active": "data"}
+        defaults = sensor_kind(self.feed.kind).default_fields
+        if defaults:
+            return defaults
         raise refuse(
             self.feed,
             f"messages of type {type_name or 'unknown'} on {self.feed.topic!r} need 'fields' naming where the "
@@ -194,23 +193,11 @@ class _Reading:
             return Observation(t, feed.sensor, "ranging", RangeScan(_scan(msg, feed)))
         fields = self.fields(type_name)
         value = lambda name: _field(msg, fields[name], name, feed, self.checked)  # noqa: E731
-        angle = (lambda v: v) if feed.angle_unit == "deg" else math.degrees
-        if feed.kind == "markers":
-            marker = value("marker")
-            if marker is None or marker == "":
-                return Observation(t, feed.sensor, "markers", MarkerMiss())
-            marker = str(marker)
-            if marker in feed.not_markers:
-                raise ObservationError(f"id {marker!r} is no marker of the site (the layout's not_markers)")
-            reading = MarkerSighting(
-                marker, _number(value("range"), "range") * feed.length_unit, angle(_number(value("bearing"), "bearing"))
-            )
-            return Observation(t, feed.sensor, "markers", reading)
-        if feed.kind == "door":
-            active = value("active")
-            if not isinstance(active, bool) and active not in (0, 1):
-                raise ObservationError(f"'active' must be true or false, got {active!r}")
-            return Observation(t, feed.sensor, "door", DoorReading(bool(active)))
+        kind = sensor_kind(feed.kind)
+        if not kind.motion:  # a reading: its kind reads its own values (fusion.sensors.kinds)
+            if kind.from_fields is None:
+                raise refuse(feed, f"messages of type {type_name} cannot feed a {feed.kind} sensor")
+            return Observation(t, feed.sensor, feed.kind, kind.from_fields(value, feed))
         if feed.kind == "odometry":
             if feed.odometry == "poses":
                 a, b = _number(value("x"), "x"), _number(value("y"), "y")

@@ -18,14 +18,9 @@ from fusion.io.layout import FORMATS, Feed, TruthFeed
 from fusion.io.logs import NOTHING_USABLE_LINES, SetAside, TruthPose, text_lines
 from fusion.io.observations import Observation
 from fusion.io.odometry_forms import OdometryForm
-from fusion.sensors.doors import DoorReading
-from fusion.sensors.markers import MarkerMiss, MarkerSighting
-from fusion.sensors.ranging import RangeScan
+from fusion.sensors.kinds import sensor_kind
 
 __all__ = ["table_rows", "feed_observations", "truth_poses"]
-
-_TRUE = {"true", "1", "yes", "on"}
-_FALSE = {"false", "0", "no", "off"}
 
 
 def table_rows(path: Path, fmt: str, header: bool, comment: str, aside) -> Iterator[tuple[int, list[str], dict]]:
@@ -126,40 +121,16 @@ def _observation(feed: Feed, c: _Columns, cells: list[str], odometry: OdometryFo
     t = c.number(cells, "t") * feed.time_unit
     if t < 0:
         raise ObservationError(f"the time must be ≥ 0, got {t:g} s")
-    angle = (lambda v: v) if feed.angle_unit == "deg" else math.degrees
     metres = feed.length_unit
-    if feed.kind == "markers":
-        marker = c.cell(cells, "marker")
-        if not marker or marker.lower() in ("none", "null", "nan", "-"):
-            return Observation(t, feed.sensor, "markers", MarkerMiss())
-        if marker in feed.not_markers:
-            raise ObservationError(f"id {marker!r} is no marker of the site (the layout's not_markers)")
-        r = c.number(cells, "range") * metres
-        if r < 0:
-            raise ObservationError(f"'range' must be ≥ 0, got {r:g} m")
-        return Observation(t, feed.sensor, "markers", MarkerSighting(marker, r, angle(c.number(cells, "bearing"))))
-    if feed.kind == "door":
-        flag = c.cell(cells, "active").lower()
-        if flag not in _TRUE | _FALSE:
-            raise ObservationError(f"'active' must be true or false (or 1/0), got {flag!r}")
-        return Observation(t, feed.sensor, "door", DoorReading(flag in _TRUE))
-    if feed.kind == "ranging":
-        column = feed.columns["ranges"]
-        if isinstance(column, str):
-            parts = c.cell(cells, "ranges").split(";")
-        else:
-            parts = cells[c.index["ranges"] :]
-        ranges = []
-        for i, part in enumerate(parts):
-            try:
-                z = float(part) * metres
-            except ValueError:
-                raise ObservationError(f"beam {i + 1} must be a range, got {part!r}") from None
-            if math.isnan(z) or z < 0:
-                raise ObservationError(f"beam {i + 1} has range {part!r}; ranges must be ≥ 0")
-            ranges.append(z)
-        return Observation(t, feed.sensor, "ranging", RangeScan(tuple(ranges)))
-    assert odometry is not None
+    if odometry is None:  # a reading: its kind reads its own values (fusion.sensors.kinds)
+        kind = sensor_kind(feed.kind)
+
+        def value(name: str):
+            if name in kind.several and not isinstance(feed.columns[name], str):
+                return cells[c.index[name] :]  # one column per value, to the end of the row
+            return c.cell(cells, name)
+
+        return Observation(t, feed.sensor, feed.kind, kind.from_fields(value, feed))
     a, b, turn = _odometry_values(feed, c, cells)
     if feed.angle_unit == "deg":
         turn = math.radians(turn)

@@ -84,6 +84,12 @@ def _from_record(rec: dict, where: str) -> DoorReading:
     return DoorReading(active)
 
 
+def _from_fields(value, feed) -> DoorReading:
+    from fusion.sensors.field_values import flag
+
+    return DoorReading(flag(value("active"), "active"))
+
+
 def _simulate(case, spec, truth, rng) -> DoorReading:
     """The contact from the true pose: fires in the door's zone at its hit rate, elsewhere at its false-alarm
     rate; stuck at a value (fault)."""
@@ -112,6 +118,9 @@ def _register() -> None:
             _simulate,
             {"stuck": stuck},
             needs_door=True,
+            fields=("active",),
+            default_fields={"active": "data"},  # as in std_msgs/Bool
+            from_fields=_from_fields,
         )
     )
 

@@ -54,6 +54,13 @@ class SensorKind:
     needs_markers: bool = False  # the site must have markers
     removed_fields: dict[str, str] = field(default_factory=dict)  # old case fields refused, with the reason
     settle: Callable | None = None  # params -> params after a calibration file replaced some (or ValueError)
+    # A recording's values for a reading (``fusion.io.layout``): the fields a table or message names, those
+    # that may hold several values (a table's cells from its column to the end of the row), the message
+    # fields used when a layout names none, and (value, feed) -> reading, value(name) giving the raw value.
+    fields: tuple[str, ...] = ()
+    several: tuple[str, ...] = ()
+    default_fields: dict[str, str] = field(default_factory=dict)
+    from_fields: Callable | None = None
     # field -> rule of ``fusion.sensors.limits`` (probability, positive, non_negative, range, angle, levels) for
     # parameter fields that rules by name do not cover yet
     rules: dict[str, str] = field(default_factory=dict)

@@ -248,6 +248,23 @@ def _from_record(rec: dict, where: str):
     return reading
 
 
+def _from_fields(value, feed):
+    """A sighting (or a miss, for an empty id) from a recording's values, in the feed's units."""
+    from fusion.sensors.field_values import MISSING_WORDS, number
+
+    marker = value("marker")
+    if marker is None or str(marker).strip().lower() in MISSING_WORDS:
+        return MarkerMiss()
+    marker = str(marker).strip()
+    if marker in feed.not_markers:
+        raise ObservationError(f"id {marker!r} is no marker of the site (the layout's not_markers)")
+    r = number(value("range"), "range") * feed.length_unit
+    if r < 0:
+        raise ObservationError(f"'range' must be ≥ 0, got {r:g} m")
+    bearing = number(value("bearing"), "bearing")
+    return MarkerSighting(marker, r, bearing if feed.angle_unit == "deg" else math.degrees(bearing))
+
+
 def _bearing_to(truth, x: float, y: float) -> tuple[float, float]:
     r = math.hypot(x - truth.x_m, y - truth.y_m)
     b = (math.degrees(math.atan2(y - truth.y_m, x - truth.x_m)) - truth.heading_deg + 180.0) % 360.0 - 180.0
@@ -302,6 +319,8 @@ def _register() -> None:
             _simulate,
             {"ghost": ghost},
             needs_markers=True,
+            fields=("marker", "range", "bearing"),
+            from_fields=_from_fields,
         )
     )
 

@@ -175,6 +175,23 @@ def _from_record(rec: dict, where: str) -> RangeScan:
     return RangeScan(tuple(values))
 
 
+def _from_fields(value, feed) -> RangeScan:
+    """A scan from a recording's ranges (one cell with ``;`` between beams, or one column per beam), in the feed's
+    length unit."""
+    from fusion.sensors.field_values import values
+
+    ranges = []
+    for i, part in enumerate(values(value("ranges"), "ranges")):
+        try:
+            z = float(part) * feed.length_unit
+        except (TypeError, ValueError):
+            raise ObservationError(f"beam {i + 1} must be a range, got {part!r}") from None
+        if math.isnan(z) or z < 0:
+            raise ObservationError(f"beam {i + 1} has range {part!r}; ranges must be ≥ 0")
+        ranges.append(z)
+    return RangeScan(tuple(ranges))
+
+
 def _simulate(case, spec, truth, rng) -> RangeScan:
     """A scan from the true pose: the map's ranges with Gaussian noise; people in the beams (fault)."""
     p = spec.params
@@ -221,6 +238,9 @@ def _register() -> None:
             _simulate,
             {"people": people},
             settle=_settle,
+            fields=("ranges",),
+            several=("ranges",),
+            from_fields=_from_fields,
         )
     )
 
