@@ -32,6 +32,7 @@ import numpy as np
 from fusion.backends import BACKENDS, build
 from fusion.conflict import EvidenceAverages, pairwise_conflict, weight_of_conflict
 from fusion.errors import FusionError, ObservationError
+from fusion.figures import TickFigures
 from fusion.io.observations import Observation
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
 from fusion.monitor.at_fault import ReadingAtFault, TickReading, reading_at_fault
@@ -59,7 +60,7 @@ class Decision:
     region_cells: int
     action: str
     reasons: list[str]
-    figures: dict  # conflict figures of this tick (see fusion.conflict)
+    figures: TickFigures  # conflict figures of this tick (fusion.figures)
     blame: list[tuple[str, float]]  # leave-one-out: how much removing each sensor lowers this tick's conflict
     quarantined: tuple[str, ...]
     rejected: list[tuple[str, str]] = field(default_factory=list)  # (sensor, reason)
@@ -70,11 +71,6 @@ class Decision:
     at_fault: ReadingAtFault | None = None
 
     def to_record(self) -> dict:
-        def clean(v):
-            if isinstance(v, float):
-                return None if not math.isfinite(v) else round(v, 6)
-            return v
-
         return {
             "t": round(self.t, 6),
             "backend": self.backend,
@@ -85,7 +81,7 @@ class Decision:
             "region_cells": self.region_cells,
             "action": self.action,
             "reasons": self.reasons,
-            "figures": {k: clean(v) for k, v in self.figures.items()},
+            "figures": self.figures.to_record(),
             "blame": [[s, round(v, 6)] for s, v in self.blame],
             "quarantined": list(self.quarantined),
             "rejected": [{"sensor": s, "reason": r} for s, r in self.rejected],
@@ -105,7 +101,7 @@ class Decision:
 class _Tick:
     """What one tick's readings did to the belief (``Localizer._update``)."""
 
-    figures: dict
+    figures: TickFigures
     conflicting: bool = False
     clear: bool = True
     applied: list = field(default_factory=list)  # (sensor, evidence as absorbed: a quarantined one discounted)
@@ -252,14 +248,14 @@ class Localizer:
         before = self._snapshot()
         tick = self._update(f, encoded, given)
         figures = tick.figures
-        figures["weight_of_conflict"] = weight_of_conflict(figures["conflict"])
-        busy = figures["conflict"] >= self.policy.clear_fraction * self.policy.conflict_k
+        figures.weight_of_conflict = weight_of_conflict(figures.conflict)
+        busy = figures.conflict >= self.policy.clear_fraction * self.policy.conflict_k
         if encoded and (self.full_figures or busy):
             # The distance costs a pairwise count over focal sets; on calm ticks it is skipped unless
             # full figures were asked for (the belief barely moved, and nothing acts on it).
             distance = f.distance(before, f.snapshot())
             if distance is not None:
-                figures["jousselme"] = distance
+                figures.jousselme = distance
         # Blame weighs each reading as the sensor gave it: a quarantined sensor that still disagrees stays to blame.
         recovery = self.recovery
         blame = recovery.blame(f, before, tick.undiscounted) if tick.conflicting or (self.explain and busy) else []
@@ -306,12 +302,12 @@ class Localizer:
             opinion = f.second_opinion(prior, original, figure, p.conflict_k, clear_level)
             clear = figure < clear_level
             disagree = self.monitor.disagrees(figure, opinion)
-            tick.figures["conflict"] = max(tick.figures["conflict"], k)
-            tick.figures["disagreement"] = max(tick.figures["disagreement"], opinion.disagreement or 0.0)
+            tick.figures.conflict = max(tick.figures.conflict, k)
+            tick.figures.disagreement = max(tick.figures.disagreement, opinion.disagreement or 0.0)
             if report.log_evidence is not None:  # the slow/fast evidence averages (augmented MCL)
                 ratio = self.averages.add(report.log_evidence)
-                tick.figures["surprise"] = max(tick.figures["surprise"], -report.log_evidence)
-                tick.figures["evidence_ratio"] = ratio
+                tick.figures.surprise = max(tick.figures.surprise, -report.log_evidence)
+                tick.figures.evidence_ratio = ratio
                 if not quarantined and ratio > p.lost_ratio:
                     disagree, clear = True, False
             self.monitor.record_reading(sensor, disagree, informative(original))
@@ -385,14 +381,8 @@ class Localizer:
         return self._decision(t, CARRY_ON, reasons, figures, [], self.monitor.quarantined_sensors(), rejected, start)
 
     # ----------------------------------------------------------------- helpers
-    def _calm_figures(self) -> dict:
-        return {
-            "conflict": 0.0,
-            "weight_of_conflict": 0.0,
-            "disagreement": 0.0,
-            "surprise": 0.0,
-            "evidence_ratio": self.averages.ratio,
-        }
+    def _calm_figures(self) -> TickFigures:
+        return TickFigures(evidence_ratio=self.averages.ratio)
 
     def _snapshot(self):
         return self.filter.snapshot()

@@ -254,7 +254,7 @@ def test_two_lone_odd_readings_of_two_sensors_raise_no_alert_but_a_stuck_one_doe
         return Observation(t, "camera", "markers", MarkerSighting("R-west", 0.6, 0.0))
 
     lone = _replayed(case, backend, {22: [door], 23: [ghost]})
-    assert lone[22].figures["conflict"] > 0.8 and lone[23].figures["conflict"] > 0.8  # the premise holds
+    assert lone[22].figures.conflict > 0.8 and lone[23].figures.conflict > 0.8  # the premise holds
     assert [d.action for d in lone] == [CARRY_ON] * len(lone)
     # The contact stuck active for 2 s (8 ticks): it disagrees again and again, and is named.
     stuck = _replayed(case, backend, {i: [door] for i in range(22, 30)})

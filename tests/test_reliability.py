@@ -47,7 +47,7 @@ def test_total_conflict_and_zero_evidence_are_reported_then_relocalized_never_na
         p = loc.filter.distribution()
         assert np.isfinite(p).all() and (p >= 0).all() and math.isclose(p.sum(), 1.0, abs_tol=1e-9)
         if RELOCALIZE not in actions:
-            assert d.figures["conflict"] == pytest.approx(1.0)
+            assert d.figures.conflict == pytest.approx(1.0)
             assert record["figures"]["weight_of_conflict"] is None  # infinite, written as null
     assert RELOCALIZE in actions
     i = actions.index(RELOCALIZE)

@@ -158,7 +158,7 @@ class _Replay:
         f.last_t = t
         pose = truth.at(t) if truth is not None else None
         decisions = {b: loc.step(odometry, readings) for b, loc in self.locs.items()}
-        conflict = {b: float(d.figures.get("conflict", 0.0)) for b, d in decisions.items()}
+        conflict = {b: d.figures.conflict for b, d in decisions.items()}
         episode, closed = self.finder.add(tick, t, first, conflict)
         planes = {b: self._plane(loc) for b, loc in self.locs.items()}
         if closed is not None:
@@ -256,9 +256,9 @@ class _Replay:
         if backend == next(iter(self.locs)):
             s["t"].append(t)
             s["episode"].append(episode.number if episode is not None else 0)
-        s[f"conflict:{backend}"].append(float(fig.get("conflict", 0.0)))
-        s[f"surprise:{backend}"].append(float(fig.get("surprise", 0.0)))
-        s[f"jousselme:{backend}"].append(float(fig.get("jousselme", 0.0)))
+        s[f"conflict:{backend}"].append(fig.conflict)
+        s[f"surprise:{backend}"].append(fig.surprise)
+        s[f"jousselme:{backend}"].append(fig.value("jousselme"))
         s[f"error:{backend}"].append(err if err is not None else math.nan)
         s[f"heading_error:{backend}"].append(herr if herr is not None else math.nan)
 

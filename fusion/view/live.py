@@ -113,7 +113,7 @@ class RunView:
         self.truth = tick.truth
         for name, d in decisions.items():
             key = _FIGURE[name][0]
-            self.history[name].append(d.figures.get(key, 0.0))
+            self.history[name].append(d.figures.value(key))
             plane = localizers[name].filter.distribution().reshape(localizers[name].sensors.grid.shape).sum(axis=0)
             self.latest[name] = (d, plane)
             if d.action != "carry on":
@@ -134,7 +134,7 @@ class RunView:
         key, label = _FIGURE[name]
         figures = Table.grid(padding=(0, 1))
         figures.add_row("error", f"{err:5.2f} m, {herr:5.1f}°", "spread", f"{d.spread_m:5.2f} m")
-        figures.add_row(label, f"{d.figures.get(key, 0.0):.3f}", "action", d.action)
+        figures.add_row(label, f"{d.figures.value(key):.3f}", "action", d.action)
         if d.quarantined:
             figures.add_row("quarantined", literal(", ".join(d.quarantined)), "", "")
         body = Group(
