@@ -13,7 +13,7 @@ from fusion.errors import (
     MassValueError,
 )
 
-__all__ = ["MASS_TOLERANCE"]
+__all__ = ["MASS_TOLERANCE", "cell_vector"]
 
 MASS_TOLERANCE = 1e-9
 """How far the masses given to a constructor may sum from 1 (they are then rescaled)."""
@@ -76,15 +76,21 @@ def _as_float(value, key) -> float:
 
 
 def _as_vector(values, name: str) -> np.ndarray:
+    return cell_vector(values, name, MassValueError)
+
+
+def cell_vector(values, name: str, error=MassValueError, copy: bool = False) -> np.ndarray:
+    """``values`` as a non-empty 1-D float64 vector of finite numbers, one per cell (a copy when ``copy``);
+    ``error`` (a ``FusionError`` type) naming ``name`` and the first bad cell otherwise."""
     try:
-        v = np.asarray(values, dtype=np.float64)
+        v = np.array(values, dtype=np.float64) if copy else np.asarray(values, dtype=np.float64)
     except (TypeError, ValueError):
-        raise MassValueError(f"{name} must be a vector of numbers, one per cell") from None
+        raise error(f"{name} must be a vector of numbers, one per cell") from None
     if v.ndim != 1 or v.size == 0:
-        raise MassValueError(f"{name} must be a non-empty vector with one entry per cell, got shape {v.shape}")
+        raise error(f"{name} must be a non-empty vector with one entry per cell, got shape {v.shape}")
     if not np.isfinite(v).all():
         i = int(np.flatnonzero(~np.isfinite(v))[0])
-        raise MassValueError(f"{name} has the non-finite value {float(v[i])!r} at cell {i}")
+        raise error(f"{name} has the non-finite value {float(v[i])!r} at cell {i}")
     return v
 
 

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from fusion.belief.frame_checks import cell_vector
 from fusion.errors import LikelihoodValueError, ZeroEvidenceError
 
 __all__ = ["Posterior"]
@@ -199,13 +200,4 @@ class Posterior:
 
 
 def _vector(values, name: str) -> np.ndarray:
-    try:
-        v = np.array(values, dtype=np.float64)
-    except (TypeError, ValueError):
-        raise LikelihoodValueError(f"{name} must be a vector of numbers, one per cell") from None
-    if v.ndim != 1 or v.size == 0:
-        raise LikelihoodValueError(f"{name} must be a non-empty vector with one entry per cell, got shape {v.shape}")
-    if not np.isfinite(v).all():
-        i = int(np.flatnonzero(~np.isfinite(v))[0])
-        raise LikelihoodValueError(f"{name} has the non-finite value {float(v[i])!r} at cell {i}")
-    return v
+    return cell_vector(values, name, LikelihoodValueError, copy=True)
