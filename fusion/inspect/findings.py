@@ -47,7 +47,7 @@ STEP_COLUMNS = (
 
 @dataclass
 class Inspection:
-    """What a replay found; renders itself for rich (the terminal summary)."""
+    """What a replay found (drawn by ``fusion.view.inspect_summary`` and ``inspect_report``)."""
 
     log: str
     site: str

@@ -209,7 +209,7 @@ class _Replay:
                 ep.blame[b][sensor] += v
                 self.found.blame[b][sensor] += v
             if pose is not None:
-                ep.errors[b] = max(ep.errors[b], math.hypot(d.x_m - pose.x_m, d.y_m - pose.y_m))
+                ep.errors[b] = max(ep.errors[b], pose_errors(d, pose.x_m, pose.y_m, pose.heading_deg)[0])
         if ep.ticks <= PAIR_TICKS:
             self._pairs(ep, readings)
 

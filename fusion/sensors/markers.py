@@ -31,7 +31,7 @@ from fusion.sensors.base import Evidence
 from fusion.sensors.limits import require_valid
 from fusion.site import SiteMap
 
-__all__ = ["visible_markers", "MarkerParams", "MarkerSighting", "MarkerMiss", "MarkerSensor"]
+__all__ = ["visible_markers", "range_bearing", "MarkerParams", "MarkerSighting", "MarkerMiss", "MarkerSensor"]
 
 
 @dataclass(frozen=True)
@@ -178,13 +178,8 @@ class MarkerSensor:
         if k is None:
             return f"marker {reading.marker_id} is not on the map"
         m = self.site.markers[k]
-        r = math.hypot(m.x - x, m.y - y)
-        b = (math.degrees(math.atan2(m.y - y, m.x - x)) - heading_deg + 180.0) % 360.0 - 180.0
-        view = (
-            ""
-            if r <= self.params.max_range_m and abs(b) <= self.params.fov_deg / 2
-            else " (out of the camera's view from there)"
-        )
+        r, b = range_bearing(x, y, heading_deg, m.x, m.y)
+        view = "" if _in_view(self.params, r, b) else " (out of the camera's view from there)"
         return (
             f"marker {reading.marker_id} measured at {reading.range_m:.2f} m, {reading.bearing_deg:+.0f}°; "
             f"expected at {r:.2f} m, {b:+.0f}°{view}"
@@ -202,15 +197,25 @@ def visible_markers(site: SiteMap, params: MarkerParams, x: float, y: float, hea
     in the way.  Returns (range m, bearing deg, marker id) per marker, in the site's order."""
     seen = []
     for m in site.markers:
-        r = math.hypot(m.x - x, m.y - y)
-        b = (math.degrees(math.atan2(m.y - y, m.x - x)) - heading_deg + 180.0) % 360.0 - 180.0
-        if r > params.max_range_m or abs(b) > params.fov_deg / 2:
+        r, b = range_bearing(x, y, heading_deg, m.x, m.y)
+        if not _in_view(params, r, b):
             continue
         clear = site.ray_range(x, y, math.radians(heading_deg + b), r)
         if clear < r - 1.5 * site.resolution_m:  # a rack is in the way
             continue
         seen.append((r, b, m.marker_id))
     return seen
+
+
+def range_bearing(x: float, y: float, heading_deg: float, px: float, py: float) -> tuple[float, float]:
+    """Range (m) and bearing (degrees in [−180, 180), relative to the heading) of the point (px, py) from the
+    pose (x, y, heading)."""
+    r = math.hypot(px - x, py - y)
+    return r, (math.degrees(math.atan2(py - y, px - x)) - heading_deg + 180.0) % 360.0 - 180.0
+
+
+def _in_view(params: MarkerParams, r: float, b: float) -> bool:
+    return r <= params.max_range_m and abs(b) <= params.fov_deg / 2
 
 
 def _wrap(angle):
@@ -265,12 +270,6 @@ def _from_fields(value, feed):
     return MarkerSighting(marker, r, bearing if feed.angle_unit == "deg" else math.degrees(bearing))
 
 
-def _bearing_to(truth, x: float, y: float) -> tuple[float, float]:
-    r = math.hypot(x - truth.x_m, y - truth.y_m)
-    b = (math.degrees(math.atan2(y - truth.y_m, x - truth.x_m)) - truth.heading_deg + 180.0) % 360.0 - 180.0
-    return r, b
-
-
 def _simulate(case, spec, truth, rng):
     """A firing from the true pose: the nearest marker seen (detection, confusion, noise), a false sighting, a
     miss; a ghost marker where none is (fault)."""
@@ -279,8 +278,8 @@ def _simulate(case, spec, truth, rng):
     for f in spec.faults:
         if f.kind == "ghost" and f.active(truth.t) and rng.random() < float(f.options["rate"]):
             gx, gy = f.options["at_m"]
-            r, b = _bearing_to(truth, float(gx), float(gy))
-            if r <= p.max_range_m and abs(b) <= p.fov_deg / 2:
+            r, b = range_bearing(truth.x_m, truth.y_m, truth.heading_deg, float(gx), float(gy))
+            if _in_view(p, r, b):
                 return MarkerSighting(
                     str(f.options["marker"]), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg)
                 )

@@ -22,6 +22,7 @@ from rich.text import Text
 from fusion import SAFETY_NOTICE
 from fusion.backends import BACKENDS
 from fusion.belief.coarse import coarse_plane
+from fusion.step_row import pose_errors
 from fusion.text import literal, plain
 
 __all__ = [
@@ -129,8 +130,7 @@ class RunView:
         d, plane = self.latest[name]
         tr = self.truth
         site = self.case.site
-        err = math.hypot(d.x_m - tr.x_m, d.y_m - tr.y_m)
-        herr = abs((d.heading_deg - tr.heading_deg + 180) % 360 - 180)
+        err, herr = pose_errors(d, tr.x_m, tr.y_m, tr.heading_deg)
         key, label = _FIGURE[name]
         figures = Table.grid(padding=(0, 1))
         figures.add_row("error", f"{err:5.2f} m, {herr:5.1f}°", "spread", f"{d.spread_m:5.2f} m")
