@@ -163,7 +163,9 @@ def test_calibrate_command_writes_a_file_the_case_reads(tmp_path, capsys):
     assert "hit_rate is not calibrated: the robot was never inside the door's contact zone" in " ".join(text.split())
     assert door.reliability == case.sensor("contact").params.reliability
     ranger = calibrated.sensor("ranger").params
-    assert ranger.z_hit + ranger.z_short + ranger.z_max + ranger.z_rand == pytest.approx(1.0, abs=1e-6)
+    assert ranger.wall_share + ranger.early_share + ranger.no_echo_share + ranger.stray_share == pytest.approx(
+        1.0, abs=1e-6
+    )
     assert calibrated.sensor("wheels").params.sigma_per_m > 0
     # The calibrated parameters drop straight into a run.
     assert main(["run", str(TINY), "--calibration", str(out), "--out", str(tmp_path / "again"), "--quiet"]) == 0
@@ -193,6 +195,11 @@ def test_a_bad_calibration_file_names_file_line_and_field(tmp_path):
     bad.write_text('[calibration]\n[[sensors]]\nname = "lidar"\nkind = "ranging"\n')
     with pytest.raises(InputFileError, match="no sensor 'lidar'"):
         apply_calibration(case, bad)
+    # A calibration file written before the beam model's parameters were renamed: refused, with the new name.
+    bad.write_text('[calibration]\n[[sensors]]\nname = "ranger"\nkind = "ranging"\nz_hit = 0.8\n')
+    with pytest.raises(InputFileError) as err:
+        apply_calibration(case, bad)
+    assert err.value.line == 5 and "now called 'wall_share'" in str(err.value)
 
 
 # ----------------------------------------------------------------------------- what a log can teach

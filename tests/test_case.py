@@ -46,11 +46,11 @@ def _line_of(text: str, needle: str) -> int:
             "waypoints",
         ),
         (
-            "sigma_hit_m = 0.15",
-            "sigma_hit_m = 0.15\nsigma_hit = 0.2",
-            "sensors[1].sigma_hit",
+            "wall_spread_m = 0.15",
+            "wall_spread_m = 0.15\nwall_spread = 0.2",
+            "sensors[1].wall_spread",
             "unknown field",
-            "sigma_hit =",
+            "wall_spread =",
         ),
         ('door = "bay door"', 'door = "dock door"', "sensors[3].door", "no door 'dock door'", "dock door"),
         (
@@ -85,6 +85,27 @@ def test_malformed_cases_name_file_line_and_field(old, new, field, message, mark
     assert message in err.problem, str(err)
     assert err.line == _line_of(text, marker), str(err)
     assert str(err).startswith(f"bay.toml, line {err.line}: {field}: ")
+
+
+@pytest.mark.parametrize(
+    "old, new",
+    [
+        ("sigma_hit_m", "wall_spread_m"),
+        ("z_hit", "wall_share"),
+        ("z_short", "early_share"),
+        ("z_max", "no_echo_share"),
+        ("z_rand", "stray_share"),
+        ("lambda_short", "early_decay_per_m"),
+    ],
+)
+def test_old_range_model_names_are_refused_with_their_new_name(old, new):
+    # The beam model's parameters are named in our own words; a case file written with the older names
+    # must not be read silently with defaults (the values would be lost), and the error says what to write.
+    text = _broken("wall_spread_m = 0.15", f"wall_spread_m = 0.15\n{old} = 0.1")
+    with pytest.raises(InputFileError) as info:
+        parse_case(text, "old.toml")
+    assert info.value.field == f"sensors[1].{old}" and info.value.line == _line_of(text, f"{old} =")
+    assert f"now called '{new}'" in info.value.problem
 
 
 def test_missing_fields_and_bad_toml():

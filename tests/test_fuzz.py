@@ -47,13 +47,13 @@ truth = "night-truth.jsonl"
 [[sensors]]
 name = "ranger"
 kind = "ranging"
-sigma_hit_m = 0.16
-z_hit = 0.8
-z_short = 0.1
-z_max = 0.05
-z_rand = 0.05
+wall_spread_m = 0.16
+wall_share = 0.8
+early_share = 0.1
+no_echo_share = 0.05
+stray_share = 0.05
 [sensors.interval]
-sigma_hit_m = [0.14, 0.18]
+wall_spread_m = [0.14, 0.18]
 
 [[sensors]]
 name = "contact"
@@ -238,7 +238,7 @@ def test_the_unmutated_calibration_text_applies():
         case = apply_calibration(CASE, path)
     finally:
         path.unlink()
-    assert case.sensor("ranger").params.sigma_hit_m == pytest.approx(0.16)
+    assert case.sensor("ranger").params.wall_spread_m == pytest.approx(0.16)
 
 
 # ----------------------------------------------------------------------------- log records

@@ -254,7 +254,7 @@ def hostile_case(draw):
         policy = draw(st.sampled_from(["quarantine_window", "alert_after", "conflict_k", "quarantine_alpha"]))
         lines.append(f"[run.policy]\n{policy} = {draw(st.sampled_from(HOSTILE_VALUES + ['1000000000000']))}")
     if draw(st.booleans()):  # a parameter the case does not set yet, on one of its sensors
-        field = draw(st.sampled_from(["fov_deg", "p_detect", "z_hit", "levels", "sigma_range_m", "hit_rate"]))
+        field = draw(st.sampled_from(["fov_deg", "p_detect", "wall_share", "levels", "sigma_range_m", "hit_rate"]))
         at = draw(st.sampled_from([j for j, line in enumerate(lines) if line.startswith("kind = ")]))
         lines.insert(at + 1, f"{field} = {draw(st.sampled_from(HOSTILE_VALUES))}")
     return "\n".join(lines) + "\n"

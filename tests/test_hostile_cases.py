@@ -38,13 +38,16 @@ def _with(*edits: tuple[str, str]) -> str:
 @pytest.mark.parametrize(
     "edits, field",
     [
-        ((("sigma_hit_m = 0.15", "sigma_hit_m = 0.0"),), "sensors[1].sigma_hit_m"),
+        ((("wall_spread_m = 0.15", "wall_spread_m = 0.0"),), "sensors[1].wall_spread_m"),
         ((("bearings_deg = [-90.0, 0.0, 90.0]", "bearings_deg = []"),), "sensors[1].bearings_deg"),
         ((('kind = "markers"', 'kind = "markers"\nfov_deg = 0'),), "sensors[2].fov_deg"),
         ((('kind = "markers"', 'kind = "markers"\np_detect = 2'),), "sensors[2].p_detect"),
-        ((("sigma_hit_m = 0.15", "sigma_hit_m = 0.15\nz_hit = 0.8\nz_short = 1.2"),), "sensors[1].z_short"),
-        ((("sigma_hit_m = 0.15", "sigma_hit_m = 0.15\nz_rand = 0.5"),), "sensors[1].z_hit"),  # sum 1.45
-        ((("sigma_hit_m = 0.15", "sigma_hit_m = 0.15\nlevels = 1000000000000"),), "sensors[1].levels"),
+        (
+            (("wall_spread_m = 0.15", "wall_spread_m = 0.15\nwall_share = 0.8\nearly_share = 1.2"),),
+            "sensors[1].early_share",
+        ),
+        ((("wall_spread_m = 0.15", "wall_spread_m = 0.15\nstray_share = 0.5"),), "sensors[1].wall_share"),  # sum 1.45
+        ((("wall_spread_m = 0.15", "wall_spread_m = 0.15\nlevels = 1000000000000"),), "sensors[1].levels"),
         ((('name = "ranger"', 'name = "' + "r" * (MAX_NAME_CHARS + 1) + '"'),), "sensors[1].name"),
         ((('name = "test bay"', 'name = "bay\\u001b[2J"'),), "case.name"),
         (  # the door's zone walled in: its contact could never read true

@@ -32,14 +32,14 @@ def depot():
 
 def test_beam_mixture_integrates_to_one_over_the_measurement_range(depot):
     # Thrun, Burgard & Fox (2005), Probabilistic Robotics, ch. 6: the beam density is a mixture whose
-    # components each integrate to one over [0, z_max], plus the point mass z_max at the maximum range.
+    # components each integrate to one over [0, no_echo_share], plus the point mass no_echo_share at the maximum range.
     # A beam facing a wall 4 m away: the end-point distance is |z − 4|.
-    sensor = RangeSensor("lidar", depot, depot.grid(4), RangeParams(max_range_m=8.0, sigma_hit_m=0.2))
+    sensor = RangeSensor("lidar", depot, depot.grid(4), RangeParams(max_range_m=8.0, wall_spread_m=0.2))
     p = sensor.params
     total, _ = integrate.quad(
         lambda z: float(sensor.beam_density(z, np.array(abs(z - 4.0)))), 0.0, p.max_range_m, points=[4.0], limit=200
     )
-    assert_close(total + p.z_max, 1.0, tol=1e-6)
+    assert_close(total + p.no_echo_share, 1.0, tol=1e-6)
 
 
 def test_range_scan_favours_the_true_pose(depot):
@@ -62,7 +62,7 @@ def test_a_return_a_little_long_off_a_border_wall_still_fits_the_true_pose():
 
     site = SiteMap.empty(10.0, 6.0, 0.25, border=True)
     grid = site.grid(36)
-    sensor = RangeSensor("lidar", site, grid, RangeParams(bearings_deg=(0.0,), sigma_hit_m=0.15))
+    sensor = RangeSensor("lidar", site, grid, RangeParams(bearings_deg=(0.0,), wall_spread_m=0.15))
     x, y, th = 5.125, 3.125, math.radians(90)
     z = site.ray_range(x, y, th, 8.0) + 0.3
     assert y + z > 6.0  # the end point lies past the map's edge
@@ -90,7 +90,7 @@ def test_range_bad_input(depot):
     with pytest.raises(ObservationError, match="expected 4 ranges"):
         sensor.encode(RangeScan((1.0,)))
     with pytest.raises(ObservationError, match="must sum to 1"):
-        RangeSensor("lidar", depot, depot.grid(4), RangeParams(z_hit=0.9))
+        RangeSensor("lidar", depot, depot.grid(4), RangeParams(wall_share=0.9))
 
 
 def test_marker_sighting_and_miss(depot):

@@ -127,18 +127,18 @@ def noise_model(residual, name: str, shape: float, scale: float):
 
 
 def _range_model(measured, expected, max_range):
-    """Beam model (Thrun, Burgard & Fox 2005, §6.3): a return at the maximum range with weight z_max; the
-    others a mixture of a Gaussian hit around the ray-cast range, an exponential short return before it
-    and a uniform random return."""
+    """Beam model (Thrun, Burgard & Fox 2005, §6.3): a no-echo return at the maximum range with share
+    ``no_echo_share``; the others a mixture of a wall return (Gaussian around the ray-cast range), an early return
+    before it (exponential) and a stray return (uniform)."""
     import pyro
     import pyro.distributions as dist
     import torch
 
     at_max = measured >= max_range - 1e-9
-    z_max = pyro.sample("z_max", dist.Beta(1.0, 1.0))
-    w = pyro.sample("weights", dist.Dirichlet(torch.ones(3)))  # hit, short, random among returns < max
-    sigma = pyro.sample("sigma_hit_m", dist.HalfNormal(0.5))
-    lam = pyro.sample("lambda_short", dist.Gamma(2.0, 2.0))
+    no_echo_share = pyro.sample("no_echo_share", dist.Beta(1.0, 1.0))
+    w = pyro.sample("weights", dist.Dirichlet(torch.ones(3)))  # wall, early, stray among returns < max
+    sigma = pyro.sample("wall_spread_m", dist.HalfNormal(0.5))
+    lam = pyro.sample("early_decay_per_m", dist.Gamma(2.0, 2.0))
     z, zs = measured[~at_max], expected[~at_max]
     log_hit = dist.Normal(zs, sigma).log_prob(z)
     log_short = torch.where(
@@ -148,8 +148,8 @@ def _range_model(measured, expected, max_range):
     )
     log_rand = torch.full_like(z, -math.log(max_range))
     mix = torch.logsumexp(torch.stack([log_hit, log_short, log_rand]) + torch.log(w)[:, None], dim=0)
-    pyro.factor("returns", mix.sum() + torch.log1p(-z_max) * len(z))
-    pyro.factor("maxed", torch.log(z_max) * at_max.sum())
+    pyro.factor("returns", mix.sum() + torch.log1p(-no_echo_share) * len(z))
+    pyro.factor("maxed", torch.log(no_echo_share) * at_max.sum())
 
 
 def _odometry_model(mf, tf, mt, tt):
@@ -304,9 +304,9 @@ def _fit_ranging(name, kind, data, settings) -> Fit:
     args = (_tensor(data.measured_m), _tensor(data.expected_m), data.max_range_m)
     fit = _run(_range_model, args, len(data.measured_m), settings, name, kind)
     w = fit.draws.pop("weights")
-    zmax = fit.draws["z_max"]
-    for i, part in enumerate(("z_hit", "z_short", "z_rand")):
-        fit.draws[part] = (1 - zmax) * w[:, i]
+    no_echo = fit.draws["no_echo_share"]
+    for i, part in enumerate(("wall_share", "early_share", "stray_share")):
+        fit.draws[part] = (1 - no_echo) * w[:, i]
     return fit
 
 

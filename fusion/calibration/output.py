@@ -8,7 +8,7 @@ interval in a ``[sensors.interval]`` table.  ``fusion run``/``compare``/``stream
 Reliability (the probability that a reading comes from a working sensor, used for Shafer
 discounting) is derived conservatively as the **5% lower credible bound** of the probability
 that a reading is explained by the working part of the model:
-door: min(hit_rate, 1 − false_alarm_rate); markers: 1 − false_rate; ranging: z_hit + z_max
+door: min(hit_rate, 1 − false_alarm_rate); markers: 1 − false_rate; ranging: wall_share + no_echo_share
 (returns that follow the map).  Odometry keeps the case's reliability (its slip model has no
 counterpart in these fits), and so does a sensor whose log leaves that share too uncertain
 (``RELIABILITY_MAX_WIDTH``).
@@ -27,7 +27,7 @@ __all__ = ["summarise_fits", "reliability_draws", "calibration_toml", "FITTED"]
 FITTED = {
     "door": ("hit_rate", "false_alarm_rate"),
     "markers": ("p_detect", "false_rate", "sigma_range_m", "sigma_bearing_deg"),
-    "ranging": ("sigma_hit_m", "z_hit", "z_short", "z_max", "z_rand", "lambda_short"),
+    "ranging": ("wall_spread_m", "wall_share", "early_share", "no_echo_share", "stray_share", "early_decay_per_m"),
     "odometry": ("sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"),
 }
 RELIABILITY_QUANTILE = 0.05
@@ -41,8 +41,8 @@ def reliability_draws(kind: str, draws: dict) -> np.ndarray | None:
         return np.minimum(draws["hit_rate"], 1 - draws["false_alarm_rate"])
     if kind == "markers" and "false_rate" in draws:
         return 1 - draws["false_rate"]
-    if kind == "ranging" and {"z_hit", "z_max"} <= draws.keys():
-        return draws["z_hit"] + draws["z_max"]
+    if kind == "ranging" and {"wall_share", "no_echo_share"} <= draws.keys():
+        return draws["wall_share"] + draws["no_echo_share"]
     return None
 
 
@@ -92,7 +92,7 @@ def summarise_fits(fits) -> list[dict]:
 
 def _renormalised_weights(params: dict) -> dict:
     """The four beam-model weights rescaled to sum to 1 exactly (the case format insists on it)."""
-    names = ("z_hit", "z_short", "z_max", "z_rand")
+    names = ("wall_share", "early_share", "no_echo_share", "stray_share")
     if not all(n in params for n in names):
         return {}
     total = sum(params[n]["mean"] for n in names)

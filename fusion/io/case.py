@@ -141,9 +141,7 @@ def _sensor(r: TomlReader, d: dict, w: tuple, site: SiteMap) -> SensorSpec:
             r.fail((*w, "door"), f"no door {door!r} on the site (doors: {known})")
     if kind.needs_markers and not site.markers:
         r.fail((*w, "kind"), "a marker sensor needs markers on the site ([[site.markers]])")
-    for old, why in kind.removed_fields.items():
-        if old in d:
-            r.fail((*w, old), f"'{old}' is no longer read: {why}; remove it (see cases/README.md)")
+    _refuse_removed(r, d, w, kind)
     params = _params(r, d, w, kind.params, {"name", "kind", "rate_hz", "door", "faults"})
     for f, problem in problems(params):  # the sensor models' own rules: check accepts what a run can start
         r.fail((*w, f), problem)
@@ -151,6 +149,13 @@ def _sensor(r: TomlReader, d: dict, w: tuple, site: SiteMap) -> SensorSpec:
         r.fail((*w, "door"), f"the zone of door {door!r} holds no free cell; check its position, facing and radius")
     faults = tuple(_fault(r, fd, (*w, "faults", j), kind, site) for j, fd in enumerate(r.tables(d, w, "faults")))
     return SensorSpec(name, kind_name, float(rate), params, faults, door)
+
+
+def _refuse_removed(r: TomlReader, d: dict, w: tuple, kind) -> None:
+    """Fields the sensor kind no longer reads (renamed or dropped), refused with what to write instead."""
+    for old, why in kind.removed_fields.items():
+        if old in d:
+            r.fail((*w, old), f"'{old}' is no longer read: {why} (see cases/README.md)")
 
 
 def _fault(r: TomlReader, fd: dict, fw: tuple, kind, site: SiteMap) -> FaultSpec:
@@ -295,6 +300,7 @@ def apply_calibration(case: Case, path) -> Case:
             r.fail((*w, "kind"), f"sensor {name!r} is a {spec.kind} sensor in the case, not {kind}")
         interval = r.table(d, w, "interval", required=False)
         values = {k: v for k, v in d.items() if k not in ("name", "kind", "interval")}
+        _refuse_removed(r, values, w, sensor_kind(kind))
         params = _params(r, values, w, sensor_kind(kind).params, set())
         for key, bounds in interval.items():
             if not finite_numbers(bounds, 2) or bounds[0] > bounds[1]:

@@ -40,16 +40,16 @@ FIELD_RULES = {
     "p_detect": "probability",
     "false_rate": "probability",
     "confusion": "probability",
-    "z_hit": "probability",
-    "z_short": "probability",
-    "z_max": "probability",
-    "z_rand": "probability",
+    "wall_share": "probability",
+    "early_share": "probability",
+    "no_echo_share": "probability",
+    "stray_share": "probability",
     "max_range_m": "range",
     "fov_deg": "angle",
-    "sigma_hit_m": "positive",
+    "wall_spread_m": "positive",
     "sigma_range_m": "positive",
     "sigma_bearing_deg": "positive",
-    "lambda_short": "positive",
+    "early_decay_per_m": "positive",
     "sigma_per_m": "non_negative",
     "turn_sigma_per_m_deg": "non_negative",
     "turn_sigma_per_turn": "non_negative",
@@ -98,10 +98,15 @@ def _joint(params) -> list[tuple[str, str]]:
             out.append(("bearings_deg", f"holds {len(bearings):,} beams; the limit is {MAX_BEAMS:,}"))
         elif not all(isinstance(b, (int, float)) and math.isfinite(b) for b in bearings):
             out.append(("bearings_deg", "must hold finite numbers of degrees"))
-    weights = [getattr(params, f, None) for f in ("z_hit", "z_short", "z_max", "z_rand")]
+    weights = [getattr(params, f, None) for f in ("wall_share", "early_share", "no_echo_share", "stray_share")]
     if all(isinstance(w, (int, float)) and math.isfinite(w) for w in weights) and None not in weights:
         if abs(sum(weights) - 1.0) > WEIGHT_TOLERANCE:
-            out.append(("z_hit", f"z_hit + z_short + z_max + z_rand must sum to 1, got {sum(weights):.6g}"))
+            out.append(
+                (
+                    "wall_share",
+                    f"wall_share + early_share + no_echo_share + stray_share must sum to 1, got {sum(weights):.6g}",
+                )
+            )
     return out
 
 

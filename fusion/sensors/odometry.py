@@ -84,9 +84,9 @@ class Motion:
 
 _DEG_PER_RAD = math.degrees(1.0)
 REMOVED_FIELDS = {
-    "floor_m": "odometry noise is now per metre travelled (sigma_per_m), with no per-record floor",
+    "floor_m": "odometry noise is now per metre travelled (sigma_per_m), with no per-record floor; remove it",
     "floor_deg": "heading noise is now per metre and per radian turned (turn_sigma_per_m_deg, turn_sigma_per_turn), "
-    "with no per-record floor",
+    "with no per-record floor; remove it",
 }
 """Fields older case files may hold, with what replaced them (a per-record floor made the error depend on
 how finely the odometry was logged)."""

@@ -2,20 +2,29 @@
 
 For a beam of measured range z from the pose (x, y, θ) at bearing φ, the end point
 is (x + z cos(θ + φ), y + z sin(θ + φ)); d is the distance from that end point to
-the nearest obstacle (the site's distance field).  The beam's density is the
-mixture of Thrun, Burgard & Fox (2005), §6.4, extended by a short-return term:
+the nearest obstacle (the site's distance field).  The beam's density is a mixture
+of four kinds of return, after Thrun, Burgard & Fox (2005), §6.3–6.4, with R the
+maximum range:
 
-    p(z | x) = z_hit · N(d; 0, σ_hit) + z_short · λ e^{−λ z} / (1 − e^{−λ z_max}) + z_rand / z_max
+    p(z | x) = wall_share · N(d; 0, s) + early_share · k e^{−k z} / (1 − e^{−k R}) + stray_share / R
 
-for z < z_max.  A max-range return (z ≥ z_max) carries no position information in
-a likelihood field (its probability z_max_w does not depend on the pose), so it is
-skipped.  Beams multiply (independent given the pose).  In this model the short
-and random terms do not depend on the pose, so they act as a floor that keeps a
-person walking through a beam from ruling out the true pose.
+where s is ``wall_spread_m`` and k is ``early_decay_per_m``.  A *wall* return ends on
+the mapped wall give or take s; an *early* return is cut short by something not on
+the map (a person, a pallet), more likely near the sensor; a *stray* return can be
+anywhere in range; a *no-echo* return reads the maximum range (share
+``no_echo_share``).  The four shares sum to one.  In the book's notation the shares
+are z_hit, z_short, z_rand and z_max, s is σ_hit and k is λ_short (kept here only to
+match the maths).
+
+A no-echo return (z ≥ R) carries no position information in a likelihood field (its
+probability does not depend on the pose), so it is skipped.  Beams multiply
+(independent given the pose).  The early and stray terms do not depend on the pose,
+so they act as a floor that keeps a person walking through a beam from ruling out
+the true pose.
 
 End points are snapped to the grid per heading (an error of at most half a cell).
-A pose cell stands for every pose inside it, so the hit noise used on the grid is
-widened by the spread of those poses' end points: σ² = σ_hit² + res²/6 + z²·Δθ²/12
+A pose cell stands for every pose inside it, so the wall spread used on the grid is
+widened by the spread of those poses' end points: σ² = s² + res²/6 + z²·Δθ²/12
 (uniform position error in a cell of side res, uniform heading error in a bin of
 width Δθ).  Without it a 10° heading bin would make an 8 m return look wrong by up
 to 0.7 m from the very cell that holds the true pose (common practice, no source).
@@ -41,12 +50,12 @@ __all__ = ["RangeParams", "RangeScan", "RangeSensor"]
 class RangeParams:
     bearings_deg: tuple[float, ...] = (0.0, 90.0, 180.0, 270.0)
     max_range_m: float = 8.0
-    sigma_hit_m: float = 0.2
-    z_hit: float = 0.8
-    z_short: float = 0.1
-    z_max: float = 0.05
-    z_rand: float = 0.05
-    lambda_short: float = 0.5
+    wall_spread_m: float = 0.2
+    wall_share: float = 0.8
+    early_share: float = 0.1
+    no_echo_share: float = 0.05
+    stray_share: float = 0.05
+    early_decay_per_m: float = 0.5
     reliability: float = 0.95
     levels: int = 6
 
@@ -77,17 +86,21 @@ class RangeSensor:
     def grid_sigma(self, z: float) -> float:
         """Hit noise of a beam of range ``z`` on this grid (see the module docstring)."""
         g = self.grid
-        return math.sqrt(self.params.sigma_hit_m**2 + g.resolution_m**2 / 6 + (z * g.heading_step) ** 2 / 12)
+        return math.sqrt(self.params.wall_spread_m**2 + g.resolution_m**2 / 6 + (z * g.heading_step) ** 2 / 12)
 
     def beam_density(self, z: float, d: np.ndarray, sigma: float | None = None) -> np.ndarray:
-        """Mixture density of one beam of range ``z`` < z_max whose end point lies ``d`` from an obstacle.
+        """Mixture density of one beam of range ``z`` below the maximum range whose end point lies ``d`` from an obstacle.
 
-        ``sigma`` is the hit noise (default: the sensor's own ``sigma_hit_m``)."""
+        ``sigma`` is the wall spread (default: the sensor's own ``wall_spread_m``)."""
         p = self.params
-        sigma = p.sigma_hit_m if sigma is None else sigma
+        sigma = p.wall_spread_m if sigma is None else sigma
         hit = np.exp(-0.5 * (d / sigma) ** 2) / (math.sqrt(2 * math.pi) * sigma)
-        short = p.lambda_short * math.exp(-p.lambda_short * z) / (1 - math.exp(-p.lambda_short * p.max_range_m))
-        return p.z_hit * hit + p.z_short * short + p.z_rand / p.max_range_m
+        short = (
+            p.early_decay_per_m
+            * math.exp(-p.early_decay_per_m * z)
+            / (1 - math.exp(-p.early_decay_per_m * p.max_range_m))
+        )
+        return p.wall_share * hit + p.early_share * short + p.stray_share / p.max_range_m
 
     def _ranges(self, scan) -> np.ndarray:
         ranges = getattr(scan, "ranges_m", scan)
@@ -155,6 +168,20 @@ class RangeSensor:
 
 
 # ----------------------------------------------------------------------------- the kind
+RENAMED_FIELDS = {
+    old: f"it is now called '{new}'; rename it"
+    for old, new in (
+        ("sigma_hit_m", "wall_spread_m"),
+        ("z_hit", "wall_share"),
+        ("z_short", "early_share"),
+        ("z_max", "no_echo_share"),
+        ("z_rand", "stray_share"),
+        ("lambda_short", "early_decay_per_m"),
+    )
+}
+"""Older case files' names for the beam model's parameters, with their new names."""
+
+
 def _record(scan: RangeScan) -> dict:
     return {"ranges_m": [round(float(z), 4) for z in scan.ranges_m]}
 
@@ -200,7 +227,7 @@ def _simulate(case, spec, truth, rng) -> RangeScan:
     for bearing in p.bearings_deg:
         z = case.site.ray_range(truth.x_m, truth.y_m, math.radians(truth.heading_deg + bearing), p.max_range_m)
         if z < p.max_range_m:
-            z = max(0.0, z + rng.normal(0.0, p.sigma_hit_m))
+            z = max(0.0, z + rng.normal(0.0, p.wall_spread_m))
         for f in people:
             if rng.random() < float(f.options["rate"]):
                 z = float(rng.uniform(0.3, max(0.31, min(z, p.max_range_m))))
@@ -212,11 +239,11 @@ def _settle(params: RangeParams) -> RangeParams:
     """The mixture weights summed to exactly 1 (a calibration file rounds them to 6 digits)."""
     import dataclasses
 
-    total = params.z_hit + params.z_short + params.z_max + params.z_rand
+    total = params.wall_share + params.early_share + params.no_echo_share + params.stray_share
     if abs(total - 1.0) > 1e-6:
-        raise ValueError(f"z_hit + z_short + z_max + z_rand must sum to 1, got {total:.6g}")
+        raise ValueError(f"wall_share + early_share + no_echo_share + stray_share must sum to 1, got {total:.6g}")
     return dataclasses.replace(
-        params, **{k: getattr(params, k) / total for k in ("z_hit", "z_short", "z_max", "z_rand")}
+        params, **{k: getattr(params, k) / total for k in ("wall_share", "early_share", "no_echo_share", "stray_share")}
     )
 
 
@@ -238,6 +265,7 @@ def _register() -> None:
             _simulate,
             {"people": people},
             settle=_settle,
+            removed_fields=RENAMED_FIELDS,
             fields=("ranges",),
             several=("ranges",),
             from_fields=_from_fields,
