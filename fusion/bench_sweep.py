@@ -31,9 +31,9 @@ def bench_sweep(case_path, seeds: int = 2, workers: int = 2) -> list[BenchRow]:
             seconds[n] = time.perf_counter() - start
     # Where a shortfall goes: workers idle (busy share below 1: start-up, the tail of uneven runs)
     # or runs slower side by side (the same runs took longer than with one worker).
-    busy = sum(r["wall_s"] for r in records[workers]) / (workers * seconds[workers])
-    slower = sum(r["wall_s"] for r in records[workers]) / sum(r["wall_s"] for r in records[1])
-    cost = {s.key: sum(r["wall_s"] for r in records[1] if r["key"] == s.key) for s in settings}
+    busy = sum(r.wall_s for r in records[workers]) / (workers * seconds[workers])
+    slower = sum(r.wall_s for r in records[workers]) / sum(r.wall_s for r in records[1])
+    cost = {s.key: sum(r.wall_s for r in records[1] if r.key == s.key) for s in settings}
     longest = max(settings, key=lambda s: cost[s.key])  # as measured by the one-worker sweep
     copies = _copies_at_once((str(case_path), longest, seed_list[0], None), workers)
     return _rows(case.name, settings, seed_list, workers, seconds, busy, slower, longest, copies)

@@ -27,7 +27,7 @@ from fusion.sensors.sensor_set import SensorSet
 from fusion.simulate import Tick, simulate
 from fusion.step_row import FIGURE_COLUMNS, decision_cells, pose_errors
 
-__all__ = ["StepRow", "RunResult", "run_case", "write_results", "log_text", "RESULT_FILES", "STEP_COLUMNS"]
+__all__ = ["StepRow", "RunEvent", "RunResult", "run_case", "write_results", "log_text", "RESULT_FILES", "STEP_COLUMNS"]
 
 STEP_COLUMNS = (
     "t",
@@ -53,29 +53,65 @@ TIMING_KEYS = ("mean_step_ms", "p95_step_ms")
 """Summary figures that are wall times: written to timing.json, not summary.json."""
 
 
-@dataclass
+@dataclass(frozen=True)
 class StepRow:
-    values: dict
+    """One tick of one back end in a simulated run: the truth, the decision, and how far apart they are."""
+
+    t: float
+    backend: str
+    true_x_m: float
+    true_y_m: float
+    true_heading_deg: float
+    error_m: float
+    heading_error_deg: float
+    decision: Decision
+    faults: tuple[str, ...]
+    carried: bool
+
+    @property
+    def action(self) -> str:
+        return self.decision.action
+
+    @property
+    def seconds(self) -> float:
+        return self.decision.seconds
 
     @classmethod
     def of(cls, tick: Tick, d: Decision) -> StepRow:
         tr = tick.truth
         err, herr = pose_errors(d, tr.x_m, tr.y_m, tr.heading_deg)
         return cls(
-            {
-                "t": tr.t,
-                "backend": d.backend,
-                "true_x_m": tr.x_m,
-                "true_y_m": tr.y_m,
-                "true_heading_deg": tr.heading_deg % 360,
-                "error_m": err,
-                "heading_error_deg": herr,
-                **decision_cells(d),
-                "faults": ";".join(tr.faults),
-                "carried": tr.carried,
-                "seconds": d.seconds,
-            }
+            tr.t, d.backend, tr.x_m, tr.y_m, tr.heading_deg % 360, err, herr, d, tuple(tr.faults), bool(tr.carried)
         )
+
+    def cells(self) -> dict:
+        """The row of ``steps.csv`` (``STEP_COLUMNS``)."""
+        return {
+            "t": self.t,
+            "backend": self.backend,
+            "true_x_m": self.true_x_m,
+            "true_y_m": self.true_y_m,
+            "true_heading_deg": self.true_heading_deg,
+            "error_m": self.error_m,
+            "heading_error_deg": self.heading_error_deg,
+            **decision_cells(self.decision),
+            "faults": ";".join(self.faults),
+            "carried": self.carried,
+            "seconds": self.seconds,
+        }
+
+
+@dataclass(frozen=True)
+class RunEvent:
+    """A tick on which a back end's monitor acted or gave reasons."""
+
+    t: float
+    backend: str
+    action: str
+    reasons: tuple[str, ...]
+
+    def to_json(self) -> dict:
+        return {"t": self.t, "backend": self.backend, "action": self.action, "reasons": list(self.reasons)}
 
 
 @dataclass
@@ -83,9 +119,15 @@ class RunResult:
     case: Case
     ticks: list[Tick]
     rows: list[StepRow] = field(default_factory=list)
-    events: list[dict] = field(default_factory=list)  # monitor actions other than "carry on"
+    events: list[RunEvent] = field(default_factory=list)  # monitor actions other than "carry on", and reasons
     backends: tuple[str, ...] = ()
     rule: str = ""
+
+    def rows_of(self, backend: str) -> list[StepRow]:
+        return [r for r in self.rows if r.backend == backend]
+
+    def events_of(self, backend: str) -> list[RunEvent]:
+        return [e for e in self.events if e.backend == backend]
 
     def summary(self) -> dict:
         out = {
@@ -105,13 +147,13 @@ class RunResult:
             "backends": {},
         }
         for backend in self.backends or self.case.run.backends:
-            mine = [r.values for r in self.rows if r.values["backend"] == backend]
+            mine = self.rows_of(backend)
             if not mine:
                 continue
-            err = np.array([r["error_m"] for r in mine])
-            herr = np.array([r["heading_error_deg"] for r in mine])
-            secs = np.array([r["seconds"] for r in mine])
-            actions = [r["action"] for r in mine]
+            err = np.array([r.error_m for r in mine])
+            herr = np.array([r.heading_error_deg for r in mine])
+            secs = np.array([r.seconds for r in mine])
+            actions = [r.action for r in mine]
             out["backends"][backend] = {
                 "median_error_m": float(np.median(err)),
                 "p95_error_m": float(np.percentile(err, 95)),
@@ -148,15 +190,15 @@ def run_case(
         for loc in localizers.values():
             loc.start_at(first.x_m, first.y_m, first.heading_deg)
     for tick in ticks:
-        odometry = next((o for o in tick.observations if o.kind == "odometry"), None)
-        readings = [o for o in tick.observations if o.kind != "odometry"]
+        odometry = next((o for o in tick.observations if o.moves), None)
+        readings = [o for o in tick.observations if not o.moves]
         decisions = {}
         for name, loc in localizers.items():
             d = loc.step(odometry, readings)
             decisions[name] = d
             result.rows.append(StepRow.of(tick, d))
             if d.action != CARRY_ON or d.reasons:
-                result.events.append({"t": tick.truth.t, "backend": name, "action": d.action, "reasons": d.reasons})
+                result.events.append(RunEvent(tick.truth.t, name, d.action, tuple(d.reasons)))
         if on_tick is not None:
             on_tick(tick, decisions, localizers)
     return result
@@ -181,9 +223,9 @@ def write_results(result: RunResult, out_dir) -> Path:
     writer = csv.DictWriter(buf, fieldnames=STEP_COLUMNS)
     writer.writeheader()
     for r in result.rows:
-        writer.writerow({k: (number_cell(k, v) if isinstance(v, float) else v) for k, v in r.values.items()})
+        writer.writerow({k: (number_cell(k, v) if isinstance(v, float) else v) for k, v in r.cells().items()})
     summary = result.summary()
-    summary["events"] = result.events
+    summary["events"] = [e.to_json() for e in result.events]
     # Wall times go to their own file, so that summary.json is byte-identical for the same case and seed.
     timing = {
         "tool": summary["tool"],

@@ -46,29 +46,29 @@ class TargetRow:
 
 
 def _judge(name: str, result, backend: str) -> tuple[bool, str]:
-    rows = [r.values for r in result.rows if r.values["backend"] == backend]
-    events = [e for e in result.events if e["backend"] == backend]
+    rows = result.rows_of(backend)
+    events = result.events_of(backend)
     if name == "calm":
-        acted = Counter(e["action"] for e in events if e["action"] != CARRY_ON)
+        acted = Counter(e.action for e in events if e.action != CARRY_ON)
         said = ", ".join(f"{action} ×{n}" for action, n in sorted(acted.items()))
         return not acted, f"{sum(acted.values())} actions" + (f" ({said})" if said else "")
     if name.startswith("carried"):
-        start = next(i for i, r in enumerate(rows) if r["carried"])
+        start = next(i for i, r in enumerate(rows) if r.carried)
         window = rows[start : start + RECOVERY_TICKS + 1]
-        ok = [r for r in window if r["error_m"] <= RECOVERY_M and r["heading_error_deg"] <= RECOVERY_DEG]
-        relocs = sum(r["action"] == RELOCALIZE for r in window)
+        ok = [r for r in window if r.error_m <= RECOVERY_M and r.heading_error_deg <= RECOVERY_DEG]
+        relocs = sum(r.action == RELOCALIZE for r in window)
         return bool(ok), (
-            f"back within bounds {ok[0]['t'] - rows[start]['t']:.2f} s after the carry"
+            f"back within bounds {ok[0].t - rows[start].t:.2f} s after the carry"
             if ok
             else f"not within bounds in {RECOVERY_TICKS} ticks"
         ) + f"; {relocs} re-localizations"
     sensor = FAULT_CASES[name]
     spec = result.case.sensor(sensor)
     fault = next(f for f in spec.faults)
-    during = [e for e in events if fault.start_s <= e["t"] <= min(fault.end_s, rows[-1]["t"]) + 2.0]
-    named = any(sensor in reason for e in during for reason in e["reasons"])
-    quarantined = any(e["action"] == QUARANTINE and sensor in " ".join(e["reasons"]) for e in during)
-    relocs = sum(e["action"] == RELOCALIZE for e in during)
+    during = [e for e in events if fault.start_s <= e.t <= min(fault.end_s, rows[-1].t) + 2.0]
+    named = any(sensor in reason for e in during for reason in e.reasons)
+    quarantined = any(e.action == QUARANTINE and sensor in " ".join(e.reasons) for e in during)
+    relocs = sum(e.action == RELOCALIZE for e in during)
     ok = named and quarantined and relocs == 0
     return ok, f"named={named} quarantined={quarantined} re-localizations={relocs}"
 

@@ -5,6 +5,7 @@ import json
 import math
 import os
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -13,6 +14,9 @@ from scipy import stats
 from fusion.case_model import FaultSpec, SweepSpec
 from fusion.cli import main
 from fusion.compare import (
+    RunFigures,
+    RunRecord,
+    RunSeries,
     Setting,
     bayes_dempster_identity,
     calibration,
@@ -35,10 +39,17 @@ TINY = Path(__file__).parent / "data" / "tiny.toml"
 TWO = [Setting("bayes"), Setting("evidential", "dempster")]
 
 
-def _figure_free(rec: dict) -> str:
+def _figure_free(rec: RunRecord) -> str:
     """A run's record without its wall times (the only figures that may differ between repeats), as text
     so that NaN (no carry, no alert) compares equal to NaN."""
-    return json.dumps({k: v for k, v in rec.items() if k not in ("ms_per_step", "wall_s")}, sort_keys=True)
+    return json.dumps({k: v for k, v in rec.to_json().items() if k not in ("ms_per_step", "wall_s")}, sort_keys=True)
+
+
+def _record(key: str, seed: int, wall_s: float = math.nan, **figures) -> RunRecord:
+    """A run record with the given figures and every other figure NaN (does not apply)."""
+    values = {f.name: math.nan for f in dataclasses.fields(RunFigures)}
+    values.update(ticks=0, false_alerts=0, **figures)
+    return RunRecord(key, seed, {"backend": key}, RunFigures(**values), RunSeries((), (), ()), wall_s)
 
 
 # ----------------------------------------------------------------------------- settings
@@ -122,43 +133,27 @@ def test_alert_precision_recall_and_recovery_on_a_hand_made_run():
     for k in range(21):
         t = float(k)
         rows.append(
-            {
-                "t": t,
-                "error_m": 0.1,
-                "heading_error_deg": 1.0,
-                "action": ALERT if k in (6, 7, 15) else CARRY_ON,
-                "seconds": 0.01,
-                "carried": False,
-            }
+            SimpleNamespace(
+                t=t,
+                error_m=0.1,
+                heading_error_deg=1.0,
+                action=ALERT if k in (6, 7, 15) else CARRY_ON,
+                seconds=0.01,
+                carried=False,
+            )
         )
-    figs = _figures(case, rows, [(0.5, 0.0, 0.25)] * 21)
+    figs, _ = _figures(case, rows, [(0.5, 0.0, 0.25)] * 21)
     # Two alert episodes: 6–7 s inside the fault (5–8 s, + grace), 15 s outside: precision 1/2, recall 1/1.
-    assert figs["alert_precision"] == 0.5 and figs["alert_recall"] == 1.0 and figs["false_alerts"] == 1
-    assert figs["nll"] == pytest.approx(math.log(2)) and figs["brier"] == 0.25
-    assert math.isnan(figs["recovery_s"])
+    assert figs.alert_precision == 0.5 and figs.alert_recall == 1.0 and figs.false_alerts == 1
+    assert figs.nll == pytest.approx(math.log(2)) and figs.brier == 0.25
+    assert math.isnan(figs.recovery_s)
 
 
 def test_summary_interval_is_the_student_t_interval():
     # Student (1908), The probable error of a mean: mean ± t(0.975, n−1) · s / √n.
     # t(0.975, 9) = 2.262 is the tabulated value (from memory); scipy gives it to more digits.
     values = [0.21, 0.35, 0.18, 0.40, 0.27, 0.30, 0.22, 0.33, 0.25, 0.29]
-    records = [{"key": "bayes", "seed": i, **{name: v for name in ("median_error_m",)}} for i, v in enumerate(values)]
-    for r in records:
-        for name in (
-            "p95_error_m",
-            "median_heading_error_deg",
-            "p95_heading_error_deg",
-            "in_region",
-            "nll",
-            "brier",
-            "recovery_s",
-            "recovered",
-            "alert_precision",
-            "alert_recall",
-            "false_alerts",
-            "ms_per_step",
-        ):
-            r[name] = math.nan
+    records = [_record("bayes", i, median_error_m=v) for i, v in enumerate(values)]
     table = summarise(records, [Setting("bayes")])
     row = table[table.figure == "median_error_m"].iloc[0]
     mean, s = np.mean(values), np.std(values, ddof=1)
@@ -173,7 +168,7 @@ def _records(a_values, b_values, name="median_error_m"):
     out = []
     for key, values in (("bayes", a_values), ("evidential-dempster", b_values)):
         for seed, v in enumerate(values):
-            out.append({"key": key, "seed": seed, name: v})
+            out.append(_record(key, seed, **{name: v}))
     return out
 
 
@@ -183,26 +178,26 @@ def test_verdict_uses_the_paired_wilcoxon_test():
     a = [0.2 + 0.01 * i for i in range(10)]
     b = [v + 0.05 + 0.001 * i for i, v in enumerate(a)]
     (v,) = verdicts(_records(a, b), TWO, ["median_error_m"])
-    assert v["best"] == "Bayes" and v["wins"] == 10 and v["losses"] == 0
-    assert v["p_value"] == pytest.approx(2 / 2**10)
-    assert v["sureness"] == "clear" and "Bayes is best" in v["sentence"]
+    assert v.best == "Bayes" and v.wins == 10 and v.losses == 0
+    assert v.p_value == pytest.approx(2 / 2**10)
+    assert v.sureness == "clear" and "Bayes is best" in v.sentence
     (few,) = verdicts(_records(a[:3], b[:3]), TWO, ["median_error_m"])
-    assert few["sureness"] == "too few paired seeds to tell"
+    assert few.sureness == "too few paired seeds to tell"
     (tie,) = verdicts(_records([1.0] * 8, [1.0] * 8), TWO, ["median_error_m"])
-    assert tie["sureness"] == "a tie"
+    assert tie.sureness == "a tie"
     # Figures equal to rounding (exact Dempster-Shafer with probabilistic motion places the robot as Bayes
     # does; their errors then differ by ~1e-16) are a tie, not a "clear" win found in rounding noise.
     rounding = [v * (1 + 3e-16 * (-1) ** i) for i, v in enumerate(a)]
     (same,) = verdicts(_records(a, rounding), TWO, ["median_error_m"])
-    assert same["sureness"] == "a tie" and same["p_value"] != same["p_value"]  # NaN: no test on rounding
+    assert same.sureness == "a tie" and same.p_value != same.p_value  # NaN: no test on rounding
 
 
 def test_bayes_and_dempster_agree_on_bayesian_masses():
     # Shafer (1976), A Mathematical Theory of Evidence: Dempster's rule on Bayesian mass
     # functions is Bayes' rule; the sweep's sanity row checks this on the case's own readings.
     check = bayes_dempster_identity(load_case(TINY), cells=256, readings=10)
-    assert check["readings"] == 10 and check["cells"] == 256
-    assert check["holds"] and check["max_abs_difference"] < 1e-12
+    assert check.readings == 10 and check.cells == 256
+    assert check.holds and check.max_abs_difference < 1e-12
 
 
 # ----------------------------------------------------------------------------- sweeps
@@ -226,7 +221,7 @@ def test_sweep_writes_run_by_run_and_resumes(tmp_path):
     again = run_sweep(
         TINY, TWO, [1, 2], out, workers=1, on_start=lambda t, d: started.append((t, d)), on_done=done.append
     )
-    assert started == [(4, 3)] and [(r["key"], r["seed"]) for r in done] == [("bayes", 2)]
+    assert started == [(4, 3)] and [(r.key, r.seed) for r in done] == [("bayes", 2)]
     # Determinism: the redone run and the parallel first run agree figure for figure.
     assert [_figure_free(r) for r in again] == [_figure_free(r) for r in first]
 
@@ -234,7 +229,7 @@ def test_sweep_writes_run_by_run_and_resumes(tmp_path):
 def test_the_sweep_starts_unmeasured_settings_first_then_the_longest_measured():
     # Longest processing time first (Graham 1969, "Bounds on multiprocessing timing anomalies").
     slow, fast, new = Setting("evidential", "pcr5"), Setting("bayes"), Setting("evidential", "yager")
-    records = [{"key": slow.key, "wall_s": 30.0}, {"key": slow.key, "wall_s": 50.0}, {"key": fast.key, "wall_s": 9.0}]
+    records = [_record(slow.key, 1, 30.0), _record(slow.key, 2, 50.0), _record(fast.key, 1, 9.0)]
     order = longest_measured_first(records)
     jobs = [("case", s, seed, None) for s in (fast, slow, new) for seed in (1, 2)]
     assert [(j[1].key, j[2]) for j in order(jobs)] == [
@@ -245,7 +240,7 @@ def test_the_sweep_starts_unmeasured_settings_first_then_the_longest_measured():
         (fast.key, 1),
         (fast.key, 2),
     ]
-    records.append({"key": new.key, "wall_s": 35.0})  # a run lands: the order follows the view
+    records.append(_record(new.key, 1, 35.0))  # a run lands: the order follows the view
     assert [j[1].key for j in order(jobs)][:4] == [slow.key, slow.key, new.key, new.key]  # 40 s > 35 s
 
 
@@ -258,8 +253,8 @@ def test_each_next_run_is_chosen_when_a_worker_comes_free(tmp_path):
 
     jobs = [(str(TINY), TWO[0], seed, None) for seed in (1, 2, 3)]
     run_in_processes(jobs, 1, None, landed.append, lambda job, err: pytest.fail(str(err)), order)
-    assert asked == [3, 2, 1] and [r["seed"] for r in landed] == [1, 2, 3]
-    assert all(r["wall_s"] > 0 for r in landed)
+    assert asked == [3, 2, 1] and [r.seed for r in landed] == [1, 2, 3]
+    assert all(r.wall_s > 0 for r in landed)
 
 
 def _die_on(word: str) -> dict:

@@ -154,12 +154,12 @@ def test_a_carried_robot_is_reseeded_from_readings_that_agree_elsewhere():
     result = run_case(case)
     ok, detail = _judge("carried", result, "bayes")
     assert ok, detail
-    rows = [r.values for r in result.rows]
-    start = next(i for i, r in enumerate(rows) if r["carried"])
-    actions = [r["action"] for r in rows[start : start + 4]]
+    rows = result.rows
+    start = next(i for i, r in enumerate(rows) if r.carried)
+    actions = [r.action for r in rows[start : start + 4]]
     assert RELOCALIZE in actions and QUARANTINE not in actions[: actions.index(RELOCALIZE)]
-    events = [e for e in result.events if e["action"] == RELOCALIZE and e["t"] >= rows[start]["t"]]
-    reason = " ".join(events[0]["reasons"])
+    events = [e for e in result.events if e.action == RELOCALIZE and e.t >= rows[start].t]
+    reason = " ".join(events[0].reasons)
     assert "probably moved" in reason and "bumper ranger" in reason and "rack camera" in reason
 
 
@@ -268,6 +268,7 @@ def test_the_actions_timeline_says_what_was_injected_at_each_action():
     from rich.console import Console
 
     from fusion.compare import CARRY_WINDOW_TICKS
+    from fusion.runner import RunEvent
     from fusion.simulate import Tick, TruePose
     from fusion.view.live import actions_timeline
 
@@ -275,10 +276,10 @@ def test_the_actions_timeline_says_what_was_injected_at_each_action():
     truths[4] = TruePose(1.0, 1.0, 1.0, 0.0, faults=("door: stuck",))
     truths[20] = TruePose(5.0, 9.0, 1.0, 0.0, carried=True)
     events = [
-        {"t": 1.0, "backend": "bayes", "action": "alert operator", "reasons": ["door disagrees"]},
-        {"t": 2.0, "backend": "bayes", "action": "alert operator", "reasons": ["a lone odd reading"]},
-        {"t": 5.5, "backend": "evidential", "action": "re-localize", "reasons": ["probably moved"]},
-        {"t": 0.25 * (20 + CARRY_WINDOW_TICKS + 1), "backend": "bayes", "action": "alert operator", "reasons": []},
+        RunEvent(1.0, "bayes", "alert operator", ("door disagrees",)),
+        RunEvent(2.0, "bayes", "alert operator", ("a lone odd reading",)),
+        RunEvent(5.5, "evidential", "re-localize", ("probably moved",)),
+        RunEvent(0.25 * (20 + CARRY_WINDOW_TICKS + 1), "bayes", "alert operator", ()),
     ]
     result = SimpleNamespace(ticks=[Tick(t) for t in truths], events=events)
     console = Console(record=True, width=100)
@@ -291,7 +292,7 @@ def test_the_actions_timeline_says_what_was_injected_at_each_action():
     assert "injected: carried 0.50 s ago" in lines[2] and "probably moved" in text
     whole = Console(record=True, width=100)
     whole.print(actions_timeline(result))
-    late = f"{events[-1]['t']:.2f} s"  # one tick past the carry's window: no longer "just carried"
+    late = f"{events[-1].t:.2f} s"  # one tick past the carry's window: no longer "just carried"
     assert "injected: nothing" in [line for line in whole.export_text().splitlines() if late in line][0]
 
 

@@ -205,7 +205,9 @@ def test_a_sweep_resumes_past_a_run_file_that_lacks_a_figure(tmp_path):
 
     runs = tmp_path / "runs"
     runs.mkdir()
-    whole = {"setting": {"backend": "bayes"}, "key": "bayes", "seed": 1, **dict.fromkeys(FIGURES, 0.5)}
+    series = {"t": [0.0, 0.25], "error_m": [0.1, 0.2], "level": [0.5, 0.5]}
+    whole = {"setting": {"backend": "bayes"}, "key": "bayes", "seed": 1, "ticks": 2, "series": series}
+    whole |= dict.fromkeys(FIGURES, 0.5)
     lacking = {k: v for k, v in whole.items() if k != "p95_error_m"} | {"seed": 2}
     (runs / "a.json").write_text(json.dumps(whole))
     (runs / "b.json").write_text(json.dumps(lacking))

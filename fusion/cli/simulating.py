@@ -80,7 +80,7 @@ def compare_command(args: argparse.Namespace) -> int:
     from fusion.budget import estimate
     from fusion.compare import SweepInterrupted, bayes_dempster_identity, run_sweep, summarise, sweep_digest
     from fusion.compare import verdicts as verdicts_of
-    from fusion.view.compare_report import identity_words, tables, write_report
+    from fusion.view.compare_report import tables, write_report
 
     case, settings, spec, seeds = _sweep_plan(args)
     runs = len(settings) * spec.seeds
@@ -124,10 +124,8 @@ def compare_command(args: argparse.Namespace) -> int:
     for t in tables(summary, settings, args.rank_by, f"{literal(case.name)}, {len(records)} runs"):
         console.print(t)
     for v in verdict_list:
-        console.print(f"• {v['sentence']}")
-    console.print(
-        f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {identity_words(identity)}"
-    )
+        console.print(f"• {v.sentence}")
+    console.print(f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {identity.words()}")
     console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
     return 0
 

@@ -12,7 +12,8 @@ Intervals over seeds are Student-t intervals of the mean (scipy.stats.t); the
 verdict on each figure compares the two best settings seed by seed (paired, since
 they saw the same readings) with the Wilcoxon signed-rank test (scipy.stats.wilcoxon).
 
-The package: ``settings`` (what is swept, the figures), ``runs`` (one run), ``engine`` (running a sweep
+The package: ``settings`` (what is swept, the figures), ``records`` (typed run records, verdicts and the
+sanity row), ``runs`` (one run), ``engine`` (running a sweep
 in processes or on Dask, resumably), ``verdicts`` (intervals, paired tests, the sanity row).  Its names
 are importable from here.
 """
@@ -24,6 +25,7 @@ from fusion.compare.engine import (
     run_sweep,
     sweep_digest,
 )
+from fusion.compare.records import IdentityCheck, RunFigures, RunRecord, RunSeries, Verdict
 from fusion.compare.runs import calibration, run_one
 from fusion.compare.settings import (
     ALERT_GRACE_S,
@@ -43,6 +45,11 @@ from fusion.compare.settings import (
 from fusion.compare.verdicts import bayes_dempster_identity, summarise, verdicts
 
 __all__ = [
+    "RunRecord",
+    "RunFigures",
+    "RunSeries",
+    "Verdict",
+    "IdentityCheck",
     "Setting",
     "Figure",
     "FIGURES",

@@ -15,8 +15,9 @@ import numpy as np
 
 from fusion import __version__
 from fusion.backends import BACKENDS
+from fusion.compare.records import RunRecord
 from fusion.compare.runs import run_one
-from fusion.compare.settings import ENGINES, FIGURES, Setting
+from fusion.compare.settings import ENGINES, Setting
 from fusion.errors import FusionError
 from fusion.io.bounded import read_text
 
@@ -44,28 +45,20 @@ def sweep_digest(case_path, calibration=None) -> str:
     return digest
 
 
-def _load_done(folder: Path, wanted: set[tuple[str, int]]) -> dict[tuple[str, int], dict]:
+def _load_done(folder: Path, wanted: set[tuple[str, int]]) -> dict[tuple[str, int], RunRecord]:
     done = {}
     for f in sorted((folder / "runs").glob("*.json")):
         try:
-            rec = json.loads(read_text(f, MAX_RUN_FILE_BYTES, "run file", regular=True))
-            key = (rec["key"], int(rec["seed"]))
-        except (FusionError, ValueError, KeyError, TypeError, RecursionError):
+            rec = RunRecord.from_json(json.loads(read_text(f, MAX_RUN_FILE_BYTES, "run file", regular=True)))
+        except (FusionError, ValueError, RecursionError):
             continue  # not a run file of ours (files are renamed into place whole, so never half a run)
-        if key in wanted and _complete(rec):
-            done[key] = rec  # a run file lacking a figure (an older tool, a hand edit) is run again
+        # A run file lacking a figure (an older tool, a hand edit) is None here, and is run again.
+        if rec is not None and (rec.key, rec.seed) in wanted:
+            done[(rec.key, rec.seed)] = rec
     return done
 
 
 MAX_RUN_FILE_BYTES = 1024**2
-
-
-def _complete(rec: dict) -> bool:
-    """A run record with every figure a number (or null where the figure does not apply) and its setting."""
-    return isinstance(rec.get("setting"), dict) and all(
-        name in rec and (rec[name] is None or (isinstance(rec[name], (int, float)) and not isinstance(rec[name], bool)))
-        for name in FIGURES
-    )
 
 
 def run_sweep(
@@ -78,9 +71,9 @@ def run_sweep(
     engine: str = "local",
     address: str | None = None,
     on_start: Callable[[int, int], None] | None = None,
-    on_done: Callable[[dict], None] | None = None,
+    on_done: Callable[[RunRecord], None] | None = None,
     calibration=None,
-) -> list[dict]:
+) -> list[RunRecord]:
     """Run every setting on every seed; returns one record per run (finished earlier or now).
 
     Runs already in ``out_dir/runs`` for the same case file are reused, so an interrupted
@@ -100,9 +93,9 @@ def run_sweep(
     if on_start:
         on_start(len(wanted), len(done))
 
-    def finished(rec: dict) -> None:
-        _atomic_json(folder / "runs" / f"{rec['key']}-seed{rec['seed']}.json", rec)
-        done[(rec["key"], rec["seed"])] = rec
+    def finished(rec: RunRecord) -> None:
+        _atomic_json(folder / "runs" / f"{rec.key}-seed{rec.seed}.json", rec.to_json())
+        done[(rec.key, rec.seed)] = rec
         if on_done:
             on_done(rec)
 
@@ -161,7 +154,7 @@ def longest_measured_first(records) -> Callable[[list], list]:
     keeps the idle tail at the end short).  ``records`` is a live view: runs that land update it."""
 
     def cost(job) -> float:
-        times = [r["wall_s"] for r in records if r["key"] == job[1].key and "wall_s" in r]
+        times = [r.wall_s for r in records if r.key == job[1].key and math.isfinite(r.wall_s)]
         # Unmeasured first; among them the back ends with a rule (the evidential one costs several Bayes runs).
         return math.inf if not times else float(np.mean(times))
 

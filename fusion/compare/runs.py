@@ -5,10 +5,12 @@ from __future__ import annotations
 import math
 import time
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from fusion.case_model import Case
+from fusion.compare.records import RunFigures, RunRecord, RunSeries
 from fusion.compare.settings import (
     ALERT_GRACE_S,
     CARRY_WINDOW_TICKS,
@@ -22,6 +24,9 @@ from fusion.compare.settings import (
 from fusion.errors import FusionError
 from fusion.io.case import load_case
 from fusion.monitor import CARRY_ON
+
+if TYPE_CHECKING:
+    from fusion.runner import StepRow
 
 
 # ----------------------------------------------------------------------------- one run
@@ -38,8 +43,8 @@ def _prepared(case_path: str, reliability: float | None, calibration_file: str |
     return case, SensorSet(case.site, case.site.grid(case.headings), case.sensors)
 
 
-def run_one(case_path: str, setting: Setting, seed: int, calibration_file: str | None = None) -> dict:
-    """Run one setting on one seed; returns its figures and per-tick series (plain data, picklable)."""
+def run_one(case_path: str, setting: Setting, seed: int, calibration_file: str | None = None) -> RunRecord:
+    """Run one setting on one seed; returns its figures and per-tick series (picklable)."""
     from fusion.runner import run_case
 
     if setting.calibrated and calibration_file is None:
@@ -63,11 +68,10 @@ def run_one(case_path: str, setting: Setting, seed: int, calibration_file: str |
         seed=seed,
         sensors=sensors,
     )
-    rows = [r.values for r in result.rows]
-    figures = _figures(case, rows, calib)
+    figures, series = _figures(case, result.rows, calib)
     # Wall time of the whole run (simulation, both filters' work, figures): what the sweep schedules by.
     wall_s = time.perf_counter() - started
-    return {"setting": setting.as_dict(), "key": setting.key, "seed": seed, "wall_s": wall_s, **figures}
+    return RunRecord(setting.key, seed, setting.as_dict(), figures, series, wall_s)
 
 
 def calibration(p: np.ndarray, true_cell: int) -> tuple[float, float, float]:
@@ -80,43 +84,44 @@ def calibration(p: np.ndarray, true_cell: int) -> tuple[float, float, float]:
     return p_true, float(p[p > p_true].sum()), float(p @ p) - 2.0 * p_true + 1.0
 
 
-def _figures(case: Case, rows: list[dict], calib: list[tuple]) -> dict:
-    t = np.array([r["t"] for r in rows])
-    err = np.array([r["error_m"] for r in rows])
-    herr = np.array([r["heading_error_deg"] for r in rows])
+def _figures(case: Case, rows: list[StepRow], calib: list[tuple]) -> tuple[RunFigures, RunSeries]:
+    t = np.array([r.t for r in rows])
+    err = np.array([r.error_m for r in rows])
+    herr = np.array([r.heading_error_deg for r in rows])
     p_true, level, brier = (np.array(c) for c in zip(*calib)) if calib else (np.zeros(0),) * 3
-    acting = np.array([r["action"] != CARRY_ON for r in rows])
+    acting = np.array([r.action != CARRY_ON for r in rows])
     windows = _fault_windows(case)
     starts = np.flatnonzero(acting & ~np.concatenate([[False], acting[:-1]]))  # first tick of each alert episode
     inside = [any(a <= t[i] <= b for a, b in windows) for i in starts]
     met = [bool(np.any(acting & (t >= a) & (t <= b))) for a, b in windows]
-    out = {
-        "ticks": len(rows),
-        "median_error_m": float(np.median(err)),
-        "p95_error_m": float(np.percentile(err, 95)),
-        "median_heading_error_deg": float(np.median(herr)),
-        "p95_heading_error_deg": float(np.percentile(herr, 95)),
-        "in_region": float(np.mean(level < 0.95)),
-        "nll": float(np.mean(-np.log(np.maximum(p_true, P_FLOOR)))),
-        "brier": float(np.mean(brier)),
-        "alert_precision": float(np.mean(inside)) if len(starts) else math.nan,
-        "alert_recall": float(np.mean(met)) if windows else math.nan,
-        "false_alerts": int(len(starts) - sum(inside)),
-        "ms_per_step": float(np.mean([r["seconds"] for r in rows]) * 1e3),
-        "recovery_s": math.nan,
-        "recovered": math.nan,
-    }
-    carries = [i for i, r in enumerate(rows) if r["carried"]]
+    recovery_s = recovered = math.nan
+    carries = [i for i, r in enumerate(rows) if r.carried]
     if carries:
         back = [i for i in range(carries[0], len(rows)) if err[i] <= RECOVERY_M and herr[i] <= RECOVERY_DEG]
-        out["recovery_s"] = float(t[back[0]] - t[carries[0]]) if back else math.nan
-        out["recovered"] = float(bool(back) and back[0] - carries[0] <= RECOVERY_TICKS)
-    out["series"] = {
-        "t": [round(float(v), 4) for v in t],
-        "error_m": [round(float(v), 4) for v in err],
-        "level": [round(float(v), 6) for v in level],
-    }
-    return out
+        recovery_s = float(t[back[0]] - t[carries[0]]) if back else math.nan
+        recovered = float(bool(back) and back[0] - carries[0] <= RECOVERY_TICKS)
+    figures = RunFigures(
+        ticks=len(rows),
+        median_error_m=float(np.median(err)),
+        p95_error_m=float(np.percentile(err, 95)),
+        median_heading_error_deg=float(np.median(herr)),
+        p95_heading_error_deg=float(np.percentile(herr, 95)),
+        in_region=float(np.mean(level < 0.95)),
+        nll=float(np.mean(-np.log(np.maximum(p_true, P_FLOOR)))),
+        brier=float(np.mean(brier)),
+        alert_precision=float(np.mean(inside)) if len(starts) else math.nan,
+        alert_recall=float(np.mean(met)) if windows else math.nan,
+        false_alerts=int(len(starts) - sum(inside)),
+        ms_per_step=float(np.mean([r.seconds for r in rows]) * 1e3),
+        recovery_s=recovery_s,
+        recovered=recovered,
+    )
+    series = RunSeries(
+        tuple(round(float(v), 4) for v in t),
+        tuple(round(float(v), 4) for v in err),
+        tuple(round(float(v), 6) for v in level),
+    )
+    return figures, series
 
 
 def _fault_windows(case: Case) -> list[tuple[float, float]]:

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from fusion.backends import BACKENDS, backend_kind
 from fusion.case_model import Case, SweepSpec
 from fusion.errors import FusionError
+from fusion.sensors.kinds import sensor_kind
 
 ENGINES = ("local", "dask")
 RECOVERY_TICKS = 10
@@ -125,11 +126,11 @@ def settings_of(spec: SweepSpec, calibrated: bool = False) -> list[Setting]:
 
 
 def variant(case: Case, reliability: float | None, fault_rate: float | None) -> Case:
-    """The case with every non-odometry sensor's reliability and every rate-bearing fault's rate replaced."""
+    """The case with every sensor but the motion one's reliability and every rate-bearing fault's rate replaced."""
     sensors = []
     for s in case.sensors:
         params = s.params
-        if reliability is not None and s.kind != "odometry":
+        if reliability is not None and not sensor_kind(s.kind).motion:
             params = dataclasses.replace(params, reliability=float(reliability))
         faults = s.faults
         if fault_rate is not None:

@@ -9,20 +9,21 @@ from collections.abc import Iterable
 import numpy as np
 
 from fusion.case_model import Case
+from fusion.compare.records import IdentityCheck, RunRecord, Verdict
 from fusion.compare.settings import FIGURES, Figure, Setting, variant
 
 
 # ----------------------------------------------------------------------------- figures over seeds
-def summarise(records: list[dict], settings: list[Setting], level: float = 0.95):
+def summarise(records: list[RunRecord], settings: list[Setting], level: float = 0.95):
     """One row per setting and figure: runs, mean and its Student-t interval over seeds (pandas DataFrame)."""
     import pandas as pd
     from scipy import stats
 
     rows = []
     for s in settings:
-        mine = [r for r in records if r["key"] == s.key]
+        mine = [r for r in records if r.key == s.key]
         for name in FIGURES:
-            values = np.array([r[name] for r in mine], dtype=float)
+            values = np.array([r.value(name) for r in mine], dtype=float)
             values = values[np.isfinite(values)]
             n = len(values)
             mean = float(values.mean()) if n else math.nan
@@ -36,7 +37,7 @@ def summarise(records: list[dict], settings: list[Setting], level: float = 0.95)
     return pd.DataFrame(rows, columns=["setting", "key", "figure", "runs", "mean", "low", "high"])
 
 
-def verdicts(records: list[dict], settings: list[Setting], figures: Iterable[str] = FIGURES) -> list[dict]:
+def verdicts(records: list[RunRecord], settings: list[Setting], figures: Iterable[str] = FIGURES) -> list[Verdict]:
     """Per figure: the best setting, the runner-up, and how sure that order is (paired over seeds)."""
     by_key = {s.key: s for s in settings}
     out = []
@@ -45,7 +46,7 @@ def verdicts(records: list[dict], settings: list[Setting], figures: Iterable[str
         sign = 1.0 if fig.better == "low" else -1.0
         per = {}
         for s in settings:
-            vals = {r["seed"]: float(r[name]) for r in records if r["key"] == s.key and math.isfinite(float(r[name]))}
+            vals = {r.seed: r.value(name) for r in records if r.key == s.key and math.isfinite(r.value(name))}
             if vals:
                 per[s.key] = vals
         if len(per) < 2:
@@ -60,7 +61,7 @@ def verdicts(records: list[dict], settings: list[Setting], figures: Iterable[str
     return out
 
 
-def _paired(name: str, fig: Figure, sign: float, per: dict, best: Setting, second: Setting) -> dict:
+def _paired(name: str, fig: Figure, sign: float, per: dict, best: Setting, second: Setting) -> Verdict:
     """The verdict between the best setting and the runner-up, seed by seed (Wilcoxon signed-rank test)."""
     from scipy import stats
 
@@ -94,19 +95,7 @@ def _paired(name: str, fig: Figure, sign: float, per: dict, best: Setting, secon
         + (f", Wilcoxon p = {p:.2g}" if math.isfinite(p) else "")
         + f": {sure}."
     )
-    return {
-        "figure": name,
-        "best": best.label,
-        "runner_up": second.label,
-        "best_mean": mb,
-        "runner_up_mean": ms,
-        "paired_seeds": len(common),
-        "wins": wins,
-        "losses": losses,
-        "p_value": p,
-        "sureness": sure,
-        "sentence": sentence,
-    }
+    return Verdict(name, best.label, second.label, mb, ms, len(common), wins, losses, p, sure, sentence)
 
 
 ROUNDING = 1e-9
@@ -117,20 +106,9 @@ def _same(a: float, b: float) -> bool:
     return abs(a - b) <= ROUNDING * max(1.0, abs(a), abs(b))
 
 
-def _tie(name: str, fig: Figure, value: float, settings: int) -> dict:
-    return {
-        "figure": name,
-        "best": None,
-        "runner_up": None,
-        "best_mean": value,
-        "runner_up_mean": value,
-        "paired_seeds": 0,
-        "wins": 0,
-        "losses": 0,
-        "p_value": math.nan,
-        "sureness": "a tie",
-        "sentence": f"{fig.label}: all {settings} settings tie at {_fmt(value, fig)}.",
-    }
+def _tie(name: str, fig: Figure, value: float, settings: int) -> Verdict:
+    sentence = f"{fig.label}: all {settings} settings tie at {_fmt(value, fig)}."
+    return Verdict(name, None, None, value, value, 0, 0, 0, math.nan, "a tie", sentence)
 
 
 def _fmt(v: float, fig: Figure) -> str:
@@ -140,7 +118,7 @@ def _fmt(v: float, fig: Figure) -> str:
 
 
 # ----------------------------------------------------------------------------- sanity row
-def bayes_dempster_identity(case: Case, seed: int | None = None, cells: int = 512, readings: int = 12) -> dict:
+def bayes_dempster_identity(case: Case, seed: int | None = None, cells: int = 512, readings: int = 12) -> IdentityCheck:
     """Bayes' rule and Dempster's rule on Bayesian mass functions from fully reliable sensors must agree.
 
     Shafer (1976), A Mathematical Theory of Evidence: Dempster's rule restricted to Bayesian
@@ -168,7 +146,7 @@ def bayes_dempster_identity(case: Case, seed: int | None = None, cells: int = 51
     used = 0
     for tick in ticks:
         for obs in tick.observations:
-            if obs.kind == "odometry" or used >= readings:
+            if obs.moves or used >= readings:
                 continue
             lik = sensors.encode(obs).likelihood[window]
             if float(lik @ post.probabilities) <= 0:
@@ -179,4 +157,4 @@ def bayes_dempster_identity(case: Case, seed: int | None = None, cells: int = 51
         if used >= readings:
             break
     gap = float(np.max(np.abs(mass.pignistic() - post.probabilities))) if used else math.nan
-    return {"readings": used, "cells": int(len(window)), "max_abs_difference": gap, "holds": bool(gap < 1e-9)}
+    return IdentityCheck(used, int(len(window)), gap, bool(gap < 1e-9))

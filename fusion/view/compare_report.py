@@ -16,11 +16,11 @@ from pathlib import Path
 
 import numpy as np
 
-from fusion.compare import FIGURES, Setting
+from fusion.compare import FIGURES, RunRecord, Setting
 from fusion.io.outdir import atomic_write
 from fusion.view.html_page import figures_html, page, png_of, pyplot
 
-__all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame", "identity_words"]
+__all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame"]
 
 TABLE_FIGURES = (
     "median_error_m",
@@ -40,14 +40,14 @@ PLOTTED_SETTINGS = 8
 """At most this many settings (the best ranked) share one plot, so the lines stay readable."""
 
 
-def runs_frame(records: list[dict]):
+def runs_frame(records: list[RunRecord]):
     import pandas as pd
 
     rows = []
     for r in records:
-        row = {**r["setting"], "key": r["key"], "seed": r["seed"], "ticks": r["ticks"]}
-        row.update({name: r[name] for name in FIGURES})
-        row["wall_s"] = r.get("wall_s", float("nan"))  # runs saved before wall times were kept have none
+        row = {**r.setting, "key": r.key, "seed": r.seed, "ticks": r.figures.ticks}
+        row.update({name: r.value(name) for name in FIGURES})
+        row["wall_s"] = r.wall_s  # NaN for runs saved before wall times were kept
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -112,12 +112,12 @@ def _plots(records, order: list[Setting]) -> dict[str, bytes]:
     out = {}
     fig, ax = plt.subplots(figsize=(9, 4.5), dpi=110)
     for s in shown:
-        runs = [r["series"] for r in records if r["key"] == s.key]
+        runs = [r.series for r in records if r.key == s.key]
         if not runs:
             continue
-        n = min(len(r["t"]) for r in runs)
-        err = np.array([r["error_m"][:n] for r in runs])
-        t = np.array(runs[0]["t"][:n])
+        n = min(len(r.t) for r in runs)
+        err = np.array([r.error_m[:n] for r in runs])
+        t = np.array(runs[0].t[:n])
         (line,) = ax.plot(t, np.median(err, axis=0), label=s.label, lw=1.3)
         if len(runs) > 1:
             lo, hi = np.percentile(err, [25, 75], axis=0)
@@ -134,7 +134,7 @@ def _plots(records, order: list[Setting]) -> dict[str, bytes]:
     fig, ax = plt.subplots(figsize=(5.5, 5.5), dpi=110)
     alphas = np.linspace(0, 1, 101)
     for s in shown:
-        levels = np.concatenate([r["series"]["level"] for r in records if r["key"] == s.key] or [np.zeros(0)])
+        levels = np.concatenate([r.series.level for r in records if r.key == s.key] or [np.zeros(0)])
         if levels.size:
             ax.plot(alphas, [(levels < a).mean() for a in alphas], label=s.label, lw=1.3)
     ax.plot([0, 1], [0, 1], color="0.5", ls="--", lw=1, label="calibrated")
@@ -180,7 +180,7 @@ def write_report(folder, records, settings, summary, verdict_list, identity, ran
 
 def _html(records, order, summary, verdict_list, identity, rank_by, case_name, images) -> str:
     e = html.escape
-    seeds = sorted({r["seed"] for r in records})
+    seeds = sorted({r.seed for r in records})
     head = "".join(
         f"<th>{e(FIGURES[n].label)}{' (' + e(FIGURES[n].unit) + ')' if FIGURES[n].unit else ''}</th>"
         for n in TABLE_FIGURES
@@ -191,24 +191,14 @@ def _html(records, order, summary, verdict_list, identity, rank_by, case_name, i
         + "</tr>"
         for i, s in enumerate(order, 1)
     )
-    words = "".join(f"<li>{e(v['sentence'])}</li>" for v in verdict_list)
+    words = "".join(f"<li>{e(v.sentence)}</li>" for v in verdict_list)
     legend = "".join(f"<li><b>{e(f.label)}</b>: {e(f.explain)}</li>" for f in FIGURES.values())
     body_html = f"""<p>{len(records)} runs: {len(order)} settings × {len(seeds)} seeds. Ranked by <b>{e(rank_by)}</b>.
 Each figure is the mean over seeds ± the half-width of its 95% Student-t interval.</p>
 <table><tr><th>#</th><th>setting</th>{head}</tr>{body}</table>
 <h2>Verdicts</h2><ul>{words}</ul>
 <p>Sanity check (Shafer 1976, Dempster's rule on Bayesian mass functions is Bayes' rule):
-{e(identity_words(identity))}</p>
+{e(identity.words())}</p>
 <h2>Plots</h2>{figures_html(images)}
 <h2>Figures</h2><ul>{legend}</ul>"""
     return page(f"Fusion comparison: {case_name}", body_html)
-
-
-def identity_words(identity: dict) -> str:
-    if not identity.get("readings"):
-        return "no reading to check with."
-    verdict = "holds" if identity["holds"] else "FAILS: the two back ends' rules disagree; please report this"
-    return (
-        f"{verdict}: largest probability difference {identity['max_abs_difference']:.1e} after "
-        f"{identity['readings']} readings on {identity['cells']} cells."
-    )

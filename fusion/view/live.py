@@ -207,16 +207,16 @@ def actions_timeline(result, limit: int = 20) -> Panel:
     carried = [i for i, truth in enumerate(truths) if truth.carried]
     lines = []
     for event in result.events[:limit]:
-        i = index.get(event["t"])
+        i = index.get(event.t)
         injected = list(truths[i].faults) if i is not None else []
         last = max((c for c in carried if i is not None and c <= i), default=None)
         if last is not None and i - last <= CARRY_WINDOW_TICKS:
             injected.append(f"carried {truths[i].t - truths[last].t:.2f} s ago")
-        head = Text.from_markup(f"[bold]{event['t']:6.2f} s[/] {event['backend']:<10} [bold]{event['action']:<17}[/]")
+        head = Text.from_markup(f"[bold]{event.t:6.2f} s[/] {event.backend:<10} [bold]{event.action:<17}[/]")
         head.append(f" injected: {plain(', '.join(injected)) or 'nothing'}", style="cyan" if injected else "yellow")
         lines.append(head)
-        if event["reasons"]:
-            lines.append(Padding(Text(plain(event["reasons"][0]), style="dim"), (0, 0, 0, 9)))
+        if event.reasons:
+            lines.append(Padding(Text(plain(event.reasons[0]), style="dim"), (0, 0, 0, 9)))
     left = len(result.events) - limit
     footer = (f"{left} more; " if left > 0 else "") + (
         "every action's reasons are in summary.json. \"injected: nothing\" means a false alarm or a sensor's "
