@@ -310,8 +310,8 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
         loc.start_at(first.x_m, first.y_m, first.heading_deg)
         times = []
         for tick in run:
-            odometry = next(o for o in tick.observations if o.kind == "odometry")
-            readings = [o for o in tick.observations if o.kind != "odometry"]
+            odometry = next(o for o in tick.observations if o.moves)
+            readings = [o for o in tick.observations if not o.moves]
             start = time.perf_counter()
             loc.step(odometry, readings)
             times.append(time.perf_counter() - start)

@@ -5,9 +5,10 @@ loader), so a case that passes ``check`` can start, and one that cannot fit is r
 instead of after minutes of work or an exhausted machine.
 
 The estimate counts every array that grows with the case: the pose grid and each back end's
-working copies, the focal sets of the focal-set filter, each reading's evidence, the range
-sensor's padded distance field, the marker sensor's tables and the temporary arrays of its
-line-of-sight test, the door zones, and the simulated log and the per-tick rows of a run.  Time
+working copies, the focal sets of the focal-set filter, each reading's evidence, what each sensor
+model builds (its kind's ``cost``, ``fusion.sensors.kinds``: the range sensor's padded distance
+field, the marker sensor's tables and the temporary arrays of its line-of-sight test, the door
+zones), and the simulated log and the per-tick rows of a run.  Time
 is counted per tick from coefficients measured on the development machine (one core of a shared
 2-core machine; ``docs/reliability.md``): they are rough, and a budget exists to refuse cases that
 are off by orders of magnitude, not to predict a run to the second.
@@ -83,6 +84,7 @@ def estimate(case, backends=None, rule: str | None = None) -> Estimate:
     """The memory and time one run of ``case`` needs (see the module docstring for what is counted)."""
     from fusion.backends import BACKENDS
     from fusion.backends.contour import CONTOUR_RULES
+    from fusion.sensors.kinds import ModelCost, sensor_kind
 
     site, run = case.site, case.run
     backends = tuple(backends or run.backends)
@@ -94,24 +96,15 @@ def estimate(case, backends=None, rule: str | None = None) -> Estimate:
     est.ticks = route_seconds(case) / run.tick_s + 1
     readings_per_tick, beams_per_tick = 0.0, 0.0
     for s in case.sensors:
-        if s.kind == "odometry":
+        kind = sensor_kind(s.kind)
+        if kind.motion:
             continue
         per_tick = 1.0 / max(1, round(1.0 / (s.rate_hz * run.tick_s)))
         readings_per_tick += per_tick
-        beams = len(getattr(s.params, "bearings_deg", ()))
-        beams_per_tick += per_tick * beams
-        if s.kind == "ranging":
-            pad = 2 * (s.params.max_range_m / res + 1)
-            est.memory[f"distance field of {s.name}"] = (site.width_m / res + pad) * (site.height_m / res + pad) * 20
-        elif s.kind == "markers":
-            r = s.params.max_range_m / res
-            in_range = min(plane, math.pi * r * r)
-            samples = 2 * r + 2
-            est.memory[f"marker tables of {s.name}"] = 17 * plane * len(site.markers)
-            est.memory[f"line-of-sight test of {s.name}"] = 41 * in_range * samples
-            est.seconds[f"line-of-sight test of {s.name}"] = 10e-9 * in_range * samples * len(site.markers)
-        elif s.kind == "door":
-            est.memory[f"door zone of {s.name}"] = plane
+        model = kind.cost(s, site) if kind.cost is not None else ModelCost()
+        beams_per_tick += per_tick * model.beams
+        est.memory.update({f"{part} of {s.name}": v for part, v in model.memory.items()})
+        est.seconds.update({f"{part} of {s.name}": v for part, v in model.seconds.items()})
     focal = run.max_focal if rule not in CONTOUR_RULES else 0
     for b in backends:
         kind = BACKENDS[b]  # bytes per cell of its working arrays: belief and the copies of one step (measured)

@@ -120,7 +120,7 @@ def soak_steps(
                 break
             if n == 1 and case.require_route().start_known:  # from the dock, as a run of the case starts
                 loc.start_at(tick.truth.x_m, tick.truth.y_m, tick.truth.heading_deg)
-            decision = loc.step(obs, []) if obs.kind == "odometry" else loc.step(None, [obs])
+            decision = loc.step(obs, []) if obs.moves else loc.step(None, [obs])
             report.steps = n
             report.actions[decision.action] += 1
             report.rejected += bool(decision.rejected)

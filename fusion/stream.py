@@ -88,7 +88,7 @@ def _answer(localizer: Localizer, timeline: Timeline, number: int, text: str, an
         return
     if verdict.decision == RESTART:
         localizer.restart_clock()
-    decision = localizer.step(obs, []) if obs.kind == "odometry" else localizer.step(None, [obs])
+    decision = localizer.step(obs, []) if obs.moves else localizer.step(None, [obs])
     if decision.rejected:
         timeline.retract()
         answers.error(number, "; ".join(r for _, r in decision.rejected))

@@ -243,7 +243,7 @@ def test_odometry_noise_is_per_metre_whatever_the_record_rate():
     # Independent per-record errors of variance a²·|d| add up over a window to a²·|D| (variances of
     # independent errors add): windows of 0.5 s see the same noise per metre at 10 and at 50 records
     # per second.  Checked on the data the fit sees, by the closed-form estimate Σ e² / Σ |D|.
-    from fusion.calibration.data import _odometry
+    from fusion.calibration.data import collect_odometry
     from fusion.io.logs import TruthPose
     from fusion.sensors.odometry import OdometryReading
 
@@ -255,7 +255,7 @@ def test_odometry_noise_is_per_metre_whatever_the_record_rate():
         pairs = [
             (None, OdometryReading(d + rng.normal(0.0, a * np.sqrt(d))), k / rate) for k in range(1, 60 * rate + 1)
         ]
-        data = _odometry(None, None, pairs, truth)
+        data = collect_odometry(None, None, pairs, truth)
         assert len(data.true_forward_m) >= 100
         estimate = np.sqrt(((data.measured_forward_m - data.true_forward_m) ** 2).sum() / data.true_forward_m.sum())
         assert abs(estimate - a) < 0.2 * a, (rate, estimate)

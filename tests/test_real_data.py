@@ -88,10 +88,10 @@ def test_calibration_on_the_real_log_says_what_it_cannot_learn(converted):
 
     out, case, layout = converted
     result = calibrate(case, out / "layout.toml", None, FitSettings(samples=150, warmup=100, chains=1), layout=layout)
-    camera = next(entry for entry in result.summary if entry["sensor"] == "camera")
-    assert any(w.startswith("p_detect is not calibrated") for w in camera["warnings"]), camera["warnings"]
-    assert "p_detect" not in camera["parameters"]
-    assert camera["parameters"]["false_rate"]["low"] > 0.01  # the off sightings are counted as false
-    assert camera["parameters"]["sigma_range_m"]["high"] < 0.2, camera["parameters"]
-    wheels = next(entry for entry in result.summary if entry["sensor"] == "wheels")
-    assert set(wheels["parameters"]) == {"sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"}
+    camera = next(entry for entry in result.summary if entry.sensor == "camera")
+    assert any(w.startswith("p_detect is not calibrated") for w in camera.warnings), camera.warnings
+    assert "p_detect" not in camera.parameters
+    assert camera.parameters["false_rate"].low > 0.01  # the off sightings are counted as false
+    assert camera.parameters["sigma_range_m"].high < 0.2, camera.parameters
+    wheels = next(entry for entry in result.summary if entry.sensor == "wheels")
+    assert set(wheels.parameters) == {"sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"}

@@ -21,7 +21,7 @@ from fusion.io.case import parse_case
 from fusion.io.observations import from_record
 from fusion.localizer import Localizer
 from fusion.sensors.base import Evidence
-from fusion.sensors.kinds import FaultKind, Option, SensorKind, kinds, register
+from fusion.sensors.kinds import Calibrator, FaultKind, ModelCost, Option, SensorKind, kinds, register
 from fusion.simulate import simulate
 from tests.test_case import TINY
 
@@ -77,6 +77,21 @@ def _from_fields(value, feed):
     return CompassReading(heading if feed.angle_unit == "deg" else math.degrees(heading))
 
 
+def _collect(case, spec, pairs, poses) -> np.ndarray:
+    """Calibration data: each reading's heading error against the true heading (degrees, wrapped)."""
+    return np.array([(r.heading_deg - p.heading_deg + 180.0) % 360.0 - 180.0 for p, r, _ in pairs])
+
+
+def _fit(name, kind, residuals, settings):
+    # Known mean 0, Jeffreys prior p(σ²) ∝ 1/σ²: σ² | data ~ Scaled-Inv-χ²(n, s²) with s² = Σr²/n (Gelman et al.
+    # 2013, Bayesian Data Analysis, §3.3), drawn as n·s²/X with X ~ χ²_n.  No pyro needed for this kind.
+    from fusion.calibration.models import Fit
+
+    n = len(residuals)
+    chi2 = np.random.default_rng(settings.seed).chisquare(n, 4000)
+    return Fit(name, kind, "closed form", n, {"sigma_deg": np.sqrt(np.sum(residuals**2) / chi2)})
+
+
 COMPASS = SensorKind(
     "compass",
     CompassParams,
@@ -88,6 +103,8 @@ COMPASS = SensorKind(
     rules={"sigma_deg": "positive"},
     fields=("heading",),
     from_fields=_from_fields,
+    calibrator=Calibrator(("sigma_deg",), _collect, _fit),
+    cost=lambda spec, site: ModelCost({"heading table": 8.0 * 360}),
 )
 
 
@@ -122,6 +139,9 @@ def test_a_registered_kind_is_read_simulated_logged_and_localized(compass, tmp_p
     spec = case.sensor("yaw")
     assert spec.kind == "compass" and spec.params == CompassParams(sigma_deg=8.0)
     assert spec.faults[0].options == {"offset_deg": 40.0}
+    from fusion.budget import estimate
+
+    assert estimate(case).memory["heading table of yaw"] == 8.0 * 360  # the case's budget counts what it declares
     ticks = simulate(case)
     seen = [o for tick in ticks for o in tick.observations if o.sensor == "yaw"]
     assert len(seen) > 10 and all(isinstance(o.reading, CompassReading) for o in seen)
@@ -205,3 +225,30 @@ columns = {t = "t", heading = "rad"}
     got = [obs for _, obs in observations(None, layout, aside.append) if obs.sensor == "yaw"]
     assert [o.kind for o in got] == ["compass"] and abs(got[0].reading.heading_deg - 90.0) < 1e-5
     assert len(aside) == 1 and "'heading' must be a number" in aside[0].reason and aside[0].file == "yaw.csv"
+
+
+def test_a_registered_kind_is_calibrated_through_its_registration(compass, tmp_path):
+    # Calibration asks the registry how to pair a compass's readings with the truth and how to fit them; the
+    # calibration file it writes is read back by the case reader.  The simulator draws the compass with
+    # σ = 8°, so the 90% credible interval of the fit should hold 8° (Gelman et al. 2013, §3.3 posterior).
+    from fusion.calibration.data import datasets
+    from fusion.calibration.models import FitSettings
+    from fusion.calibration.output import calibration_toml, summarise_fits
+    from fusion.io.case import apply_calibration
+    from fusion.io.logs import TruthPose
+
+    case = parse_case(_case_text().replace("offset_deg = 40.0", "offset_deg = 0.0"), str(tmp_path / "case.toml"))
+    ticks = simulate(case, seed=4)
+    observations = [(i, o) for i, o in enumerate(o for tick in ticks for o in tick.observations)]
+    truth = [(i, TruthPose(t.truth.t, t.truth.x_m, t.truth.y_m, t.truth.heading_deg)) for i, t in enumerate(ticks)]
+    data = datasets(case, observations, truth)
+    residuals = data.by_sensor["yaw"]
+    assert len(residuals) > 20
+    fit = COMPASS.calibrator.fit("yaw", "compass", residuals, FitSettings(seed=1))
+    (entry,) = [e for e in summarise_fits([fit]) if e.sensor == "yaw"]
+    estimate = entry.parameters["sigma_deg"]
+    assert estimate.low <= 8.0 <= estimate.high and entry.reliability is None
+    path = tmp_path / "cal.toml"
+    path.write_text(calibration_toml([entry], case.site.name, "log", "truth"))
+    calibrated = apply_calibration(case, path)
+    assert calibrated.sensor("yaw").params.sigma_deg == pytest.approx(estimate.mean, rel=1e-5)

@@ -2,7 +2,8 @@
 
 Each reading is paired with the true pose at its own time (interpolated between the
 true poses around it, ``MAX_TRUTH_GAP_S`` apart at most); readings with no true pose
-around them are set aside.  Per sensor kind:
+around them are set aside.  Each sensor kind's ``Calibrator`` (``fusion.sensors.kinds``) names the
+function that builds its data set; for the built-in kinds they are here:
 
 - door: for every reading, whether the truth was inside the door's contact zone and
   whether the contact was active;
@@ -29,6 +30,7 @@ import numpy as np
 
 from fusion.case_model import Case
 from fusion.io.logs import SetAside, TruthPose
+from fusion.sensors.kinds import sensor_kind
 from fusion.sensors.markers import MarkerMiss, visible_markers
 
 __all__ = ["DoorData", "MarkerData", "RangeData", "OdometryData", "datasets", "ODOMETRY_WINDOW_S"]
@@ -104,15 +106,15 @@ def datasets(case: Case, observations, truth) -> Datasets:
             continue
         rows[obs.sensor].append((pose, obs.reading, obs.t))
     for name, pairs in rows.items():
-        build = _BUILDERS.get(specs[name].kind)
-        if build is None:
+        calibrator = sensor_kind(specs[name].kind).calibrator
+        if calibrator is None:
             out.no_model.append(name)
         elif pairs:
-            out.by_sensor[name] = build(case, specs[name], pairs, poses)
+            out.by_sensor[name] = calibrator.collect(case, specs[name], pairs, poses)
     return out
 
 
-def _door(case, spec, pairs, poses) -> DoorData:
+def collect_door(case, spec, pairs, poses) -> DoorData:
     site = case.site
     zone = site.door_zone(site.door(spec.door))
     inside, active = [], []
@@ -123,7 +125,7 @@ def _door(case, spec, pairs, poses) -> DoorData:
     return DoorData(np.array(inside), np.array(active))
 
 
-def _markers(case, spec, pairs, poses) -> MarkerData:
+def collect_markers(case, spec, pairs, poses) -> MarkerData:
     visible, outcome, dr, db = [], [], [], []
     for p, reading, _ in pairs:
         seen = visible_markers(case.site, spec.params, p.x_m, p.y_m, p.heading_deg)
@@ -143,7 +145,7 @@ def _markers(case, spec, pairs, poses) -> MarkerData:
     return MarkerData(np.array(visible), np.array(outcome, dtype=np.int64), np.array(dr), np.array(db), density)
 
 
-def _ranging(case, spec, pairs, poses) -> RangeData:
+def collect_ranging(case, spec, pairs, poses) -> RangeData:
     site, params = case.site, spec.params
     measured, expected = [], []
     for p, reading, _ in pairs:
@@ -153,7 +155,7 @@ def _ranging(case, spec, pairs, poses) -> RangeData:
     return RangeData(np.array(measured), np.array(expected), float(params.max_range_m))
 
 
-def _odometry(case, spec, pairs, poses) -> OdometryData:
+def collect_odometry(case, spec, pairs, poses) -> OdometryData:
     """Windows of records (see the module docstring); ``pairs`` hold (nearest true pose, record) in time order."""
     times = np.array([p.t for p in poses])
     mf, tf, mt, tt = [], [], [], []
@@ -194,6 +196,3 @@ def _pose_at(times: np.ndarray, poses, t: float) -> TruthPose | None:
     w = (t - a.t) / (b.t - a.t)
     turn = float(_wrap(b.heading_deg - a.heading_deg))
     return TruthPose(t, a.x_m + w * (b.x_m - a.x_m), a.y_m + w * (b.y_m - a.y_m), a.heading_deg + w * turn)
-
-
-_BUILDERS = {"door": _door, "markers": _markers, "ranging": _ranging, "odometry": _odometry}

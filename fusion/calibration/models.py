@@ -248,10 +248,12 @@ def fit_sensor(name: str, kind: str, data, settings: FitSettings = FitSettings()
     import torch
 
     torch.set_default_dtype(torch.float64)
-    fitter = _FITTERS.get(kind)
-    if fitter is None:
+    from fusion.sensors.kinds import sensor_kind
+
+    calibrator = sensor_kind(kind).calibrator
+    if calibrator is None:
         raise FusionError(f"no calibration model for sensor kind {kind!r}")
-    return [fitter(name, kind, data, settings)]
+    return [calibrator.fit(name, kind, data, settings)]
 
 
 def _tensor(a, dtype=None):
@@ -260,7 +262,7 @@ def _tensor(a, dtype=None):
     return torch.as_tensor(np.asarray(a), dtype=dtype or torch.float64)
 
 
-def _fit_door(name, kind, data, settings) -> Fit:
+def fit_door(name, kind, data, settings) -> Fit:
     import torch
 
     args = (_tensor(data.inside, torch.bool), _tensor(data.active))
@@ -272,7 +274,7 @@ def _fit_door(name, kind, data, settings) -> Fit:
     return fit
 
 
-def _fit_markers(name, kind, data, settings) -> Fit:
+def fit_markers(name, kind, data, settings) -> Fit:
     import torch
 
     args = (
@@ -300,7 +302,7 @@ def _fit_markers(name, kind, data, settings) -> Fit:
     return fit
 
 
-def _fit_ranging(name, kind, data, settings) -> Fit:
+def fit_ranging(name, kind, data, settings) -> Fit:
     args = (_tensor(data.measured_m), _tensor(data.expected_m), data.max_range_m)
     fit = _run(_range_model, args, len(data.measured_m), settings, name, kind)
     w = fit.draws.pop("weights")
@@ -310,7 +312,7 @@ def _fit_ranging(name, kind, data, settings) -> Fit:
     return fit
 
 
-def _fit_odometry(name, kind, data, settings) -> Fit:
+def fit_odometry(name, kind, data, settings) -> Fit:
     args = tuple(
         _tensor(a) for a in (data.measured_forward_m, data.true_forward_m, data.measured_turn_deg, data.true_turn_deg)
     )
@@ -321,6 +323,3 @@ def _fit_odometry(name, kind, data, settings) -> Fit:
     if np.abs(data.true_turn_deg).sum() < MIN_TURN_DEG:
         fit.unidentified["turn_sigma_per_turn"] = f"the robot turned less than {MIN_TURN_DEG:g}° in this log"
     return fit
-
-
-_FITTERS = {"door": _fit_door, "markers": _fit_markers, "ranging": _fit_ranging, "odometry": _fit_odometry}

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 from fusion.calibration.data import datasets
 from fusion.calibration.models import FitSettings, fit_sensor, require_pyro
-from fusion.calibration.output import summarise_fits
+from fusion.calibration.output import SensorCalibration, summarise_fits
 from fusion.case_model import Case
 from fusion.io.logs import LogRead, ReadPosition, SetAside, held, read_observations, require_records
 from fusion.io.truth_file import read_truth
@@ -32,7 +32,7 @@ def _read_recording(log_path, truth_path, layout) -> tuple[LogRead, LogRead]:
 
 @dataclass
 class Calibration:
-    summary: list[dict]  # per sensor, see fusion.calibration.output.summarise_fits
+    summary: list[SensorCalibration]  # per sensor
     set_aside: list[tuple[str, SetAside]]  # (file, row) of every row not used
     observations: int
     poses: int

@@ -49,7 +49,7 @@ def _ticks(records, found: Inspection, odometry: str | None, min_tick_s: float):
             found.records += 1
             yield item
 
-    yield from form_ticks(counted(), lambda obs: obs.kind == "odometry" and obs.sensor == odometry, min_tick_s)
+    yield from form_ticks(counted(), lambda obs: obs.moves and obs.sensor == odometry, min_tick_s)
 
 
 def _place_start(locs: dict, start, truth) -> str:
@@ -142,7 +142,7 @@ class _Replay:
             except FusionError as err:
                 self.set_aside(SetAside(line, str(err), json.dumps(obs.to_record())[:80]))
                 continue
-            if obs.kind == "odometry":
+            if obs.moves:
                 odometry = obs
             else:
                 readings.append(obs)
@@ -180,7 +180,7 @@ class _Replay:
         if obs.sensor not in self.sensors.kinds:
             self.unknown_sensor += 1
         self.sensors.check(obs)  # raises on an unknown sensor (naming the site's) or the wrong kind
-        if obs.kind == "odometry":
+        if obs.moves:
             check_odometry_step(self.odometry_t, obs.t, obs.sensor)
             self.odometry_t = obs.t
             return

@@ -68,7 +68,8 @@ ODOMETRY_FORMS = {
     "poses": ("x", "y", "heading"),  # the pose the odometry integrated; moves are their differences
     "velocities": ("forward", "turn"),  # speeds (per second), each held until the next record (left optional)
 }
-OPTIONAL = {"odometry": ("left",)}
+MOTION_OPTIONAL = ("left",)
+"""Values a motion feed may leave out (sideways motion is zero then)."""
 FORMATS = {"csv": ",", "tsv": "\t", "spaces": None}
 
 
@@ -171,7 +172,9 @@ def _feed(r: TomlReader, d: dict, w: tuple, case, path: Path, folder: Path, time
     topic = r.text(d, w, "topic") if "topic" in d else None
     file = _inside(r, d, w, folder) if "file" in d else None
     default_form = "steps" if topic is None else "poses"  # an odometry message carries the integrated pose
-    odometry = r.text(d, w, "odometry", default_form, choices=tuple(ODOMETRY_FORMS)) if kind == "odometry" else "steps"
+    odometry = (
+        r.text(d, w, "odometry", default_form, choices=tuple(ODOMETRY_FORMS)) if sensor_kind(kind).motion else "steps"
+    )
     columns = _columns(r, d, w, sensor, kind, topic, odometry)
     fmt = _format(r, d, w, file)
     not_markers = d.get("not_markers", [])
@@ -211,8 +214,8 @@ def _columns(r: TomlReader, d: dict, w: tuple, sensor: str, kind: str, topic, od
     if topic is not None and "columns" in d:
         r.fail((*w, "columns"), "an MCAP feed names message 'fields', not table 'columns'")
     columns = r.table(d, w, key, required=topic is None and kind not in ("ranging",))
-    needed = ODOMETRY_FORMS[odometry] if kind == "odometry" else sensor_kind(kind).fields
-    r.only(columns, (*w, key), {*needed, *OPTIONAL.get(kind, ()), "t"})
+    needed = ODOMETRY_FORMS[odometry] if sensor_kind(kind).motion else sensor_kind(kind).fields
+    r.only(columns, (*w, key), {*needed, *(MOTION_OPTIONAL if sensor_kind(kind).motion else ()), "t"})
     if topic is None:
         for name in ("t", *needed):
             if name not in columns:

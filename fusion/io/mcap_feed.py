@@ -165,14 +165,14 @@ class _Reading:
 
     def __init__(self, feed: Feed):
         self.feed = feed
-        self.odometry = OdometryForm(feed.odometry) if feed.kind == "odometry" else None
+        self.odometry = OdometryForm(feed.odometry) if sensor_kind(feed.kind).motion else None
         self.checked: set[str] = set()
 
     def fields(self, type_name: str) -> dict:
         if self.feed.columns:
             return self.feed.columns
         short = type_name.rsplit("/", 1)[-1]
-        key = (short, self.feed.odometry if self.feed.kind == "odometry" else "steps")
+        key = (short, self.feed.odometry if sensor_kind(self.feed.kind).motion else "steps")
         if key in _DEFAULT_FIELDS:
             return _DEFAULT_FIELDS[key]
         defaults = sensor_kind(self.feed.kind).default_fields
@@ -198,18 +198,16 @@ class _Reading:
             if kind.from_fields is None:
                 raise refuse(feed, f"messages of type {type_name} cannot feed a {feed.kind} sensor")
             return Observation(t, feed.sensor, feed.kind, kind.from_fields(value, feed))
-        if feed.kind == "odometry":
-            if feed.odometry == "poses":
-                a, b = _number(value("x"), "x"), _number(value("y"), "y")
-                c = _heading(value("heading"), feed)
-            else:
-                a = _number(value("forward"), "forward")
-                b = _number(value("left"), "left") if "left" in fields else 0.0
-                c = _number(value("turn"), "turn")
-                c = math.radians(c) if feed.angle_unit == "deg" else c
-            record = self.odometry.record(t, a * feed.length_unit, b * feed.length_unit, c)
-            return None if record is None else Observation(t, feed.sensor, "odometry", record)
-        raise refuse(feed, f"messages of type {type_name} cannot feed a {feed.kind} sensor")
+        if feed.odometry == "poses":  # a motion kind: its record is formed from poses, steps or velocities
+            a, b = _number(value("x"), "x"), _number(value("y"), "y")
+            c = _heading(value("heading"), feed)
+        else:
+            a = _number(value("forward"), "forward")
+            b = _number(value("left"), "left") if "left" in fields else 0.0
+            c = _number(value("turn"), "turn")
+            c = math.radians(c) if feed.angle_unit == "deg" else c
+        record = self.odometry.record(t, a * feed.length_unit, b * feed.length_unit, c)
+        return None if record is None else Observation(t, feed.sensor, feed.kind, record)
 
 
 def _stamp(msg, log_time_ns: int, stamp: str) -> float:

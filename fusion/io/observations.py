@@ -34,6 +34,11 @@ class Observation:
     kind: str
     reading: object
 
+    @property
+    def moves(self) -> bool:
+        """A motion reading (odometry): it drives the prediction rather than updating the belief."""
+        return sensor_kind(self.kind).motion
+
     def to_record(self) -> dict:
         """The log record: time, sensor, kind, and the reading's fields as its kind writes them
         (``fusion.sensors.kinds``)."""

@@ -98,7 +98,7 @@ def feed_observations(feed: Feed, path: Path, aside) -> Iterator[tuple[int, Obse
     """``(line, observation)`` of every usable row of a table feed, in file order (the time-order rule is
     the caller's)."""
     columns = None
-    odometry = OdometryForm(feed.odometry) if feed.kind == "odometry" else None
+    odometry = OdometryForm(feed.odometry) if sensor_kind(feed.kind).motion else None
     usable = False
     for number, cells, names in table_rows(path, feed.format, feed.header, feed.comment, aside):
         if columns is None:
@@ -135,7 +135,7 @@ def _observation(feed: Feed, c: _Columns, cells: list[str], odometry: OdometryFo
     if feed.angle_unit == "deg":
         turn = math.radians(turn)
     reading = odometry.record(t, a * metres, b * metres, turn)
-    return None if reading is None else Observation(t, feed.sensor, "odometry", reading)
+    return None if reading is None else Observation(t, feed.sensor, feed.kind, reading)
 
 
 def _odometry_values(feed: Feed, c: _Columns, cells: list[str]) -> tuple[float, float, float]:

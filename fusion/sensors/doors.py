@@ -104,8 +104,15 @@ def _simulate(case, spec, truth, rng) -> DoorReading:
     return DoorReading(bool(rng.random() < rate))
 
 
+def _cost(spec, site):
+    """The door's contact zone: one byte per cell of the plane."""
+    from fusion.sensors.kinds import ModelCost
+
+    return ModelCost({"door zone": (site.width_m / site.resolution_m) * (site.height_m / site.resolution_m)})
+
+
 def _register() -> None:
-    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+    from fusion.sensors.kinds import Calibrator, FaultKind, Option, SensorKind, lazy, register
 
     stuck = FaultKind("stuck", "the contact reads a fixed value (value = true or false)", {"value": Option("flag")})
     register(
@@ -121,6 +128,14 @@ def _register() -> None:
             fields=("active",),
             default_fields={"active": "data"},  # as in std_msgs/Bool
             from_fields=_from_fields,
+            cost=_cost,
+            calibrator=Calibrator(
+                ("hit_rate", "false_alarm_rate"),
+                lazy("fusion.calibration.data:collect_door"),
+                lazy("fusion.calibration.models:fit_door"),
+                # the worse of the two ways the contact can be right
+                lambda draws: np.minimum(draws["hit_rate"], 1 - draws["false_alarm_rate"]),
+            ),
         )
     )
 

@@ -4,8 +4,9 @@ A sensor kind is one module that defines its parameters, its readings, its model
 likelihood and mass function from one set of parameters), how its readings are written in a log
 record and read back, how the simulator draws them, and its faults; and one ``register(SensorKind(…))``
 call.  Case validation (``fusion.io.case``), observation records (``fusion.io.observations``), the
-sensor set of a localizer (``fusion.localizer.SensorSet``) and the simulator (``fusion.simulate``) read
-this registry and nothing else about a kind.  The built-in kinds (ranging, markers, door, odometry)
+sensor set of a localizer (``fusion.localizer.SensorSet``), the simulator (``fusion.simulate``) and
+calibration (``fusion.calibration``, through the kind's ``Calibrator``) read this registry and nothing else
+about a kind.  The built-in kinds (ranging, markers, door, odometry)
 register themselves when their modules are imported; ``kinds()`` imports them first.
 
 Fault options are declared, not coded: each option names its type (``OPTION_TYPES``), and the case
@@ -17,7 +18,17 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-__all__ = ["SensorKind", "FaultKind", "Option", "register", "kinds", "sensor_kind", "OPTION_TYPES"]
+__all__ = [
+    "SensorKind",
+    "FaultKind",
+    "Option",
+    "Calibrator",
+    "lazy",
+    "register",
+    "kinds",
+    "sensor_kind",
+    "OPTION_TYPES",
+]
 
 OPTION_TYPES = ("rate", "number", "positive", "flag", "marker", "point")
 """rate: a number in [0, 1], required; number / positive: a number (positive: > 0) with a default; flag: true or
@@ -36,6 +47,33 @@ class FaultKind:
     description: str
     options: dict[str, Option] = field(default_factory=dict)
     instant: bool = False  # happens once, at start_s (no end_s)
+
+
+@dataclass(frozen=True)
+class Calibrator:
+    """How a kind's parameters are learned from a log with true poses (``fusion calibrate``).
+
+    ``collect(case, spec, pairs, poses)`` turns the sensor's readings, each paired with the true pose at its
+    time (``pairs``: (pose, reading, t); ``poses``: every true pose), into its data set; ``fit(name, kind,
+    data, settings)`` returns a ``fusion.calibration.models.Fit`` with posterior draws of ``fitted``;
+    ``reliability(draws)`` gives draws of the share of readings the model's working part explains (None
+    when the kind derives none); ``shares`` are fitted parameters that sum to one."""
+
+    fitted: tuple[str, ...]
+    collect: Callable
+    fit: Callable
+    reliability: Callable | None = None
+    shares: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class ModelCost:
+    """What building a sensor's model takes, for the case's budget (``fusion.budget``): bytes and seconds by
+    part (named without the sensor), and the beams of one reading (each costs a pass over the grid)."""
+
+    memory: dict[str, float] = field(default_factory=dict)
+    seconds: dict[str, float] = field(default_factory=dict)
+    beams: int = 0
 
 
 @dataclass(frozen=True)
@@ -64,6 +102,22 @@ class SensorKind:
     # field -> rule of ``fusion.sensors.limits`` (probability, positive, non_negative, range, angle, levels) for
     # parameter fields that rules by name do not cover yet
     rules: dict[str, str] = field(default_factory=dict)
+    calibrator: Calibrator | None = None  # None: calibration has no model for this kind
+    cost: Callable | None = None  # (spec, site) -> ModelCost; None: the model builds nothing that grows
+
+
+def lazy(path: str) -> Callable:
+    """The function ``"module:name"``, imported when first called: a kind's registration names the code of a
+    later stage (calibration needs pyro) without importing it."""
+    module, _, name = path.partition(":")
+
+    def call(*args, **kwargs):
+        import importlib
+
+        return getattr(importlib.import_module(module), name)(*args, **kwargs)
+
+    call.__name__ = call.__qualname__ = name
+    return call
 
 
 _KINDS: dict[str, SensorKind] = {}

@@ -300,8 +300,24 @@ def _simulate(case, spec, truth, rng):
     return MarkerSighting(str(marker_id), r + rng.normal(0, p.sigma_range_m), b + rng.normal(0, p.sigma_bearing_deg))
 
 
+def _cost(spec, site):
+    """The per-marker tables over the plane and the line-of-sight test's temporary arrays and time (bytes and
+    seconds per sample measured on the development machine, no source)."""
+    from fusion.sensors.kinds import ModelCost
+
+    res = site.resolution_m
+    plane = (site.width_m / res) * (site.height_m / res)
+    r = spec.params.max_range_m / res
+    in_range = min(plane, math.pi * r * r)
+    samples = 2 * r + 2
+    return ModelCost(
+        {"marker tables": 17 * plane * len(site.markers), "line-of-sight test": 41 * in_range * samples},
+        {"line-of-sight test": 10e-9 * in_range * samples * len(site.markers)},
+    )
+
+
 def _register() -> None:
-    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+    from fusion.sensors.kinds import Calibrator, FaultKind, Option, SensorKind, lazy, register
 
     ghost = FaultKind(
         "ghost",
@@ -320,6 +336,13 @@ def _register() -> None:
             needs_markers=True,
             fields=("marker", "range", "bearing"),
             from_fields=_from_fields,
+            cost=_cost,
+            calibrator=Calibrator(
+                ("p_detect", "false_rate", "sigma_range_m", "sigma_bearing_deg"),
+                lazy("fusion.calibration.data:collect_markers"),
+                lazy("fusion.calibration.models:fit_markers"),
+                lambda draws: 1 - draws["false_rate"],  # sightings that are not false
+            ),
         )
     )
 

@@ -238,7 +238,7 @@ def simulate_odometry(spec, forward: float, turn: float, t: float, dt: float, rn
 
 
 def _register() -> None:
-    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+    from fusion.sensors.kinds import Calibrator, FaultKind, Option, SensorKind, lazy, register
 
     drift = FaultKind(
         "drift",
@@ -262,6 +262,12 @@ def _register() -> None:
             {"drift": drift, "slip": slip},
             motion=True,
             removed_fields=REMOVED_FIELDS,
+            # No reliability is derived: the slip model has no counterpart in the fit, so the case's is kept.
+            calibrator=Calibrator(
+                ("sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"),
+                lazy("fusion.calibration.data:collect_odometry"),
+                lazy("fusion.calibration.models:fit_odometry"),
+            ),
         )
     )
 

@@ -247,8 +247,18 @@ def _settle(params: RangeParams) -> RangeParams:
     )
 
 
+def _cost(spec, site):
+    """The padded distance field (values and indices; measured bytes per cell, no source), and one pass per beam."""
+    from fusion.sensors.kinds import ModelCost
+
+    res = site.resolution_m
+    pad = 2 * (spec.params.max_range_m / res + 1)
+    field_bytes = (site.width_m / res + pad) * (site.height_m / res + pad) * 20
+    return ModelCost({"distance field": field_bytes}, beams=len(spec.params.bearings_deg))
+
+
 def _register() -> None:
-    from fusion.sensors.kinds import FaultKind, Option, SensorKind, register
+    from fusion.sensors.kinds import Calibrator, FaultKind, Option, SensorKind, lazy, register
 
     people = FaultKind(
         "people",
@@ -269,6 +279,14 @@ def _register() -> None:
             fields=("ranges",),
             several=("ranges",),
             from_fields=_from_fields,
+            cost=_cost,
+            calibrator=Calibrator(
+                ("wall_spread_m", "wall_share", "early_share", "no_echo_share", "stray_share", "early_decay_per_m"),
+                lazy("fusion.calibration.data:collect_ranging"),
+                lazy("fusion.calibration.models:fit_ranging"),
+                lambda draws: draws["wall_share"] + draws["no_echo_share"],  # returns that follow the map
+                shares=("wall_share", "early_share", "no_echo_share", "stray_share"),
+            ),
         )
     )
 

@@ -67,11 +67,11 @@ def calibration_tables(result, case) -> list:
     """``fusion calibrate``'s result (``fusion.calibration.pipeline.Calibration``): a table per sensor under the
     parameters' full names, the reliability footnote and the warnings."""
     out: list = []
-    longest = max((len(n) for e in result.summary for n in e["parameters"]), default=9)
+    longest = max((len(n) for e in result.summary for n in e.parameters), default=9)
     for entry in result.summary:
-        spec = case.sensor(entry["sensor"])
-        method = "/".join(dict.fromkeys(entry["methods"]))
-        table = Table(title=f"{literal(entry['sensor'])} ({entry['kind']}, {method}, {entry['points']:,} points)")
+        spec = case.sensor(entry.sensor)
+        method = "/".join(dict.fromkeys(entry.methods))
+        table = Table(title=f"{literal(entry.sensor)} ({entry.kind}, {method}, {entry.points:,} points)")
         for col in ("parameter", "case", "fitted", "90% interval", "R-hat", "ESS"):
             # no cell is cut or wrapped: a shortened name cannot be looked up, a wrapped number is misread
             table.add_column(
@@ -80,24 +80,23 @@ def calibration_tables(result, case) -> list:
                 no_wrap=True,
                 min_width=longest if col == "parameter" else None,
             )
-        rows = list(entry["parameters"].items())
-        if entry["reliability"] is not None:
-            rows.append(("reliability*", {"mean": entry["reliability"], "low": None, "high": None}))
-        for name, s in rows:
+        for name, est in entry.parameters.items():
             table.add_row(
                 name,
-                f"{getattr(spec.params, name.rstrip('*')):.3g}",
-                f"{s['mean']:.3g}",
-                "" if s["low"] is None else f"{s['low']:.3g}–{s['high']:.3g}",
-                _maybe(s.get("r_hat"), "{:.3f}"),
-                _maybe(s.get("ess"), "{:.0f}"),
+                f"{getattr(spec.params, name):.3g}",
+                f"{est.mean:.3g}",
+                f"{est.low:.3g}–{est.high:.3g}",
+                _maybe(est.r_hat, "{:.3f}"),
+                _maybe(est.ess, "{:.0f}"),
             )
+        if entry.reliability is not None:
+            table.add_row("reliability*", f"{spec.params.reliability:.3g}", f"{entry.reliability:.3g}", "", "", "")
         out.append(table)
-    if any(e["reliability"] is not None for e in result.summary):
+    if any(e.reliability is not None for e in result.summary):
         out.append("* reliability: the 5% lower credible bound of the share of readings the working model explains")
     for entry in result.summary:
-        for w in entry["warnings"]:
-            out.append(f"[yellow]warning[/] {literal(entry['sensor'])}: {literal(w)}")
+        for w in entry.warnings:
+            out.append(f"[yellow]warning[/] {literal(entry.sensor)}: {literal(w)}")
     return out
 
 
