@@ -29,6 +29,14 @@ _LAZY = {
     "reduce_focal_sets": "fusion.belief.rules",
     "Posterior": "fusion.belief.posterior",
     "FusionError": "fusion.errors",
+    "Localizer": "fusion.localizer",
+    "Decision": "fusion.localizer",
+    "SensorSet": "fusion.sensors.sensor_set",
+    "load_case": "fusion.io.case",
+    "apply_calibration": "fusion.io.case",
+    "Observation": "fusion.io.observations",
+    "from_record": "fusion.io.observations",
+    "read_observations": "fusion.io.logs",
 }
 
 __all__ = ["SAFETY_NOTICE", "__version__", *_LAZY]
