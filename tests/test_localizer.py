@@ -152,7 +152,7 @@ def test_a_carried_robot_is_reseeded_from_readings_that_agree_elsewhere():
     case = _seeded(load_case(Path(__file__).parents[1] / "cases" / "carried.toml"), 7)
     case = dataclasses.replace(case, run=dataclasses.replace(case.run, backends=("bayes",)))
     result = run_case(case)
-    ok, detail = _judge("carried", result, "bayes")
+    ok, detail = _judge(case, result, "bayes")
     assert ok, detail
     rows = result.rows
     start = next(i for i, r in enumerate(rows) if r.carried)

@@ -19,7 +19,7 @@ import numpy as np
 from fusion.backends.base import Backend
 from fusion.errors import RuleError
 
-__all__ = ["BACKENDS", "BackendKind", "build", "Backend", "backend_kind"]
+__all__ = ["BACKENDS", "BackendKind", "build", "Backend", "backend_kind", "rule_names"]
 
 
 def _bayes(grid, free, *, rule, motion, max_focal, report_region):
@@ -51,6 +51,7 @@ class BackendKind:
     bytes_per_cell: int  # resident memory per pose cell (measured on the demo case; fusion.budget)
     focal_sets: bool  # the rules that keep focal sets cost memory and time per focal set (fusion.budget)
     figure: tuple[str, str]  # the conflict figure the live view plots: (key of the figures, label)
+    rules: tuple[str, ...] = ()  # the combination rules it runs (the first is the default)
 
     def label(self, rule: str | None) -> str:
         """Short name of a setting: the back end, with its rule when it takes one."""
@@ -77,9 +78,15 @@ BACKENDS = {
         64,
         True,
         ("conflict", "conflict K = m(∅)"),
+        ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy", "disjunctive"),
     ),
 }
 """Back-end name -> what it is and how to build it; the order is the order tools list them in."""
+
+
+def rule_names() -> tuple[str, ...]:
+    """Every combination rule a back end runs, in the order they are listed."""
+    return tuple(dict.fromkeys(r for kind in BACKENDS.values() for r in kind.rules))
 
 
 def backend_kind(name: str) -> BackendKind:

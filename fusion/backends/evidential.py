@@ -20,6 +20,7 @@ import time
 
 import numpy as np
 
+from fusion.backends import BACKENDS
 from fusion.backends.base import (
     NO_OPINION,
     REGION_LEVEL,
@@ -42,7 +43,7 @@ from fusion.sensors.odometry import Motion
 
 __all__ = ["MassFilter", "FILTER_RULES"]
 
-FILTER_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy", "disjunctive")
+FILTER_RULES = BACKENDS["evidential"].rules
 # Built for the rules the contour filter cannot hold; it also runs Dempster's and the conjunctive rule, with no
 # cap, as the exact reference of the fidelity rows of ``fusion bench``.
 # Rules that normalise conflict away and so cannot absorb a totally conflicting reading.

@@ -212,9 +212,15 @@ def _run(model, args, points: int, settings: FitSettings, sensor: str, kind: str
                 fit.diagnostics[name] = {"r_hat": _worst(r_hat, max), "ess": _worst(ess, min)}
         for name, d in fit.diagnostics.items():
             if not d["r_hat"] <= RHAT_WARN:
-                fit.warnings.append(f"{name}: split R-hat {d['r_hat']:.3f} > {RHAT_WARN}; run more samples")
+                fit.warnings.append(
+                    f"{name}: split R-hat {d['r_hat']:.3f} is above {RHAT_WARN}, so the chains disagree; raise "
+                    "--samples and --warmup (or --chains)"
+                )
             if not d["ess"] >= ESS_WARN:
-                fit.warnings.append(f"{name}: effective sample size {d['ess']:.0f} < {ESS_WARN}; run more samples")
+                fit.warnings.append(
+                    f"{name}: only {d['ess']:.0f} effective draws (at least {ESS_WARN} make the interval's ends "
+                    "reliable); raise --samples"
+                )
     else:
         from pyro.infer import SVI, Predictive, Trace_ELBO
         from pyro.infer.autoguide import AutoNormal

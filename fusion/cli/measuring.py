@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from fusion.cli.opening import builtin_case, notice, open_case, progress_for
+from fusion.cli.opening import builtin_case, builtin_cases, case_file, notice, open_case, progress_for
 from fusion.cli.outputs import claim_output, where
 from fusion.errors import FusionError
 
@@ -22,6 +22,7 @@ def bench_command(args: argparse.Namespace) -> int:
     from fusion.view.tables import bench_table, fidelity_table
 
     console = Console(stderr=args.json)
+    notice(console)
     sizes = SIZES[:1] if args.quick else SIZES
     with console.status("measuring… (each figure is the fastest of several runs)"):
         rows = run_bench(sizes=sizes, repeats=args.repeats, seed=args.seed)
@@ -40,6 +41,14 @@ def bench_command(args: argparse.Namespace) -> int:
     return 0
 
 
+def case_file_or_error(text: str) -> str:
+    """A case file for ``--case`` (argparse cannot type it: attribution takes names only)."""
+    try:
+        return case_file(text)
+    except argparse.ArgumentTypeError as err:
+        raise FusionError(str(err)) from None
+
+
 def targets_command(args: argparse.Namespace) -> int:
     import json
 
@@ -49,11 +58,14 @@ def targets_command(args: argparse.Namespace) -> int:
     from fusion.view.tables import targets_table
 
     console = Console(stderr=args.json)
-    known = ATTRIBUTION_CASES if args.attribution else FAULT_CASES
-    cases = args.case or list(known)
-    unknown = [c for c in cases if c not in known]
-    if unknown:
-        raise FusionError(f"unknown fault case {unknown[0]!r}; choose among: {', '.join(known)}")
+    if args.attribution:
+        cases = args.case or list(ATTRIBUTION_CASES)
+        unknown = [c for c in cases if c not in ATTRIBUTION_CASES]
+        if unknown:
+            raise FusionError(f"unknown attribution case {unknown[0]!r}; choose among: {', '.join(ATTRIBUTION_CASES)}")
+    else:  # a shipped case by name, or any case file: its target follows from what it holds
+        cases = [c if c in builtin_cases() else case_file_or_error(c) for c in (args.case or FAULT_CASES)]
+    notice(console)
 
     def landed(case: str, seed: int, verdicts) -> None:
         # Each verdict is printed as it lands, so a run stopped part-way keeps what it measured.

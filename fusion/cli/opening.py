@@ -7,7 +7,7 @@ import contextlib
 
 from fusion import SAFETY_NOTICE
 
-__all__ = ["builtin_case", "open_case", "notice", "progress_bar", "progress_for"]
+__all__ = ["builtin_case", "builtin_cases", "case_file", "open_case", "notice", "progress_bar", "progress_for"]
 
 
 def builtin_case(name: str):
@@ -15,6 +15,32 @@ def builtin_case(name: str):
     from importlib import resources
 
     return resources.files("fusion") / "cases" / name
+
+
+def builtin_cases() -> list[str]:
+    """The names of the shipped cases (``fusion cases`` lists them with what each stresses)."""
+    return sorted(p.name.removesuffix(".toml") for p in builtin_case("").iterdir() if p.name.endswith(".toml"))
+
+
+def case_file(text: str) -> str:
+    """A case argument: a file, or the name of a shipped case (``depot``, ``depot.toml``) when no such file is
+    here.  argparse's type: an argument that is neither is refused at once, with the names it could have been."""
+    import argparse
+    from pathlib import Path
+
+    if Path(text).exists():
+        return text
+    name = text.removesuffix(".toml")
+    if "/" not in text and "\\" not in text and name in builtin_cases():
+        return str(builtin_case(f"{name}.toml"))
+    import difflib
+
+    close = difflib.get_close_matches(name, builtin_cases(), n=1)
+    hint = f"; did you mean {close[0]!r}?" if close else ""
+    raise argparse.ArgumentTypeError(
+        f"no case file {text!r}{hint} (shipped cases, usable by name: {', '.join(builtin_cases())}; "
+        "fusion cases lists them)"
+    )
 
 
 def open_case(path, calibration=None, seed=None):

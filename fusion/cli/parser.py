@@ -7,12 +7,74 @@ import argparse
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.cli.args import count_up_to, number, replace_option, seed_value
+from fusion.cli.opening import case_file
 
 __all__ = ["build_parser"]
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse, with the nearest names suggested for a mistyped option or command."""
+
+    _command: str | None = None  # the command of the arguments last parsed: its options are suggested
+
+    def parse_known_args(self, args=None, namespace=None):
+        found, extras = super().parse_known_args(args, namespace)
+        self._command = getattr(found, "command", None)
+        return found, extras
+
+    def error(self, message: str):
+        import difflib
+        import re
+
+        hints = []
+        unknown = re.match(r"unrecognized arguments: (.*)", message)
+        if unknown:
+            known = _option_strings(_command_parser(self, self._command) or self)  # without a command: its own
+            for token in unknown[1].split():
+                name = token.split("=", 1)[0]
+                if name.startswith("-"):
+                    close = difflib.get_close_matches(name, known, n=2, cutoff=0.6)
+                    if close:
+                        hints.append(f"{name}: did you mean {' or '.join(close)}?")
+        choice = re.search(r"invalid choice: '([^']*)' \(choose from (.*)\)", message)
+        if choice:
+            options = re.findall(r"'([^']*)'", choice[2])
+            close = difflib.get_close_matches(choice[1], options, n=2, cutoff=0.5)
+            if close:
+                hints.append(f"did you mean {' or '.join(close)}?")
+        super().error(message + "".join(f"\n  {h}" for h in hints))
+
+
+def _command_parser(parser: argparse.ArgumentParser, command: str | None):
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction) and command in action.choices:
+            return action.choices[command]
+    return None
+
+
+def _option_strings(parser: argparse.ArgumentParser) -> list[str]:
+    """The long options of the parser (not of its commands)."""
+    return sorted({o for action in parser._actions for o in action.option_strings if o.startswith("--")})
+
+
+def _command(commands, name: str) -> argparse.ArgumentParser:
+    """A command's parser with its description and examples (``help_text.COMMANDS``)."""
+    import textwrap
+
+    from fusion.cli.help_text import COMMANDS, epilog
+
+    text = COMMANDS[name]
+    return commands.add_parser(
+        name,
+        help=text.summary,
+        description=textwrap.fill(text.description, 78),
+        epilog=epilog(name),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="fusion",
         description="Evidence fusion for mobile-robot localization (Bayesian and Dempster–Shafer).",
         epilog=SAFETY_NOTICE,
@@ -28,30 +90,36 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _add_simulating(commands) -> None:
     from fusion.backends import BACKENDS
-    from fusion.cli.simulating import check_command, compare_command, demo_command, run_command
+    from fusion.cli.simulating import cases_command, check_command, compare_command, demo_command, run_command
 
-    demo = commands.add_parser("demo", help="run the built-in cold-store depot case on both back ends, live")
+    demo = _command(commands, "demo")
+    demo.add_argument("--case", type=case_file, help="shipped case name or case file (default: depot)")
     _run_options(demo)
     demo.set_defaults(run=demo_command)
-    run = commands.add_parser("run", help="simulate a case file and run the back ends on it")
-    run.add_argument("case", help="case file (TOML); see cases/README.md")
+    _command(commands, "cases").set_defaults(run=cases_command)
+    run = _command(commands, "run")
+    run.add_argument("case", type=case_file, help="case file (TOML), or a shipped case by name (fusion cases)")
     run.add_argument(
         "--backend",
         action="append",
         choices=tuple(BACKENDS),
         help="back end to run (repeat for both; default: the case's [run] backends)",
     )
-    run.add_argument("--rule", help="combination rule of the evidential back end (default: the case's)")
+    run.add_argument(
+        "--rule", help=f"combination rule of the evidential back end: {_rule_names()} (default: the case's)"
+    )
     _run_options(run)
     run.set_defaults(run=run_command)
-    check = commands.add_parser("check", help="validate a case file and say what it describes")
-    check.add_argument("case", help="case file (TOML)")
+    check = _command(commands, "check")
+    check.add_argument("case", type=case_file, help="case file (TOML), or a shipped case by name")
     check.add_argument("--preview", help="where to draw the site (PNG; default <case>-site.png in this folder)")
     check.add_argument("--no-preview", action="store_true", help="only validate; draw nothing")
     replace_option(check)
     check.set_defaults(run=check_command)
-    cmp = commands.add_parser("compare", help="run a grid of fusion settings over many seeds and rank them")
-    cmp.add_argument("case", help="case file (TOML); its [compare] table sets the default sweep")
+    cmp = _command(commands, "compare")
+    cmp.add_argument(
+        "case", type=case_file, help="case file (TOML) or shipped case name; its [compare] table sets the sweep"
+    )
     cmp.add_argument("--seeds", type=count_up_to(10_000), help="seeds per setting (default: the case's, else 50)")
     cmp.add_argument("--backend", action="append", help="back end to include (repeatable): bayes, evidential")
     cmp.add_argument("--rule", action="append", help="evidential combination rule to include (repeatable)")
@@ -74,7 +142,7 @@ def _add_measuring(commands) -> None:
     from fusion.backends import BACKENDS
     from fusion.cli.measuring import bench_command, soak_command, targets_command
 
-    bench = commands.add_parser("bench", help="time each back end's steps as ratios to floors measured in the same run")
+    bench = _command(commands, "bench")
     bench.add_argument("--repeats", type=count_up_to(1000), default=9, help="runs per figure, fastest kept (default 9)")
     bench.add_argument(
         "--seed", type=seed_value, default=0, help="seed of the synthetic beliefs and evidence (default 0)"
@@ -88,8 +156,10 @@ def _add_measuring(commands) -> None:
         help="also time the demo case's default compare sweep on SEEDS seeds, 1 worker vs 2 (minutes)",
     )
     bench.set_defaults(run=bench_command)
-    soak = commands.add_parser("soak", help="run many steps (or stream lines) and check the belief's invariants")
-    soak.add_argument("case", help="case file whose site, sensors and faults to run")
+    soak = _command(commands, "soak")
+    soak.add_argument(
+        "case", type=case_file, help="case file (or shipped case name) whose site, sensors, faults to run"
+    )
     soak.add_argument(
         "--steps", type=count_up_to(10**9), default=100_000, help="localizer steps per back end (default 100,000)"
     )
@@ -101,10 +171,14 @@ def _add_measuring(commands) -> None:
     replace_option(soak)
     soak.add_argument("--quiet", action="store_true", help="no progress bar")
     soak.set_defaults(run=soak_command)
-    targets = commands.add_parser("targets", help="measure the monitor's recovery and fault targets over seeds")
+    targets = _command(commands, "targets")
     targets.add_argument("--seeds", type=count_up_to(10_000), default=50, help="seeds per case (default 50)")
     targets.add_argument("--first-seed", type=seed_value, default=1, help="first seed (default 1)")
-    targets.add_argument("--case", action="append", help="fault case to run (repeatable; default: all)")
+    targets.add_argument(
+        "--case",
+        action="append",
+        help="shipped case name or case file (repeatable; default: carried, carried_blind, stuck_door, ghost, calm)",
+    )
     targets.add_argument(
         "--backend", action="append", choices=tuple(BACKENDS), help="back end (repeatable; default: both)"
     )
@@ -122,17 +196,19 @@ def _add_replaying(commands) -> None:
     from fusion.cli.replaying import inspect_command, scrub_command, stream_command
 
     first = next(iter(BACKENDS))
-    st = commands.add_parser("stream", help="read observations as JSON lines on stdin, write one decision per line")
-    st.add_argument("--site", required=True, help="case file whose site and sensors to use")
+    st = _command(commands, "stream")
+    st.add_argument("--site", type=case_file, required=True, help="case file whose site and sensors to use")
     st.add_argument("--backend", choices=tuple(BACKENDS), default=first, help=f"back end (default {first})")
     st.add_argument("--calibration", help="calibration file (from fusion calibrate) for the sensors' parameters")
     st.add_argument("--start", help="known start pose x,y,heading_deg (default: anywhere in free space)")
     st.set_defaults(run=stream_command)
-    ins = commands.add_parser("inspect", help="replay a recorded log on both back ends and explain its conflict")
+    ins = _command(commands, "inspect")
     ins.add_argument(
         "log", help="observations: JSON lines or CSV (docs/inspect.md), or a robot's tables or MCAP file with --layout"
     )
-    ins.add_argument("--site", required=True, help="case file whose site map and sensors the log was recorded with")
+    ins.add_argument(
+        "--site", type=case_file, required=True, help="case file whose site map and sensors the log was recorded with"
+    )
     ins.add_argument(
         "--layout", help="log layout (TOML, docs/recordings.md): which tables or MCAP topics feed which sensor"
     )
@@ -149,7 +225,7 @@ def _add_replaying(commands) -> None:
     ins.add_argument("--scrub", action="store_true", help="step through the replay in the terminal when it ends")
     ins.add_argument("--quiet", action="store_true", help="no progress bar")
     ins.set_defaults(run=inspect_command)
-    scr = commands.add_parser("scrub", help="step through a replay written by fusion inspect (keyboard)")
+    scr = _command(commands, "scrub")
     scr.add_argument("folder", help="output folder of fusion inspect")
     scr.set_defaults(run=scrub_command)
 
@@ -162,6 +238,12 @@ def _run_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--calibration", help="calibration file (from fusion calibrate) replacing the sensors' parameters")
 
 
+def _rule_names() -> str:
+    from fusion.backends import rule_names
+
+    return ", ".join(rule_names())
+
+
 def _figure_names() -> tuple[str, ...]:
     from fusion.compare import FIGURES
 
@@ -171,7 +253,7 @@ def _figure_names() -> tuple[str, ...]:
 def _add_calibrate(commands) -> None:
     from fusion.cli.replaying import calibrate_command
 
-    cal = commands.add_parser("calibrate", help="fit the sensor models' parameters to a log with known poses (pyro)")
+    cal = _command(commands, "calibrate")
     cal.add_argument(
         "log",
         help="observations: JSON lines or CSV, or a robot's tables or MCAP file with --layout (docs/recordings.md)",
@@ -180,7 +262,7 @@ def _add_calibrate(commands) -> None:
     cal.add_argument(
         "--truth", help="true poses, JSON lines (t, x_m, y_m, heading_deg); optional when the layout names them"
     )
-    cal.add_argument("--site", required=True, help="case file whose site and sensors to calibrate")
+    cal.add_argument("--site", type=case_file, required=True, help="case file whose site and sensors to calibrate")
     cal.add_argument("--out", help="calibration file to write (default: <log>-calibrated.toml beside the log)")
     cal.add_argument("--replace", action="store_true", help="overwrite the calibration file if it exists")
     cal.add_argument("--method", choices=("auto", "nuts", "svi"), default="auto", help="inference (default auto)")

@@ -10,6 +10,7 @@ from fusion.cli.opening import notice, open_case, progress_bar
 from fusion.cli.outputs import calibration_name, claim_output, where
 from fusion.errors import InputFileError
 from fusion.text import literal, plain
+from fusion.words import plural
 
 __all__ = ["calibrate_command", "stream_command", "inspect_command", "scrub_command"]
 
@@ -46,7 +47,7 @@ def calibrate_command(args: argparse.Namespace) -> int:
             case, args.log, args.truth, settings, progress=lambda s: status.update(f"fitting {s}…"), layout=layout
         )
     console.print(
-        f"[bold]Calibrated sensor parameters[/] ({result.observations:,} readings, {result.poses:,} true poses)"
+        f"[bold]Calibrated sensor parameters[/] ({plural(result.observations, 'reading')}, {plural(result.poses, 'true pose')})"
     )
     console.print(*calibration_tables(result, case))
     if result.no_model:
@@ -93,7 +94,7 @@ def stream_command(args: argparse.Namespace) -> int:
         loc.start_anywhere() if start == ANYWHERE else loc.start_at(*start)
     print(f"fusion stream: {args.backend} back end on {plain(case.site.name)}; {SAFETY_NOTICE}", file=sys.stderr)
     written, rejected = stream(loc)
-    print(f"fusion stream: {written} decisions, {rejected} lines rejected", file=sys.stderr)
+    print(f"fusion stream: {plural(written, 'decision')}, {plural(rejected, 'line')} rejected", file=sys.stderr)
     return 0
 
 

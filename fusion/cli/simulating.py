@@ -4,21 +4,40 @@ from __future__ import annotations
 
 import argparse
 
+from fusion import SAFETY_NOTICE
 from fusion.cli.opening import builtin_case, notice, open_case, progress_bar
 from fusion.cli.outputs import claim_output, known_rule, runs_in, where
 from fusion.errors import FusionError
 from fusion.text import literal, plain
+from fusion.words import plural
 
-__all__ = ["demo_command", "run_command", "check_command", "compare_command", "MAX_SWEEP_RUNS"]
+__all__ = ["demo_command", "cases_command", "run_command", "check_command", "compare_command", "MAX_SWEEP_RUNS"]
 
 MAX_SWEEP_RUNS = 100_000
 """Most runs one compare command may start (settings × seeds; the case's [compare] seeds are at most 10,000)."""
 
 
 def demo_command(args: argparse.Namespace) -> int:
-    args.case = str(builtin_case("depot.toml"))
+    args.case = args.case or str(builtin_case("depot.toml"))
     args.backend, args.rule = None, None
     return run_command(args)
+
+
+def cases_command(args: argparse.Namespace) -> int:
+    """The shipped cases: name, what each stresses (its description), and the folder that holds them."""
+    from fusion.cli.opening import builtin_cases
+    from fusion.io.case import load_case
+    from fusion.view.tables import cases_table
+
+    rows = []
+    for name in builtin_cases():
+        case = load_case(builtin_case(f"{name}.toml"))
+        rows.append((name, case.description or case.name))
+    print_table = cases_table(rows, str(builtin_case("")))
+    from rich.console import Console
+
+    Console().print(*print_table)
+    return 0
 
 
 def run_command(args: argparse.Namespace) -> int:
@@ -65,6 +84,7 @@ def check_command(args: argparse.Namespace) -> int:
     from fusion.site_check import describe
 
     case = load_case(args.case)  # the same validation as every command: what passes here can run
+    print(SAFETY_NOTICE)
     print(describe(case, args.case))
     if not args.no_preview:
         from fusion.view.site_preview import preview_path, write_preview
@@ -92,7 +112,7 @@ def compare_command(args: argparse.Namespace) -> int:
     console = Console()
     notice(console)
     console.print(
-        f"{literal(case.name)}: {len(settings)} settings × {spec.seeds} seeds = {runs:,} runs "
+        f"{literal(case.name)}: {plural(len(settings), 'setting')} × {plural(spec.seeds, 'seed')} = {plural(runs, 'run')} "
         f"on the {args.engine} engine (roughly {runs * per_run / 3600:,.1f} h of processor time by the case's "
         f"estimate, shared by the workers); results go to {literal(out_dir)}"
     )
@@ -121,7 +141,7 @@ def compare_command(args: argparse.Namespace) -> int:
     identity = bayes_dempster_identity(case)
     files = write_report(out_dir, records, settings, summary, verdict_list, identity, args.rank_by, case.name)
     folder.finish(["sweep.json", *files, *runs_in(out_dir)])
-    for t in tables(summary, settings, args.rank_by, f"{literal(case.name)}, {len(records)} runs"):
+    for t in tables(summary, settings, args.rank_by, f"{literal(case.name)}, {plural(len(records), 'run')}"):
         console.print(t)
     for v in verdict_list:
         console.print(f"• {v.sentence}")

@@ -20,6 +20,7 @@ from fusion.compare.runs import run_one
 from fusion.compare.settings import ENGINES, Setting
 from fusion.errors import FusionError
 from fusion.io.bounded import read_text
+from fusion.words import plural
 
 
 # ----------------------------------------------------------------------------- the sweep
@@ -112,12 +113,12 @@ def run_sweep(
             (_run_dask if engine == "dask" else run_in_processes)(jobs, workers, address, finished, failed, order)
     except KeyboardInterrupt:
         raise SweepInterrupted(
-            f"interrupted: {len(done)} of {len(wanted)} runs are saved in {folder / 'runs'}; "
+            f"interrupted: {len(done)} of {plural(len(wanted), 'run')} saved in {folder / 'runs'}; "
             "run the same command again to resume"
         ) from None
     if failures:
         raise FusionError(
-            f"{len(failures)} of {len(todo)} runs failed (the {len(done)} finished runs are saved in "
+            f"{len(failures)} of {plural(len(todo), 'run')} failed (the {plural(len(done), 'finished run')} saved in "
             f"{folder / 'runs'}); first: {failures[0]}"
         )
     return [done[(s.key, seed)] for s, seed in wanted if (s.key, seed) in done]

@@ -9,6 +9,7 @@ import math
 from dataclasses import dataclass
 
 from fusion.compare.settings import FIGURES
+from fusion.words import plural
 
 __all__ = ["RunFigures", "RunSeries", "RunRecord", "Verdict", "IdentityCheck"]
 
@@ -145,5 +146,5 @@ class IdentityCheck:
         verdict = "holds" if self.holds else "FAILS: the two back ends' rules disagree; please report this"
         return (
             f"{verdict}: largest probability difference {self.max_abs_difference:.1e} after "
-            f"{self.readings} readings on {self.cells} cells."
+            f"{plural(self.readings, 'reading')} on {plural(self.cells, 'cell')}."
         )

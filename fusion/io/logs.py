@@ -23,6 +23,7 @@ from fusion.errors import InputFileError, ObservationError
 from fusion.io.json_line import decode_line
 from fusion.io.observations import Observation, from_record
 from fusion.io.timeline import Timeline
+from fusion.words import plural
 
 __all__ = [
     "SetAside",
@@ -79,7 +80,7 @@ class LogRead:
     lines: int
 
     def summary(self) -> str:
-        return f"{self.path}: {len(self.records):,} records read, {len(self.set_aside):,} of {self.lines:,} lines set aside"
+        return f"{self.path}: {plural(len(self.records), 'record')} read, {len(self.set_aside):,} of {plural(self.lines, 'line')} set aside"
 
 
 @dataclass
@@ -384,5 +385,8 @@ def require_records(read: LogRead, what: str) -> None:
         return
     first = "; ".join(f"line {s.line}: {s.reason}" for s in read.set_aside[:3])
     raise InputFileError(
-        Path(read.path), None, None, f"no usable {what} in {read.lines} lines" + (f" ({first})" if first else "")
+        Path(read.path),
+        None,
+        None,
+        f"no usable {what} in {plural(read.lines, 'line')}" + (f" ({first})" if first else ""),
     )

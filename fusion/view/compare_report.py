@@ -19,6 +19,7 @@ import numpy as np
 from fusion.compare import FIGURES, RunRecord, Setting
 from fusion.io.outdir import atomic_write
 from fusion.view.html_page import figures_html, page, png_of, pyplot
+from fusion.words import plural
 
 __all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame"]
 
@@ -193,7 +194,7 @@ def _html(records, order, summary, verdict_list, identity, rank_by, case_name, i
     )
     words = "".join(f"<li>{e(v.sentence)}</li>" for v in verdict_list)
     legend = "".join(f"<li><b>{e(f.label)}</b>: {e(f.explain)}</li>" for f in FIGURES.values())
-    body_html = f"""<p>{len(records)} runs: {len(order)} settings × {len(seeds)} seeds. Ranked by <b>{e(rank_by)}</b>.
+    body_html = f"""<p>{plural(len(records), "run")}: {plural(len(order), "setting")} × {plural(len(seeds), "seed")}. Ranked by <b>{e(rank_by)}</b>.
 Each figure is the mean over seeds ± the half-width of its 95% Student-t interval.</p>
 <table><tr><th>#</th><th>setting</th>{head}</tr>{body}</table>
 <h2>Verdicts</h2><ul>{words}</ul>

@@ -22,6 +22,7 @@ from fusion.monitor.episodes import QUIET_TICKS
 from fusion.view.html_page import figures_html, page, png_of, pyplot
 from fusion.view.inspect_summary import EPISODE_ROWS
 from fusion.view.live import BACKEND_TITLES
+from fusion.words import plural
 
 __all__ = ["write_report", "MAP_EPISODES"]
 
@@ -221,8 +222,8 @@ def _html(found, images: dict[str, bytes]) -> str:
         else ""
     )
     body = f"""{warn}
-<p>Log <code>{e(found.log)}</code> on site <b>{e(found.site)}</b>: {found.lines:,} lines, {found.records:,} observations,
-{found.ticks:,} ticks ({found.duration_s:.1f} s of log); {found.used:,} readings absorbed by both back ends.
+<p>Log <code>{e(found.log)}</code> on site <b>{e(found.site)}</b>: {plural(found.lines, "line")}, {plural(found.records, "observation")},
+{plural(found.ticks, "tick")} ({found.duration_s:.1f} s of log); {plural(found.used, "reading")} absorbed by both back ends.
 Start: {e(found.start)}. Rows set aside: {found.set_aside:,} ({aside}).{" <b>Interrupted</b>: the report covers the ticks read." if found.interrupted else ""}</p>
 {"<h2>True error</h2><ul>" + errors + "</ul>" if errors else ""}
 <h2>Conflict episodes ({len(found.episodes)})</h2>

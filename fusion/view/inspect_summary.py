@@ -10,6 +10,7 @@ from fusion import SAFETY_NOTICE
 from fusion.monitor import ALERT, QUARANTINE, RELOCALIZE
 from fusion.scoring import HOLD_S, WITHIN_DEG, WITHIN_M
 from fusion.text import literal, plain
+from fusion.words import plural
 
 __all__ = ["summary_renderables", "EPISODE_ROWS"]
 
@@ -28,8 +29,8 @@ def summary_renderables(found):
     head.add_row("site", literal(found.site))
     head.add_row(
         "read",
-        f"{found.lines:,} lines → {found.records:,} observations in {found.ticks:,} ticks "
-        f"({found.duration_s:.1f} s of log); {found.used:,} readings absorbed by both back ends",
+        f"{plural(found.lines, 'line')} → {plural(found.records, 'observation')} in {plural(found.ticks, 'tick')} "
+        f"({found.duration_s:.1f} s of log); {plural(found.used, 'reading')} absorbed by both back ends",
     )
     aside = ", ".join(f"{n:,} {kind}" for kind, n in found.reasons.most_common())
     head.add_row(

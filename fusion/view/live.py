@@ -19,7 +19,6 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
 from rich.text import Text
 
-from fusion import SAFETY_NOTICE
 from fusion.backends import BACKENDS
 from fusion.belief.coarse import coarse_plane
 from fusion.step_row import pose_errors
@@ -163,7 +162,7 @@ class RunView:
             title="monitor actions",
             border_style="magenta",
         )
-        return Group(head, maps, events, self.progress, Text(SAFETY_NOTICE, style="dim"))
+        return Group(head, maps, events, self.progress)  # the command prints the safety notice once, before
 
 
 def summary_table(summary: dict) -> Table:

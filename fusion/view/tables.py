@@ -135,3 +135,13 @@ def _maybe(value, fmt: str) -> str:
     import math
 
     return "" if value is None or not math.isfinite(value) else fmt.format(value)
+
+
+def cases_table(rows: list[tuple[str, str]], folder: str) -> list:
+    """``fusion cases``: each shipped case by the name commands accept, with what it stresses."""
+    table = Table(title="Shipped cases (use the name anywhere a case file is asked for)")
+    table.add_column("name", no_wrap=True)
+    table.add_column("what it stresses", overflow="fold")
+    for name, words in rows:
+        table.add_row(name, literal(words))
+    return [table, f"They are in {literal(folder)}; copy one to start a case of your own (cases/README.md)."]
