@@ -98,9 +98,10 @@ def compare_command(args: argparse.Namespace) -> int:
     from rich.console import Console
 
     from fusion.budget import estimate
-    from fusion.compare import SweepInterrupted, bayes_dempster_identity, run_sweep, summarise, sweep_digest
-    from fusion.compare import verdicts as verdicts_of
-    from fusion.view.compare_report import tables, write_report
+    from fusion.compare import SweepInterrupted, run_sweep, sweep_digest
+    from fusion.compare.conclusion import conclude
+    from fusion.view.compare_report import write_report
+    from fusion.view.compare_tables import tables
 
     case, settings, spec, seeds = _sweep_plan(args)
     runs = len(settings) * spec.seeds
@@ -136,16 +137,18 @@ def compare_command(args: argparse.Namespace) -> int:
         folder.finish(["sweep.json", *runs_in(out_dir)])
         console.print(f"[yellow]{literal(err)}[/]")
         return 130
-    summary = summarise(records, settings)
-    verdict_list = verdicts_of(records, settings)
-    identity = bayes_dempster_identity(case)
-    files = write_report(out_dir, records, settings, summary, verdict_list, identity, args.rank_by, case.name)
+    found = conclude(case, records, settings, args.rank_by)
+    files = write_report(out_dir, found)
     folder.finish(["sweep.json", *files, *runs_in(out_dir)])
-    for t in tables(summary, settings, args.rank_by, f"{literal(case.name)}, {plural(len(records), 'run')}"):
+    title = f"{literal(case.name)}, {plural(len(records), 'run')}"
+    for t in tables(found.summary, settings, args.rank_by, title, console.width):
         console.print(t)
-    for v in verdict_list:
-        console.print(f"• {v.sentence}")
-    console.print(f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {identity.words()}")
+    for v in found.verdicts:
+        console.print(f"• {literal(v.sentence)}")
+    console.print(
+        f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {found.identity.words()}"
+    )
+    console.print(f"[bold]{literal(found.recommendation.text)}[/]")
     console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
     return 0
 

@@ -8,7 +8,7 @@ the rule).  Each run yields one row of figures (``FIGURES``) plus its per-tick e
 and calibration series, and is written to its own file as soon as it finishes, so an
 interrupted sweep loses nothing and the same command resumes it.
 
-Intervals over seeds are Student-t intervals of the mean (scipy.stats.t); the
+Intervals over seeds are BCa bootstrap intervals of the mean (scipy.stats.bootstrap); the
 verdict on each figure compares the two best settings seed by seed (paired, since
 they saw the same readings) with the Wilcoxon signed-rank test (scipy.stats.wilcoxon).
 

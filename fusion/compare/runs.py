@@ -124,15 +124,21 @@ def _figures(case: Case, rows: list[StepRow], calib: list[tuple]) -> tuple[RunFi
     return figures, series
 
 
-def _fault_windows(case: Case) -> list[tuple[float, float]]:
-    """Intervals (s) during which an alert is justified: every effective fault, every carry."""
+def fault_spans(case: Case) -> list[tuple[float, float, str]]:
+    """(start s, end s, what) of every effective fault and every carry (a carry's span: the ticks it counts as
+    just carried); plots shade them."""
     out = []
     for s in case.sensors:
         for f in s.faults:
             if "rate" in f.options and float(f.options["rate"]) <= 0:
                 continue  # a fault that never fires is no fault
             end = f.start_s + case.run.tick_s if f.kind == "slip" else f.end_s
-            out.append((f.start_s, end + ALERT_GRACE_S))
+            out.append((f.start_s, end, f"{s.name}: {f.kind}"))
     for c in case.require_route().carries:
-        out.append((c.at_s, c.at_s + CARRY_WINDOW_TICKS * case.run.tick_s + ALERT_GRACE_S))
+        out.append((c.at_s, c.at_s + CARRY_WINDOW_TICKS * case.run.tick_s, "carried"))
     return out
+
+
+def _fault_windows(case: Case) -> list[tuple[float, float]]:
+    """Intervals (s) during which an alert is justified: every effective fault, every carry, with the grace."""
+    return [(a, b + ALERT_GRACE_S) for a, b, _ in fault_spans(case)]

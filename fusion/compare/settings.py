@@ -28,22 +28,33 @@ class Figure:
     better: str  # "low" or "high"
     unit: str
     explain: str
+    low: float = 0.0  # the range a run's value can take (intervals over seeds stay inside it)
+    high: float = math.inf
 
 
 FIGURES: dict[str, Figure] = {
     "median_error_m": Figure("median error", "low", "m", "median distance of the estimate from the truth"),
     "p95_error_m": Figure("p95 error", "low", "m", "95th percentile of the distance from the truth"),
-    "median_heading_error_deg": Figure("median heading error", "low", "°", "median heading error"),
-    "p95_heading_error_deg": Figure("p95 heading error", "low", "°", "95th percentile of the heading error"),
+    "median_heading_error_deg": Figure("median heading error", "low", "°", "median heading error", 0.0, 180.0),
+    "p95_heading_error_deg": Figure(
+        "p95 heading error", "low", "°", "95th percentile of the heading error", 0.0, 180.0
+    ),
     "in_region": Figure(
-        "true cell in region", "high", "", "share of ticks with the true cell among the most probable cells holding 95%"
+        "true cell in region",
+        "high",
+        "",
+        "share of ticks with the true cell among the most probable cells holding 95%",
+        0.0,
+        1.0,
     ),
     "nll": Figure("NLL", "low", "nats", "mean −log p(true cell) (p floored at 1e-12)"),
-    "brier": Figure("Brier", "low", "", "mean Brier score Σ(p − 1[true])² over cells"),
+    "brier": Figure("Brier", "low", "", "mean Brier score Σ(p − 1[true])² over cells", 0.0, 2.0),
     "recovery_s": Figure("recovery", "low", "s", "seconds after a carry until within 0.5 m and 15° again"),
-    "recovered": Figure("recovered in 10 ticks", "high", "", "share of carries recovered within 10 ticks"),
-    "alert_precision": Figure("alert precision", "high", "", "share of alert episodes that start during a fault"),
-    "alert_recall": Figure("alert recall", "high", "", "share of injected faults met by an alert"),
+    "recovered": Figure("recovered in 10 ticks", "high", "", "share of carries recovered within 10 ticks", 0.0, 1.0),
+    "alert_precision": Figure(
+        "alert precision", "high", "", "share of alert episodes that start during a fault", 0.0, 1.0
+    ),
+    "alert_recall": Figure("alert recall", "high", "", "share of injected faults met by an alert", 0.0, 1.0),
     "false_alerts": Figure("false alerts", "low", "", "alert episodes starting outside every fault"),
     "ms_per_step": Figure("cost", "low", "ms/step", "mean wall time of one localizer step"),
 }

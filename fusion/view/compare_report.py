@@ -11,32 +11,20 @@ from __future__ import annotations
 
 import html
 import io
-import math
 from pathlib import Path
 
 import numpy as np
 
 from fusion.compare import FIGURES, RunRecord, Setting
+from fusion.compare.conclusion import Comparison
+from fusion.compare.verdicts import INTERVAL
 from fusion.io.outdir import atomic_write
+from fusion.view.compare_tables import TABLE_FIGURES, cell, ranked
 from fusion.view.html_page import figures_html, page, png_of, pyplot
 from fusion.words import plural
 
-__all__ = ["TABLE_FIGURES", "ranked", "table", "tables", "write_report", "runs_frame"]
+__all__ = ["write_report", "runs_frame"]
 
-TABLE_FIGURES = (
-    "median_error_m",
-    "p95_error_m",
-    "median_heading_error_deg",
-    "in_region",
-    "nll",
-    "brier",
-    "recovery_s",
-    "recovered",
-    "alert_precision",
-    "alert_recall",
-    "false_alerts",
-    "ms_per_step",
-)
 PLOTTED_SETTINGS = 8
 """At most this many settings (the best ranked) share one plot, so the lines stay readable."""
 
@@ -53,80 +41,40 @@ def runs_frame(records: list[RunRecord]):
     return pd.DataFrame(rows)
 
 
-def ranked(summary, settings: list[Setting], rank_by: str) -> list[Setting]:
-    """Settings from best to worst on ``rank_by`` (settings without a value last)."""
-    fig = FIGURES[rank_by]
-    means = summary[summary.figure == rank_by].set_index("key")["mean"]
-
-    def score(s: Setting):
-        v = float(means.get(s.key, math.nan))
-        return (not math.isfinite(v), v if fig.better == "low" else -v)
-
-    return sorted(settings, key=score)
-
-
-def _cell(summary, key: str, name: str) -> str:
-    row = summary[(summary.key == key) & (summary.figure == name)]
-    if row.empty or not math.isfinite(float(row["mean"].iloc[0])):
-        return "–"
-    mean, lo, hi = (float(row[c].iloc[0]) for c in ("mean", "low", "high"))
-    digits = 2 if name not in ("ms_per_step", "false_alerts", "recovery_s") else 1
-    text = f"{mean:.{digits}f}"
-    if math.isfinite(lo):
-        text += f" ±{(hi - lo) / 2:.{digits}f}"
-    return text
-
-
-TABLE_GROUPS = {
-    "accuracy and calibration": TABLE_FIGURES[:6],
-    "recovery, alerts and cost": TABLE_FIGURES[6:],
-}
-
-
-def table(summary, settings: list[Setting], rank_by: str, title: str, figures=TABLE_FIGURES):
-    from rich.table import Table
-
-    t = Table(title=title, caption=f"mean over seeds ±half-width of its 95% t-interval; ranked by {rank_by}")
-    t.add_column("#", justify="right")
-    t.add_column("setting", overflow="fold")
-    for name in figures:
-        f = FIGURES[name]
-        arrow = "↓" if f.better == "low" else "↑"
-        style = "bold" if name == rank_by else None
-        t.add_column(
-            f"{f.label}{' (' + f.unit + ')' if f.unit else ''} {arrow}", justify="right", style=style, overflow="fold"
-        )
-    for i, s in enumerate(ranked(summary, settings, rank_by), 1):
-        t.add_row(str(i), s.label, *(_cell(summary, s.key, n) for n in figures))
-    return t
-
-
-def tables(summary, settings: list[Setting], rank_by: str, title: str) -> list:
-    """The comparison as two narrower tables (one terminal width each), same ranking."""
-    return [table(summary, settings, rank_by, f"{title}: {group}", figs) for group, figs in TABLE_GROUPS.items()]
-
-
 # ----------------------------------------------------------------------------- plots
-def _plots(records, order: list[Setting]) -> dict[str, bytes]:
+LINE_STYLES = ("-", "--", "-.", ":")
+MARKERS = ("o", "s", "^", "D", "v", "x", "P", "*")
+"""Lines differ in style and marker as well as colour, so no line hides another and print stays readable."""
+
+
+def _style(i: int) -> dict:
+    return {"ls": LINE_STYLES[i % len(LINE_STYLES)], "marker": MARKERS[i % len(MARKERS)], "markevery": 0.1}
+
+
+def _plots(found: Comparison, order: list[Setting]) -> dict[str, bytes]:
     plt = pyplot()
+    records = found.records
     shown = order[:PLOTTED_SETTINGS]
     out = {}
     fig, ax = plt.subplots(figsize=(9, 4.5), dpi=110)
-    for s in shown:
+    for k, (a, b, what) in enumerate(found.fault_spans):
+        ax.axvspan(a, b, color="#f2c14e", alpha=0.25, lw=0, label="fault or carry" if k == 0 else None)
+        ax.text(a, 1.0, f" {what}", transform=ax.get_xaxis_transform(), fontsize=7, va="top", rotation=90)
+    for i, s in enumerate(shown):
         runs = [r.series for r in records if r.key == s.key]
         if not runs:
             continue
         n = min(len(r.t) for r in runs)
         err = np.array([r.error_m[:n] for r in runs])
         t = np.array(runs[0].t[:n])
-        (line,) = ax.plot(t, np.median(err, axis=0), label=s.label, lw=1.3)
+        (line,) = ax.plot(t, np.median(err, axis=0), label=s.label, lw=1.3, ms=4, **_style(i))
         if len(runs) > 1:
             lo, hi = np.percentile(err, [25, 75], axis=0)
-            ax.fill_between(t, lo, hi, color=line.get_color(), alpha=0.15, lw=0)
-    ax.set_yscale("symlog", linthresh=0.5)
+            ax.fill_between(t, lo, hi, color=line.get_color(), alpha=0.12, lw=0)
+    ax.set_ylim(bottom=0)
     ax.set_xlabel("time (s)")
     ax.set_ylabel("position error (m)")
-    ax.set_title("Position error over time: median over seeds, band 25–75%")
+    ax.set_title("Position error over time: median over seeds, band 25–75%; shaded: injected faults and carries")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8, loc="upper left")
     out["error_over_time.png"] = png_of(fig)
@@ -134,10 +82,10 @@ def _plots(records, order: list[Setting]) -> dict[str, bytes]:
 
     fig, ax = plt.subplots(figsize=(5.5, 5.5), dpi=110)
     alphas = np.linspace(0, 1, 101)
-    for s in shown:
+    for i, s in enumerate(shown):
         levels = np.concatenate([r.series.level for r in records if r.key == s.key] or [np.zeros(0)])
         if levels.size:
-            ax.plot(alphas, [(levels < a).mean() for a in alphas], label=s.label, lw=1.3)
+            ax.plot(alphas, [(levels < a).mean() for a in alphas], label=s.label, lw=1.3, ms=4, **_style(i))
     ax.plot([0, 1], [0, 1], color="0.5", ls="--", lw=1, label="calibrated")
     ax.set_xlabel("nominal probability of the region")
     ax.set_ylabel("share of ticks with the true cell inside")
@@ -150,11 +98,11 @@ def _plots(records, order: list[Setting]) -> dict[str, bytes]:
 
 
 # ----------------------------------------------------------------------------- files
-def write_report(folder, records, settings, summary, verdict_list, identity, rank_by: str, case_name: str) -> list[str]:
+def write_report(folder, found: Comparison) -> list[str]:
     """Write every file of the sweep's report; returns their names.  Parquet only when pyarrow is present."""
     folder = Path(folder)
     written = []
-    frame = runs_frame(records)
+    frame = runs_frame(found.records)
     atomic_write(folder / "runs.csv", frame.to_csv(index=False))
     written.append("runs.csv")
     try:
@@ -166,20 +114,21 @@ def write_report(folder, records, settings, summary, verdict_list, identity, ran
         frame.to_parquet(buf, index=False)
         atomic_write(folder / "runs.parquet", buf.getvalue())
         written.append("runs.parquet")
-    atomic_write(folder / "settings.csv", summary.to_csv(index=False))
+    atomic_write(folder / "settings.csv", found.summary.to_csv(index=False))
     written.append("settings.csv")
-    order = ranked(summary, settings, rank_by)
-    images = _plots(records, order)
+    order = ranked(found.summary, found.settings, found.rank_by)
+    images = _plots(found, order)
     for name, data in images.items():
         atomic_write(folder / name, data)
         written.append(name)
-    page = _html(records, order, summary, verdict_list, identity, rank_by, case_name, images)
+    page = _html(found, order, images)
     atomic_write(folder / "report.html", page)
     written.append("report.html")
     return written
 
 
-def _html(records, order, summary, verdict_list, identity, rank_by, case_name, images) -> str:
+def _html(found: Comparison, order, images) -> str:
+    records, summary, rank_by = found.records, found.summary, found.rank_by
     e = html.escape
     seeds = sorted({r.seed for r in records})
     head = "".join(
@@ -188,18 +137,19 @@ def _html(records, order, summary, verdict_list, identity, rank_by, case_name, i
     )
     body = "".join(
         f"<tr><td>{i}</td><td>{e(s.label)}</td>"
-        + "".join(f"<td>{e(_cell(summary, s.key, n))}</td>" for n in TABLE_FIGURES)
+        + "".join(f"<td>{e(cell(summary, s.key, n))}</td>" for n in TABLE_FIGURES)
         + "</tr>"
         for i, s in enumerate(order, 1)
     )
-    words = "".join(f"<li>{e(v.sentence)}</li>" for v in verdict_list)
+    words = "".join(f"<li>{e(v.sentence)}</li>" for v in found.verdicts)
     legend = "".join(f"<li><b>{e(f.label)}</b>: {e(f.explain)}</li>" for f in FIGURES.values())
     body_html = f"""<p>{plural(len(records), "run")}: {plural(len(order), "setting")} × {plural(len(seeds), "seed")}. Ranked by <b>{e(rank_by)}</b>.
-Each figure is the mean over seeds ± the half-width of its 95% Student-t interval.</p>
+Each figure is the mean over seeds, with its {e(INTERVAL)} in brackets.</p>
 <table><tr><th>#</th><th>setting</th>{head}</tr>{body}</table>
+<h2>Recommendation</h2><p><b>{e(found.recommendation.text)}</b></p>
 <h2>Verdicts</h2><ul>{words}</ul>
 <p>Sanity check (Shafer 1976, Dempster's rule on Bayesian mass functions is Bayes' rule):
-{e(identity.words())}</p>
+{e(found.identity.words())}</p>
 <h2>Plots</h2>{figures_html(images)}
 <h2>Figures</h2><ul>{legend}</ul>"""
-    return page(f"Fusion comparison: {case_name}", body_html)
+    return page(f"Fusion comparison: {found.case_name}", body_html)

@@ -1,0 +1,91 @@
+"""The comparison in the terminal: settings ranked on one figure, each figure's mean over seeds with its interval,
+in as many tables as the terminal's width needs (setting names and figure labels are never cut)."""
+
+from __future__ import annotations
+
+import math
+
+from fusion.compare import FIGURES, Setting
+from fusion.compare.verdicts import INTERVAL
+
+__all__ = ["TABLE_FIGURES", "ranked", "cell", "tables"]
+
+TABLE_FIGURES = (
+    "median_error_m",
+    "p95_error_m",
+    "median_heading_error_deg",
+    "in_region",
+    "nll",
+    "brier",
+    "recovery_s",
+    "recovered",
+    "alert_precision",
+    "alert_recall",
+    "false_alerts",
+    "ms_per_step",
+)
+"""The figures shown in tables, in order (the report's legend explains every figure)."""
+
+
+def ranked(summary, settings: list[Setting], rank_by: str) -> list[Setting]:
+    """Settings from best to worst on ``rank_by`` (settings without a value last)."""
+    fig = FIGURES[rank_by]
+    means = summary[summary.figure == rank_by].set_index("key")["mean"]
+
+    def score(s: Setting):
+        v = float(means.get(s.key, math.nan))
+        return (not math.isfinite(v), v if fig.better == "low" else -v)
+
+    return sorted(settings, key=score)
+
+
+def cell(summary, key: str, name: str) -> str:
+    """``mean (low–high)`` of one setting's figure, or ``–`` where it does not apply."""
+    row = summary[(summary.key == key) & (summary.figure == name)]
+    if row.empty or not math.isfinite(float(row["mean"].iloc[0])):
+        return "–"
+    mean, lo, hi = (float(row[c].iloc[0]) for c in ("mean", "low", "high"))
+    digits = 2 if name not in ("ms_per_step", "false_alerts", "recovery_s") else 1
+    text = f"{mean:.{digits}f}"
+    if math.isfinite(lo):
+        text += f" ({lo:.{digits}f}–{hi:.{digits}f})"
+    return text
+
+
+def _header(name: str) -> str:
+    f = FIGURES[name]
+    return f"{f.label}{' (' + f.unit + ')' if f.unit else ''} {'↓' if f.better == 'low' else '↑'}"
+
+
+def tables(summary, settings: list[Setting], rank_by: str, title: str, width: int = 120) -> list:
+    """The comparison as tables that fit ``width`` columns: the figures are split across as many tables as
+    needed (each keeps the ranking and the setting names whole).  The first table holds ``rank_by``."""
+    from rich.table import Table
+
+    order = ranked(summary, settings, rank_by)
+    figures = [rank_by, *(n for n in TABLE_FIGURES if n != rank_by)]
+    cells = {n: [cell(summary, s.key, n) for s in order] for n in figures}
+    name_width = max([len("setting"), *(len(s.label) for s in order)])
+    fixed = 4 + (name_width + 3) + 1  # the rank column, the setting column, the outer border
+    groups: list[list[str]] = [[]]
+    used = fixed
+    for n in figures:
+        need = max([*(len(c) for c in cells[n]), len(_header(n))]) + 3  # headers unwrapped: rich keeps them whole
+        if groups[-1] and used + need > width:
+            groups.append([])
+            used = fixed
+        groups[-1].append(n)
+        used += need
+    out = []
+    for k, group in enumerate(groups, 1):
+        part = f" ({k} of {len(groups)})" if len(groups) > 1 else ""
+        t = Table(title=f"{title}{part}")
+        t.add_column("#", justify="right", no_wrap=True)
+        t.add_column("setting", no_wrap=True, min_width=name_width)
+        for n in group:
+            t.add_column(_header(n), justify="right", style="bold" if n == rank_by else None, no_wrap=True)
+        for i, s in enumerate(order):
+            t.add_row(str(i + 1), s.label, *(cells[n][i] for n in group))
+        out.append(t)
+    out.append(f"Each cell: the mean over seeds and its {INTERVAL}; ranked by {FIGURES[rank_by].label}.")
+    return out
