@@ -103,3 +103,17 @@ def test_counts_are_in_words():
         "0 runs",
         "1,200 readings",
     ]
+
+
+def test_run_writes_a_single_file_html_report(tmp_path):
+    import json
+    import re
+
+    out = tmp_path / "r"
+    assert main(["run", str(TINY), "--quiet", "--out", str(out)]) == 0
+    page = (out / "report.html").read_text()
+    summary = json.loads((out / "summary.json").read_text())
+    assert page.count("data:image/png;base64,") == 2 and SAFETY_NOTICE.split(":")[0] in page
+    assert f"Monitor actions ({len(summary['events'])})" in page
+    median = summary["backends"]["bayes"]["median_error_m"]
+    assert re.search(rf"<td>{median:.2f} m</td>", page)  # the report shows the summary's own figures

@@ -71,11 +71,15 @@ def run_command(args: argparse.Namespace) -> int:
     else:
         result = run_case(case, backends=backends, rule=rule)
     write_results(result, folder.path)
-    folder.finish(RESULT_FILES)
+    from fusion.io.outdir import atomic_write
+    from fusion.view.run_report import run_report
+
+    atomic_write(folder.path / "report.html", run_report(result))
+    folder.finish([*RESULT_FILES, "report.html"])
     console.print(summary_table(result.summary()))
     if result.events:
         console.print(actions_timeline(result))
-    console.print(f"results written to [bold]{literal(folder.path)}[/] ({', '.join(RESULT_FILES)})")
+    console.print(f"results written to [bold]{literal(folder.path)}[/] ({', '.join(RESULT_FILES)}, report.html)")
     return 0
 
 

@@ -173,18 +173,9 @@ def summary_table(summary: dict) -> Table:
     table.add_column("figure")
     for b in summary["backends"]:
         table.add_column(BACKEND_TITLES.get(b, b), justify="right")
-    rows = [
-        ("median position error", "median_error_m", "{:.2f} m"),
-        ("95th percentile position error", "p95_error_m", "{:.2f} m"),
-        ("median heading error", "median_heading_error_deg", "{:.1f}°"),
-        ("ticks within 0.5 m and 15°", "within_0_5_m_and_15_deg", "{:.0%}"),
-        ("operator alerts", "alerts", "{}"),
-        ("re-localizations", "relocalizations", "{}"),
-        ("sensor quarantines", "quarantines", "{}"),
-        ("mean time per tick", "mean_step_ms", "{:.1f} ms"),
-        ("95th percentile time per tick", "p95_step_ms", "{:.1f} ms"),
-    ]
-    for label, key, fmt in rows:
+    from fusion.view.run_report import SUMMARY_ROWS
+
+    for label, key, fmt in SUMMARY_ROWS:
         table.add_row(label, *[fmt.format(v[key]) for v in summary["backends"].values()])
     table.caption = (
         "Errors are of the estimate (local mean around the best cell) against the simulated truth; "

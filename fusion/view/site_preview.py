@@ -19,7 +19,15 @@ from fusion.case_model import Case
 from fusion.io.outdir import FolderError, atomic_write
 from fusion.view.html_page import pyplot
 
-__all__ = ["draw_site", "write_preview", "preview_path", "PREVIEW_MARK"]
+__all__ = [
+    "draw_site",
+    "draw_site_on",
+    "legend_if_any",
+    "site_figsize",
+    "write_preview",
+    "preview_path",
+    "PREVIEW_MARK",
+]
 
 PREVIEW_MARK = "fusion site preview"
 MAX_LABELS = 60
@@ -30,10 +38,38 @@ def draw_site(case: Case) -> bytes:
     """The site of ``case`` as PNG bytes."""
     plt = pyplot()
     site = case.site
-    aspect = site.height_m / site.width_m
-    width = 9.0
-    fig, ax = plt.subplots(figsize=(width, min(max(width * aspect, 3.0), 14.0)), dpi=100)
-    ax.imshow(site.occupied, origin="lower", extent=site.extent, cmap="Greys", vmin=0, vmax=1.6)
+    fig, ax = plt.subplots(figsize=site_figsize(case), dpi=100)
+    draw_site_on(ax, case)
+    if case.route is not None:
+        pts = np.array(case.route.waypoints)
+        ax.plot(pts[:, 0], pts[:, 1], "-", color="tab:green", linewidth=1.2, label="route")
+        ax.plot(pts[0, 0], pts[0, 1], "o", color="tab:green", markersize=6)
+    ax.set_title(f"{case.name[:60]}: {site.width_m:g} m × {site.height_m:g} m at {site.resolution_m:g} m (walls grey)")
+    legend_if_any(ax, loc="upper right", fontsize=7, framealpha=0.8)
+    buf = io.BytesIO()
+    fig.tight_layout()
+    fig.savefig(buf, format="png", metadata={"Software": f"{PREVIEW_MARK} ({__version__})"})
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def legend_if_any(ax, **options) -> None:
+    """A legend, when something on the axes has a label (matplotlib warns about an empty one)."""
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(**options)
+
+
+def site_figsize(case: Case, width: float = 9.0) -> tuple[float, float]:
+    """A figure size with the site's aspect ratio (height kept between 3 and 14 inches)."""
+    site = case.site
+    return width, min(max(width * site.height_m / site.width_m, 3.0), 14.0)
+
+
+def draw_site_on(ax, case: Case, labels: bool = True, walls_alpha: float = 1.0) -> None:
+    """Walls (grey), doors with their contact zones and open side, markers, metre axes: the layers every map of
+    the site shares (the site preview, the run report, the incident report's belief maps)."""
+    site = case.site
+    ax.imshow(site.occupied, origin="lower", extent=site.extent, cmap="Greys", vmin=0, vmax=1.6, alpha=walls_alpha)
     for door in site.doors:
         zone = site.door_zone(door)
         ax.contour(
@@ -57,30 +93,21 @@ def draw_site(case: Case) -> bytes:
         ys = [m.y for m in site.markers]
         ax.plot(xs, ys, "^", color="tab:blue", markersize=7, label="markers")
     labelled = 0
-    for item, colour in [(d, "tab:orange") for d in site.doors] + [(m, "tab:blue") for m in site.markers]:
+    items = [(d, "tab:orange") for d in site.doors] + [(m, "tab:blue") for m in site.markers] if labels else []
+    for item, colour in items:
         if labelled >= MAX_LABELS:
             break
         name = getattr(item, "name", None) or item.marker_id
         ax.annotate(name[:24], (item.x, item.y), textcoords="offset points", xytext=(4, 4), fontsize=7, color=colour)
         labelled += 1
-    if case.route is not None:
-        pts = np.array(case.route.waypoints)
-        ax.plot(pts[:, 0], pts[:, 1], "-", color="tab:green", linewidth=1.2, label="route")
-        ax.plot(pts[0, 0], pts[0, 1], "o", color="tab:green", markersize=6)
-    ax.plot([], [], "s", color="tab:orange", label="doors (zone outlined, arrow: open side)")
+    if site.doors:
+        ax.plot([], [], "s", color="tab:orange", label="doors (zone outlined, arrow: open side)")
     ax.set_xlim(site.extent[0], site.extent[1])
     ax.set_ylim(site.extent[2], site.extent[3])
     ax.set_xlabel("x (m)")
     ax.set_ylabel("y (m)")
     ax.set_aspect("equal")
-    ax.set_title(f"{case.name[:60]}: {site.width_m:g} m × {site.height_m:g} m at {site.resolution_m:g} m (walls grey)")
-    ax.legend(loc="upper right", fontsize=7, framealpha=0.8)
     ax.grid(True, linewidth=0.3, alpha=0.5)
-    buf = io.BytesIO()
-    fig.tight_layout()
-    fig.savefig(buf, format="png", metadata={"Software": f"{PREVIEW_MARK} ({__version__})"})
-    plt.close(fig)
-    return buf.getvalue()
 
 
 def preview_path(case_path) -> Path:
