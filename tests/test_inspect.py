@@ -169,6 +169,27 @@ def test_the_stuck_contact_is_ranked_first(tmp_path):
         assert any(a == "contact" or b == "contact" for a, b, _ in worst.pairwise())
 
 
+def test_the_report_maps_carry_the_truth_and_each_estimate_at_their_moment(tmp_path):
+    # The belief maps of the incident report mark the true position (from the truth file, the simulator's own
+    # record) and each back end's estimate at the very tick drawn; the estimate is the steps.csv row's.
+    case = load_case(_stuck_case(tmp_path))
+    log, truth = log_text(simulate(case))
+    (tmp_path / "log.jsonl").write_text(log)
+    (tmp_path / "truth.jsonl").write_text(truth)
+    found = inspect_log(
+        case, tmp_path / "log.jsonl", tmp_path / "out", truth_path=tmp_path / "truth.jsonl", frames=False
+    )
+    assert found.maps and list((tmp_path / "out").glob("maps_episode*.png"))
+    true_at = {round(r["t"], 6): (r["x_m"], r["y_m"]) for r in map(json.loads, truth.splitlines())}
+    steps = pd.read_csv(tmp_path / "out" / "steps.csv")
+    for moments in found.maps.values():
+        for m in moments.values():
+            assert m.truth == pytest.approx(true_at[round(m.t, 6)])
+            for b, (x, y) in m.estimates.items():
+                row = steps[(steps.backend == b) & ((steps.t - m.t).abs() < 1e-6)].iloc[0]
+                assert (x, y) == pytest.approx((row.x_m, row.y_m), abs=1e-3)
+
+
 def test_episodes_open_at_the_threshold_and_close_after_quiet_ticks():
     finder = EpisodeFinder(open_k=0.8, keep_k=0.4, quiet_ticks=2)
     trace = [0.1, 0.85, 0.5, 0.3, 0.6, 0.95, 0.2, 0.1, 0.7, 0.2]  # 0.7 alone does not open a new one

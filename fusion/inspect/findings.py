@@ -45,6 +45,17 @@ STEP_COLUMNS = (
 )
 
 
+@dataclass(frozen=True)
+class Moment:
+    """One tick's beliefs as the incident report draws them: per back end the probability of each place (all
+    headings summed) and the estimate, and the true position when a truth file was given."""
+
+    t: float
+    planes: dict  # back end -> (ny, nx) float32
+    estimates: dict  # back end -> (x_m, y_m)
+    truth: tuple[float, float] | None = None
+
+
 @dataclass
 class Inspection:
     """What a replay found (drawn by ``fusion.view.inspect_summary`` and ``inspect_report``)."""
@@ -75,7 +86,7 @@ class Inspection:
     files: list[str] = field(default_factory=list)
     start: str = ""
     series: dict = field(default_factory=dict)  # per-tick arrays for the plots (t, conflict per back end, …)
-    maps: dict = field(default_factory=dict)  # episode number -> {"before"|"peak"|"end": {back end: plane}}
+    maps: dict = field(default_factory=dict)  # episode number -> {"before"|"peak"|"end": Moment}
 
     @property
     def time_origin(self) -> float:

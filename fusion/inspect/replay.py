@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import heapq
 import json
 import math
@@ -23,6 +24,7 @@ from fusion.inspect.findings import (
     PAIR_TICKS,
     SET_ASIDE_WARN,
     Inspection,
+    Moment,
 )
 from fusion.inspect.outputs import _fmt, _Outputs
 from fusion.io.logs import SetAside
@@ -98,7 +100,7 @@ class _Replay:
         self.unknown_sensor, self.sightings, self.unknown_marker = 0, 0, 0
         self.odometry_t: float | None = None  # time of the last odometry record used
         self.shape = case.site.occupied.shape
-        self.prev_planes: dict[str, np.ndarray] = {}
+        self.prev_moment: Moment | None = None
         self.open_maps: dict | None = None
         self.kept: list[tuple[float, int]] = []  # min-heap of (severity, episode) whose maps are kept
         self.index: dict = {"t": [], "line": [], "truth": [], "est": defaultdict(list), "action": defaultdict(list)}
@@ -163,8 +165,14 @@ class _Replay:
         planes = {b: self._plane(loc) for b, loc in self.locs.items()}
         if closed is not None:
             self._close(closed)
+        moment = Moment(
+            t,
+            planes,
+            {b: (d.x_m, d.y_m) for b, d in decisions.items()},
+            None if pose is None else (pose.x_m, pose.y_m),
+        )
         if episode is not None:
-            self._in_episode(episode, tick, decisions, readings, planes, pose)
+            self._in_episode(episode, tick, decisions, readings, moment, pose)
         for b, d in decisions.items():
             self._row(tick, t, first, b, d, len(readings), episode, pose)
             if d.action != CARRY_ON:
@@ -173,7 +181,7 @@ class _Replay:
                 if episode is not None:
                     episode.actions.append(act)
         self._frame(t, first, decisions, planes, pose)
-        self.prev_planes = planes
+        self.prev_moment = moment
 
     def _usable(self, obs: Observation) -> None:
         """Refuse what the site cannot use, counting what suggests the log is from another site."""
@@ -193,14 +201,14 @@ class _Replay:
     def _plane(self, loc: Localizer) -> np.ndarray:
         return loc.filter.distribution().reshape(loc.sensors.grid.shape).sum(axis=0)
 
-    def _in_episode(self, ep: Episode, tick: int, decisions, readings, planes, pose) -> None:
+    def _in_episode(self, ep: Episode, tick: int, decisions, readings, moment: Moment, pose) -> None:
         if ep.start_tick == tick:
-            self.open_maps = {"before": self.prev_planes or planes, "peak": planes, "end": planes}
+            self.open_maps = {"before": self.prev_moment or moment, "peak": moment, "end": moment}
         elif self.open_maps is not None:
             if ep.peak_tick == tick:
-                self.open_maps["peak"] = planes
+                self.open_maps["peak"] = moment
             if ep.end_tick == tick:
-                self.open_maps["end"] = planes
+                self.open_maps["end"] = moment
         busy = ep.end_tick == tick  # a tick above the clear level (calm ticks inside an episode add nothing)
         if not busy:
             return
@@ -227,7 +235,10 @@ class _Replay:
         if maps is None:
             return
         heapq.heappush(self.kept, (ep.severity, ep.number))
-        self.found.maps[ep.number] = {k: {b: p.astype(np.float32) for b, p in v.items()} for k, v in maps.items()}
+        self.found.maps[ep.number] = {
+            k: dataclasses.replace(m, planes={b: p.astype(np.float32) for b, p in m.planes.items()})
+            for k, m in maps.items()
+        }
         if len(self.kept) > KEEP_MAPS:
             _, dropped = heapq.heappop(self.kept)
             self.found.maps.pop(dropped, None)

@@ -34,10 +34,11 @@ def pyplot():
     return plt
 
 
-def png_of(fig) -> bytes:
-    """A matplotlib figure as PNG bytes."""
+def png_of(fig, rect=None) -> bytes:
+    """A matplotlib figure as PNG bytes (``rect``: the part of the figure the axes may fill, leaving room for a
+    figure legend)."""
     buf = io.BytesIO()
-    fig.tight_layout()
+    fig.tight_layout(rect=rect)
     fig.savefig(buf, format="png")
     return buf.getvalue()
 

@@ -22,6 +22,7 @@ from fusion.monitor.episodes import QUIET_TICKS
 from fusion.view.html_page import figures_html, page, png_of, pyplot
 from fusion.view.inspect_summary import EPISODE_ROWS
 from fusion.view.live import BACKEND_TITLES
+from fusion.view.site_preview import draw_site_on, site_figsize
 from fusion.words import plural
 
 __all__ = ["write_report", "MAP_EPISODES"]
@@ -125,10 +126,11 @@ def _error_plot(found, t, o: float, axis: str) -> bytes:
     plt = pyplot()
     fig, ax = plt.subplots(figsize=(10, 3), dpi=110)
     for b in found.backends:
-        ax.plot(t, found.series[f"error:{b}"], lw=0.9, color=_BACKEND_COLOURS.get(b, "0.2"), label=b)
+        ls = "-" if b == found.backends[0] else "--"
+        ax.plot(t, found.series[f"error:{b}"], lw=0.9, ls=ls, color=_BACKEND_COLOURS.get(b, "0.2"), label=b)
     _shade_episodes(ax, found, o)
-    ax.set_yscale("symlog", linthresh=0.5)
-    ax.set_xlabel(axis)
+    ax.set_ylim(bottom=0)
+    ax.set_xlabel(f"{axis}; shaded: conflict episodes")
     ax.set_ylabel("true position error (m)")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
@@ -138,44 +140,54 @@ def _error_plot(found, t, o: float, axis: str) -> bytes:
 
 
 def _maps(found, case, e) -> bytes:
+    """Each back end's belief before, at the peak of and at the end of episode ``e`` on the site (walls, doors,
+    markers, metres), with the true position (when known) and each back end's estimate; a one-tick episode,
+    whose peak is its end, gets one panel for both."""
     plt = pyplot()
-
-    site = case.site
     o = found.time_origin
     maps = found.maps[e.number]
-    moments = [
-        ("before", f"before (t < {e.start_t - o:.2f} s)"),
-        ("peak", f"peak ({e.peak_t - o:.2f} s)"),
-        ("end", f"end ({e.end_t - o:.2f} s)"),
-    ]
+    moments = [("before", f"before ({maps['before'].t - o:.2f} s)")]
+    if maps["peak"].t == maps["end"].t:
+        moments.append(("peak", f"peak = end ({e.peak_t - o:.2f} s)"))
+    else:
+        moments += [("peak", f"peak ({e.peak_t - o:.2f} s)"), ("end", f"end ({e.end_t - o:.2f} s)")]
+    width, height = site_figsize(case, 3.8 * len(moments))
     fig, axes = plt.subplots(
-        len(found.backends), 3, figsize=(11, 2.6 * len(found.backends) + 0.8), dpi=100, squeeze=False
+        len(found.backends),
+        len(moments),
+        figsize=(width, height * len(found.backends) / len(moments) + 1.0),
+        dpi=100,
+        squeeze=False,
     )
-    extent = site.extent
     for r, b in enumerate(found.backends):
         for c, (key, label) in enumerate(moments):
-            ax = axes[r, c]
-            plane = maps[key][b]
+            ax, moment = axes[r, c], maps[key]
+            plane = moment.planes[b]
             ax.imshow(
-                np.sqrt(plane / max(plane.max(), 1e-300)), origin="lower", extent=extent, cmap="Blues", vmin=0, vmax=1
-            )
-            ax.imshow(
-                np.ma.masked_where(~site.occupied, site.occupied),
+                np.sqrt(plane / max(plane.max(), 1e-300)),
                 origin="lower",
-                extent=extent,
-                cmap="Greys",
+                extent=case.site.extent,
+                cmap="Blues",
                 vmin=0,
-                vmax=1.5,
-                alpha=0.8,
+                vmax=1,
             )
-            ax.set_title(f"{b}: {label}", fontsize=8)
-            ax.set_xticks([])
-            ax.set_yticks([])
+            draw_site_on(ax, case, labels=False, walls_alpha=0.5)
+            if moment.truth is not None:
+                ax.plot(*moment.truth, "o", mfc="none", mec="black", ms=9, mew=1.6, label="true position")
+            ax.plot(*moment.estimates[b], "+", color="#b00020", ms=10, mew=2, label="estimate")
+            ax.set_title(f"{BACKEND_TITLES.get(b, b)}: {label}", fontsize=8)
+            ax.tick_params(labelsize=7)
+            ax.xaxis.label.set_size(7)
+            ax.yaxis.label.set_size(7)
+    handles, labels = axes[0, 0].get_legend_handles_labels()
+    if handles:
+        fig.legend(handles, labels, loc="lower center", ncol=len(handles), fontsize=7, frameon=False)
     fig.suptitle(
-        f"Episode {e.number}: belief (√ of the probability of each place, all headings); grey: racks and walls",
+        f"Episode {e.number}: belief (√ of the probability of each place, all headings; dark: likely) on the site; "
+        "grey: walls and racks",
         fontsize=9,
     )
-    data = png_of(fig)
+    data = png_of(fig, rect=(0, 0.05, 1, 1))
     plt.close(fig)
     return data
 
