@@ -177,7 +177,12 @@ def test_the_report_maps_carry_the_truth_and_each_estimate_at_their_moment(tmp_p
     (tmp_path / "log.jsonl").write_text(log)
     (tmp_path / "truth.jsonl").write_text(truth)
     found = inspect_log(
-        case, tmp_path / "log.jsonl", tmp_path / "out", truth_path=tmp_path / "truth.jsonl", frames=False
+        case,
+        tmp_path / "log.jsonl",
+        tmp_path / "out",
+        truth_path=tmp_path / "truth.jsonl",
+        frames=False,
+        report=write_report,
     )
     assert found.maps and list((tmp_path / "out").glob("maps_episode*.png"))
     true_at = {round(r["t"], 6): (r["x_m"], r["y_m"]) for r in map(json.loads, truth.splitlines())}
