@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import argparse
+import time
 
-from fusion.cli.opening import builtin_case, builtin_cases, case_file, notice, open_case, progress_for
+from fusion.cli.opening import builtin_case, builtin_cases, case_file, notice, open_case, progress_bar, progress_for
 from fusion.cli.outputs import claim_output, where
 from fusion.errors import FusionError
+from fusion.text import literal
 
 __all__ = ["bench_command", "targets_command", "soak_command"]
 
@@ -49,11 +51,30 @@ def case_file_or_error(text: str) -> str:
         raise FusionError(str(err)) from None
 
 
+def _targets_eta(cases, seeds: int, backends):
+    """The clock of a targets sweep: one run per case and seed, priced by the case's estimate until measured."""
+    from collections import Counter
+    from pathlib import Path
+
+    from fusion.budget import estimate
+    from fusion.compare.eta import SweepEta
+    from fusion.io.case import load_case
+
+    prior, todo = {}, Counter()
+    for c in cases:
+        label = Path(c).stem
+        path = builtin_case(f"{c}.toml") if c in builtin_cases() else c
+        prior[label] = estimate(load_case(path), backends=backends).total_seconds
+        todo[label] = seeds
+    return SweepEta(prior, todo, 1)
+
+
 def targets_command(args: argparse.Namespace) -> int:
     import json
 
     from rich.console import Console
 
+    from fusion.compare.eta import LONG_SWEEP_S, duration_words
     from fusion.targets import ATTRIBUTION_CASES, FAULT_CASES, measure_attribution, measure_targets
     from fusion.view.tables import targets_table
 
@@ -66,23 +87,38 @@ def targets_command(args: argparse.Namespace) -> int:
     else:  # a shipped case by name, or any case file: its target follows from what it holds
         cases = [c if c in builtin_cases() else case_file_or_error(c) for c in (args.case or FAULT_CASES)]
     notice(console)
+    eta = _targets_eta(cases, args.seeds, args.backend)
+    if eta.remaining_s() > LONG_SWEEP_S:
+        console.print(
+            f"[yellow]This is expected to take about {duration_words(eta.remaining_s())} on one core, by the "
+            "cases' own estimates.[/] To shrink it: fewer seeds (--seeds), fewer cases (--case) or one back end "
+            "(--backend). Ctrl-C stops it and keeps the verdicts printed so far."
+        )
+    progress = progress_bar(console, "runs", False, eta_field=True)
+    task = progress.add_task("runs", total=len(cases) * args.seeds, eta=eta.words())
+    clock = [time.perf_counter()]
 
     def landed(case: str, seed: int, verdicts) -> None:
         # Each verdict is printed as it lands, so a run stopped part-way keeps what it measured.
         said = "; ".join(f"{r.backend} {'met' if r.success else 'missed'} ({r.detail})" for r in verdicts)
-        console.print(f"[dim]{case} seed {seed}: {said}[/]")
+        progress.console.print(f"[dim]{literal(case)} seed {seed}: {literal(said)}[/]")
+        now = time.perf_counter()
+        eta.landed(case, now - clock[0])
+        clock[0] = now
+        progress.update(task, advance=1, eta=eta.words())
 
     rows: list = []
     interrupted = False
     try:
-        (measure_attribution if args.attribution else measure_targets)(
-            builtin_case(""),
-            range(args.first_seed, args.first_seed + args.seeds),
-            cases,
-            progress=landed,
-            out=rows,
-            **({} if args.attribution else {"backends": args.backend}),
-        )
+        with progress:
+            (measure_attribution if args.attribution else measure_targets)(
+                builtin_case(""),
+                range(args.first_seed, args.first_seed + args.seeds),
+                cases,
+                progress=landed,
+                out=rows,
+                **({} if args.attribution else {"backends": args.backend}),
+            )
     except KeyboardInterrupt:
         interrupted = True
     if args.json:

@@ -62,17 +62,21 @@ def notice(console) -> None:
     console.print(f"[dim]{SAFETY_NOTICE}[/]")
 
 
-def progress_bar(console, label: str, quiet: bool, counter: str = "{task.completed:,.0f}/{task.total:,.0f}"):
-    """The progress bar of every long command: label, bar, count, elapsed time and ETA."""
+def progress_bar(
+    console, label: str, quiet: bool, counter: str = "{task.completed:,.0f}/{task.total:,.0f}", eta_field: bool = False
+):
+    """The progress bar of every long command: label, bar, count, elapsed time and the time left.  With
+    ``eta_field`` the time left is the task's ``eta`` field, set by the job from what it measured (a sweep's runs
+    differ in cost, so the rate of finished runs says little); otherwise rich's estimate from the rate."""
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
+    left = [TextColumn("{task.fields[eta]}")] if eta_field else [TextColumn("ETA"), TimeRemainingColumn()]
     return Progress(
         TextColumn(label),
-        BarColumn(),
+        BarColumn(bar_width=None if console.width >= 100 else 20),
         TextColumn(counter),
         TimeElapsedColumn(),
-        TextColumn("ETA"),
-        TimeRemainingColumn(),
+        *left,
         console=console,
         disable=quiet,
     )

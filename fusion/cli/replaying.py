@@ -42,10 +42,19 @@ def calibrate_command(args: argparse.Namespace) -> int:
     )
     console = Console()
     notice(console)
-    with console.status("fitting…") as status:
-        result = calibrate(
-            case, args.log, args.truth, settings, progress=lambda s: status.update(f"fitting {s}…"), layout=layout
-        )
+    progress = progress_bar(console, "fitting", False, "{task.completed}/{task.total} sensors {task.fields[now]}")
+    task = progress.add_task("fit", total=len(case.sensors), now="")
+    fitted: list[str] = []
+
+    def next_sensor(name: str) -> None:
+        if fitted:
+            progress.advance(task)
+        fitted.append(name)
+        progress.update(task, now=f"(now: {literal(name)}; NUTS draws take longest, --method svi is faster)")
+
+    with progress:
+        result = calibrate(case, args.log, args.truth, settings, progress=next_sensor, layout=layout)
+        progress.update(task, completed=len(case.sensors), now="")
     console.print(
         f"[bold]Calibrated sensor parameters[/] ({plural(result.observations, 'reading')}, {plural(result.poses, 'true pose')})"
     )

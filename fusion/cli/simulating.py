@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from collections import Counter
 
 from fusion import SAFETY_NOTICE
 from fusion.cli.opening import builtin_case, notice, open_case, progress_bar
@@ -101,15 +102,16 @@ def check_command(args: argparse.Namespace) -> int:
 def compare_command(args: argparse.Namespace) -> int:
     from rich.console import Console
 
-    from fusion.budget import estimate
     from fusion.compare import SweepInterrupted, run_sweep, sweep_digest
     from fusion.compare.conclusion import conclude
+    from fusion.compare.eta import LONG_SWEEP_S, duration_words
     from fusion.view.compare_report import write_report
     from fusion.view.compare_tables import tables
 
+    _known_figure(args.rank_by)
     case, settings, spec, seeds = _sweep_plan(args)
     runs = len(settings) * spec.seeds
-    per_run = estimate(case).total_seconds / max(len(case.run.backends), 1)  # a setting runs one back end
+    eta = _sweep_eta(case, settings, args.workers)
     # Runs of the same case (and calibration) file are reused: the folder resumes the same work.
     identity_of_work = {"case_sha256": sweep_digest(args.case, args.calibration)}
     folder = claim_output(args, "compare", args.case, identity_of_work, [], folders=("runs",))
@@ -118,11 +120,27 @@ def compare_command(args: argparse.Namespace) -> int:
     notice(console)
     console.print(
         f"{literal(case.name)}: {plural(len(settings), 'setting')} × {plural(spec.seeds, 'seed')} = {plural(runs, 'run')} "
-        f"on the {args.engine} engine (roughly {runs * per_run / 3600:,.1f} h of processor time by the case's "
-        f"estimate, shared by the workers); results go to {literal(out_dir)}"
+        f"on the {args.engine} engine with {plural(eta.workers, 'worker')}; results go to {literal(out_dir)}"
     )
-    progress = progress_bar(console, "runs", args.quiet, "{task.completed}/{task.total}")
-    task = progress.add_task("runs", total=None)
+    progress = progress_bar(console, "runs", args.quiet, "{task.completed}/{task.total}", eta_field=True)
+    task = progress.add_task("runs", total=None, eta="")
+
+    def planned(todo) -> None:
+        eta.todo = Counter(s.key for s, _ in todo)
+        left = eta.remaining_s()
+        progress.update(task, eta=eta.words())
+        if left > LONG_SWEEP_S:
+            console.print(
+                f"[yellow]This sweep is expected to take about {duration_words(left)} ({len(todo):,} runs left, "
+                f"by the case's estimate of each setting's run, {plural(eta.workers, 'worker')}).[/] To shrink it: "
+                "fewer seeds (--seeds), fewer settings (--backend, --rule, --reliability, --fault-rate), or more "
+                "workers (--workers, on more cores). Ctrl-C stops it; the same command resumes."
+            )
+
+    def landed(rec) -> None:
+        eta.landed(rec.key, rec.wall_s)
+        progress.update(task, advance=1, eta=eta.words())
+
     try:
         with progress:
             records = run_sweep(
@@ -134,15 +152,17 @@ def compare_command(args: argparse.Namespace) -> int:
                 engine=args.engine,
                 address=args.scheduler,
                 calibration=args.calibration,
+                on_plan=planned,
                 on_start=lambda total, done: progress.update(task, total=total, completed=done),
-                on_done=lambda rec: progress.advance(task),
+                on_done=landed,
             )
     except SweepInterrupted as err:
         folder.finish(["sweep.json", *runs_in(out_dir)])
         console.print(f"[yellow]{literal(err)}[/]")
         return 130
-    found = conclude(case, records, settings, args.rank_by)
-    files = write_report(out_dir, found)
+    with console.status("summarising: bootstrap intervals, paired tests, the sanity row, plots…"):
+        found = conclude(case, records, settings, args.rank_by)
+        files = write_report(out_dir, found)
     folder.finish(["sweep.json", *files, *runs_in(out_dir)])
     title = f"{literal(case.name)}, {plural(len(records), 'run')}"
     for t in tables(found.summary, settings, args.rank_by, title, console.width):
@@ -155,6 +175,31 @@ def compare_command(args: argparse.Namespace) -> int:
     console.print(f"[bold]{literal(found.recommendation.text)}[/]")
     console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
     return 0
+
+
+def _known_figure(name: str) -> None:
+    import difflib
+
+    from fusion.compare import FIGURES
+
+    if name not in FIGURES:
+        close = difflib.get_close_matches(name, FIGURES, n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise FusionError(f"--rank-by: no figure {name!r}; {hint}the figures: {', '.join(FIGURES)}")
+
+
+def _sweep_eta(case, settings, workers: int | None):
+    """The sweep's clock: each setting's run priced by the case's estimate for its back end and rule, until runs
+    of it have been measured (``fusion.compare.eta``)."""
+    import os
+
+    from fusion.budget import estimate
+    from fusion.compare.eta import SweepEta
+
+    prior = {}
+    for s in settings:
+        prior[s.key] = estimate(case, backends=[s.backend], rule=s.rule or case.run.rule).total_seconds
+    return SweepEta(prior, Counter(), workers or os.cpu_count() or 1)
 
 
 def _sweep_plan(args: argparse.Namespace):

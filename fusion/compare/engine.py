@@ -72,13 +72,15 @@ def run_sweep(
     engine: str = "local",
     address: str | None = None,
     on_start: Callable[[int, int], None] | None = None,
+    on_plan: Callable[[list], None] | None = None,
     on_done: Callable[[RunRecord], None] | None = None,
     calibration=None,
 ) -> list[RunRecord]:
     """Run every setting on every seed; returns one record per run (finished earlier or now).
 
     Runs already in ``out_dir/runs`` for the same case file are reused, so an interrupted
-    sweep resumes where it stopped.  ``on_start(total, already_done)`` and ``on_done(record)``
+    sweep resumes where it stopped.  ``on_plan(todo)`` (the (setting, seed) pairs still to run),
+    ``on_start(total, already_done)`` and ``on_done(record)``
     drive a progress display.
     """
     if engine not in ENGINES:
@@ -91,6 +93,8 @@ def run_sweep(
     wanted = [(s, seed) for seed in seeds for s in settings]
     done = _load_done(folder, {(s.key, seed) for s, seed in wanted})
     todo = [(s, seed) for s, seed in wanted if (s.key, seed) not in done]
+    if on_plan:
+        on_plan(todo)
     if on_start:
         on_start(len(wanted), len(done))
 

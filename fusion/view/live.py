@@ -65,7 +65,8 @@ def draw_plane(
                 text.append("▪", style="grey35")
             else:
                 text.append(_SHADES[level[r, c]], style="cyan" if level[r, c] else "")
-        text.append("\n")
+        if r:
+            text.append("\n")
     return text
 
 
@@ -123,46 +124,90 @@ class RunView:
                 )
         self.progress.advance(self.task)
 
-    def _panel(self, name: str) -> Panel:
+    def _panel(self, name: str, map_width: int) -> Panel:
         if name not in self.latest:
             return Panel("waiting for the first tick…", title=BACKEND_TITLES[name])
         d, plane = self.latest[name]
         tr = self.truth
         site = self.case.site
         err, herr = pose_errors(d, tr.x_m, tr.y_m, tr.heading_deg)
-        key, label = _FIGURE[name]
-        figures = Table.grid(padding=(0, 1))
-        figures.add_row("error", f"{err:5.2f} m, {herr:5.1f}°", "spread", f"{d.spread_m:5.2f} m")
-        figures.add_row(label, f"{d.figures.value(key):.3f}", "action", d.action)
+        key = _FIGURE[name][0]
+        lines = [
+            f"error {err:.2f} m {herr:.0f}°  spread {d.spread_m:.2f} m",
+            f"{key.replace('_', ' ')} {d.figures.value(key):.3f}  {d.action}",
+        ]
         if d.quarantined:
-            figures.add_row("quarantined", literal(", ".join(d.quarantined)), "", "")
+            lines.append(f"quarantined: {plain(', '.join(d.quarantined))}")
+        figures = Text("\n".join(lines), no_wrap=True, overflow="ellipsis")
         body = Group(
             belief_map(
-                plane, site.occupied, (tr.x_m, tr.y_m), (d.x_m, d.y_m), site.resolution_m, origin_m=site.origin_m
+                plane,
+                site.occupied,
+                (tr.x_m, tr.y_m),
+                (d.x_m, d.y_m),
+                site.resolution_m,
+                width=map_width,
+                origin_m=site.origin_m,
             ),
-            Text(sparkline(self.history[name]), style="green"),
-            Text(f"{label} over the last ticks (▁ low, █ high)", style="dim"),
+            Text(sparkline(self.history[name], map_width), style="green", no_wrap=True, overflow="crop"),
             figures,
         )
-        return Panel(body, title=BACKEND_TITLES[name], border_style="blue")
+        return Panel(body, title=BACKEND_TITLES[name], border_style=_BORDER.get(d.action, "blue"))
 
-    def __rich__(self):
-        maps = Table.grid(expand=True, padding=(0, 1))
+    def _map_width(self, panel_width: int, height: int) -> int:
+        """The widest map that fits the panel and leaves the rest of the screen its lines (``PANEL_LINES``,
+        ``OTHER_LINES``): a character is about twice as tall as wide, so a narrower map is also shorter."""
+        ny, nx = self.case.site.occupied.shape
+        rows_allowed = max(4, height - PANEL_LINES - OTHER_LINES)
+        width = max(8, panel_width - 4)
+        while width > 8:
+            step = math.ceil(nx / width)
+            if math.ceil(ny / (2 * step)) <= rows_allowed:
+                break
+            width -= 1
+        return width
+
+    def __rich_console__(self, console, options):
+        width, height = options.max_width, options.height or console.size.height
+        panel_width = width // max(1, len(self.backends))
+        map_width = self._map_width(panel_width, height)
+        maps = Table.grid(expand=True, padding=(0, 0))
         for _ in self.backends:
             maps.add_column(ratio=1)
-        maps.add_row(*[self._panel(b) for b in self.backends])
+        maps.add_row(*[self._panel(b, map_width) for b in self.backends])
         t = self.truth.t if self.truth else 0.0
         faults = ", ".join(self.truth.faults) if self.truth and self.truth.faults else "none"
         head = Text.from_markup(
-            f"[bold]{literal(self.case.name)}[/]   t = {t:6.2f} s   injected faults now: {literal(faults)}\n"
-            "◆ true pose   ✚ estimate   ░▒▓█ probability of the place (all headings)   ▪ wall/rack"
+            f"[bold]{literal(self.case.name)}[/]   t = {t:6.2f} s   injected now: {literal(faults)}"
         )
+        legend = Text.from_markup(LEGEND, style="dim")
+        used = sum(_lines(console, part, width) for part in (head, legend, maps)) + 1  # and the progress bar
+        room = max(1, height - used - 2)  # the events panel's own border takes two
+        lines = [Text.from_markup(e, overflow="ellipsis") for e in self.events[-room:]]
+        for line in lines:
+            line.no_wrap = True
         events = Panel(
-            "\n".join(self.events[-6:]) or "no action yet: every tick so far is 'carry on'",
-            title="monitor actions",
+            Group(*lines) if lines else "no action yet: every tick so far is 'carry on'",
+            title=f"monitor actions ({len(self.events)}; the latest, one line each; all in summary.json)",
             border_style="magenta",
         )
-        return Group(head, maps, events, self.progress)  # the command prints the safety notice once, before
+        yield Group(head, legend, maps, self.progress, events)  # the command prints the safety notice once
+
+
+PANEL_LINES = 6
+"""Lines of a back end's panel besides its map: two borders, the sparkline, two lines of figures, a quarantine."""
+OTHER_LINES = 7
+"""Lines of the screen besides the panels: header, legend (two lines at 80 columns), progress bar, and the
+actions panel at its smallest (one event between its borders)."""
+_BORDER = {"carry on": "blue", "alert operator": "yellow", "re-localize": "red", "quarantine sensor": "red"}
+LEGEND = (
+    "◆ truth ✚ estimate ·░▒▓█ belief in the place (· faint, blank none) ▪ wall or rack  "
+    "border: [blue]carry on[/] [yellow]alert[/] [red]re-localize/quarantine[/]  ▁▃█ conflict over time"
+)
+
+
+def _lines(console, renderable, width: int) -> int:
+    return len(console.render_lines(renderable, console.options.update(width=width), pad=False))
 
 
 def summary_table(summary: dict) -> Table:

@@ -1,0 +1,52 @@
+"""The terminal views at the sizes people use: nothing cut off at 80×24, the space used at 120×40, walls kept
+when the map is shrunk.  (Our own conventions; no outside source.)"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from rich.console import Console
+
+from fusion.belief.coarse import coarse_plane
+from fusion.io.case import load_case
+from fusion.runner import run_case
+from tests.test_case import TINY
+
+
+@pytest.fixture(scope="module")
+def view():
+    from fusion.view.live import RunView
+
+    case = load_case(TINY)
+    v = RunView(case, ("bayes", "evidential"), 77)
+    run_case(case, on_tick=v.on_tick)
+    return v
+
+
+@pytest.mark.parametrize("width, height", [(80, 24), (120, 40), (200, 60)])
+def test_the_live_view_fits_the_terminal_and_keeps_progress_and_actions_visible(view, width, height):
+    console = Console(width=width, height=height, record=True)
+    console.print(view)
+    lines = console.export_text().splitlines()
+    assert len(lines) <= height and max(len(line) for line in lines) <= width
+    text = "\n".join(lines)
+    assert "77/77 ticks" in text and "monitor actions" in text and "◆ truth" in text
+
+
+def test_a_wider_terminal_gets_a_wider_map(view):
+    from fusion.view.live import RunView
+
+    narrow, wide = view._map_width(40, 24), view._map_width(120, 60)
+    assert wide > narrow
+    single = RunView(view.case, ("bayes",), 1)
+    assert single._map_width(200, 60) >= view._map_width(100, 60)  # one back end gets the full width
+
+
+def test_shrinking_a_map_never_drops_a_thin_wall():
+    # A wall one cell thick, every fourth column: at any character width it must still show.
+    occupied = np.zeros((40, 200), dtype=bool)
+    occupied[:, ::4] = True
+    for width in (10, 23, 44, 77):
+        _, wall, step = coarse_plane(np.ones(occupied.shape), occupied, width)
+        for column in range(0, 200, 4):
+            assert wall[:, column // step].all(), (width, column)
