@@ -50,3 +50,53 @@ def test_shrinking_a_map_never_drops_a_thin_wall():
         _, wall, step = coarse_plane(np.ones(occupied.shape), occupied, width)
         for column in range(0, 200, 4):
             assert wall[:, column // step].all(), (width, column)
+
+
+def _printed(parts, width: int) -> str:
+    console = Console(width=width, record=True)
+    for part in parts:
+        console.print(part)
+    return console.export_text()
+
+
+@pytest.mark.parametrize("width", [80, 120])
+def test_bench_and_fidelity_tables_fit_without_cutting_a_name(width):
+    from fusion.bench import BenchRow
+    from fusion.fidelity import FidelityRow
+    from fusion.view.tables import bench_table, fidelity_table
+
+    note = "odometry kernel convolution as Bayes, then the region size of the belief over every cell of the grid"
+    rows = [
+        BenchRow(
+            "240×160×36 (1,382,400 cells)",
+            "evidential focal sets",
+            "predict (probabilistic)",
+            5.7,
+            0.2,
+            29.3,
+            None,
+            note,
+        ),
+        BenchRow("100×100×36 (360,000 cells)", "bayes", "update", 0.4, 0.2, 1.93, 1.0, "target ≤ 3× floor"),
+    ]
+    fidelity = [FidelityRow("plausibility transform", "contour (running max under motion)", 0.158, "TV", note)]
+    text = _printed([*bench_table(rows, width), *fidelity_table(fidelity, width)], width)
+    assert max(len(line) for line in text.splitlines()) <= width
+    for whole in ("evidential focal sets", "predict (probabilistic)", "plausibility transform", "1,382,400 cells"):
+        assert whole in text
+    assert " ".join(note.split()) in " ".join(text.split())  # the note as a sentence, wrapped between words
+
+
+def test_calibration_tables_keep_parameter_names_whole_at_80_columns():
+    from types import SimpleNamespace
+
+    from fusion.calibration.output import ParameterEstimate, SensorCalibration
+    from fusion.view.tables import calibration_tables
+
+    case = load_case(TINY)
+    entry = SensorCalibration("wheels", "odometry", ["nuts"], 400)
+    for name in ("sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"):
+        entry.parameters[name] = ParameterEstimate(0.0123, 0.0101, 0.0145, 1.001, 812.0)
+    text = _printed(calibration_tables(SimpleNamespace(summary=[entry]), case), 80)
+    assert max(len(line) for line in text.splitlines()) <= 80
+    assert all(name in text for name in entry.parameters)

@@ -38,8 +38,8 @@ def bench_command(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps({"cost": [r.as_dict() for r in rows], "fidelity": [r.as_dict() for r in fidelity]}, indent=2))
     else:
-        console.print(bench_table(rows))
-        console.print(fidelity_table(fidelity))
+        for part in [*bench_table(rows, console.width), *fidelity_table(fidelity, console.width)]:
+            console.print(part)
     return 0
 
 

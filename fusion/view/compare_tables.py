@@ -7,6 +7,7 @@ import math
 
 from fusion.compare import FIGURES, Setting
 from fusion.compare.verdicts import INTERVAL
+from fusion.view.fitting import Column, fitted_tables
 
 __all__ = ["TABLE_FIGURES", "ranked", "cell", "tables"]
 
@@ -60,32 +61,11 @@ def _header(name: str) -> str:
 def tables(summary, settings: list[Setting], rank_by: str, title: str, width: int = 120) -> list:
     """The comparison as tables that fit ``width`` columns: the figures are split across as many tables as
     needed (each keeps the ranking and the setting names whole).  The first table holds ``rank_by``."""
-    from rich.table import Table
-
     order = ranked(summary, settings, rank_by)
     figures = [rank_by, *(n for n in TABLE_FIGURES if n != rank_by)]
-    cells = {n: [cell(summary, s.key, n) for s in order] for n in figures}
-    name_width = max([len("setting"), *(len(s.label) for s in order)])
-    fixed = 4 + (name_width + 3) + 1  # the rank column, the setting column, the outer border
-    groups: list[list[str]] = [[]]
-    used = fixed
-    for n in figures:
-        need = max([*(len(c) for c in cells[n]), len(_header(n))]) + 3  # headers unwrapped: rich keeps them whole
-        if groups[-1] and used + need > width:
-            groups.append([])
-            used = fixed
-        groups[-1].append(n)
-        used += need
-    out = []
-    for k, group in enumerate(groups, 1):
-        part = f" ({k} of {len(groups)})" if len(groups) > 1 else ""
-        t = Table(title=f"{title}{part}")
-        t.add_column("#", justify="right", no_wrap=True)
-        t.add_column("setting", no_wrap=True, min_width=name_width)
-        for n in group:
-            t.add_column(_header(n), justify="right", style="bold" if n == rank_by else None, no_wrap=True)
-        for i, s in enumerate(order):
-            t.add_row(str(i + 1), s.label, *(cells[n][i] for n in group))
-        out.append(t)
+    rows = [[str(i), s.label, *(cell(summary, s.key, n) for n in figures)] for i, s in enumerate(order, 1)]
+    keys = [Column("#", "right"), Column("setting")]
+    values = [Column(_header(n), "right", "bold" if n == rank_by else None) for n in figures]
+    out = fitted_tables(title, keys, values, rows, width)
     out.append(f"Each cell: the mean over seeds and its {INTERVAL}; ranked by {FIGURES[rank_by].label}.")
     return out

@@ -8,32 +8,32 @@ from rich import box
 from rich.table import Table
 
 from fusion.text import literal
+from fusion.view.fitting import Column, fitted_tables, footnoted
 
 __all__ = ["bench_table", "targets_table", "fidelity_table", "calibration_tables", "soak_table"]
 
 
-def bench_table(rows) -> Table:
-    """``fusion bench``'s cost rows (``fusion.bench.BenchRow``)."""
-    table = Table(title="Back-end cost as a ratio to a floor measured in the same run")
-    for col in ("grid", "back end", "operation", "best ms", "floor ms", "ratio", "peak memory", "note"):
-        table.add_column(col, justify="right" if col in ("best ms", "floor ms", "ratio", "peak memory") else "left")
-    for r in rows:
+def bench_table(rows, width: int = 120) -> list:
+    """``fusion bench``'s cost rows (``fusion.bench.BenchRow``) as tables that fit ``width``, notes as footnotes."""
+    marks, notes = footnoted([r.note for r in rows])
+    cells = []
+    for r, mark in zip(rows, marks):
+        grid = r.size.split(" (")[0]
         peak = "" if r.peak_copies is None else f"{r.peak_copies:.1f} beliefs"
-        table.add_row(
-            r.size,
-            r.backend,
-            r.operation,
-            f"{r.best_ms:.1f}",
-            f"{r.floor_ms:.2f}",
-            f"{r.ratio:.2f}×" if r.ratio < 10 else f"{r.ratio:.1f}×",
-            peak,
-            r.note,
-        )
-    table.caption = (
-        "floor: Bayes and evidential = one multiply-and-normalise pass; focal sets = bare AND of all "
-        "focal-set word pairs. Fastest of repeated runs after a warm-up; peak memory of one call via tracemalloc."
+        ratio = f"{r.ratio:.2f}×" if r.ratio < 10 else f"{r.ratio:.1f}×"
+        cells.append([grid, r.backend, r.operation, f"{r.best_ms:.1f}", f"{r.floor_ms:.2f}", ratio, peak, mark])
+    keys = [Column("grid"), Column("back end"), Column("operation")]
+    values = [Column(h, "right") for h in ("best ms", "floor ms", "ratio", "peak memory", "note")]
+    sizes = sorted({r.size for r in rows}, key=len)
+    out: list = fitted_tables(
+        "Back-end cost as a ratio to a floor measured in the same run", keys, values, cells, width
     )
-    return table
+    out += [f"grids: {', '.join(sizes)}", *notes]
+    out.append(
+        "floor: Bayes and evidential = one multiply-and-normalise pass; focal sets = bare AND of all focal-set "
+        "word pairs. Fastest of repeated runs after a warm-up; peak memory of one call via tracemalloc."
+    )
+    return out
 
 
 def targets_table(rows) -> Table:
@@ -49,18 +49,20 @@ def targets_table(rows) -> Table:
     return table
 
 
-def fidelity_table(rows) -> Table:
+def fidelity_table(rows, width: int = 120) -> list:
     """The evidential outputs' distances from the exact mass function (``fusion.fidelity.FidelityRow``)."""
-    table = Table(title="Fidelity: evidential outputs against the exact mass function (small site)")
-    for col in ("output", "how the contour filter gets it", "distance", "measure", "where"):
-        table.add_column(col, justify="right" if col == "distance" else "left", overflow="fold")
-    for r in rows:
-        table.add_row(r.output, r.reading, f"{r.distance:.3g}", r.measure, r.note)
-    table.caption = (
+    marks, notes = footnoted([r.note for r in rows])
+    cells = [[r.output, r.reading, f"{r.distance:.3g}", r.measure, m] for r, m in zip(rows, marks)]
+    keys = [Column("output")]
+    values = [Column("how the contour filter gets it"), Column("distance", "right"), Column("measure"), Column("where")]
+    title = "Fidelity: evidential outputs against the exact mass function (small site)"
+    out: list = fitted_tables(title, keys, values, cells, width)
+    out += notes
+    out.append(
         "Largest distance over the ticks. Exact: the focal-set filter with no cap; readings are discounted "
         "consonant contours on random levels per cell (a harsh case: real readings are smooth)."
     )
-    return table
+    return out
 
 
 def calibration_tables(result, case) -> list:
