@@ -41,6 +41,7 @@ __all__ = [
     "pignistic_disagreement",
     "pairwise_conflict",
     "support_conflict",
+    "support_joint_conflict",
     "fit_plausibility_contour",
     "EvidenceAverages",
 ]
@@ -99,6 +100,20 @@ def support_conflict(p: np.ndarray, evidence, share: float) -> float:
         return 1.0
     best = float(evidence.contour[p >= share * top].max())
     return evidence.reliability * (1.0 - fit_plausibility(best, evidence.dof))
+
+
+def support_joint_conflict(p: np.ndarray, readings, share: float) -> float:
+    """The support conflict of a tick's (sensor, Evidence) readings at once: 1 − the best their joint likelihood
+    (each r·c + 1 − r, at most 1) does on the cells with p ≥ ``share`` · max p.  1 − p(z | past) would blame
+    the sharpest sensor for being informative."""
+    if not readings:
+        return 0.0
+    top = float(p.max())
+    support = p >= share * top if top > 0 else np.ones(len(p), bool)
+    lik = np.ones(int(support.sum()))
+    for _, e in readings:
+        lik = lik * e.likelihood[support]
+    return 1.0 - min(float(lik.max()), 1.0)
 
 
 def jousselme_distance(m1: MassFunction, m2: MassFunction) -> float:

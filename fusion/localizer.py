@@ -121,10 +121,12 @@ class Localizer:
         motion: str = "probabilistic",
         full_figures: bool = False,
         explain: bool = False,
+        seed: int = 0,
     ):
         """``full_figures``: compute the distance between beliefs on every tick, not only on conflicting ones.
         ``explain``: compute the leave-one-out blame on every tick whose conflict reaches the clear level
-        (what an investigation needs), not only on the ticks the monitor counts as conflicting."""
+        (what an investigation needs), not only on the ticks the monitor counts as conflicting.  ``seed``: of a
+        back end that draws samples (the particle filter), so that a run is reproducible."""
         if backend not in BACKENDS:  # the same refusal as build's, as an ObservationError
             raise ObservationError(f"unknown back end {backend!r}; choose one of: {', '.join(BACKENDS)}")
         policy = Policy() if policy is None else policy
@@ -132,7 +134,7 @@ class Localizer:
         grid, free = sensors.grid, sensors.site.free
         # The best region is computed once per tick by the pose estimate, not after every update.
         try:
-            self.filter = build(backend, grid, free, rule=rule, motion=motion, max_focal=max_focal)
+            self.filter = build(backend, grid, free, rule=rule, motion=motion, max_focal=max_focal, seed=seed)
         except FusionError as err:
             raise ObservationError(str(err)) from None
         self.backend = backend
@@ -153,6 +155,7 @@ class Localizer:
         options.setdefault("rule", case.run.rule)
         options.setdefault("max_focal", case.run.max_focal)
         options.setdefault("motion", case.run.motion)
+        options.setdefault("seed", case.run.seed)
         return cls(backend, SensorSet(case.site, grid, case.sensors), policy, **options)
 
     def start_at(

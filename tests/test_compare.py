@@ -53,7 +53,7 @@ def _record(key: str, seed: int, wall_s: float = math.nan, **figures) -> RunReco
 
 
 # ----------------------------------------------------------------------------- settings
-def test_default_sweep_is_bayes_plus_six_rules():
+def test_default_sweep_is_every_family_with_six_rules_for_the_evidential_one():
     keys = [s.key for s in settings_of(SweepSpec())]
     assert keys == [
         "bayes",
@@ -63,6 +63,7 @@ def test_default_sweep_is_bayes_plus_six_rules():
         "evidential-dubois_prade",
         "evidential-pcr5",
         "evidential-murphy",
+        "particles",
     ]
 
 
@@ -332,7 +333,8 @@ def test_compare_command_writes_the_report(tmp_path, capsys):
     import pandas as pd
 
     runs = pd.read_csv(out / "runs.csv")
-    assert len(runs) == 3 * 2 and set(runs.key) == {"bayes", "evidential-dempster", "evidential-yager"}
+    # Every family by default (the case's [run] backends): Bayes, the two rules asked for, and the particles.
+    assert len(runs) == 4 * 2 and set(runs.key) == {"bayes", "evidential-dempster", "evidential-yager", "particles"}
     assert "not a certified safety function" in text and "Sanity row" in text and "holds" in text
     page = (out / "report.html").read_text()
     assert "data:image/png;base64," in page and "not a certified safety function" in page

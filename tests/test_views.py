@@ -18,7 +18,7 @@ def view():
     from fusion.view.live import RunView
 
     case = load_case(TINY)
-    v = RunView(case, ("bayes", "evidential"), 77)
+    v = RunView(case, case.run.backends, 77)  # every family: three panels side by side
     run_case(case, on_tick=v.on_tick)
     return v
 

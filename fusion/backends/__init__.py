@@ -4,6 +4,8 @@
 name into a filter; nothing outside this package compares back-end names.
 
 - ``bayes``: the histogram filter (``bayes.HistogramFilter``);
+- ``particles``: Monte Carlo localization with KLD-sampling and random-particle recovery
+  (``particles.ParticleFilter``);
 - ``evidential``: Dempster–Shafer.  Dempster's rule and the unnormalised conjunctive rule run on the
   dense contour, exact with no cap (``contour.ContourFilter``); the rules that move conflict to unions
   of sets (Yager, Dubois–Prade, PCR5, Murphy's averaging, disjunctive) keep explicit focal sets under a
@@ -22,13 +24,19 @@ from fusion.errors import RuleError
 __all__ = ["BACKENDS", "BackendKind", "build", "Backend", "backend_kind", "rule_names"]
 
 
-def _bayes(grid, free, *, rule, motion, max_focal, report_region):
+def _bayes(grid, free, *, rule, motion, max_focal, report_region, seed):
     from fusion.backends.bayes import HistogramFilter
 
     return HistogramFilter(grid, free, report_region=report_region)
 
 
-def _evidential(grid, free, *, rule, motion, max_focal, report_region):
+def _particles(grid, free, *, rule, motion, max_focal, report_region, seed):
+    from fusion.backends.particles import ParticleFilter
+
+    return ParticleFilter(grid, free, seed=seed, report_region=report_region)
+
+
+def _evidential(grid, free, *, rule, motion, max_focal, report_region, seed):
     from fusion.backends.contour import CONTOUR_RULES, ContourFilter
     from fusion.backends.evidential import MassFilter
 
@@ -80,6 +88,16 @@ BACKENDS = {
         ("conflict", "conflict K = m(∅)"),
         ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy", "disjunctive"),
     ),
+    "particles": BackendKind(
+        "particles",
+        _particles,
+        "Particle filter",
+        "particles",
+        False,
+        24,  # the per-cell histogram and the estimate's arrays (not measured: the particles themselves are few)
+        False,
+        ("surprise", "surprise −log p(z|past), nats"),
+    ),
 }
 """Back-end name -> what it is and how to build it; the order is the order tools list them in."""
 
@@ -105,6 +123,7 @@ def build(
     motion: str = "probabilistic",
     max_focal: int = 32,
     report_region: bool = False,
+    seed: int = 0,
 ) -> Backend:
     """The filter called ``name`` on ``grid`` (cells off ``free`` are impossible)."""
     from fusion.motion import MOTION_MODELS
@@ -112,4 +131,4 @@ def build(
     builder = backend_kind(name).build
     if motion not in MOTION_MODELS:
         raise RuleError(f"unknown motion model {motion!r}; choose one of: {', '.join(MOTION_MODELS)}")
-    return builder(grid, free, rule=rule, motion=motion, max_focal=max_focal, report_region=report_region)
+    return builder(grid, free, rule=rule, motion=motion, max_focal=max_focal, report_region=report_region, seed=seed)

@@ -22,7 +22,7 @@ from fusion.backends.base import (
     region_size,
 )
 from fusion.belief.posterior import Posterior
-from fusion.conflict import support_conflict
+from fusion.conflict import support_conflict, support_joint_conflict
 from fusion.errors import FrameMismatchError, ZeroEvidenceError
 from fusion.grid import PoseGrid
 from fusion.motion import predict_density
@@ -104,17 +104,8 @@ class HistogramFilter:
         return NO_OPINION  # the slow/fast evidence ratio, from ``log_evidence``, is the Bayes side's second figure
 
     def joint_conflict(self, snapshot: np.ndarray, readings) -> float:
-        """The support conflict of the tick's readings at once: the best their joint likelihood (each
-        r·c + 1 − r, at most 1) does on the cells still possible.  1 − p(z | past) would blame the
-        sharpest sensor for being informative."""
-        if not readings:
-            return 0.0
-        top = float(snapshot.max())
-        support = snapshot >= SUPPORT_SHARE * top if top > 0 else np.ones(len(snapshot), bool)
-        lik = np.ones(int(support.sum()))
-        for _, e in readings:
-            lik = lik * e.likelihood[support]
-        return 1.0 - min(float(lik.max()), 1.0)
+        """The support conflict of the tick's readings at once (``fusion.conflict.support_joint_conflict``)."""
+        return support_joint_conflict(snapshot, readings, SUPPORT_SHARE)
 
     def distance(self, before, after) -> None:
         return None
