@@ -210,17 +210,7 @@ def _run(model, args, points: int, settings: FitSettings, sensor: str, kind: str
                 r_hat = split_gelman_rubin(stacked, chain_dim=0, sample_dim=1)
                 ess = effective_sample_size(stacked, chain_dim=0, sample_dim=1)
                 fit.diagnostics[name] = {"r_hat": _worst(r_hat, max), "ess": _worst(ess, min)}
-        for name, d in fit.diagnostics.items():
-            if not d["r_hat"] <= RHAT_WARN:
-                fit.warnings.append(
-                    f"{name}: split R-hat {d['r_hat']:.3f} is above {RHAT_WARN}, so the chains disagree; raise "
-                    "--samples and --warmup (or --chains)"
-                )
-            if not d["ess"] >= ESS_WARN:
-                fit.warnings.append(
-                    f"{name}: only {d['ess']:.0f} effective draws (at least {ESS_WARN} make the interval's ends "
-                    "reliable); raise --samples"
-                )
+        fit.warnings += _diagnostic_warnings(fit.diagnostics)
     else:
         from pyro.infer import SVI, Predictive, Trace_ELBO
         from pyro.infer.autoguide import AutoNormal
@@ -236,8 +226,25 @@ def _run(model, args, points: int, settings: FitSettings, sensor: str, kind: str
         tail = max(10, len(fit.elbo) // 10)
         last, before = np.mean(fit.elbo[-tail:]), np.mean(fit.elbo[-2 * tail : -tail])
         if abs(before - last) > 0.01 * abs(last) + 1.0:
-            fit.warnings.append(f"ELBO still moving at the end ({before:.1f} → {last:.1f}); run more SVI steps")
+            fit.warnings.append(f"ELBO still moving at the end ({before:.1f} → {last:.1f}); raise --svi-steps")
     return fit
+
+
+def _diagnostic_warnings(diagnostics: dict) -> list[str]:
+    """What the chains' split R-hat and effective sample size say, per parameter, and which option to raise."""
+    out = []
+    for name, d in diagnostics.items():
+        if not d["r_hat"] <= RHAT_WARN:
+            out.append(
+                f"{name}: split R-hat {d['r_hat']:.3f} is above {RHAT_WARN}, so the chains disagree; raise "
+                "--samples and --warmup (or --chains)"
+            )
+        if not d["ess"] >= ESS_WARN:
+            out.append(
+                f"{name}: only {d['ess']:.0f} effective draws (at least {ESS_WARN} make the interval's ends "
+                "reliable); raise --samples"
+            )
+    return out
 
 
 _OBSERVED = {"active", "outcome", "residual", "forward", "turn"}  # sampled sites that hold data, not parameters

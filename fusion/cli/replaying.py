@@ -42,23 +42,14 @@ def calibrate_command(args: argparse.Namespace) -> int:
     )
     console = Console()
     notice(console)
-    progress = progress_bar(console, "fitting", False, "{task.completed}/{task.total} sensors {task.fields[now]}")
-    task = progress.add_task("fit", total=len(case.sensors), now="")
-    fitted: list[str] = []
-
-    def next_sensor(name: str) -> None:
-        if fitted:
-            progress.advance(task)
-        fitted.append(name)
-        progress.update(task, now=f"(now: {literal(name)}; NUTS draws take longest, --method svi is faster)")
-
-    with progress:
-        result = calibrate(case, args.log, args.truth, settings, progress=next_sensor, layout=layout)
-        progress.update(task, completed=len(case.sensors), now="")
+    result = _fitted(
+        console, lambda step: calibrate(case, args.log, args.truth, settings, progress=step, layout=layout), case
+    )
     console.print(
         f"[bold]Calibrated sensor parameters[/] ({plural(result.observations, 'reading')}, {plural(result.poses, 'true pose')})"
     )
-    console.print(*calibration_tables(result, case))
+    for part in calibration_tables(result, case):
+        console.print(part)
     if result.no_model:
         console.print(
             f"no calibration model for the kind of: {literal(', '.join(result.no_model))} (their parameters are unchanged)"
@@ -77,6 +68,24 @@ def calibrate_command(args: argparse.Namespace) -> int:
         f"written to [bold]{literal(out)}[/]; use it with --calibration {literal(out)} (run, compare, stream)"
     )
     return 0
+
+
+def _fitted(console, fit, case):
+    """Run ``fit(step)`` under a bar that counts the sensors fitted and names the one being fitted."""
+    progress = progress_bar(console, "fitting", False, "{task.completed}/{task.total} sensors {task.fields[now]}")
+    task = progress.add_task("fit", total=len(case.sensors), now="")
+    fitted: list[str] = []
+
+    def step(name: str) -> None:
+        if fitted:
+            progress.advance(task)
+        fitted.append(name)
+        progress.update(task, now=f"(now: {literal(name)}; NUTS draws take longest, --method svi is faster)")
+
+    with progress:
+        result = fit(step)
+        progress.update(task, completed=len(case.sensors), now="")
+    return result
 
 
 def _layout_of(args: argparse.Namespace, case):

@@ -6,7 +6,7 @@ import argparse
 from collections import Counter
 
 from fusion import SAFETY_NOTICE
-from fusion.cli.opening import builtin_case, notice, open_case, progress_bar
+from fusion.cli.opening import builtin_case, notice, open_case
 from fusion.cli.outputs import claim_output, known_rule, runs_in, where
 from fusion.errors import FusionError
 from fusion.text import literal, plain
@@ -102,11 +102,11 @@ def check_command(args: argparse.Namespace) -> int:
 def compare_command(args: argparse.Namespace) -> int:
     from rich.console import Console
 
+    from fusion.cli.sweep_progress import SweepProgress
     from fusion.compare import SweepInterrupted, run_sweep, sweep_digest
     from fusion.compare.conclusion import conclude
-    from fusion.compare.eta import LONG_SWEEP_S, duration_words
     from fusion.view.compare_report import write_report
-    from fusion.view.compare_tables import tables
+    from fusion.view.compare_tables import comparison_text
 
     _known_figure(args.rank_by)
     case, settings, spec, seeds = _sweep_plan(args)
@@ -122,27 +122,8 @@ def compare_command(args: argparse.Namespace) -> int:
         f"{literal(case.name)}: {plural(len(settings), 'setting')} × {plural(spec.seeds, 'seed')} = {plural(runs, 'run')} "
         f"on the {args.engine} engine with {plural(eta.workers, 'worker')}; results go to {literal(out_dir)}"
     )
-    progress = progress_bar(console, "runs", args.quiet, "{task.completed}/{task.total}", eta_field=True)
-    task = progress.add_task("runs", total=None, eta="")
-
-    def planned(todo) -> None:
-        eta.todo = Counter(s.key for s, _ in todo)
-        left = eta.remaining_s()
-        progress.update(task, eta=eta.words())
-        if left > LONG_SWEEP_S:
-            console.print(
-                f"[yellow]This sweep is expected to take about {duration_words(left)} ({len(todo):,} runs left, "
-                f"by the case's estimate of each setting's run, {plural(eta.workers, 'worker')}).[/] To shrink it: "
-                "fewer seeds (--seeds), fewer settings (--backend, --rule, --reliability, --fault-rate), or more "
-                "workers (--workers, on more cores). Ctrl-C stops it; the same command resumes."
-            )
-
-    def landed(rec) -> None:
-        eta.landed(rec.key, rec.wall_s)
-        progress.update(task, advance=1, eta=eta.words())
-
     try:
-        with progress:
+        with SweepProgress(console, args.quiet, eta) as shown:
             records = run_sweep(
                 args.case,
                 settings,
@@ -152,9 +133,9 @@ def compare_command(args: argparse.Namespace) -> int:
                 engine=args.engine,
                 address=args.scheduler,
                 calibration=args.calibration,
-                on_plan=planned,
-                on_start=lambda total, done: progress.update(task, total=total, completed=done),
-                on_done=landed,
+                on_plan=shown.planned,
+                on_start=shown.started,
+                on_done=shown.landed,
             )
     except SweepInterrupted as err:
         folder.finish(["sweep.json", *runs_in(out_dir)])
@@ -164,15 +145,8 @@ def compare_command(args: argparse.Namespace) -> int:
         found = conclude(case, records, settings, args.rank_by)
         files = write_report(out_dir, found)
     folder.finish(["sweep.json", *files, *runs_in(out_dir)])
-    title = f"{literal(case.name)}, {plural(len(records), 'run')}"
-    for t in tables(found.summary, settings, args.rank_by, title, console.width):
-        console.print(t)
-    for v in found.verdicts:
-        console.print(f"• {literal(v.sentence)}")
-    console.print(
-        f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {found.identity.words()}"
-    )
-    console.print(f"[bold]{literal(found.recommendation.text)}[/]")
+    for part in comparison_text(found, console.width):
+        console.print(part)
     console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
     return 0
 

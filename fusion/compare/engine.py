@@ -76,13 +76,10 @@ def run_sweep(
     on_done: Callable[[RunRecord], None] | None = None,
     calibration=None,
 ) -> list[RunRecord]:
-    """Run every setting on every seed; returns one record per run (finished earlier or now).
-
-    Runs already in ``out_dir/runs`` for the same case file are reused, so an interrupted
-    sweep resumes where it stopped.  ``on_plan(todo)`` (the (setting, seed) pairs still to run),
-    ``on_start(total, already_done)`` and ``on_done(record)``
-    drive a progress display.
-    """
+    """Run every setting on every seed; returns one record per run (finished earlier or now).  Runs already in
+    ``out_dir/runs`` for the same case file are reused, so an interrupted sweep resumes where it stopped.
+    ``on_plan(todo)`` (the (setting, seed) pairs still to run), ``on_start(total, already_done)`` and
+    ``on_done(record)`` drive a progress display."""
     if engine not in ENGINES:
         raise FusionError(f"unknown engine {engine!r}; choose among: {', '.join(ENGINES)}")
     case_path = str(case_path)

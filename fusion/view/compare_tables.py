@@ -9,7 +9,7 @@ from fusion.compare import FIGURES, Setting
 from fusion.compare.verdicts import INTERVAL
 from fusion.view.fitting import Column, fitted_tables
 
-__all__ = ["TABLE_FIGURES", "ranked", "cell", "tables"]
+__all__ = ["TABLE_FIGURES", "ranked", "cell", "tables", "comparison_text"]
 
 TABLE_FIGURES = (
     "median_error_m",
@@ -68,4 +68,18 @@ def tables(summary, settings: list[Setting], rank_by: str, title: str, width: in
     values = [Column(_header(n), "right", "bold" if n == rank_by else None) for n in figures]
     out = fitted_tables(title, keys, values, rows, width)
     out.append(f"Each cell: the mean over seeds and its {INTERVAL}; ranked by {FIGURES[rank_by].label}.")
+    return out
+
+
+def comparison_text(found, width: int) -> list:
+    """Everything the terminal shows of a finished comparison (``fusion.compare.conclusion.Comparison``): the
+    tables, a verdict per figure, the sanity row and the recommendation."""
+    from fusion.text import literal
+    from fusion.words import plural
+
+    title = f"{literal(found.case_name)}, {plural(len(found.records), 'run')}"
+    out = tables(found.summary, found.settings, found.rank_by, title, width)
+    out += [f"• {literal(v.sentence)}" for v in found.verdicts]
+    out.append(f"Sanity row (Shafer 1976: Dempster's rule on Bayesian masses is Bayes' rule): {found.identity.words()}")
+    out.append(f"[bold]{literal(found.recommendation.text)}[/]")
     return out
