@@ -6,7 +6,10 @@
 - ``disagreement``: the back end's second figure beside K, when it gives one (``SecondOpinion``);
 - ``surprise``: −log p(z | past) of the tick's most surprising reading (back ends that report log evidence);
 - ``evidence_ratio``: the slow/fast average of the evidence (the lost-robot test; 1 when calm);
-- ``jousselme``: the distance the tick moved the belief, computed on busy ticks only (None otherwise).
+- ``jousselme``: the distance the tick moved the belief, computed on busy ticks only (None otherwise);
+- ``effective_share``: the smallest effective sample size of the tick's updates as a share of the particle
+  count (back ends that sample; None otherwise): near 1 the particles covered the readings, near 0 a few
+  particles carried all the weight.
 """
 
 from __future__ import annotations
@@ -25,6 +28,7 @@ class TickFigures:
     surprise: float = 0.0
     evidence_ratio: float = 1.0
     jousselme: float | None = None
+    effective_share: float | None = None
 
     def value(self, name: str) -> float:
         """A figure by name, 0 where it was not computed (a calm tick's distance)."""

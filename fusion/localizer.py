@@ -307,6 +307,8 @@ class Localizer:
             disagree = self.monitor.disagrees(figure, opinion)
             tick.figures.conflict = max(tick.figures.conflict, k)
             tick.figures.disagreement = max(tick.figures.disagreement, opinion.disagreement or 0.0)
+            if report.effective_share is not None:
+                tick.figures.effective_share = min(tick.figures.effective_share or 1.0, report.effective_share)
             if report.log_evidence is not None:  # the slow/fast evidence averages (augmented MCL)
                 ratio = self.averages.add(report.log_evidence)
                 tick.figures.surprise = max(tick.figures.surprise, -report.log_evidence)

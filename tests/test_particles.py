@@ -123,3 +123,26 @@ def test_the_same_seed_gives_the_same_particles():
     a.update(e)
     b.update(e)
     np.testing.assert_array_equal(a.state.poses, b.state.poses)
+
+
+def test_the_decision_reports_the_effective_sample_share():
+    # Kong, Liu & Wong (1994) / Liu (2001), Monte Carlo Strategies in Scientific Computing, §2.5: the effective
+    # sample size 1/Σw² of normalised weights; all weights equal give N (share 1).  A sighting that only part of
+    # the particles fit drops the share below 1; the decision's figures carry the share the filter holds.
+    from fusion.io.case import load_case
+    from fusion.io.observations import Observation
+    from fusion.localizer import Localizer
+    from fusion.sensors.markers import MarkerSighting
+    from tests.test_case import TINY
+
+    loc = Localizer.from_case(load_case(TINY), "particles")
+    loc.start_anywhere()
+    marker = loc.sensors.site.markers[0]
+    d = loc.step(None, [Observation(0.0, "camera", "markers", MarkerSighting(marker.marker_id, 1.0, 0.0))])
+    share = d.figures.effective_share
+    assert share is not None and 0.0 < share < 0.9
+    if share >= 0.5:  # not resampled: the filter still holds the weights the share was measured on
+        assert loc.filter.effective_share() == pytest.approx(share)
+    assert "effective_share" in d.to_record()["figures"]
+    w = np.full(10, 0.1)
+    assert float(1.0 / (w @ w)) == pytest.approx(10.0)

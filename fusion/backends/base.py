@@ -50,6 +50,7 @@ class StepReport:
     focal_sets: int | None = None
     mass_moved: float = 0.0  # mass merged into supersets by the focal-set cap
     rejected: bool = False  # total conflict / zero evidence: the belief was left unchanged
+    effective_share: float | None = None  # sampling back ends: effective sample size / count after the update
 
 
 @dataclass(frozen=True)

@@ -159,11 +159,12 @@ class ParticleFilter:
         fast = z if s.fast == 0 else s.fast + cfg.fast_rate * (z - s.fast)
         weights = s.weights * likelihood / z
         self.state = _State(s.poses, weights, slow, fast)
-        if 1.0 / float(weights @ weights) < 0.5 * len(weights):
+        share = self.effective_share()  # before resampling: how well the particles covered this reading
+        if share < 0.5:
             self._resample()
         seconds = time.perf_counter() - start
         region = self._region() if self.report_region else 0
-        return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=math.log(z))
+        return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=math.log(z), effective_share=share)
 
     def _resample(self) -> None:
         """Low-variance resampling at the largest count, injection of random poses (augmented MCL), then the
