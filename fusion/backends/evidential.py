@@ -136,7 +136,7 @@ class MassFilter:
         self.motion_lost = lost
         if lost >= TOTAL_CONFLICT:
             return  # everything moved into walls: keep the belief; the next update will show the conflict
-        out = acc.result()
+        out = MassFunction.collected(acc)
         if lost > 0:
             out = MassFunction._trusted(n, out.sets.copy(), out.masses / out.masses.sum())
         self.belief = rules.reduce_focal_sets(out, self.max_focal, self.merge).mass_function
@@ -297,7 +297,7 @@ def _with_conflict(m: MassFunction, k: float) -> MassFunction:
     acc = FocalAccumulator(m.n)
     acc.add(m.sets[~empty], m.masses[~empty] * (1.0 - k) / max(m.masses[~empty].sum(), 1e-300))
     acc.add(np.zeros((1, m.sets.shape[1]), dtype=bitset.WORD), [k])
-    return acc.result()
+    return MassFunction.collected(acc)
 
 
 def _pignistic(m: MassFunction) -> np.ndarray:
@@ -322,4 +322,4 @@ def _conflict_to_free(joint: MassFunction, free_words: np.ndarray) -> MassFuncti
     acc = FocalAccumulator(joint.n)
     acc.add(joint.sets[~empty], joint.masses[~empty])
     acc.add(free_words[None, :], [joint.masses[empty].sum()])
-    return acc.result()
+    return MassFunction.collected(acc)

@@ -3,8 +3,6 @@ confirmed by exact comparison), and the reduction to at most a cap of focal sets
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 import numpy as np
 
 from fusion.belief import bitset
@@ -12,9 +10,6 @@ from fusion.errors import (
     MassValueError,
     RuleError,
 )
-
-if TYPE_CHECKING:
-    from fusion.belief.mass import MassFunction
 
 __all__ = ["FocalAccumulator", "MERGE_STRATEGIES"]
 
@@ -106,24 +101,21 @@ class FocalAccumulator:
             out[i] = self._blocks[block][r]
         return out
 
-    def result(self) -> MassFunction:
+    def arrays(self) -> tuple[np.ndarray, np.ndarray]:
+        """The merged focal sets (packed rows) and their masses; ``MassFunction.collected`` wraps them."""
         if not self._weights:
             raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
-        from fusion.belief.mass import MassFunction
+        return self._gather(range(len(self._weights))), np.asarray(self._weights, dtype=np.float64)
 
-        sets = self._gather(range(len(self._weights)))
-        masses = np.asarray(self._weights, dtype=np.float64)
-        return MassFunction._trusted(self.n, sets, masses)
-
-    def reduced(self, max_focal: int, merge: str = "union") -> tuple[MassFunction, float, int]:
-        """Like ``result`` followed by ``rules.reduce_focal_sets``, but copies only the rows it keeps.
+    def reduced(self, max_focal: int, merge: str = "union") -> tuple[FocalAccumulator, float, int]:
+        """Like ``arrays`` followed by ``rules.reduce_focal_sets``, but copies only the rows it keeps.
 
         The ``max_focal − 1`` most massive non-empty sets are kept.  With ``merge="union"`` every
         other set is merged into their common union; with ``merge="nearest"`` each is merged into
         the kept set it overlaps most (judged on which 64-cell words they occupy), so the
         approximation stays local: a set near the robot is not blurred with one across the
         site.  Sets that overlap no kept set go to their common union.  Either way mass only
-        moves to supersets.  Returns (mass function, mass moved to a larger set, sets merged).
+        moves to supersets.  Returns (the accumulator of the kept sets, mass moved to a larger set, sets merged).
         The empty set (fingerprint 0, confirmed exactly) is never merged.
         """
         if merge not in MERGE_STRATEGIES:
@@ -137,7 +129,7 @@ class FocalAccumulator:
             empty[s] = not self._row(s).any()
         nonempty = np.flatnonzero(~empty & (w > 0))
         if len(nonempty) <= max_focal:
-            return self.result(), 0.0, 0
+            return self, 0.0, 0
         order = nonempty[np.argsort(-w[nonempty], kind="stable")]
         keep, dropped = order[: max_focal - 1].tolist(), order[max_focal - 1 :].tolist()
         rows = [self._row(s).copy() for s in keep]
@@ -174,7 +166,7 @@ class FocalAccumulator:
         acc.add(np.stack(rows), masses, owned=True)
         if empty_slots:
             acc.add(np.stack([self._row(s) for s in empty_slots]), w[empty_slots])
-        return acc.result(), moved, len(dropped)
+        return acc, moved, len(dropped)
 
     def _row(self, slot: int) -> np.ndarray:
         block, r = self._where[slot]

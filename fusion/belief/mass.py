@@ -83,10 +83,15 @@ class MassFunction:
         _check_masses(masses)
         acc = FocalAccumulator(n)
         acc.add(sets, masses)
-        merged = acc.result()
+        merged = MassFunction.collected(acc)
         self.n, self._sets, self._masses, self._card = n, merged._sets, merged._masses, None
         self._masses = self._masses / self._masses.sum()
         self._masses.flags.writeable = False
+
+    @classmethod
+    def collected(cls, acc: FocalAccumulator) -> MassFunction:
+        """The mass function an accumulator has merged (``FocalAccumulator.arrays``)."""
+        return cls._trusted(acc.n, *acc.arrays())
 
     @classmethod
     def _trusted(cls, n: int, sets: np.ndarray, masses: np.ndarray) -> MassFunction:

@@ -104,7 +104,7 @@ def conflict_mass(m1: MassFunction, m2: MassFunction) -> float:
 
 def conjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     """Unnormalised conjunctive rule: m(A) = Σ_{B∩C=A} m1(B) m2(C); m(∅) keeps the conflict."""
-    return _products(m1, m2, np.bitwise_and).result()
+    return MassFunction.collected(_products(m1, m2, np.bitwise_and))
 
 
 def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int, merge: str = "union") -> Reduction:
@@ -114,7 +114,7 @@ def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int, merg
     union anyway, so they are never gathered into a table of their own.
     """
     _check_cap(max_focal)
-    return Reduction(*_products(m1, m2, np.bitwise_and).reduced(max_focal, merge))
+    return _reduction(_products(m1, m2, np.bitwise_and).reduced(max_focal, merge))
 
 
 def dempster(m1: MassFunction, m2: MassFunction, *, if_total_conflict: str = "raise") -> MassFunction:
@@ -145,7 +145,7 @@ def _conflict_to_whole_frame(m: MassFunction) -> MassFunction:
     acc = FocalAccumulator(m.n)
     acc.add(m.sets[~empty], m.masses[~empty])
     acc.add(bitset.full(m.n)[None, :], [m.masses[empty].sum()])
-    return acc.result()
+    return MassFunction.collected(acc)
 
 
 def yager(m1: MassFunction, m2: MassFunction) -> MassFunction:
@@ -163,12 +163,12 @@ def dubois_prade(m1: MassFunction, m2: MassFunction) -> MassFunction:
             rows[empty] = m1.sets[ii[empty]] | m2.sets[jj[empty]]
             fps[empty] = bitset.fingerprint(rows[empty])
         acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True, fingerprints=fps)
-    return acc.result()
+    return MassFunction.collected(acc)
 
 
 def disjunctive(m1: MassFunction, m2: MassFunction) -> MassFunction:
     """Disjunctive rule: m(A) = Σ_{B∪C=A} m1(B) m2(C), for when one of the sources is right."""
-    return _products(m1, m2, np.bitwise_or).result()
+    return MassFunction.collected(_products(m1, m2, np.bitwise_or))
 
 
 def pcr5(m1: MassFunction, m2: MassFunction) -> MassFunction:
@@ -190,7 +190,7 @@ def pcr5(m1: MassFunction, m2: MassFunction) -> MassFunction:
             a, b = a[empty], b[empty]
             acc.add(m1.sets[ii[empty]], a * a * b / (a + b))
             acc.add(m2.sets[jj[empty]], b * b * a / (a + b))
-    return acc.result()
+    return MassFunction.collected(acc)
 
 
 def average(*ms: MassFunction, weights=None) -> MassFunction:
@@ -203,7 +203,7 @@ def average(*ms: MassFunction, weights=None) -> MassFunction:
     acc = FocalAccumulator(n)
     for m, wi in zip(ms, w.tolist()):
         acc.add(m.sets, m.masses * wi)
-    return acc.result()
+    return MassFunction.collected(acc)
 
 
 def murphy(*ms: MassFunction, if_total_conflict: str = "raise") -> MassFunction:
@@ -226,7 +226,7 @@ def discount(m: MassFunction, reliability: float) -> MassFunction:
     acc = FocalAccumulator(m.n)
     acc.add(m.sets, m.masses * r)
     acc.add(bitset.full(m.n)[None, :], [1.0 - r])
-    return acc.result()
+    return MassFunction.collected(acc)
 
 
 class Reduction(NamedTuple):
@@ -236,6 +236,11 @@ class Reduction(NamedTuple):
     mass_moved: float
     """Total mass of the focal sets merged into a larger set (0 when nothing was merged)."""
     sets_merged: int
+
+
+def _reduction(reduced: tuple[FocalAccumulator, float, int]) -> Reduction:
+    acc, moved, merged = reduced
+    return Reduction(MassFunction.collected(acc), moved, merged)
 
 
 def reduce_focal_sets(m: MassFunction, max_focal: int, merge: str = "union") -> Reduction:
@@ -253,7 +258,7 @@ def reduce_focal_sets(m: MassFunction, max_focal: int, merge: str = "union") -> 
         return Reduction(m, 0.0, 0)
     acc = FocalAccumulator(m.n)
     acc.add(m.sets, m.masses)
-    return Reduction(*acc.reduced(max_focal, merge))
+    return _reduction(acc.reduced(max_focal, merge))
 
 
 def _check_cap(max_focal) -> None:
