@@ -20,7 +20,7 @@ from fusion.compare.conclusion import Comparison
 from fusion.compare.verdicts import INTERVAL
 from fusion.io.outdir import atomic_write
 from fusion.view.compare_tables import TABLE_FIGURES, cell, ranked
-from fusion.view.html_page import figures_html, page, png_of, pyplot
+from fusion.view.html_page import figures_html, line_style, page, png_of, pyplot, shade_spans
 from fusion.words import plural
 
 __all__ = ["write_report", "runs_frame"]
@@ -42,24 +42,13 @@ def runs_frame(records: list[RunRecord]):
 
 
 # ----------------------------------------------------------------------------- plots
-LINE_STYLES = ("-", "--", "-.", ":")
-MARKERS = ("o", "s", "^", "D", "v", "x", "P", "*")
-"""Lines differ in style and marker as well as colour, so no line hides another and print stays readable."""
-
-
-def _style(i: int) -> dict:
-    return {"ls": LINE_STYLES[i % len(LINE_STYLES)], "marker": MARKERS[i % len(MARKERS)], "markevery": 0.1}
-
-
 def _plots(found: Comparison, order: list[Setting]) -> dict[str, bytes]:
     plt = pyplot()
     records = found.records
     shown = order[:PLOTTED_SETTINGS]
     out = {}
     fig, ax = plt.subplots(figsize=(9, 4.5), dpi=110)
-    for k, (a, b, what) in enumerate(found.fault_spans):
-        ax.axvspan(a, b, color="#f2c14e", alpha=0.25, lw=0, label="fault or carry" if k == 0 else None)
-        ax.text(a, 1.0, f" {what}", transform=ax.get_xaxis_transform(), fontsize=7, va="top", rotation=90)
+    shade_spans(ax, found.fault_spans)
     for i, s in enumerate(shown):
         runs = [r.series for r in records if r.key == s.key]
         if not runs:
@@ -67,7 +56,7 @@ def _plots(found: Comparison, order: list[Setting]) -> dict[str, bytes]:
         n = min(len(r.t) for r in runs)
         err = np.array([r.error_m[:n] for r in runs])
         t = np.array(runs[0].t[:n])
-        (line,) = ax.plot(t, np.median(err, axis=0), label=s.label, lw=1.3, ms=4, **_style(i))
+        (line,) = ax.plot(t, np.median(err, axis=0), label=s.label, lw=1.3, ms=4, markevery=0.1, **line_style(i))
         if len(runs) > 1:
             lo, hi = np.percentile(err, [25, 75], axis=0)
             ax.fill_between(t, lo, hi, color=line.get_color(), alpha=0.12, lw=0)
@@ -85,7 +74,15 @@ def _plots(found: Comparison, order: list[Setting]) -> dict[str, bytes]:
     for i, s in enumerate(shown):
         levels = np.concatenate([r.series.level for r in records if r.key == s.key] or [np.zeros(0)])
         if levels.size:
-            ax.plot(alphas, [(levels < a).mean() for a in alphas], label=s.label, lw=1.3, ms=4, **_style(i))
+            ax.plot(
+                alphas,
+                [(levels < a).mean() for a in alphas],
+                label=s.label,
+                lw=1.3,
+                ms=4,
+                markevery=0.1,
+                **line_style(i),
+            )
     ax.plot([0, 1], [0, 1], color="0.5", ls="--", lw=1, label="calibrated")
     ax.set_xlabel("nominal probability of the region")
     ax.set_ylabel("share of ticks with the true cell inside")

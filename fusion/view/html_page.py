@@ -8,7 +8,7 @@ import io
 
 from fusion import SAFETY_NOTICE
 
-__all__ = ["png_of", "figures_html", "page", "pyplot"]
+__all__ = ["png_of", "figures_html", "page", "pyplot", "line_style", "shade_spans"]
 
 _STYLE = """
 body { font-family: system-ui, sans-serif; margin: 2em; max-width: 1200px; }
@@ -32,6 +32,25 @@ def pyplot():
     import matplotlib.pyplot as plt
 
     return plt
+
+
+LINE_STYLES = ("-", "--", "-.", ":")
+MARKERS = ("o", "s", "^", "D", "v", "x", "P", "*")
+"""Lines differ in style and marker as well as colour, so no line hides another and print stays readable."""
+
+
+def line_style(i: int) -> dict:
+    """The line style and marker of the ``i``-th line of a plot (matplotlib keyword arguments)."""
+    return {"ls": LINE_STYLES[i % len(LINE_STYLES)], "marker": MARKERS[i % len(MARKERS)]}
+
+
+def shade_spans(ax, spans, name_them: bool = True) -> None:
+    """Shade each (start s, end s, what) span of time, the first labelled "fault or carry" for the legend, and
+    with ``name_them`` write what it was, upright, at its start."""
+    for k, (a, b, what) in enumerate(spans):
+        ax.axvspan(a, b, color="#f2c14e", alpha=0.25, lw=0, label="fault or carry" if k == 0 else None)
+        if name_them:
+            ax.text(a, 1.0, f" {what}", transform=ax.get_xaxis_transform(), fontsize=7, va="top", rotation=90)
 
 
 def png_of(fig, rect=None) -> bytes:

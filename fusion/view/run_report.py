@@ -9,14 +9,11 @@ import html
 import numpy as np
 
 from fusion.backends import BACKENDS
-from fusion.view.html_page import figures_html, page, png_of, pyplot
+from fusion.view.html_page import figures_html, line_style, page, png_of, pyplot, shade_spans
 from fusion.view.site_preview import draw_site_on, legend_if_any, site_figsize
 from fusion.words import plural
 
 __all__ = ["run_report"]
-
-STYLES = (("-", "o"), ("--", "s"), ("-.", "^"), (":", "D"))
-"""Line style and marker per back end, so that no line hides another (colour is not the only difference)."""
 
 
 def run_report(result) -> str:
@@ -73,9 +70,9 @@ def _path_map(result) -> bytes:
         ax.plot(truth[0, 0], truth[0, 1], "o", color="black", ms=6)
     for i, backend in enumerate(result.backends):
         rows = result.rows_of(backend)
-        ls, marker = STYLES[i % len(STYLES)]
         xs, ys = [r.decision.x_m for r in rows], [r.decision.y_m for r in rows]
-        ax.plot(xs, ys, ls=ls, marker=marker, ms=2.5, lw=0.8, alpha=0.8, label=f"{BACKENDS[backend].title} estimate")
+        title = BACKENDS[backend].title
+        ax.plot(xs, ys, ms=2.5, lw=0.8, alpha=0.8, label=f"{title} estimate", **line_style(i))
         acted = [r for r in rows if r.action != "carry on"]
         ax.plot([r.decision.x_m for r in acted], [r.decision.y_m for r in acted], "x", ms=7, color=f"C{i}")
     if any(r.action != "carry on" for r in result.rows):
@@ -90,28 +87,16 @@ def _path_map(result) -> bytes:
 def _over_time(result, spans) -> bytes:
     plt = pyplot()
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(10, 6), dpi=100, sharex=True)
-    for ax in (top, bottom):
-        for k, (a, b, _) in enumerate(spans):
-            ax.axvspan(a, b, color="#f2c14e", alpha=0.25, lw=0, label="fault or carry" if k == 0 else None)
-    for a, _, what in spans:
-        top.text(a, 1.0, f" {what}", transform=top.get_xaxis_transform(), fontsize=7, va="top", rotation=90)
+    shade_spans(top, spans)
+    shade_spans(bottom, spans, name_them=False)
     for i, backend in enumerate(result.backends):
         rows = result.rows_of(backend)
-        ls, marker = STYLES[i % len(STYLES)]
+        style = {"markevery": 0.05, "ms": 4, **line_style(i)}
         t = [r.t for r in rows]
         title = BACKENDS[backend].title
-        top.plot(t, [r.error_m for r in rows], ls=ls, marker=marker, markevery=0.05, ms=4, lw=1.2, label=title)
+        top.plot(t, [r.error_m for r in rows], lw=1.2, label=title, **style)
         key, label = BACKENDS[backend].figure
-        bottom.plot(
-            t,
-            [r.decision.figures.value(key) for r in rows],
-            ls=ls,
-            marker=marker,
-            markevery=0.05,
-            ms=4,
-            lw=1.0,
-            label=f"{title}: {label}",
-        )
+        bottom.plot(t, [r.decision.figures.value(key) for r in rows], lw=1.0, label=f"{title}: {label}", **style)
     top.set_ylim(bottom=0)
     top.set_ylabel("position error (m)")
     top.set_title("Error and conflict over time (shaded: injected faults and carries)")
