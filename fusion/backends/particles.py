@@ -35,7 +35,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fusion.backends.base import NO_OPINION, BeliefHealth, PoseEstimate, SecondOpinion, StepReport, estimate_pose
+from fusion.backends.base import (
+    NO_OPINION,
+    BeliefHealth,
+    PoseEstimate,
+    SecondOpinion,
+    StepReport,
+    estimate_pose,
+    region_size,
+)
 from fusion.backends.bayes import SUPPORT_SHARE
 from fusion.conflict import support_conflict, support_joint_conflict
 from fusion.errors import FrameMismatchError
@@ -148,7 +156,8 @@ class ParticleFilter:
             )
         start = time.perf_counter()
         s = self.state
-        likelihood = evidence.likelihood[self._cells(s.poses)] * self._on_free(s.poses)
+        # A particle off free space already weighs 0 (``predict``; drawn particles are drawn on free cells).
+        likelihood = evidence.likelihood[self._cells(s.poses)]
         z = float(s.weights @ likelihood)  # p(z | past), by the particles
         if z <= 0:
             return StepReport(
@@ -232,12 +241,9 @@ class ParticleFilter:
 
     # ----------------------------------------------------------------- what every back end reports
     def distribution(self) -> np.ndarray:
-        s = self.state
-        return np.bincount(self._cells(s.poses), weights=s.weights, minlength=self.grid.n_cells)
+        return self._histogram(self.state)
 
     def _region(self) -> int:
-        from fusion.backends.base import region_size
-
         return region_size(self.distribution())
 
     def reading_conflict(self, snapshot: _State, evidence: Evidence) -> float:
@@ -251,6 +257,7 @@ class ParticleFilter:
         return support_joint_conflict(self._histogram(snapshot), readings, SUPPORT_SHARE)
 
     def _histogram(self, snapshot: _State) -> np.ndarray:
+        """The weights summed per cell: the probability per cell every tool reads."""
         return np.bincount(self._cells(snapshot.poses), weights=snapshot.weights, minlength=self.grid.n_cells)
 
     def distance(self, before, after) -> None:
