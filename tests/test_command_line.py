@@ -117,3 +117,10 @@ def test_run_writes_a_single_file_html_report(tmp_path):
     assert f"Monitor actions ({len(summary['events'])})" in page
     median = summary["backends"]["bayes"]["median_error_m"]
     assert re.search(rf"<td>{median:.2f} m</td>", page)  # the report shows the summary's own figures
+
+
+def test_targets_on_a_case_file_count_its_runs_down_to_the_end(capsys):
+    # The time left is priced per case label; a case given as a file must count down like a shipped name.
+    assert main(["targets", "--case", str(TINY), "--seeds", "2", "--backend", "bayes"]) == 0
+    out = capsys.readouterr().out
+    assert "2/2" in out and "finishing" in out

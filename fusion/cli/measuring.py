@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import argparse
 import time
+from pathlib import Path
 
-from fusion.cli.opening import builtin_case, builtin_cases, case_file, notice, open_case, progress_bar, progress_for
+from fusion.cli.opening import builtin_case, case_file, notice, open_case, progress_bar, progress_for
 from fusion.cli.outputs import claim_output, where
 from fusion.errors import FusionError
 from fusion.text import literal
@@ -54,17 +55,15 @@ def case_file_or_error(text: str) -> str:
 def _targets_eta(cases, seeds: int, backends):
     """The clock of a targets sweep: one run per case and seed, priced by the case's estimate until measured."""
     from collections import Counter
-    from pathlib import Path
 
     from fusion.budget import estimate
     from fusion.compare.eta import SweepEta
     from fusion.io.case import load_case
 
     prior, todo = {}, Counter()
-    for c in cases:
+    for c in cases:  # a shipped case by name, or any case file (``case_file``)
         label = Path(c).stem
-        path = builtin_case(f"{c}.toml") if c in builtin_cases() else c
-        prior[label] = estimate(load_case(path), backends=backends).total_seconds
+        prior[label] = estimate(load_case(case_file_or_error(c)), backends=backends).total_seconds
         todo[label] = seeds
     return SweepEta(prior, todo, 1)
 
@@ -85,7 +84,7 @@ def targets_command(args: argparse.Namespace) -> int:
         if unknown:
             raise FusionError(f"unknown attribution case {unknown[0]!r}; choose among: {', '.join(ATTRIBUTION_CASES)}")
     else:  # a shipped case by name, or any case file: its target follows from what it holds
-        cases = [c if c in builtin_cases() else case_file_or_error(c) for c in (args.case or FAULT_CASES)]
+        cases = [case_file_or_error(c) for c in (args.case or FAULT_CASES)]
     notice(console)
     eta = _targets_eta(cases, args.seeds, args.backend)
     if eta.remaining_s() > LONG_SWEEP_S:
@@ -103,7 +102,7 @@ def targets_command(args: argparse.Namespace) -> int:
         said = "; ".join(f"{r.backend} {'met' if r.success else 'missed'} ({r.detail})" for r in verdicts)
         progress.console.print(f"[dim]{literal(case)} seed {seed}: {literal(said)}[/]")
         now = time.perf_counter()
-        eta.landed(case, now - clock[0])
+        eta.landed(Path(case).stem, now - clock[0])  # the clock's keys are the cases' labels
         clock[0] = now
         progress.update(task, advance=1, eta=eta.words())
 
