@@ -307,7 +307,7 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
     for backend in BACKENDS:
         loc = Localizer.from_case(case, backend)
         first = run[0].truth
-        loc.start_at(first.x_m, first.y_m, first.heading_deg)
+        loc.start_at(first.x_m, first.y_m, first.heading_deg, covariance=case.run.start_covariance)
         times = []
         for tick in run:
             odometry = next(o for o in tick.observations if o.moves)

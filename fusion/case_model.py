@@ -101,6 +101,12 @@ class RunSpec:
     motion: str = "probabilistic"  # how the evidential back end applies odometry (fusion.motion.MOTION_MODELS)
     budget_gib: float = MEMORY_BUDGET_GIB  # memory a run may take (fusion.budget)
     budget_minutes: float = WORK_BUDGET_MINUTES  # processor time a run may take (fusion.budget)
+    tuning: dict = field(default_factory=dict)  # back end -> its settings ([run.particles], [run.gaussian])
+    start_covariance: tuple | None = None  # 3 × 3 in (m, m, rad): the known start's uncertainty; None: a disc
+
+    def settings_of(self, backend: str):
+        """The case's settings for ``backend`` (``[run.<backend>]``), or None for the back end's defaults."""
+        return self.tuning.get(backend)
 
 
 SWEEP_RULES = ("dempster", "conjunctive", "yager", "dubois_prade", "pcr5", "murphy")

@@ -42,6 +42,9 @@ __all__ = [
     "pairwise_conflict",
     "support_conflict",
     "support_joint_conflict",
+    "support_cells",
+    "conflict_on",
+    "joint_conflict_on",
     "fit_plausibility_contour",
     "EvidenceAverages",
 ]
@@ -91,14 +94,24 @@ def _survival_table(dof: int) -> tuple[np.ndarray, np.ndarray]:
     return xs, gammaincc(k, xs)
 
 
+def support_cells(p: np.ndarray, share: float) -> np.ndarray:
+    """The cells a probability per cell still allows: p ≥ ``share`` · max p (every cell when p is all zero)."""
+    top = float(p.max())
+    return np.flatnonzero(p >= share * top) if top > 0 else np.arange(len(p))
+
+
 def support_conflict(p: np.ndarray, evidence, share: float) -> float:
     """r·(1 − pl) of a reading's best fit among the cells with p ≥ ``share`` · max p: Dempster's K between
     the discounted consonant reading and the categorical mass function on those cells, pl scored by
     ``fit_plausibility`` (for a scan of m beams, how often a correct pose fits as badly)."""
-    top = float(p.max())
-    if top <= 0:
+    if float(p.max()) <= 0:
         return 1.0
-    best = float(evidence.contour[p >= share * top].max())
+    return conflict_on(support_cells(p, share), evidence)
+
+
+def conflict_on(cells: np.ndarray, evidence) -> float:
+    """``support_conflict`` on a given support (cell indices)."""
+    best = float(evidence.contour[cells].max())
     return evidence.reliability * (1.0 - fit_plausibility(best, evidence.dof))
 
 
@@ -106,13 +119,16 @@ def support_joint_conflict(p: np.ndarray, readings, share: float) -> float:
     """The support conflict of a tick's (sensor, Evidence) readings at once: 1 − the best their joint likelihood
     (each r·c + 1 − r, at most 1) does on the cells with p ≥ ``share`` · max p.  1 − p(z | past) would blame
     the sharpest sensor for being informative."""
+    return joint_conflict_on(support_cells(p, share), readings)
+
+
+def joint_conflict_on(cells: np.ndarray, readings) -> float:
+    """``support_joint_conflict`` on a given support (cell indices)."""
     if not readings:
         return 0.0
-    top = float(p.max())
-    support = p >= share * top if top > 0 else np.ones(len(p), bool)
-    lik = np.ones(int(support.sum()))
+    lik = np.ones(len(cells))
     for _, e in readings:
-        lik = lik * e.likelihood[support]
+        lik = lik * e.likelihood[cells]
     return 1.0 - min(float(lik.max()), 1.0)
 
 

@@ -10,6 +10,8 @@
 - ``effective_share``: the smallest effective sample size of the tick's updates as a share of the particle
   count (back ends that sample; None otherwise): near 1 the particles covered the readings, near 0 a few
   particles carried all the weight.
+- ``nis_share``: the largest normalised innovation squared of the tick's readings as a share of its χ² gate
+  (the Gaussian back end; None otherwise): above 1 a reading was gated out.
 """
 
 from __future__ import annotations
@@ -29,6 +31,7 @@ class TickFigures:
     evidence_ratio: float = 1.0
     jousselme: float | None = None
     effective_share: float | None = None
+    nis_share: float | None = None
 
     def value(self, name: str) -> float:
         """A figure by name, 0 where it was not computed (a calm tick's distance)."""

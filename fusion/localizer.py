@@ -107,6 +107,8 @@ class _Tick:
     applied: list = field(default_factory=list)  # (sensor, evidence as absorbed: a quarantined one discounted)
     undiscounted: list = field(default_factory=list)  # (sensor, evidence as the sensor gave it)
     met: list = field(default_factory=list)  # TickReading per reading, when the readings were given
+    refused: list = field(default_factory=list)  # (sensor, why) of readings the back end could not use at all
+    notes: list = field(default_factory=list)  # what the back end said of its state during the tick
 
 
 class Localizer:
@@ -122,11 +124,13 @@ class Localizer:
         full_figures: bool = False,
         explain: bool = False,
         seed: int = 0,
+        settings=None,
     ):
         """``full_figures``: compute the distance between beliefs on every tick, not only on conflicting ones.
         ``explain``: compute the leave-one-out blame on every tick whose conflict reaches the clear level
         (what an investigation needs), not only on the ticks the monitor counts as conflicting.  ``seed``: of a
-        back end that draws samples (the particle filter), so that a run is reproducible."""
+        back end that draws samples (the particle filter), so that a run is reproducible.  ``settings``: the back end's
+        settings (``fusion.backends.BackendKind.settings_type``; None: its defaults)."""
         if backend not in BACKENDS:  # the same refusal as build's, as an ObservationError
             raise ObservationError(f"unknown back end {backend!r}; choose one of: {', '.join(BACKENDS)}")
         policy = Policy() if policy is None else policy
@@ -134,7 +138,9 @@ class Localizer:
         grid, free = sensors.grid, sensors.site.free
         # The best region is computed once per tick by the pose estimate, not after every update.
         try:
-            self.filter = build(backend, grid, free, rule=rule, motion=motion, max_focal=max_focal, seed=seed)
+            self.filter = build(
+                backend, grid, free, rule=rule, motion=motion, max_focal=max_focal, seed=seed, settings=settings
+            )
         except FusionError as err:
             raise ObservationError(str(err)) from None
         self.backend = backend
@@ -156,27 +162,49 @@ class Localizer:
         options.setdefault("max_focal", case.run.max_focal)
         options.setdefault("motion", case.run.motion)
         options.setdefault("seed", case.run.seed)
+        options.setdefault("settings", case.run.settings_of(backend))
         return cls(backend, SensorSet(case.site, grid, case.sensors), policy, **options)
 
     def start_at(
-        self, x_m: float, y_m: float, heading_deg: float, radius_m: float = 0.5, heading_tol_deg: float = 15.0
-    ) -> None:
-        """Start from a known pose: every free cell within ``radius_m`` and ``heading_tol_deg`` is equally possible."""
+        self,
+        x_m: float,
+        y_m: float,
+        heading_deg: float,
+        radius_m: float = 0.5,
+        heading_tol_deg: float = 15.0,
+        covariance=None,
+    ) -> str | None:
+        """Start from a known pose: every free cell within ``radius_m`` and ``heading_tol_deg`` is equally possible;
+        or, given a 3 × 3 ``covariance`` in (m, m, rad), that Gaussian around the pose on the free cells.  Returns
+        what the back end says of the start, if anything (``Backend.reset``)."""
         g = self.sensors.grid
         g.cell_of(x_m, y_m, math.radians(heading_deg))  # PoseError if off the site
-        xs, ys, hs = g.poses_of(np.arange(g.n_cells))
-        near = (xs - x_m) ** 2 + (ys - y_m) ** 2 <= max(radius_m, g.resolution_m) ** 2
-        dh = np.abs((np.degrees(hs) - heading_deg + 180.0) % 360.0 - 180.0)
-        prior = near & (dh <= max(heading_tol_deg, math.degrees(g.heading_step) / 2)) & (self._free_prior > 0)
+        if covariance is not None:
+            prior = self._gaussian_prior(x_m, y_m, heading_deg, covariance)
+        else:
+            xs, ys, hs = g.poses_of(np.arange(g.n_cells))
+            near = (xs - x_m) ** 2 + (ys - y_m) ** 2 <= max(radius_m, g.resolution_m) ** 2
+            dh = np.abs((np.degrees(hs) - heading_deg + 180.0) % 360.0 - 180.0)
+            prior = near & (dh <= max(heading_tol_deg, math.degrees(g.heading_step) / 2)) & (self._free_prior > 0)
+            prior = prior.astype(np.float64)
         if not prior.any():
             raise ObservationError(f"no free cell within {radius_m} m of ({x_m}, {y_m}); is the start inside a rack?")
-        self.filter.reset(prior.astype(np.float64))
         self._pending = None
+        return self.filter.reset(prior)
 
-    def start_anywhere(self) -> None:
-        """Start from ignorance over free space (global localization)."""
-        self.filter.reset(self._free_prior)
+    def _gaussian_prior(self, x_m: float, y_m: float, heading_deg: float, covariance) -> np.ndarray:
+        from fusion.belief.gaussian import PoseGaussian, check_covariance
+        from fusion.belief.gaussian_grid import GridView
+
+        cov = check_covariance(covariance, "start covariance")
+        mean = np.array([x_m, y_m, math.radians(heading_deg) % (2 * math.pi)])
+        prior = GridView(self.sensors.grid, self._free_prior > 0).density(PoseGaussian(mean, cov))
+        return prior * (self._free_prior > 0)
+
+    def start_anywhere(self) -> str | None:
+        """Start from ignorance over free space (global localization); returns what the back end says of it."""
         self._pending = None
+        return self.filter.reset(self._free_prior)
 
     def restart_clock(self) -> None:
         """The log's clock restarted (``fusion.io.timeline``): later records may be earlier than those before.
@@ -276,6 +304,8 @@ class Localizer:
         if calm:
             recovery.clear()
         fault, pairs = self._act(verdict, before, tick, blame, moved)
+        verdict.reasons.extend(tick.notes)
+        rejected = rejected + tick.refused
         return self._decision(
             t, verdict.action, verdict.reasons, figures, blame, verdict.quarantined, rejected, start, pairs, fault
         )
@@ -309,6 +339,15 @@ class Localizer:
             tick.figures.disagreement = max(tick.figures.disagreement, opinion.disagreement or 0.0)
             if report.effective_share is not None:
                 tick.figures.effective_share = min(tick.figures.effective_share or 1.0, report.effective_share)
+            if report.refused:
+                tick.refused.append((sensor, f"the {self.backend} back end could not use it: {report.refused}"))
+            if report.note:
+                tick.notes.append(report.note)
+            if report.nis is not None and report.gate:
+                share = report.nis / report.gate
+                tick.figures.nis_share = max(tick.figures.nis_share or 0.0, share)
+                if share > 1.0 and not quarantined:  # gated out: the reading disagrees with the prediction
+                    disagree, clear = True, False
             if report.log_evidence is not None:  # the slow/fast evidence averages (augmented MCL)
                 ratio = self.averages.add(report.log_evidence)
                 tick.figures.surprise = max(tick.figures.surprise, -report.log_evidence)
@@ -333,7 +372,9 @@ class Localizer:
                 verdict.reasons.append(fault.sentence())
         if verdict.action == RELOCALIZE and not moved:
             self.averages.reset()
-            self.recovery.reseed(self.filter)
+            note = self.recovery.reseed(self.filter)
+            if note:
+                tick.notes.append(note)
         pairs = pairwise_conflict(tick.undiscounted) if verdict.action in (ALERT, QUARANTINE) else []
         if pairs and pairs[0][2] > 0:
             a, b, k = pairs[0]

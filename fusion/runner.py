@@ -179,7 +179,14 @@ def run_case(
     policy = Policy(**case.run.policy)
     localizers = {
         b: Localizer(
-            b, sensors, policy, rule=rule or case.run.rule, max_focal=case.run.max_focal, motion=case.run.motion
+            b,
+            sensors,
+            policy,
+            rule=rule or case.run.rule,
+            max_focal=case.run.max_focal,
+            motion=case.run.motion,
+            seed=case.run.seed if seed is None else seed,
+            settings=case.run.settings_of(b),
         )
         for b in backends
     }
@@ -188,7 +195,7 @@ def run_case(
     if ticks and case.require_route().start_known:
         first = ticks[0].truth
         for loc in localizers.values():
-            loc.start_at(first.x_m, first.y_m, first.heading_deg)
+            loc.start_at(first.x_m, first.y_m, first.heading_deg, covariance=case.run.start_covariance)
     for tick in ticks:
         odometry = next((o for o in tick.observations if o.moves), None)
         readings = [o for o in tick.observations if not o.moves]

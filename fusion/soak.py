@@ -119,7 +119,9 @@ def soak_steps(
             if n > steps:
                 break
             if n == 1 and case.require_route().start_known:  # from the dock, as a run of the case starts
-                loc.start_at(tick.truth.x_m, tick.truth.y_m, tick.truth.heading_deg)
+                loc.start_at(
+                    tick.truth.x_m, tick.truth.y_m, tick.truth.heading_deg, covariance=case.run.start_covariance
+                )
             decision = loc.step(obs, []) if obs.moves else loc.step(None, [obs])
             report.steps = n
             report.actions[decision.action] += 1

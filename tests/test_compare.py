@@ -64,6 +64,7 @@ def test_default_sweep_is_every_family_with_six_rules_for_the_evidential_one():
         "evidential-pcr5",
         "evidential-murphy",
         "particles",
+        "gaussian",
     ]
 
 
@@ -333,8 +334,14 @@ def test_compare_command_writes_the_report(tmp_path, capsys):
     import pandas as pd
 
     runs = pd.read_csv(out / "runs.csv")
-    # Every family by default (the case's [run] backends): Bayes, the two rules asked for, and the particles.
-    assert len(runs) == 4 * 2 and set(runs.key) == {"bayes", "evidential-dempster", "evidential-yager", "particles"}
+    # Every family by default (the case's [run] backends): Bayes, the two rules asked for, particles, Gaussian.
+    assert len(runs) == 5 * 2 and set(runs.key) == {
+        "bayes",
+        "evidential-dempster",
+        "evidential-yager",
+        "particles",
+        "gaussian",
+    }
     assert "not a certified safety function" in text and "Sanity row" in text and "holds" in text
     page = (out / "report.html").read_text()
     assert "data:image/png;base64," in page and "not a certified safety function" in page

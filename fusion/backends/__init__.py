@@ -6,6 +6,7 @@ name into a filter; nothing outside this package compares back-end names.
 - ``bayes``: the histogram filter (``bayes.HistogramFilter``);
 - ``particles``: Monte Carlo localization with KLD-sampling and random-particle recovery
   (``particles.ParticleFilter``);
+- ``gaussian``: an extended Kalman filter with χ² gating (``gaussian.GaussianFilter``);
 - ``evidential``: Dempster–Shafer.  Dempster's rule and the unnormalised conjunctive rule run on the
   dense contour, exact with no cap (``contour.ContourFilter``); the rules that move conflict to unions
   of sets (Yager, Dubois–Prade, PCR5, Murphy's averaging, disjunctive) keep explicit focal sets under a
@@ -24,19 +25,26 @@ from fusion.errors import RuleError
 __all__ = ["BACKENDS", "BackendKind", "build", "Backend", "backend_kind", "rule_names"]
 
 
-def _bayes(grid, free, *, rule, motion, max_focal, report_region, seed):
+def _bayes(grid, free, *, rule, motion, max_focal, report_region, seed, settings):
     from fusion.backends.bayes import HistogramFilter
 
     return HistogramFilter(grid, free, report_region=report_region)
 
 
-def _particles(grid, free, *, rule, motion, max_focal, report_region, seed):
-    from fusion.backends.particles import ParticleFilter
+def _particles(grid, free, *, rule, motion, max_focal, report_region, seed, settings):
+    from fusion.backends.particles import ParticleFilter, ParticleSettings
 
-    return ParticleFilter(grid, free, seed=seed, report_region=report_region)
+    settings = settings or ParticleSettings()
+    return ParticleFilter(grid, free, seed=seed, report_region=report_region, settings=settings)
 
 
-def _evidential(grid, free, *, rule, motion, max_focal, report_region, seed):
+def _gaussian(grid, free, *, rule, motion, max_focal, report_region, seed, settings):
+    from fusion.backends.gaussian import GaussianFilter, GaussianSettings
+
+    return GaussianFilter(grid, free, report_region=report_region, settings=settings or GaussianSettings())
+
+
+def _evidential(grid, free, *, rule, motion, max_focal, report_region, seed, settings):
     from fusion.backends.contour import CONTOUR_RULES, ContourFilter
     from fusion.backends.evidential import MassFilter
 
@@ -60,6 +68,16 @@ class BackendKind:
     focal_sets: bool  # the rules that keep focal sets cost memory and time per focal set (fusion.budget)
     figure: tuple[str, str]  # the conflict figure the live view plots: (key of the figures, label)
     rules: tuple[str, ...] = ()  # the combination rules it runs (the first is the default)
+    settings: str | None = None  # "module:Class" of its settings, which the case's [run.<name>] table may set
+
+    def settings_type(self):
+        """The dataclass of the back end's settings, or None (imported on first use)."""
+        if self.settings is None:
+            return None
+        import importlib
+
+        module, name = self.settings.split(":")
+        return getattr(importlib.import_module(module), name)
 
     def label(self, rule: str | None) -> str:
         """Short name of a setting: the back end, with its rule when it takes one."""
@@ -97,6 +115,18 @@ BACKENDS = {
         24,  # the per-cell histogram and the estimate's arrays (not measured: the particles themselves are few)
         False,
         ("surprise", "surprise −log p(z|past), nats"),
+        settings="fusion.backends.particles:ParticleSettings",
+    ),
+    "gaussian": BackendKind(
+        "gaussian",
+        _gaussian,
+        "Gaussian filter (extended Kalman)",
+        "Gaussian",
+        False,
+        48,  # while it follows a histogram (re-seeding) it holds the histogram filter's belief
+        False,
+        ("surprise", "surprise −log p(z|past), nats"),
+        settings="fusion.backends.gaussian:GaussianSettings",
     ),
 }
 """Back-end name -> what it is and how to build it; the order is the order tools list them in."""
@@ -124,11 +154,22 @@ def build(
     max_focal: int = 32,
     report_region: bool = False,
     seed: int = 0,
+    settings=None,
 ) -> Backend:
-    """The filter called ``name`` on ``grid`` (cells off ``free`` are impossible)."""
+    """The filter called ``name`` on ``grid`` (cells off ``free`` are impossible); ``settings``: an instance of
+    the back end's settings dataclass (``BackendKind.settings_type``), or None for its defaults."""
     from fusion.motion import MOTION_MODELS
 
     builder = backend_kind(name).build
     if motion not in MOTION_MODELS:
         raise RuleError(f"unknown motion model {motion!r}; choose one of: {', '.join(MOTION_MODELS)}")
-    return builder(grid, free, rule=rule, motion=motion, max_focal=max_focal, report_region=report_region, seed=seed)
+    return builder(
+        grid,
+        free,
+        rule=rule,
+        motion=motion,
+        max_focal=max_focal,
+        report_region=report_region,
+        seed=seed,
+        settings=settings,
+    )

@@ -51,6 +51,10 @@ class StepReport:
     mass_moved: float = 0.0  # mass merged into supersets by the focal-set cap
     rejected: bool = False  # total conflict / zero evidence: the belief was left unchanged
     effective_share: float | None = None  # sampling back ends: effective sample size / count after the update
+    nis: float | None = None  # Gaussian: normalised innovation squared of the reading against the prediction
+    gate: float | None = None  # Gaussian: the χ² value the NIS was tested against (above it: gated out, rejected)
+    refused: str | None = None  # why the reading could not be used at all (the decision lists it as rejected)
+    note: str | None = None  # a change of the back end's state worth saying (the Gaussian filter's re-seeding)
 
 
 @dataclass(frozen=True)
@@ -114,8 +118,10 @@ class Backend(Protocol):
     name: str
     grid: PoseGrid
 
-    def reset(self, prior: np.ndarray) -> None:
-        """Start again from a prior: a probability (or 0/1 mask) per cell; mass side: uniform ignorance over it."""
+    def reset(self, prior: np.ndarray) -> str | None:
+        """Start again from a prior: a probability (or 0/1 mask) per cell; mass side: uniform ignorance over it.
+        Returns what the back end wants said about the new belief, if anything (the Gaussian filter: why no
+        single Gaussian stands for it); None otherwise."""
 
     def fork(self) -> Backend:
         """A filter on the same grid and map with its own belief, for a trial replay."""

@@ -33,6 +33,7 @@ from fusion.case_model import (
     policy_defaults,
 )
 from fusion.io.bounded import read_text
+from fusion.io.run_tables import TABLE_KEYS, settings_tables, start_covariance
 from fusion.io.site_file import MAX_BOXES, MAX_ITEMS, free_point, free_segment, read_site
 from fusion.io.toml_reader import TomlReader, finite_numbers, load_toml
 from fusion.sensors.kinds import kinds, sensor_kind
@@ -224,7 +225,21 @@ def _run(r: TomlReader, d: dict, sensors) -> RunSpec:
     FILTER_RULES = filter_rules()
     w = ("run",)
     r.only(
-        d, w, {"backends", "rule", "max_focal", "seed", "tick_s", "policy", "motion", "budget_gib", "budget_minutes"}
+        d,
+        w,
+        {
+            "backends",
+            "rule",
+            "max_focal",
+            "seed",
+            "tick_s",
+            "policy",
+            "motion",
+            "budget_gib",
+            "budget_minutes",
+            "start_covariance",
+            *TABLE_KEYS,
+        },
     )
     backends = d.get("backends", list(BACKENDS))
     if not isinstance(backends, list) or not backends or any(b not in BACKENDS for b in backends):
@@ -251,7 +266,17 @@ def _run(r: TomlReader, d: dict, sensors) -> RunSpec:
     gib = r.number(d, w, "budget_gib", MEMORY_BUDGET_GIB, positive=True, high=1024)
     minutes = r.number(d, w, "budget_minutes", WORK_BUDGET_MINUTES, positive=True, high=100_000)
     return RunSpec(
-        tuple(backends), rule, int(max_focal), int(seed), float(tick), dict(policy), motion, float(gib), float(minutes)
+        tuple(backends),
+        rule,
+        int(max_focal),
+        int(seed),
+        float(tick),
+        dict(policy),
+        motion,
+        float(gib),
+        float(minutes),
+        settings_tables(r, d, w, float(gib)),
+        start_covariance(r, d, w),
     )
 
 

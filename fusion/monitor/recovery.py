@@ -119,7 +119,7 @@ class Recovery:
         if len(self.episode) < 2 or len(dissenters) < 2:  # one sensor against the rest: a fault, not a move
             return None
         trial = f.fork()
-        worst = self._replay(trial, as_given=True)
+        worst, note = self._replay(trial, as_given=True)
         if worst >= p.clear_fraction * p.conflict_k:  # every replayed reading must be clear, not merely neutral
             return None
         ticks = len(self.episode)
@@ -130,20 +130,23 @@ class Recovery:
             f"ticks agree with one another at another place (worst conflict {worst:.2f} there): the robot was "
             "probably moved; the belief is re-seeded from them"
         )
-        return trial, reason
+        return trial, reason + (f"; {note}" if note else "")
 
-    def reseed(self, f) -> None:
-        """Reset ``f`` to ignorance over free space, then replay this episode's readings as applied."""
-        self._replay(f, as_given=False)
+    def reseed(self, f) -> str | None:
+        """Reset ``f`` to ignorance over free space, then replay this episode's readings as applied; returns what
+        the back end said of its belief during the replay (the last thing), if anything."""
+        _, note = self._replay(f, as_given=False)
         self.episode.clear()
         self.monitor.forget_history()
+        return note
 
     # ------------------------------------------------------------------ helpers
-    def _replay(self, f, as_given: bool) -> float:
+    def _replay(self, f, as_given: bool) -> tuple[float, str | None]:
         """Reset ``f`` to ignorance over free space and replay this episode into it (the readings as
         the sensors gave them, or as applied, quarantine discounts included); returns the worst
-        conflict of a replayed reading with the belief built from the readings before it."""
-        f.reset(self.free_prior)
+        conflict of a replayed reading with the belief built from the readings before it, and the last
+        thing the back end said of its belief (``Backend.reset``, ``StepReport.note``)."""
+        note = f.reset(self.free_prior)
         worst = 0.0
         for motion, applied, undiscounted in list(self.episode):
             if motion is not None:
@@ -153,7 +156,8 @@ class Recovery:
                 report = f.update(evidence)
                 k = report.conflict if report.conflict is not None else f.reading_conflict(prior, evidence)
                 worst = max(worst, k)
-        return worst
+                note = report.note or note
+        return worst, note
 
     @staticmethod
     def _dead_reckoned(f, belief, motions):

@@ -44,6 +44,9 @@ class Evidence:
     # Independent Gaussian errors behind the contour (beams of a scan); 0 when the contour is not of that
     # kind.  Lets the conflict figure ask how often a correct pose fits as badly (``fusion.conflict.fit_plausibility``).
     dof: int = 0
+    # The reading as a measurement h(pose) + noise the Gaussian filter linearises
+    # (``fusion.belief.gaussian.Linearisable``); None where the model gives none (the filter then moment-matches).
+    point: object = None
 
     def __post_init__(self):
         if self.form not in MASS_FORMS:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -17,6 +18,7 @@ from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.limits import require_valid
+from fusion.sensors.linearised import ZonePoint
 from fusion.site import SiteMap
 
 __all__ = ["DoorParams", "DoorReading", "DoorSensor"]
@@ -71,7 +73,14 @@ class DoorSensor:
         lik = self.likelihood(reading)
         top = lik.max()
         contour = lik / top if top > 0 else np.zeros(lik.shape)
-        return Evidence(self.name, contour, self.params.reliability, self.params.levels)
+        # A contact that fired places the robot in the zone; a quiet one only makes the zone less likely,
+        # which no Gaussian measurement says (the Gaussian filter moment-matches it instead).
+        point = self._fired if getattr(reading, "active", reading) else None
+        return Evidence(self.name, contour, self.params.reliability, self.params.levels, point=point)
+
+    @cached_property
+    def _fired(self) -> ZonePoint:
+        return ZonePoint.of_zone(self.grid, self.zone, self.params.reliability)
 
 
 # ----------------------------------------------------------------------------- the kind

@@ -29,6 +29,7 @@ from fusion.errors import ObservationError, SiteError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.limits import require_valid
+from fusion.sensors.linearised import MarkerPoint
 from fusion.site import SiteMap
 
 __all__ = ["visible_markers", "range_bearing", "MarkerParams", "MarkerSighting", "MarkerMiss", "MarkerSensor"]
@@ -189,7 +190,13 @@ class MarkerSensor:
         lik = self.likelihood(reading).reshape(-1)
         top = lik.max()
         contour = lik / top if top > 0 else np.zeros_like(lik)
-        return Evidence(self.name, contour, self.params.reliability, self.params.levels)
+        point = None
+        if isinstance(reading, MarkerSighting):
+            m = self.site.markers[self._index[reading.marker_id]]
+            point = MarkerPoint(
+                reading.marker_id, (m.x, m.y), reading.range_m, math.radians(reading.bearing_deg), self.params
+            )
+        return Evidence(self.name, contour, self.params.reliability, self.params.levels, point=point)
 
 
 def visible_markers(site: SiteMap, params: MarkerParams, x: float, y: float, heading_deg: float):

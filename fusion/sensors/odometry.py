@@ -80,6 +80,9 @@ class Motion:
     slip_turn: int
     bound_cells: float = 0.0  # the bounds before rounding up
     bound_bins: float = 0.0
+    reading: OdometryReading = OdometryReading(0.0)  # the move in metres and degrees, for back ends off the grid
+    sigma_m: float = 0.0  # translation noise in metres
+    sigma_turn_rad: float = 0.0  # heading noise in radians
 
 
 _DEG_PER_RAD = math.degrees(1.0)
@@ -204,6 +207,9 @@ class OdometrySensor:
             reliability=p.reliability,
             slip=int(math.ceil(p.slip_m / res)),
             slip_turn=int(math.ceil(p.slip_deg / step_deg)),
+            reading=reading,
+            sigma_m=sigma_m,
+            sigma_turn_rad=math.radians(sigma_deg),
         )
 
 

@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -41,6 +42,7 @@ from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence, contour_from_log
 from fusion.sensors.limits import require_valid
+from fusion.sensors.linearised import ScanPoint, SignedField
 from fusion.site import SiteMap
 
 __all__ = ["RangeParams", "RangeScan", "RangeSensor"]
@@ -158,13 +160,25 @@ class RangeSensor:
 
     def encode(self, scan) -> Evidence:
         z = self._ranges(scan)
+        returned = z < self.params.max_range_m  # max-range returns carry no position information
+        point = None
+        if returned.any() and self.signed_field.finite:
+            point = ScanPoint(
+                self.signed_field, z[returned], np.radians(self.params.bearings_deg)[returned], self.params
+            )
         return Evidence(
             self.name,
             contour_from_log(self.log_likelihood(z)),
             self.params.reliability,
             self.params.levels,
-            dof=int(np.sum(z < self.params.max_range_m)),  # max-range returns carry no position information
+            dof=int(np.sum(returned)),
+            point=point,
         )
+
+    @cached_property
+    def signed_field(self) -> SignedField:
+        """The site's signed distance field for the Gaussian filter's scan matching (built on first use)."""
+        return SignedField(self.site, self._pad)
 
 
 # ----------------------------------------------------------------------------- the kind
