@@ -128,7 +128,7 @@ def test_marker_steps_agree_with_filterpy_extended_kalman_filter():
         q_xy, q_h = 0.01, 0.002
         ours = predicted(ours, f, left, turn, q_xy, q_h)
         x0 = ekf.x.ravel().copy()
-        ekf.F = _numeric_jacobian(lambda p: _moved(p, f, left, turn), x0)
+        ekf.F = _numeric_jacobian(lambda p, f=f, left=left, turn=turn: _moved(p, f, left, turn), x0)
         ekf.Q = np.diag([q_xy, q_xy, q_h])
         ekf.predict_x = lambda u, x0=x0, f=f, left=left, turn=turn: setattr(
             ekf, "x", _moved(x0, f, left, turn).reshape(3, 1)
