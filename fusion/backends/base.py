@@ -25,6 +25,7 @@ __all__ = [
     "PoseEstimate",
     "BeliefHealth",
     "SecondOpinion",
+    "Overlay",
     "estimate_pose",
     "region_size",
     "REGION_LEVEL",
@@ -94,6 +95,15 @@ NO_OPINION = SecondOpinion()
 
 
 @dataclass(frozen=True)
+class Overlay:
+    """Points a view draws over a back end's belief map (metres, site frame): its particles, or the outline of
+    its Gaussian's 95% ellipse; ``label`` names them in legends."""
+
+    label: str
+    points: np.ndarray  # (k, 2): x, y
+
+
+@dataclass(frozen=True)
 class BeliefHealth:
     """The invariants a soak checks on a belief: ``total`` must be 1 (the sum of the probabilities or
     masses, or the contour's maximum), no value below 0, at most ``bound`` parts (focal sets) when
@@ -158,6 +168,9 @@ class Backend(Protocol):
         """Probability per cell, shape (n_cells,), summing to 1."""
 
     def health(self) -> BeliefHealth: ...
+
+    def overlay(self) -> Overlay | None:
+        """What a view draws over the belief map besides it (particles, an ellipse), or None."""
 
 
 def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:

@@ -107,6 +107,9 @@ class HistogramFilter:
         """The support conflict of the tick's readings at once (``fusion.conflict.support_joint_conflict``)."""
         return support_joint_conflict(snapshot, readings, SUPPORT_SHARE)
 
+    def overlay(self) -> None:
+        return None  # the belief map shows the whole belief
+
     def distance(self, before, after) -> None:
         return None
 

@@ -175,6 +175,9 @@ class ContourFilter:
         joint = belief.contour * evidence.likelihood
         return k, (None if k >= TOTAL_CONFLICT or float(joint.max()) <= 0.0 else joint)
 
+    def overlay(self) -> None:
+        return None  # the belief map shows the whole belief
+
     def distance(self, before: ContourBelief, after: ContourBelief) -> float:
         """Jousselme distance between the consonant beliefs (contours rounded up to geometric levels)."""
         return consonant_distance(before, after)

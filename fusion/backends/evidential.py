@@ -267,6 +267,9 @@ class MassFilter:
             m = red.mass_function.normalised()
         return 1.0 - keep
 
+    def overlay(self) -> None:
+        return None  # the belief map shows the whole belief
+
     def distance(self, before: MassFunction, after: MassFunction) -> float:
         return jousselme_distance(before, after)
 

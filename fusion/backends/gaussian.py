@@ -34,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.stats import chi2
 
-from fusion.backends.base import NO_OPINION, BeliefHealth, PoseEstimate, SecondOpinion, StepReport
+from fusion.backends.base import NO_OPINION, BeliefHealth, Overlay, PoseEstimate, SecondOpinion, StepReport
 from fusion.backends.bayes import SUPPORT_SHARE, HistogramFilter
 from fusion.backends.tuning import require_settings
 from fusion.belief.gaussian import NotLinearisable, PoseGaussian, iterated_update, kalman_update, predicted
@@ -47,6 +47,8 @@ from fusion.sensors.odometry import Motion
 
 __all__ = ["GaussianFilter", "GaussianSettings"]
 
+ELLIPSE_CHI2 = 5.991
+"""χ²₂ at 0.95 (from memory; scipy.stats.chi2.ppf(0.95, 2) = 5.9915): the 95% ellipse of a position."""
 REGION_CHI2 = 7.815
 """χ²₃ at 0.95 (from memory; scipy.stats.chi2.ppf(0.95, 3) = 7.8147): the 95% region of a pose Gaussian."""
 
@@ -252,6 +254,16 @@ class GaussianFilter:
         if snapshot.gaussian is None:
             return support_joint_conflict(snapshot.histogram, readings, SUPPORT_SHARE)
         return joint_conflict_on(self.view.support(snapshot.gaussian, SUPPORT_SHARE), readings)
+
+    def overlay(self) -> Overlay | None:
+        """The outline of the 95% ellipse of the position (χ²₂ = 5.991), while the belief is a Gaussian."""
+        g = self.state.gaussian
+        if g is None:
+            return None
+        vals, vecs = np.linalg.eigh(g.cov[:2, :2])
+        angle = np.linspace(0.0, 2 * math.pi, 72, endpoint=False)
+        unit = np.column_stack([np.cos(angle), np.sin(angle)]) * np.sqrt(np.maximum(vals, 0.0) * ELLIPSE_CHI2)
+        return Overlay("95% ellipse", g.mean[:2] + unit @ vecs.T)
 
     def distance(self, before, after) -> None:
         return None

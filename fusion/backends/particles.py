@@ -38,6 +38,7 @@ import numpy as np
 from fusion.backends.base import (
     NO_OPINION,
     BeliefHealth,
+    Overlay,
     PoseEstimate,
     SecondOpinion,
     StepReport,
@@ -60,6 +61,10 @@ PARTICLE_BYTES = 200
 100,000 and 400,000 particles) beside the 32 the set holds, with headroom for the prediction's arrays."""
 MAX_PARTICLES = 50_000_000
 """Largest particle count accepted at all (10 GB while resampling); a case's memory budget may allow fewer."""
+
+
+OVERLAY_POINTS = 2000
+"""Most particles a view is given to draw (more only repaint the same characters)."""
 
 
 @dataclass(frozen=True)
@@ -294,6 +299,12 @@ class ParticleFilter:
     def _histogram(self, snapshot: _State) -> np.ndarray:
         """The weights summed per cell: the probability per cell every tool reads."""
         return np.bincount(self._cells(snapshot.poses), weights=snapshot.weights, minlength=self.grid.n_cells)
+
+    def overlay(self) -> Overlay:
+        """Up to ``OVERLAY_POINTS`` of the particles (every one when fewer), in their stored order."""
+        poses = self.state.poses
+        take = poses[:: max(1, len(poses) // OVERLAY_POINTS)]
+        return Overlay("particles", take[:, :2])
 
     def distance(self, before, after) -> None:
         return None

@@ -41,9 +41,17 @@ _FIGURE = {name: kind.figure for name, kind in BACKENDS.items()}
 
 
 def draw_plane(
-    intensity: np.ndarray, wall: np.ndarray, step: int, truth_xy, estimate_xy, resolution_m: float, origin_m=(0.0, 0.0)
+    intensity: np.ndarray,
+    wall: np.ndarray,
+    step: int,
+    truth_xy,
+    estimate_xy,
+    resolution_m: float,
+    origin_m=(0.0, 0.0),
+    marks=None,
 ) -> Text:
-    """Block characters of a coarse plane (``coarse_plane``); north is up; ◆ truth, ✚ estimate."""
+    """Block characters of a coarse plane (``coarse_plane``); north is up; ◆ truth, ✚ estimate, ∘ ``marks``
+    ((k, 2) points in metres: a back end's particles or ellipse, ``Backend.overlay``)."""
     rows, cols = intensity.shape
     level = np.ceil(intensity.astype(np.float64) / 255 * (len(_SHADES) - 1)).astype(int)
 
@@ -54,6 +62,12 @@ def draw_plane(
         return (min(rows - 1, int(y / resolution_m / (2 * step))), min(cols - 1, int(x / resolution_m / step)))
 
     t_cell, e_cell = cell_of(truth_xy), cell_of(estimate_xy)
+    marked = np.zeros((rows, cols), bool)
+    if marks is not None and len(marks):
+        r = np.floor((marks[:, 1] - origin_m[1]) / resolution_m / (2 * step)).astype(np.int64)
+        c = np.floor((marks[:, 0] - origin_m[0]) / resolution_m / step).astype(np.int64)
+        inside = (r >= 0) & (r < rows) & (c >= 0) & (c < cols)
+        marked[r[inside], c[inside]] = True
     text = Text()
     for r in range(rows - 1, -1, -1):
         for c in range(cols):
@@ -61,6 +75,8 @@ def draw_plane(
                 text.append("◆", style="bold yellow")
             elif (r, c) == e_cell:
                 text.append("✚", style="bold magenta")
+            elif marked[r, c] and not wall[r, c]:
+                text.append("∘", style="bold white")
             elif wall[r, c]:
                 text.append("▪", style="grey35")
             else:
@@ -78,10 +94,11 @@ def belief_map(
     resolution_m: float,
     width: int = 44,
     origin_m=(0.0, 0.0),
+    marks=None,
 ) -> Text:
-    """Block-character map of a (ny, nx) probability plane; north is up."""
+    """Block-character map of a (ny, nx) probability plane; north is up; ``marks`` as for ``draw_plane``."""
     intensity, wall, step = coarse_plane(probability, occupied, width)
-    return draw_plane(intensity, wall, step, truth_xy, estimate_xy, resolution_m, origin_m)
+    return draw_plane(intensity, wall, step, truth_xy, estimate_xy, resolution_m, origin_m, marks)
 
 
 def sparkline(values, width: int = 44, top: float | None = None) -> str:
@@ -115,8 +132,9 @@ class RunView:
         for name, d in decisions.items():
             key = _FIGURE[name][0]
             self.history[name].append(d.figures.value(key))
-            plane = localizers[name].filter.distribution().reshape(localizers[name].sensors.grid.shape).sum(axis=0)
-            self.latest[name] = (d, plane)
+            f = localizers[name].filter
+            plane = f.distribution().reshape(localizers[name].sensors.grid.shape).sum(axis=0)
+            self.latest[name] = (d, plane, f.overlay())
             if d.action != "carry on":
                 self.events.append(
                     f"[bold]{tick.truth.t:6.2f} s[/] {name}: [bold]{d.action}[/] — "
@@ -127,7 +145,7 @@ class RunView:
     def _panel(self, name: str, map_width: int) -> Panel:
         if name not in self.latest:
             return Panel("waiting for the first tick…", title=BACKEND_TITLES[name])
-        d, plane = self.latest[name]
+        d, plane, overlay = self.latest[name]
         tr = self.truth
         site = self.case.site
         err, herr = pose_errors(d, tr.x_m, tr.y_m, tr.heading_deg)
@@ -148,17 +166,19 @@ class RunView:
                 site.resolution_m,
                 width=map_width,
                 origin_m=site.origin_m,
+                marks=None if overlay is None else overlay.points,
             ),
             Text(sparkline(self.history[name], map_width), style="green", no_wrap=True, overflow="crop"),
             figures,
         )
         return Panel(body, title=BACKEND_TITLES[name], border_style=_BORDER.get(d.action, "blue"))
 
-    def _map_width(self, panel_width: int, height: int) -> int:
+    def _map_width(self, panel_width: int, height: int, panel_rows: int = 1) -> int:
         """The widest map that fits the panel and leaves the rest of the screen its lines (``PANEL_LINES``,
-        ``OTHER_LINES``): a character is about twice as tall as wide, so a narrower map is also shorter."""
+        ``OTHER_LINES``) with ``panel_rows`` rows of panels: a character is about twice as tall as wide, so a
+        narrower map is also shorter."""
         ny, nx = self.case.site.occupied.shape
-        rows_allowed = max(4, height - PANEL_LINES - OTHER_LINES)
+        rows_allowed = max(4, (height - OTHER_LINES) // panel_rows - PANEL_LINES)
         width = max(8, panel_width - 4)
         while width > 8:
             step = math.ceil(nx / width)
@@ -169,12 +189,18 @@ class RunView:
 
     def __rich_console__(self, console, options):
         width, height = options.max_width, options.height or console.size.height
-        panel_width = width // max(1, len(self.backends))
-        map_width = self._map_width(panel_width, height)
+        n = max(1, len(self.backends))
+        # Side by side while each panel keeps MIN_PANEL_WIDTH columns; otherwise two to a row.
+        across = n if n <= 2 or width // n >= MIN_PANEL_WIDTH else 2
+        panel_rows = math.ceil(n / across)
+        map_width = self._map_width(width // across, height, panel_rows)
         maps = Table.grid(expand=True, padding=(0, 0))
-        for _ in self.backends:
+        for _ in range(across):
             maps.add_column(ratio=1)
-        maps.add_row(*[self._panel(b, map_width) for b in self.backends])
+        panels = [self._panel(b, map_width) for b in self.backends]
+        for i in range(0, n, across):
+            row = panels[i : i + across]
+            maps.add_row(*row, *[""] * (across - len(row)))
         t = self.truth.t if self.truth else 0.0
         faults = ", ".join(self.truth.faults) if self.truth and self.truth.faults else "none"
         head = Text.from_markup(
@@ -194,6 +220,8 @@ class RunView:
         yield Group(head, legend, maps, self.progress, events)  # the command prints the safety notice once
 
 
+MIN_PANEL_WIDTH = 40
+"""Narrowest back-end panel placed side by side with the others (our choice: a map of ~36 characters)."""
 PANEL_LINES = 6
 """Lines of a back end's panel besides its map: two borders, the sparkline, two lines of figures, a quarantine."""
 OTHER_LINES = 7
@@ -201,7 +229,7 @@ OTHER_LINES = 7
 actions panel at its smallest (one event between its borders)."""
 _BORDER = {"carry on": "blue", "alert operator": "yellow", "re-localize": "red", "quarantine sensor": "red"}
 LEGEND = (
-    "◆ truth ✚ estimate ·░▒▓█ belief in the place (· faint, blank none) ▪ wall or rack  "
+    "◆ truth ✚ estimate ·░▒▓█ belief in the place (· faint, blank none) ∘ particles or 95% ellipse ▪ wall or rack  "
     "border: [blue]carry on[/] [yellow]alert[/] [red]re-localize/quarantine[/]  ▁▃█ conflict over time"
 )
 
