@@ -137,8 +137,11 @@ def test_the_decision_reports_the_effective_sample_share():
 
     loc = Localizer.from_case(load_case(TINY), "particles")
     loc.start_anywhere()
-    marker = loc.sensors.site.markers[0]
-    d = loc.step(None, [Observation(0.0, "camera", "markers", MarkerSighting(marker.marker_id, 1.0, 0.0))])
+    first = loc.sensors.site.markers[0]
+    # After a reset to ignorance the first reading draws the particles from its posterior: equal weights.
+    d = loc.step(None, [Observation(0.0, "camera", "markers", MarkerSighting(first.marker_id, 1.0, 0.0))])
+    assert d.figures.effective_share == 1.0
+    d = loc.step(None, [Observation(0.5, "camera", "markers", MarkerSighting(first.marker_id, 1.4, 0.0))])
     share = d.figures.effective_share
     assert share is not None and 0.0 < share < 0.9
     if share >= 0.5:  # not resampled: the filter still holds the weights the share was measured on

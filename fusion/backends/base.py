@@ -197,7 +197,7 @@ REGION_PROBE = 4096
 """Cells taken by the partial selection of ``region_size`` before it falls back to a full sort (our choice)."""
 
 
-def estimate_pose(grid: PoseGrid, p: np.ndarray) -> PoseEstimate:
+def estimate_pose(grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None = None) -> PoseEstimate:
     """Local mean around the centre of the most probable region, global mean, best cell and spread.
 
     The most probable region is the set of positions whose probability (summed over headings) ties with
@@ -205,13 +205,14 @@ def estimate_pose(grid: PoseGrid, p: np.ndarray) -> PoseEstimate:
     which the readings cannot tell positions apart, or look-alike places) the tied cells are grouped into
     connected regions, the one holding the most probability wins, and its centre is the tied cell
     nearest its centroid: the estimate sits in the middle of the plateau, never at the end that happens
-    to have the lowest cell index."""
+    to have the lowest cell index.  ``mode_plane``: a (ny, nx) plane to find the most probable region in instead
+    of ``p``'s own (a sampled belief's, smoothed)."""
     cube = p.reshape(grid.shape)
     plane = cube.sum(axis=0)
     xs, ys = grid.x_centres(), grid.y_centres()
     px, py = plane.sum(axis=0), plane.sum(axis=1)
     mean_x, mean_y = float(px @ xs), float(py @ ys)
-    iy, ix = _mode_centre(plane)
+    iy, ix = _mode_centre(plane if mode_plane is None else mode_plane)
     ih = int(np.argmax(cube[:, iy, ix]))
     best = int(np.ravel_multi_index((ih, iy, ix), grid.shape))
     bx, by, bh = grid.pose_of(best)

@@ -29,6 +29,7 @@ and readings give the same particles.
 from __future__ import annotations
 
 import copy
+import dataclasses
 import math
 import time
 from dataclasses import dataclass
@@ -63,6 +64,9 @@ MAX_PARTICLES = 50_000_000
 """Largest particle count accepted at all (10 GB while resampling); a case's memory budget may allow fewer."""
 
 
+MODE_KERNEL_M = 0.5
+"""Standard deviation of the kernel that smooths the particles' density before its mode is taken (our choice:
+half the local-mean radius)."""
 OVERLAY_POINTS = 2000
 """Most particles a view is given to draw (more only repaint the same characters)."""
 
@@ -118,6 +122,7 @@ class _State:
     weights: np.ndarray  # (n,), sum 1
     slow: float
     fast: float
+    prior: np.ndarray | None = None  # a reset to ignorance, until the first reading (``_first_reading``)
 
 
 class ParticleFilter:
@@ -146,7 +151,12 @@ class ParticleFilter:
         prior = np.asarray(prior, dtype=np.float64).reshape(-1)
         if prior.shape != (self.grid.n_cells,):
             raise FrameMismatchError(f"the prior has {prior.size} cells, the grid {self.grid.n_cells}")
-        self.state = self._sampled(prior * self.free, self.settings.max_particles, 0.0, 0.0)
+        prior = prior * self.free
+        drawn = self._sampled(prior, self.settings.max_particles, 0.0, 0.0)
+        support = prior[self.free]
+        ignorant = support.size > 0 and float(support.min()) == float(support.max())
+        # Ignorance over free space stays ignorance under any motion, so it waits for the first reading.
+        self.state = dataclasses.replace(drawn, prior=prior) if ignorant else drawn
 
     def fork(self) -> ParticleFilter:
         other = copy.copy(self)
@@ -187,7 +197,7 @@ class ParticleFilter:
         total = float(weights.sum())
         if total <= 0:  # every particle moved off free space: keep the belief, the monitor will see it
             return
-        self.state = _State(poses, weights / total, s.slow, s.fast)
+        self.state = _State(poses, weights / total, s.slow, s.fast, s.prior)
 
     def update(self, evidence: Evidence) -> StepReport:
         if evidence.n != self.grid.n_cells:
@@ -196,6 +206,8 @@ class ParticleFilter:
             )
         start = time.perf_counter()
         s = self.state
+        if s.prior is not None:
+            return self._first_reading(evidence, start)
         # A particle off free space already weighs 0 (``predict``; drawn particles are drawn on free cells).
         likelihood = evidence.likelihood[self._cells(s.poses)]
         z = float(s.weights @ likelihood)  # p(z | past), by the particles
@@ -214,6 +226,26 @@ class ParticleFilter:
         seconds = time.perf_counter() - start
         region = self._region() if self.report_region else 0
         return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=math.log(z), effective_share=share)
+
+    def _first_reading(self, evidence: Evidence, start: float) -> StepReport:
+        """The first reading after a reset: the particles are drawn from prior × likelihood on the grid (the
+        first posterior, sampled directly, as sensor-resetting localization draws poses from the readings,
+        Lenser & Veloso 2000), then cut to the KLD count.  Weighting particles drawn from a flat prior would
+        leave the true pose to whichever few particles happened to fall near it."""
+        prior = self.state.prior
+        post = prior * evidence.likelihood
+        total, mass = float(post.sum()), float(prior.sum())
+        if total <= 0:
+            return StepReport(
+                self.name, evidence.sensor, time.perf_counter() - start, 0, log_evidence=-math.inf, rejected=True
+            )
+        z = total / mass
+        drawn = self._sampled(post, self.settings.max_particles, z, z)
+        m = self._kld_count(drawn.poses)
+        self.state = _State(drawn.poses[:m], np.full(m, 1.0 / m), z, z)
+        region = self._region() if self.report_region else 0
+        seconds = time.perf_counter() - start
+        return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=math.log(z), effective_share=1.0)
 
     def _resample(self) -> None:
         """Low-variance resampling at the largest count, injection of random poses (augmented MCL), then the
@@ -314,4 +346,12 @@ class ParticleFilter:
         return BeliefHealth(float(w.sum()), float(w.min()), len(w), self.settings.max_particles, "particle weights")
 
     def pose_estimate(self) -> PoseEstimate:
-        return estimate_pose(self.grid, self.distribution())
+        """As every back end's (``estimate_pose``), with the mode found in the particles' density smoothed by a
+        Gaussian kernel of ``MODE_KERNEL_M``: a histogram of samples has its highest cell by chance, and a few
+        particles stacked in one cell of a wrong aisle would otherwise outvote a wider cloud at the right one."""
+        from scipy import ndimage
+
+        p = self.distribution()
+        plane = p.reshape(self.grid.shape).sum(axis=0)
+        smooth = ndimage.gaussian_filter(plane, MODE_KERNEL_M / self.grid.resolution_m, mode="constant")
+        return estimate_pose(self.grid, p, mode_plane=smooth)
