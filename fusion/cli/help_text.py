@@ -16,9 +16,9 @@ class Help:
 
 COMMANDS = {
     "demo": Help(
-        "run a shipped case (the cold-store depot by default) on both back ends, live",
-        "Simulate a shipped case and run the Bayesian and the Dempster–Shafer back ends side by side on "
-        "identical readings, with a live map; writes the log, the truth, per-tick rows, a summary and an HTML "
+        "run a shipped case (the cold-store depot by default) on its back ends, live",
+        "Simulate a shipped case and run its back ends (the depot: the Bayesian and the Dempster–Shafer ones; "
+        "the fault cases: all four families) side by side on identical readings, with a live map; writes the log, the truth, per-tick rows, a summary and an HTML "
         "report.",
         ("fusion demo", "fusion demo --case ghost", "fusion demo --seed 7 --quiet"),
     ),
@@ -85,7 +85,7 @@ COMMANDS = {
         ),
     ),
     "inspect": Help(
-        "replay a recorded log on both back ends and explain its conflict",
+        "replay a recorded log on the site's back ends and explain its conflict",
         "Replay a recorded log, find the episodes where beliefs and readings conflicted, blame sensors and "
         "readings, and write tables, plots and an HTML report; with --truth, score the estimate too.",
         (

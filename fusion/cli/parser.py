@@ -103,7 +103,7 @@ def _add_simulating(commands) -> None:
         "--backend",
         action="append",
         choices=tuple(BACKENDS),
-        help="back end to run (repeat for both; default: the case's [run] backends)",
+        help="back end to run (repeatable; default: the case's [run] backends)",
     )
     run.add_argument(
         "--rule", help=f"combination rule of the evidential back end: {_rule_names()} (default: the case's)"
@@ -121,7 +121,7 @@ def _add_simulating(commands) -> None:
         "case", type=case_file, help="case file (TOML) or shipped case name; its [compare] table sets the sweep"
     )
     cmp.add_argument("--seeds", type=count_up_to(10_000), help="seeds per setting (default: the case's, else 50)")
-    cmp.add_argument("--backend", action="append", help="back end to include (repeatable): bayes, evidential")
+    cmp.add_argument("--backend", action="append", help=f"back end to include (repeatable): {', '.join(BACKENDS)}")
     cmp.add_argument("--rule", action="append", help="evidential combination rule to include (repeatable)")
     cmp.add_argument("--reliability", action="append", type=number, help="discount factor in [0, 1] (repeatable)")
     cmp.add_argument("--fault-rate", action="append", type=number, help="fault rate in [0, 1] (repeatable)")
@@ -184,7 +184,10 @@ def _add_measuring(commands) -> None:
         help="shipped case name or case file (repeatable; default: carried, carried_blind, stuck_door, ghost, calm)",
     )
     targets.add_argument(
-        "--backend", action="append", choices=tuple(BACKENDS), help="back end (repeatable; default: both)"
+        "--backend",
+        action="append",
+        choices=tuple(BACKENDS),
+        help="back end (repeatable; default: the case's [run] backends)",
     )
     targets.add_argument("--json", action="store_true", help="print every run's verdict as JSON")
     targets.add_argument(
