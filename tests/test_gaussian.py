@@ -280,7 +280,7 @@ def test_a_gaussian_seen_on_a_fine_grid_is_found_again_by_its_moments():
     """A Gaussian put on a grid (``GridView.density``) and read back as the histogram's best mode: the moments
     are the covariance plus the spread of a uniform cell (res²/12 per axis, Δθ²/12; the variance of a uniform
     distribution)."""
-    from fusion.belief.gaussian_grid import GridView, best_mode
+    from fusion.backends.gaussian_grid import GridView, best_mode
 
     grid = PoseGrid(8.0, 6.0, 0.05, 144)
     cov = np.array([[0.09, 0.03, 0.0], [0.03, 0.04, 0.0], [0.0, 0.0, math.radians(10.0) ** 2]])

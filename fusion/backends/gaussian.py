@@ -7,7 +7,7 @@
 - **Updates** from the same sensor models, linearised (``fusion.sensors.linearised``): marker range and
   bearing by the marker's id; a door contact that fired as a position in its zone; a scan by Gauss–Newton on
   the signed distance field (``fusion.belief.gaussian``).  A reading whose model gives no linearisation (a
-  quiet contact, a camera that saw nothing) is moment-matched on the grid (``fusion.belief.gaussian_grid``).
+  quiet contact, a camera that saw nothing) is moment-matched on the grid (``fusion.backends.gaussian_grid``).
 - **Gate**: a reading whose normalised innovation squared exceeds the χ²_m quantile at ``gate_probability``
   is not absorbed; it is reported rejected and counts as a disagreement for the monitor.  The beams of a scan
   are gated one by one first (a person in a beam is an early return, not a wrong pose); a scan with fewer
@@ -15,7 +15,7 @@
 - **Discounting**: a reading whose reliability was lowered (a quarantined sensor) enters with its information
   scaled by that share (R divided by it).
 - **Re-seeding and start**: ``reset`` is given a probability per cell (a start region, or ignorance).  When the
-  most probable mode (``fusion.belief.gaussian_grid.best_mode``) holds at least ``mode_share`` of it and is
+  most probable mode (``fusion.backends.gaussian_grid.best_mode``) holds at least ``mode_share`` of it and is
   compact (``mode_spread_m``, ``mode_heading_deg``) the belief is that mode's Gaussian.  Otherwise no single
   Gaussian stands for it: the filter follows the readings on the histogram (``HistogramFilter``) until one mode
   holds that share, then collapses to it, and says so in the step's note.
@@ -36,9 +36,9 @@ from scipy.stats import chi2
 
 from fusion.backends.base import NO_OPINION, BeliefHealth, Overlay, PoseEstimate, SecondOpinion, StepReport
 from fusion.backends.bayes import SUPPORT_SHARE, HistogramFilter
+from fusion.backends.gaussian_grid import GridView, best_mode
 from fusion.backends.tuning import require_settings
 from fusion.belief.gaussian import NotLinearisable, PoseGaussian, iterated_update, kalman_update, predicted
-from fusion.belief.gaussian_grid import GridView, best_mode
 from fusion.conflict import conflict_on, joint_conflict_on, support_conflict, support_joint_conflict
 from fusion.errors import FrameMismatchError
 from fusion.grid import PoseGrid

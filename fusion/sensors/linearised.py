@@ -16,7 +16,7 @@ parameters:
   matching with the prediction as prior).
 
 A quiet door contact, a camera that saw nothing, and a site with no walls give no such model; the Gaussian
-filter then applies the reading's grid likelihood by moment matching (``fusion.belief.gaussian_grid``).
+filter then applies the reading's grid likelihood by moment matching (``fusion.backends.gaussian_grid``).
 """
 
 from __future__ import annotations
