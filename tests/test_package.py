@@ -66,3 +66,15 @@ def test_the_sweep_benchmark_reports_its_speed_up_beside_the_machines_ceiling():
     assert abs(sweep.ratio - sweep.floor_ms / sweep.best_ms) < 1e-9 * sweep.ratio  # one worker over two
     assert abs(ceiling.ratio - 2 * ceiling.floor_ms / ceiling.best_ms) < 1e-9 * ceiling.ratio
     assert f"{sweep.ratio / ceiling.ratio:.0%} of this machine's ceiling" in sweep.note
+
+
+def test_the_back_end_step_benchmark_times_every_family_on_the_same_ticks():
+    from fusion.backends import BACKENDS
+    from fusion.bench_steps import bench_backend_steps
+
+    rows = bench_backend_steps(Path(__file__).parent / "data" / "tiny.toml", ticks=12)
+    assert [r.backend for r in rows] == list(BACKENDS)
+    for r in rows:
+        assert r.operation == "back-end step" and r.best_ms >= 0 and "12 ticks" in r.note
+        assert abs(r.ratio - r.best_ms / r.floor_ms) < 1e-9 * max(r.ratio, 1e-12)
+    assert "particles at the end" in next(r for r in rows if r.backend == "particles").note

@@ -18,7 +18,7 @@ def view():
     from fusion.view.live import RunView
 
     case = load_case(TINY)
-    v = RunView(case, case.run.backends, 77)  # every family: three panels side by side
+    v = RunView(case, case.run.backends, 77)  # every family: four panels, two to a row when narrow
     run_case(case, on_tick=v.on_tick)
     return v
 
@@ -31,6 +31,37 @@ def test_the_live_view_fits_the_terminal_and_keeps_progress_and_actions_visible(
     assert len(lines) <= height and max(len(line) for line in lines) <= width
     text = "\n".join(lines)
     assert "77/77 ticks" in text and "monitor actions" in text and "◆ truth" in text
+
+
+def test_the_particles_and_the_gaussian_ellipse_are_drawn_over_their_maps(view):
+    """The sampling and Gaussian back ends give the view points to draw (``Backend.overlay``); the legend names
+    them.  The ellipse's points lie at squared Mahalanobis distance χ²₂(0.95) from the mean (scipy's quantile);
+    smaller than a character, it hides under the estimate's mark, so only the particles are asserted on screen."""
+    from scipy.stats import chi2
+
+    from fusion.backends import build
+
+    console = Console(width=200, height=60, record=True)
+    console.print(view)
+    assert "∘ particles or 95% ellipse" in console.export_text()
+    panel = Console(width=100, height=40, record=True)
+    panel.print(view._panel("particles", 40))
+    assert "∘" in panel.export_text()
+    f = build("gaussian", view.case.site.grid(view.case.headings))
+    f.reset(f.view.density(_gaussian(2.0, 3.0)))
+    g = f.gaussian
+    d = f.overlay().points - g.mean[:2]
+    m2 = np.einsum("ki,ij,kj->k", d, np.linalg.inv(g.cov[:2, :2]), d)
+    np.testing.assert_allclose(m2, chi2.ppf(0.95, 2), rtol=1e-3)
+    bayes = Console(width=100, height=40, record=True)
+    bayes.print(view._panel("bayes", 40))
+    assert "∘" not in bayes.export_text()
+
+
+def _gaussian(x, y):
+    from fusion.belief.gaussian import PoseGaussian
+
+    return PoseGaussian(np.array([x, y, 0.5]), np.diag([0.6**2, 0.4**2, 0.1**2]))
 
 
 def test_a_wider_terminal_gets_a_wider_map(view):
