@@ -40,3 +40,29 @@ def test_a_stream_that_stops_mid_line_is_reported():
     written, rejected = stream(loc, io.BytesIO(b'{"t": 0.0, "sensor": "wheels", "kind": "odo'), out, err)
     assert written == 0 and rejected == 1
     assert "stopped in the middle of a line" in out.getvalue()
+
+
+def test_a_reading_the_gaussian_filter_cannot_linearise_is_a_rejected_record_on_its_line():
+    """A marker read at range 0 has no bearing to linearise: the Gaussian back end refuses it, and the stream
+    writes a rejected-reading record for its line; the lines before and after are decided as usual."""
+    case = load_case(TINY)
+    loc = Localizer.from_case(case, "gaussian")
+    loc.start_at(3.75, 1.5, 90.0)
+    lines = [
+        json.dumps(
+            {"t": 0.0, "sensor": "camera", "kind": "markers", "marker": "R-west", "range_m": 1.5, "bearing_deg": 0}
+        ),
+        json.dumps(
+            {"t": 0.5, "sensor": "camera", "kind": "markers", "marker": "R-west", "range_m": 0.0, "bearing_deg": 0}
+        ),
+        json.dumps(
+            {"t": 1.0, "sensor": "camera", "kind": "markers", "marker": "R-west", "range_m": 1.5, "bearing_deg": 0}
+        ),
+    ]
+    out, err = io.StringIO(), io.StringIO()
+    written, rejected = stream(loc, io.BytesIO(("\n".join(lines) + "\n").encode()), out, err)
+    records = [json.loads(line) for line in out.getvalue().splitlines()]
+    assert (written, rejected) == (2, 1) and [r["line"] for r in records] == [1, 2, 3]
+    assert records[0]["rejected"] == [] and records[2]["rejected"] == []
+    assert "could not use it" in records[1]["error"] and "range 0 m" in records[1]["error"]
+    assert "line 2" in err.getvalue()
