@@ -2,8 +2,11 @@
 
 - ``GridView.cells``: the cells of a window around the mean (``WINDOW_SIGMAS`` standard deviations in x, y
   and heading), with each cell's squared Mahalanobis distance from the mean (heading differences wrapped);
-- ``GridView.density``: the Gaussian at those cells' centres, normalised over free space: what every tool
-  that reads a probability per cell reads;
+- ``GridView.density``: the probability of each cell, normalised over free space: what every tool that reads
+  a probability per cell reads.  A cell holds the Gaussian's integral over it, taken as the density at its
+  centre of the Gaussian widened by a uniform cell's spread (res²/12 per axis, Δθ²/12 in heading; the
+  variance of a uniform distribution), so a Gaussian narrower than a cell still spreads over the cells it
+  straddles instead of sitting on the one whose centre is nearest;
 - ``GridView.absorbed``: a reading with no linearisable model (a quiet door contact, a marker camera that
   saw nothing, a sensor kind registered without one) applied by moment matching on the window: the
   Gaussian times the reading's likelihood, its mean and covariance kept (an assumed-density update,
@@ -40,8 +43,18 @@ class GridView:
     def __init__(self, grid: PoseGrid, free: np.ndarray):
         self.grid, self.free = grid, free
 
-    def cells(self, belief: PoseGaussian, sigmas: float = WINDOW_SIGMAS) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(cells, offsets (k, 3) from the mean with the heading wrapped, squared Mahalanobis distances)."""
+    def cell_spread(self) -> np.ndarray:
+        """The covariance of a pose uniform over one cell (res²/12, res²/12, Δθ²/12)."""
+        g = self.grid
+        return np.diag([g.resolution_m**2 / 12, g.resolution_m**2 / 12, g.heading_step**2 / 12])
+
+    def cells(
+        self, belief: PoseGaussian, sigmas: float = WINDOW_SIGMAS, per_cell: bool = False
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(cells, offsets (k, 3) from the mean with the heading wrapped, squared Mahalanobis distances);
+        ``per_cell``: distances under the covariance widened by a cell's spread (the cell's integral)."""
+        if per_cell:
+            belief = PoseGaussian(belief.mean, belief.cov + self.cell_spread())
         g = self.grid
         sd = np.sqrt(np.maximum(np.diag(belief.cov), 0.0))
         ix = _span(belief.x, sd[0] * sigmas, g.x0_m, g.resolution_m, g.nx)
@@ -64,7 +77,7 @@ class GridView:
     def density(self, belief: PoseGaussian) -> np.ndarray:
         """Probability per cell (shape (n_cells,)): the Gaussian at the window's cell centres, normalised over
         the free ones (over all of them when none is free: the belief has left the map)."""
-        cells, _, d2 = self.cells(belief)
+        cells, _, d2 = self.cells(belief, per_cell=True)
         w = np.exp(-0.5 * (d2 - d2.min()))
         on_free = w * self.free[cells]
         if on_free.sum() > 0:
@@ -76,7 +89,7 @@ class GridView:
     def support(self, belief: PoseGaussian, share: float) -> np.ndarray:
         """The free cells whose density is at least ``share`` of the densest cell's (squared Mahalanobis
         distance within 2 log(1 / share) of the nearest cell); the nearest cell when none is free."""
-        cells, _, d2 = self.cells(belief)
+        cells, _, d2 = self.cells(belief, per_cell=True)
         keep = (d2 <= d2.min() + 2.0 * math.log(1.0 / share)) & self.free[cells]
         return cells[keep] if keep.any() else cells[[int(np.argmin(d2))]]
 
@@ -138,7 +151,11 @@ class Mode:
 
 def best_mode(grid: PoseGrid, p: np.ndarray) -> Mode | None:
     """The most probable mode of a probability per cell (``MODE_FLOOR``), as a Gaussian of its moments with
-    the spread of a uniform cell added (res²/12 per axis, Δθ²/12 in heading); None for an all-zero ``p``."""
+    the spread of a uniform cell added (res²/12 per axis, Δθ²/12 in heading): each cell is read as a uniform
+    pose over it.  For a histogram of a smooth density (cell integrals, as ``GridView.density`` gives) that
+    reads the variance one cell's spread wide, on top of the cell's spread the grouping itself adds (Sheppard
+    1898); the error is on the wide side on purpose (an EKF seeded too narrow gates out the readings that would
+    correct it), and it keeps a mode of one heading bin from a singular covariance.  None for an all-zero ``p``."""
     from scipy import ndimage
 
     cube = p.reshape(grid.shape)
