@@ -29,7 +29,6 @@ import functools
 import math
 
 import numpy as np
-from scipy.special import gammaincc
 
 from fusion.belief import bitset, rules
 from fusion.belief.mass import FocalAccumulator, MassFunction, check_same_frame
@@ -66,6 +65,8 @@ def fit_plausibility(c: float, dof: int) -> float:
         return float(c)
     if c <= 0.0:
         return 0.0
+    from scipy.special import gammaincc  # scipy on first use: importing it costs 0.15 s at start-up
+
     return float(gammaincc(dof / 2.0, -math.log(c)))  # χ² survival: Q(k/2, x/2) with x = −2 log c
 
 
@@ -88,6 +89,8 @@ def fit_plausibility_contour(contour: np.ndarray, dof: int) -> np.ndarray:
 
 @functools.lru_cache(maxsize=32)
 def _survival_table(dof: int) -> tuple[np.ndarray, np.ndarray]:
+    from scipy.special import gammaincc
+
     k = dof / 2.0
     top = k + 40.0 * math.sqrt(k) + 40.0  # Q(k, x) < 1e-16 beyond (Chernoff bound on the gamma tail)
     xs = np.linspace(0.0, top, 4096)

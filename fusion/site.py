@@ -13,7 +13,6 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-from scipy import ndimage
 
 from fusion.errors import SiteError
 from fusion.grid import PoseGrid
@@ -139,6 +138,8 @@ class SiteMap:
         """``distance_m`` over the map and ``pad`` cells of open ground around it, (ny + 2 pad, nx + 2 pad).
         A return measured a little long off a border wall ends past the map's edge, yet only as far
         from that wall as its noise put it (an infinite distance there would call it a random return)."""
+        from scipy import ndimage  # on first use: importing scipy costs about 0.15 s at start-up
+
         occupied = np.pad(self.occupied, pad, constant_values=False)
         if not occupied.any():
             return np.full(occupied.shape, np.inf)

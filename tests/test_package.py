@@ -44,6 +44,9 @@ def test_bench_reports_ratios_as_json(capsys):
         ("evidential, focal sets", "update as run"),
         ("evidential, focal sets", "predict"),
         ("evidential, focal sets", "step"),
+        ("all", "import fusion"),
+        ("all", "from fusion import Localizer, load_case"),
+        ("all", "fusion --help"),
     }
     # Fidelity rows: the plausibility transform with probabilistic motion equals the Bayes posterior
     # (Shafer 1976); every other row is a measured distance in [0, 1].

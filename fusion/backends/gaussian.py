@@ -32,7 +32,6 @@ import time
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import chi2
 
 from fusion.backends.base import NO_OPINION, BeliefHealth, Overlay, PoseEstimate, SecondOpinion, StepReport
 from fusion.backends.bayes import SUPPORT_SHARE, HistogramFilter
@@ -231,6 +230,8 @@ class GaussianFilter:
 
     def _gate(self, dof: int) -> float:
         if dof not in self._gates:
+            from scipy.stats import chi2
+
             self._gates[dof] = float(chi2.ppf(self.settings.gate_probability, dof))
         return self._gates[dof]
 

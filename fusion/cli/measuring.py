@@ -20,6 +20,7 @@ def bench_command(args: argparse.Namespace) -> int:
     from rich.console import Console
 
     from fusion.bench import SIZES, bench_localizer, run_bench
+    from fusion.bench_imports import bench_imports
     from fusion.bench_steps import bench_backend_steps
     from fusion.bench_sweep import bench_sweep
     from fusion.fidelity import measure_fidelity
@@ -33,6 +34,7 @@ def bench_command(args: argparse.Namespace) -> int:
         if not args.quick:
             rows += bench_localizer(builtin_case("depot.toml"))
             rows += bench_backend_steps(builtin_case("depot.toml"))
+        rows += bench_imports(repeats=3 if args.quick else 7)
     if args.sweep:
         with console.status(f"timing the demo case's compare sweep on {args.sweep} seeds, 1 worker then 2…"):
             rows += bench_sweep(builtin_case("depot.toml"), seeds=args.sweep, workers=2)
