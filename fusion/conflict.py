@@ -1,4 +1,4 @@
-"""Conflict figures: how much a reading disagrees with the belief, on both back ends.
+"""Conflict figures: how much a reading disagrees with the belief, on every back end.
 
 Evidential side
 - K = m(∅) of the unnormalised conjunctive combination (Dempster's conflict);

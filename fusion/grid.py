@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -69,11 +70,11 @@ class PoseGrid:
             )
 
     # ----------------------------------------------------------------- shape
-    @property
+    @cached_property  # read on every conversion; a frozen dataclass's fields never change
     def nx(self) -> int:
         return _cells_across(self.width_m, self.resolution_m)
 
-    @property
+    @cached_property
     def ny(self) -> int:
         return _cells_across(self.height_m, self.resolution_m)
 

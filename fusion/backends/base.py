@@ -4,7 +4,7 @@ A back end holds one belief over the cells of a ``PoseGrid``.  ``predict`` appli
 odometry, ``update`` absorbs one reading's ``Evidence`` and returns a
 ``StepReport``; ``distribution`` gives a probability per cell (the posterior for
 Bayes, the pignistic probability for mass functions) so that every tool can treat
-both back ends alike.
+every back end alike.
 """
 
 from __future__ import annotations

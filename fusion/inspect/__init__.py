@@ -1,4 +1,4 @@
-"""Incident investigation: replay a recorded log on both back ends and explain where and why it conflicted.
+"""Incident investigation: replay a recorded log on every back end of the site and explain where and why it conflicted.
 
 The log is streamed (JSON lines or CSV, see ``fusion.io.logs``), never loaded whole.  Records
 are formed into ticks by ``fusion.io.ticks``: each reading is applied at the pose odometry gives

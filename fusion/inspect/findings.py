@@ -65,7 +65,7 @@ class Inspection:
     backends: tuple[str, ...]
     lines: int = 0
     records: int = 0  # observations that parsed
-    used: int = 0  # readings both back ends absorbed
+    used: int = 0  # readings every back end absorbed
     ticks: int = 0
     first_t: float | None = None  # the log's clock at its first tick and its last
     last_t: float = 0.0

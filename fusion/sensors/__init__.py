@@ -1,1 +1,1 @@
-"""Sensor models: each turns one reading into evidence usable by both back ends (see ``base``)."""
+"""Sensor models: each turns one reading into evidence usable by every back end (see ``base``)."""

@@ -3,7 +3,8 @@
 A sensor model computes the *contour* of a reading: c(x) = p(z | x) / max_x p(z | x),
 the plausibility of each cell from the reading alone (Shafer 1976, ch. 11).  The
 sensor's reliability r (probability that the reading comes from a working sensor)
-then enters both back ends in the same way:
+then enters the histogram and the mass back ends in the same way (the particle filter weighs by the
+likelihood; the Gaussian filter scales a discounted reading's information, ``fusion.backends.gaussian``):
 
 - mass side: the consonant mass function of the contour, discounted at rate 1 − r;
 - Bayesian side: the likelihood r · c(x) + (1 − r), a mixture with an outlier that

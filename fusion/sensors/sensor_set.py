@@ -50,7 +50,7 @@ class SensorSet:
 
     def encode(self, obs: Observation) -> Evidence:
         """Evidence of one reading; the same observation object is encoded once even when several
-        localizers (e.g. both back ends side by side) share this sensor set."""
+        localizers (e.g. every back end side by side) share this sensor set."""
         hit = self._cache.get(id(obs))
         if hit is not None and hit[0] is obs:
             return hit[1]

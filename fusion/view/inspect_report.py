@@ -3,7 +3,7 @@
 Plots (PNG, embedded and also written beside the report):
 - ``conflict.png``: each back end's conflict per tick, episodes shaded, monitor actions marked;
 - ``blame.png``: each sensor's share of the blame over all episodes, per back end;
-- ``maps_episode<N>.png``: both back ends' beliefs before, at the peak of and at the end of the
+- ``maps_episode<N>.png``: every back end's beliefs before, at the peak of and at the end of the
   most severe episodes (true pose and estimate marked when known);
 - ``error.png``: the true position error per back end (only with a truth file).
 """
@@ -235,7 +235,7 @@ def _html(found, images: dict[str, bytes]) -> str:
     )
     body = f"""{warn}
 <p>Log <code>{e(found.log)}</code> on site <b>{e(found.site)}</b>: {plural(found.lines, "line")}, {plural(found.records, "observation")},
-{plural(found.ticks, "tick")} ({found.duration_s:.1f} s of log); {plural(found.used, "reading")} absorbed by both back ends.
+{plural(found.ticks, "tick")} ({found.duration_s:.1f} s of log); {plural(found.used, "reading")} absorbed by every back end.
 Start: {e(found.start)}. Rows set aside: {found.set_aside:,} ({aside}).{" <b>Interrupted</b>: the report covers the ticks read." if found.interrupted else ""}</p>
 {"<h2>True error</h2><ul>" + errors + "</ul>" if errors else ""}
 <h2>Conflict episodes ({len(found.episodes)})</h2>

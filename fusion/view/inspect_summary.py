@@ -30,7 +30,7 @@ def summary_renderables(found):
     head.add_row(
         "read",
         f"{plural(found.lines, 'line')} → {plural(found.records, 'observation')} in {plural(found.ticks, 'tick')} "
-        f"({found.duration_s:.1f} s of log); {plural(found.used, 'reading')} absorbed by both back ends",
+        f"({found.duration_s:.1f} s of log); {plural(found.used, 'reading')} absorbed by every back end",
     )
     aside = ", ".join(f"{n:,} {kind}" for kind, n in found.reasons.most_common())
     head.add_row(

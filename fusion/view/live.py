@@ -1,4 +1,4 @@
-"""The live terminal view of a run: both back ends side by side, drawn with rich.
+"""The live terminal view of a run: every back end side by side, drawn with rich.
 
 Each back end gets a panel with its belief map (the probability of each place,
 summed over headings, drawn with shade blocks), the true pose (◆) and the

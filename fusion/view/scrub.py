@@ -1,4 +1,4 @@
-"""Step through a replay in the terminal: both back ends' belief maps side by side, tick by tick.
+"""Step through a replay in the terminal: every back end's belief map side by side, tick by tick.
 
 Reads what ``fusion inspect`` stored (``frames.json`` and the coarse maps in ``frames.u8``,
 mapped from disk, so a long replay costs no memory).  Keys:
