@@ -187,7 +187,10 @@ def _maps(found, case, e) -> bytes:
         "grey: walls and racks",
         fontsize=9,
     )
-    data = png_of(fig, rect=(0, 0.05, 1, 1))
+    # Room in inches, not in shares of the figure: the title and the legend keep their size however many back
+    # ends (rows) the figure holds.
+    tall = fig.get_figheight()
+    data = png_of(fig, rect=(0, 0.45 / tall, 1, 1 - 0.4 / tall))
     plt.close(fig)
     return data
 
