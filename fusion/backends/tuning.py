@@ -7,9 +7,8 @@ fields in ``joint_problems()``.
 
 from __future__ import annotations
 
-import math
-
 from fusion.errors import ObservationError
+from fusion.sensors.limits import breaks_rule
 
 __all__ = ["problems", "require_settings"]
 
@@ -19,13 +18,8 @@ def problems(settings) -> list[tuple[str, str]]:
     out = []
     for name, (low, high, whole, open_low) in settings.RULES.items():
         value = getattr(settings, name)
-        words = _words(low, high, whole, open_low)
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            out.append((name, f"{words}, got {value!r}"))
-        elif whole and not float(value).is_integer():
-            out.append((name, f"{words}, got {value!r}"))
-        elif value < low or (open_low and value == low) or (high is not None and value > high):
-            out.append((name, f"{words}, got {value!r}"))
+        if breaks_rule(value, low, high, open_low, whole):
+            out.append((name, f"{_words(low, high, whole, open_low)}, got {value!r}"))
     if not out:
         out += settings.joint_problems()
     return out

@@ -13,7 +13,7 @@ import math
 
 from fusion.errors import ObservationError
 
-__all__ = ["problems", "require_valid", "MAX_LEVELS", "MAX_BEAMS", "MAX_RANGE_M", "WEIGHT_TOLERANCE"]
+__all__ = ["problems", "require_valid", "breaks_rule", "MAX_LEVELS", "MAX_BEAMS", "MAX_RANGE_M", "WEIGHT_TOLERANCE"]
 
 MAX_LEVELS = 64
 """Most nested focal sets a reading's contour is cut into (2⁻⁶⁴ is below a double's resolution near 1)."""
@@ -68,14 +68,20 @@ def problems(params) -> list[tuple[str, str]]:
             continue
         value = getattr(params, name)
         low, high, open_low, words = _RULES[rule]
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            out.append((name, f"{words}, got {value!r}"))
-        elif rule == "levels" and not float(value).is_integer():
-            out.append((name, f"{words}, got {value!r}"))
-        elif value < low or (open_low and value == low) or (high is not None and value > high):
+        if breaks_rule(value, low, high, open_low, whole=rule == "levels"):
             out.append((name, f"{words}, got {value!r}"))
     out += _joint(params)
     return out
+
+
+def breaks_rule(value, low, high, open_low: bool, whole: bool = False) -> bool:
+    """Is ``value`` not a finite number (a bool is not one), not whole when it must be, below ``low`` (or at it
+    when ``open_low``), or above ``high`` (None: no upper bound)?  The one test behind every parameter rule."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        return True
+    if whole and not float(value).is_integer():
+        return True
+    return value < low or (open_low and value == low) or (high is not None and value > high)
 
 
 def _kind_rules(params) -> dict[str, str]:
