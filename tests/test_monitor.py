@@ -1,3 +1,5 @@
+import pytest
+
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
 
 
@@ -75,6 +77,21 @@ def test_quarantine_count_is_the_binomial_tail_of_the_sensors_own_error_rates():
     verdict = m.judge(False, False, [])
     assert verdict.action == QUARANTINE and "4 of its last 6 readings" in verdict.reasons[0]
     assert "chance 3e-05" in verdict.reasons[0]
+
+
+@pytest.mark.parametrize("n", [1, 6, 50, 2000, 10_000])
+def test_the_binomial_tail_agrees_with_scipy(n):
+    """``binomial_tail`` (written out, to keep scipy.stats out of a stream's first tick) against scipy.stats.binom.sf,
+    the registry's reference, over whole windows and rates from rare to common."""
+    from scipy.stats import binom
+
+    from fusion.monitor.policy import binomial_tail
+
+    for rate in (1e-6, 0.0396, 0.3, 0.97):
+        for k in sorted({0, 1, 2, n // 3, n // 2, n - 1, n, n + 1}):
+            want = float(binom.sf(k - 1, n, rate))
+            got = binomial_tail(k, n, rate)
+            assert got == pytest.approx(want, rel=1e-9, abs=1e-300), (n, rate, k)
 
 
 def test_a_sensor_declared_too_noisy_for_its_window_needs_the_whole_window():
