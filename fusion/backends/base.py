@@ -28,6 +28,7 @@ __all__ = [
     "Overlay",
     "estimate_pose",
     "region_size",
+    "free_cells",
     "REGION_LEVEL",
     "TOTAL_CONFLICT",
 ]
@@ -171,6 +172,11 @@ class Backend(Protocol):
 
     def overlay(self) -> Overlay | None:
         """What a view draws over the belief map besides it (particles, an ellipse), or None."""
+
+
+def free_cells(grid: PoseGrid, free: np.ndarray | None) -> np.ndarray:
+    """One bool per cell: the site's free plane ((ny, nx)) repeated over every heading; every cell when None."""
+    return np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
 
 
 def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:

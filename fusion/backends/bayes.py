@@ -19,6 +19,7 @@ from fusion.backends.base import (
     SecondOpinion,
     StepReport,
     estimate_pose,
+    free_cells,
     region_size,
 )
 from fusion.belief.posterior import Posterior
@@ -41,7 +42,7 @@ class HistogramFilter:
 
     def __init__(self, grid: PoseGrid, free: np.ndarray | None = None, *, report_region: bool = True):
         self.grid = grid
-        self.free = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
+        self.free = free_cells(grid, free)
         self.report_region = report_region
         self.belief = Posterior.uniform(grid.n_cells, mask=self.free)
 

@@ -38,6 +38,7 @@ from fusion.backends.base import (
     SecondOpinion,
     StepReport,
     estimate_pose,
+    free_cells,
     region_size,
 )
 from fusion.belief.contour import ContourBelief, consonant_distance
@@ -77,7 +78,7 @@ class ContourFilter:
         if motion not in MOTION_MODELS:
             raise RuleError(f"unknown motion model {motion!r}; choose one of: {', '.join(MOTION_MODELS)}")
         self.grid, self.rule, self.motion, self.report_region = grid, rule, motion, report_region
-        self.free = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
+        self.free = free_cells(grid, free)
         self.belief = ContourBelief.vacuous_on(self.free)
         self._residual = SubCellMotion(grid.headings)
 

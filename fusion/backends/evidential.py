@@ -30,6 +30,7 @@ from fusion.backends.base import (
     SecondOpinion,
     StepReport,
     estimate_pose,
+    free_cells,
 )
 from fusion.backends.contour import CORE_SHARE
 from fusion.belief import bitset, rules
@@ -76,9 +77,9 @@ class MassFilter:
         if merge not in MERGE_STRATEGIES:
             raise RuleError(f"unknown merge strategy {merge!r}; choose one of: {', '.join(MERGE_STRATEGIES)}")
         self.merge = merge
-        free_cells = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
-        self._free_words = bitset.pack_masks(free_cells)[0]
-        self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_cells))
+        free_mask = free_cells(grid, free)
+        self._free_words = bitset.pack_masks(free_mask)[0]
+        self.belief = MassFunction.categorical(grid.n_cells, np.flatnonzero(free_mask))
         self._layout = SlicedSets(grid) if isinstance(grid, PoseGrid) else None
         self._residual = SubCellMotion(grid.headings)
         self._distribution, self._distribution_of = None, None

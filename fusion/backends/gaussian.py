@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fusion.backends.base import NO_OPINION, BeliefHealth, Overlay, PoseEstimate, SecondOpinion, StepReport
+from fusion.backends.base import NO_OPINION, BeliefHealth, Overlay, PoseEstimate, SecondOpinion, StepReport, free_cells
 from fusion.backends.bayes import SUPPORT_SHARE, HistogramFilter
 from fusion.backends.gaussian_grid import GridView, best_mode
 from fusion.backends.tuning import require_settings
@@ -92,7 +92,7 @@ class GaussianFilter:
     ):
         require_settings(settings, self.name)
         self.grid, self.settings, self.report_region = grid, settings, report_region
-        self.free = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
+        self.free = free_cells(grid, free)
         self.view = GridView(grid, self.free)
         self._histogram = HistogramFilter(grid, free, report_region=False)
         self._gates: dict[int, float] = {}

@@ -44,6 +44,7 @@ from fusion.backends.base import (
     SecondOpinion,
     StepReport,
     estimate_pose,
+    free_cells,
     region_size,
 )
 from fusion.backends.bayes import SUPPORT_SHARE
@@ -139,7 +140,7 @@ class ParticleFilter:
     ):
         require_settings(settings, self.name)
         self.grid, self.settings, self.report_region = grid, settings, report_region
-        self.free = np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
+        self.free = free_cells(grid, free)
         if not self.free.any():
             raise FrameMismatchError("the site has no free cell for a particle")
         self.rng = np.random.default_rng(seed)
