@@ -199,7 +199,12 @@ class GaussianFilter:
                 whole = kalman_update(g, model.linearise(g.mean), weight)
                 gate = self._gate(whole.dof)
                 return self._report(
-                    evidence, start, log_evidence=whole.log_fit, rejected=True, nis=whole.nis, gate=gate
+                    evidence,
+                    start,
+                    log_evidence=_with_floor(whole.log_fit, evidence),
+                    rejected=True,
+                    nis=whole.nis,
+                    gate=gate,
                 )
         if model.iterate:
             out = iterated_update(g, model, rows, weight, self.settings.iterations)
@@ -209,7 +214,9 @@ class GaussianFilter:
         gated = out.nis > gate
         if not gated:
             self.state = _State(out.belief, None)
-        return self._report(evidence, start, log_evidence=out.log_fit, rejected=gated, nis=out.nis, gate=gate)
+        return self._report(
+            evidence, start, log_evidence=_with_floor(out.log_fit, evidence), rejected=gated, nis=out.nis, gate=gate
+        )
 
     def _rows_in_gate(self, model, g: PoseGaussian, weight: float) -> np.ndarray | None:
         """The rows (beams) each inside its own χ²₁ gate; None when fewer than half of them are."""
@@ -296,3 +303,14 @@ class GaussianFilter:
         region = max(1, int(np.count_nonzero(d2 <= REGION_CHI2)))
         spread = math.sqrt(max(float(g.cov[0, 0] + g.cov[1, 1]), 0.0))
         return PoseEstimate(g.x, g.y, g.heading, best, grid.pose_of(best), region, spread, g.x, g.y)
+
+
+def _with_floor(log_fit: float, evidence: Evidence) -> float:
+    """log p(z | past) on the scale every back end reports: log(r · fit + 1 − r), the reading's reliability r
+    mixing the linearised fit with an outlier equally likely everywhere (the likelihood r·c + 1 − r of
+    ``Evidence``).  Without the floor a gated reading's surprise runs to thousands of nats, and the slow/fast
+    evidence ratio of the monitor with it; with it, it is bounded by −log(1 − r), as on the histogram side."""
+    r = evidence.reliability
+    if r >= 1.0:
+        return log_fit
+    return float(np.logaddexp(math.log(r) + log_fit, math.log1p(-r)))
