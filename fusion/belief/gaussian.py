@@ -146,6 +146,39 @@ class Updated:
 def kalman_update(belief: PoseGaussian, lin: Linearised, weight: float = 1.0) -> Updated:
     """One EKF update (Joseph form).  ``weight`` in (0, 1] scales the reading's information (R / weight): a
     discounted reading counts for that share of itself."""
+    post, r, s, s_inv = _corrected(belief, lin, weight)
+    nu = lin.innovation
+    nis = float(nu @ s_inv @ nu)
+    return Updated(post, nis, len(nu), _log_fit(r, s, nis))
+
+
+def iterated_update(
+    belief: PoseGaussian, model: Linearisable, rows, weight: float = 1.0, iterations: int = 5, tol: float = 1e-4
+) -> Updated:
+    """The iterated EKF (Gauss–Newton on prior and reading): x_{i+1} = x̄ + K_i (ν_i − H_i (x̄ − x_i)), with ν_i
+    and H_i taken at x_i, until the step is below ``tol`` or after ``iterations``: each step is the plain update of
+    the reading linearised at x_i, its innovation carried back to x̄.  The gate figures are those of the first
+    linearisation (at the prior mean), as the gate tests the reading against the prediction.  ``tol``: 0.1 mm and
+    0.1 mrad, far below any sensor's noise."""
+    first = kalman_update(belief, model.linearise(belief.mean, rows), weight)
+    post = first.belief
+    for _ in range(iterations - 1):
+        x = post.mean
+        lin = model.linearise(x, rows)
+        offset = belief.mean - x
+        offset[2] = wrap(offset[2])
+        post = _corrected(belief, Linearised(lin.innovation - lin.jacobian @ offset, lin.jacobian, lin.noise), weight)[
+            0
+        ]
+        step = post.mean - x
+        step[2] = wrap(step[2])
+        if float(np.abs(step).max()) < tol:
+            break
+    return Updated(post, first.nis, first.dof, first.log_fit)
+
+
+def _corrected(belief: PoseGaussian, lin: Linearised, weight: float):
+    """The belief corrected by ``lin`` (gain, mean, Joseph-form covariance), with R / weight, S and S⁻¹."""
     r = lin.noise / weight
     h = lin.jacobian
     p = belief.cov
@@ -154,45 +187,12 @@ def kalman_update(belief: PoseGaussian, lin: Linearised, weight: float = 1.0) ->
         s_inv = np.linalg.inv(s)
     except np.linalg.LinAlgError:
         raise NotLinearisable("the innovation covariance is singular; the reading cannot be weighed") from None
-    nu = lin.innovation
     gain = p @ h.T @ s_inv
-    mean = belief.mean + gain @ nu
+    mean = belief.mean + gain @ lin.innovation
     mean[2] %= TWO_PI
     ik = np.eye(3) - gain @ h
     cov = ik @ p @ ik.T + gain @ r @ gain.T
-    nis = float(nu @ s_inv @ nu)
-    return Updated(PoseGaussian(mean, _symmetric(cov)), nis, len(nu), _log_fit(r, s, nis))
-
-
-def iterated_update(
-    belief: PoseGaussian, model: Linearisable, rows, weight: float = 1.0, iterations: int = 5, tol: float = 1e-4
-) -> Updated:
-    """The iterated EKF (Gauss–Newton on prior and reading): x_{i+1} = x̄ + K_i (ν_i − H_i (x̄ − x_i)), with ν_i
-    and H_i taken at x_i, until the step is below ``tol`` or after ``iterations``.  The gate figures are those of
-    the first linearisation (at the prior mean), as the gate tests the reading against the prediction.  ``tol``:
-    0.1 mm and 0.1 mrad, far below any sensor's noise."""
-    first = model.linearise(belief.mean, rows)
-    out = kalman_update(belief, first, weight)
-    x = out.belief.mean
-    p = belief.cov
-    for _ in range(iterations - 1):
-        lin = model.linearise(x, rows)
-        h, r = lin.jacobian, lin.noise / weight
-        s = h @ p @ h.T + r
-        gain = p @ h.T @ np.linalg.inv(s)
-        offset = belief.mean - x
-        offset[2] = wrap(offset[2])
-        new = belief.mean + gain @ (lin.innovation - h @ offset)
-        new[2] %= TWO_PI
-        step = new - x
-        step[2] = wrap(step[2])
-        ik = np.eye(3) - gain @ h
-        cov = ik @ p @ ik.T + gain @ r @ gain.T
-        x = new
-        out = Updated(PoseGaussian(new, _symmetric(cov)), out.nis, out.dof, out.log_fit)
-        if float(np.abs(step).max()) < tol:
-            break
-    return out
+    return PoseGaussian(mean, _symmetric(cov)), r, s, s_inv
 
 
 def _log_fit(r: np.ndarray, s: np.ndarray, nis: float) -> float:
