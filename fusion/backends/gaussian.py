@@ -33,7 +33,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fusion.backends.base import NO_OPINION, BeliefHealth, Overlay, PoseEstimate, SecondOpinion, StepReport, free_cells
+from fusion.backends.base import (
+    NO_OPINION,
+    BeliefHealth,
+    Overlay,
+    PoseEstimate,
+    SecondOpinion,
+    StepReport,
+    estimate_pose,
+    free_cells,
+)
 from fusion.backends.bayes import SUPPORT_SHARE, HistogramFilter
 from fusion.backends.gaussian_grid import GridView, best_mode
 from fusion.backends.tuning import require_settings
@@ -98,7 +107,7 @@ class GaussianFilter:
         self._gates: dict[int, float] = {}
         self._gate(2)  # scipy.special is imported here, not at the first reading
         self.note: str | None = None
-        self.state = _State(None, self._histogram.snapshot())
+        self._held: np.ndarray | None = None  # the inner histogram filter's belief, as last taken (``_follow``)
         self.reset(self.free.astype(np.float64))
 
     # ----------------------------------------------------------------- belief
@@ -108,11 +117,23 @@ class GaussianFilter:
         if prior.shape != (self.grid.n_cells,):
             raise FrameMismatchError(f"the prior has {prior.size} cells, the grid {self.grid.n_cells}")
         self._histogram.reset(prior)
-        self.state = _State(None, self._histogram.snapshot())
+        self._hold()
         self.note = None
         self._collapse(reseeded=True)
         note, self.note = self.note, None
         return note
+
+    def _follow(self, histogram: np.ndarray) -> HistogramFilter:
+        """The inner histogram filter holding ``histogram``.  It is restored only when it holds another belief (a
+        snapshot was restored, or a Gaussian stood in between): a restore copies and renormalises every cell."""
+        if histogram is not self._held:
+            self._histogram.restore(histogram)
+        return self._histogram
+
+    def _hold(self) -> None:
+        """The inner histogram filter's belief becomes this filter's (the histogram is followed)."""
+        self._held = self._histogram.snapshot()
+        self.state = _State(None, self._held)
 
     def fork(self) -> GaussianFilter:
         other = copy.copy(self)
@@ -157,9 +178,8 @@ class GaussianFilter:
     def predict(self, motion: Motion) -> None:
         s = self.state
         if s.gaussian is None:
-            self._histogram.restore(s.histogram)
-            self._histogram.predict(motion)
-            self.state = _State(None, self._histogram.snapshot())
+            self._follow(s.histogram).predict(motion)
+            self._hold()
             return
         r = motion.reliability
         res, step = self.grid.resolution_m, self.grid.heading_step
@@ -177,9 +197,8 @@ class GaussianFilter:
             )
         start = time.perf_counter()
         if self.state.gaussian is None:
-            self._histogram.restore(self.state.histogram)
-            report = self._histogram.update(evidence)
-            self.state = _State(None, self._histogram.snapshot())
+            report = self._follow(self.state.histogram).update(evidence)
+            self._hold()
             self._collapse()
             return self._report(evidence, start, log_evidence=report.log_evidence, rejected=report.rejected)
         if evidence.point is None:
@@ -293,8 +312,7 @@ class GaussianFilter:
     def pose_estimate(self) -> PoseEstimate:
         s = self.state
         if s.gaussian is None:
-            self._histogram.restore(s.histogram)
-            return self._histogram.pose_estimate()
+            return estimate_pose(self.grid, s.histogram)  # as the histogram filter estimates it
         g, grid = s.gaussian, self.grid
         x = min(max(g.x, grid.x0_m), grid.x0_m + grid.width_m * (1 - 1e-12))
         y = min(max(g.y, grid.y0_m), grid.y0_m + grid.height_m * (1 - 1e-12))
