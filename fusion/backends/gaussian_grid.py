@@ -26,7 +26,7 @@ import numpy as np
 from fusion.belief.gaussian import PoseGaussian, wrap
 from fusion.grid import PoseGrid
 
-__all__ = ["GridView", "Mode", "best_mode", "WINDOW_SIGMAS", "MODE_FLOOR"]
+__all__ = ["GridView", "Mode", "best_mode", "cell_spread", "WINDOW_SIGMAS", "MODE_FLOOR"]
 
 WINDOW_SIGMAS = 4.5
 """Half-width of the window in standard deviations (beyond it the density is below 4e-5 of the peak per axis)."""
@@ -43,18 +43,13 @@ class GridView:
     def __init__(self, grid: PoseGrid, free: np.ndarray):
         self.grid, self.free = grid, free
 
-    def cell_spread(self) -> np.ndarray:
-        """The covariance of a pose uniform over one cell (res²/12, res²/12, Δθ²/12)."""
-        g = self.grid
-        return np.diag([g.resolution_m**2 / 12, g.resolution_m**2 / 12, g.heading_step**2 / 12])
-
     def cells(
         self, belief: PoseGaussian, sigmas: float = WINDOW_SIGMAS, per_cell: bool = False
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(cells, offsets (k, 3) from the mean with the heading wrapped, squared Mahalanobis distances);
         ``per_cell``: distances under the covariance widened by a cell's spread (the cell's integral)."""
         if per_cell:
-            belief = PoseGaussian(belief.mean, belief.cov + self.cell_spread())
+            belief = PoseGaussian(belief.mean, belief.cov + cell_spread(self.grid))
         g = self.grid
         sd = np.sqrt(np.maximum(np.diag(belief.cov), 0.0))
         ix = _span(belief.x, sd[0] * sigmas, g.x0_m, g.resolution_m, g.nx)
@@ -110,6 +105,11 @@ class GridView:
         mean[2] %= 2 * math.pi
         cov = _positive(belief.cov + (c1 - c0), belief.cov)
         return PoseGaussian(mean, cov), math.log(z / float(prior.sum()))
+
+
+def cell_spread(grid: PoseGrid) -> np.ndarray:
+    """The covariance of a pose uniform over one cell (res²/12, res²/12, Δθ²/12)."""
+    return np.diag([grid.resolution_m**2 / 12, grid.resolution_m**2 / 12, grid.heading_step**2 / 12])
 
 
 def _span(centre: float, half: float, origin: float, res: float, n: int) -> np.ndarray:
@@ -176,6 +176,6 @@ def best_mode(grid: PoseGrid, p: np.ndarray) -> Mode | None:
     centre = np.array([float(ww @ x), float(ww @ y), heading])
     offsets = np.column_stack([x - centre[0], y - centre[1], wrap(h - heading)])
     cov = (offsets * ww[:, None]).T @ offsets
-    cov += np.diag([grid.resolution_m**2 / 12, grid.resolution_m**2 / 12, grid.heading_step**2 / 12])
+    cov += cell_spread(grid)
     spread = math.sqrt(float(cov[0, 0] + cov[1, 1]))
     return Mode(PoseGaussian(centre, 0.5 * (cov + cov.T)), share, spread, math.degrees(math.sqrt(float(cov[2, 2]))))
