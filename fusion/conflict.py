@@ -97,9 +97,10 @@ def _survival_table(dof: int) -> tuple[np.ndarray, np.ndarray]:
     return xs, gammaincc(k, xs)
 
 
-def support_cells(p: np.ndarray, share: float) -> np.ndarray:
-    """The cells a probability per cell still allows: p ≥ ``share`` · max p (every cell when p is all zero)."""
-    top = float(p.max())
+def support_cells(p: np.ndarray, share: float, top: float | None = None) -> np.ndarray:
+    """The cells a probability per cell still allows: p ≥ ``share`` · max p (every cell when p is all zero);
+    ``top``: max p, when the caller has it already."""
+    top = float(p.max()) if top is None else top
     return np.flatnonzero(p >= share * top) if top > 0 else np.arange(len(p))
 
 
@@ -107,9 +108,10 @@ def support_conflict(p: np.ndarray, evidence, share: float) -> float:
     """r·(1 − pl) of a reading's best fit among the cells with p ≥ ``share`` · max p: Dempster's K between
     the discounted consonant reading and the categorical mass function on those cells, pl scored by
     ``fit_plausibility`` (for a scan of m beams, how often a correct pose fits as badly)."""
-    if float(p.max()) <= 0:
+    top = float(p.max())
+    if top <= 0:
         return 1.0
-    return conflict_on(support_cells(p, share), evidence)
+    return conflict_on(support_cells(p, share, top), evidence)
 
 
 def conflict_on(cells: np.ndarray, evidence) -> float:
