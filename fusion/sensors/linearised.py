@@ -87,18 +87,23 @@ class ZonePoint:
 
 
 class SignedField:
-    """The site's distance to the nearest wall, signed (negative inside), read bilinearly with its gradient."""
+    """The site's distance to the nearest wall, signed (negative inside), read bilinearly with its gradient.  The
+    field is built on first use: every scan carries one of these, and only the Gaussian filter reads it."""
 
     def __init__(self, site, pad: int):
+        self.site, self.res, self.pad = site, site.resolution_m, pad
+        self.x0, self.y0 = site.origin_m
+        # distance_beyond is infinite everywhere exactly when nothing on the map is occupied
+        self.finite = bool(site.occupied.any())
+
+    @cached_property
+    def values(self) -> np.ndarray:
         from scipy import ndimage
 
-        self.res, self.pad = site.resolution_m, pad
-        self.x0, self.y0 = site.origin_m
-        outside = site.distance_beyond(pad)
-        occupied = np.pad(site.occupied, pad, constant_values=False)
+        outside = self.site.distance_beyond(self.pad)
+        occupied = np.pad(self.site.occupied, self.pad, constant_values=False)
         inside = np.maximum(ndimage.distance_transform_edt(occupied, sampling=self.res) - self.res / 2, 0.0)
-        self.values = np.where(occupied, -inside, outside)
-        self.finite = bool(np.isfinite(self.values).all())
+        return np.where(occupied, -inside, outside)
 
     def at(self, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Signed distance and its x and y gradients at points (clamped to the padded field)."""
