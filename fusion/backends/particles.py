@@ -213,9 +213,7 @@ class ParticleFilter:
         likelihood = evidence.likelihood[self._cells(s.poses)]
         z = float(s.weights @ likelihood)  # p(z | past), by the particles
         if z <= 0:
-            return StepReport(
-                self.name, evidence.sensor, time.perf_counter() - start, 0, log_evidence=-math.inf, rejected=True
-            )
+            return self._reported(evidence, start, z)
         cfg = self.settings
         slow = z if s.slow == 0 else s.slow + cfg.slow_rate * (z - s.slow)
         fast = z if s.fast == 0 else s.fast + cfg.fast_rate * (z - s.fast)
@@ -224,9 +222,7 @@ class ParticleFilter:
         share = self.effective_share()  # before resampling: how well the particles covered this reading
         if share < 0.5:
             self._resample()
-        seconds = time.perf_counter() - start
-        region = self._region() if self.report_region else 0
-        return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=math.log(z), effective_share=share)
+        return self._reported(evidence, start, z, share)
 
     def _first_reading(self, evidence: Evidence, start: float) -> StepReport:
         """The first reading after a reset: the particles are drawn from prior × likelihood on the grid (the
@@ -235,18 +231,22 @@ class ParticleFilter:
         leave the true pose to whichever few particles happened to fall near it."""
         prior = self.state.prior
         post = prior * evidence.likelihood
-        total, mass = float(post.sum()), float(prior.sum())
-        if total <= 0:
-            return StepReport(
-                self.name, evidence.sensor, time.perf_counter() - start, 0, log_evidence=-math.inf, rejected=True
-            )
-        z = total / mass
+        z = float(post.sum()) / float(prior.sum())
+        if z <= 0:
+            return self._reported(evidence, start, z)
         drawn = self._sampled(post, self.settings.max_particles, z, z)
         m = self._kld_count(drawn.poses)
         self.state = _State(drawn.poses[:m], np.full(m, 1.0 / m), z, z)
-        region = self._region() if self.report_region else 0
+        return self._reported(evidence, start, z, 1.0)
+
+    def _reported(self, evidence: Evidence, start: float, z: float, share: float | None = None) -> StepReport:
+        """The update's report: log p(z | past) = log z, or, for a reading no particle (no cell) allows, rejected
+        with the belief left as it was."""
         seconds = time.perf_counter() - start
-        return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=math.log(z), effective_share=1.0)
+        if z <= 0:
+            return StepReport(self.name, evidence.sensor, seconds, 0, log_evidence=-math.inf, rejected=True)
+        region = self._region() if self.report_region else 0
+        return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=math.log(z), effective_share=share)
 
     def _resample(self) -> None:
         """Low-variance resampling at the largest count, injection of random poses (augmented MCL), then the
