@@ -74,10 +74,9 @@ class BackendKind:
         """The dataclass of the back end's settings, or None (imported on first use)."""
         if self.settings is None:
             return None
-        import importlib
+        from fusion.sensors.kinds import named
 
-        module, name = self.settings.split(":")
-        return getattr(importlib.import_module(module), name)
+        return named(self.settings)
 
     def label(self, rule: str | None) -> str:
         """Short name of a setting: the back end, with its rule when it takes one."""

@@ -24,6 +24,7 @@ __all__ = [
     "Option",
     "Calibrator",
     "lazy",
+    "named",
     "register",
     "kinds",
     "sensor_kind",
@@ -106,17 +107,22 @@ class SensorKind:
     cost: Callable | None = None  # (spec, site) -> ModelCost; None: the model builds nothing that grows
 
 
+def named(path: str):
+    """The object ``"module:name"``, its module imported now."""
+    import importlib
+
+    module, _, name = path.partition(":")
+    return getattr(importlib.import_module(module), name)
+
+
 def lazy(path: str) -> Callable:
     """The function ``"module:name"``, imported when first called: a kind's registration names the code of a
     later stage (calibration needs pyro) without importing it."""
-    module, _, name = path.partition(":")
 
     def call(*args, **kwargs):
-        import importlib
+        return named(path)(*args, **kwargs)
 
-        return getattr(importlib.import_module(module), name)(*args, **kwargs)
-
-    call.__name__ = call.__qualname__ = name
+    call.__name__ = call.__qualname__ = path.partition(":")[2]
     return call
 
 
