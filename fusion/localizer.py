@@ -141,7 +141,8 @@ class Localizer:
             prior = near & (dh <= max(heading_tol_deg, math.degrees(g.heading_step) / 2)) & (self._free_prior > 0)
             prior = prior.astype(np.float64)
         if not prior.any():
-            raise ObservationError(f"no free cell within {radius_m} m of ({x_m}, {y_m}); is the start inside a rack?")
+            reach = "the start covariance's reach" if covariance is not None else f"{radius_m} m"
+            raise ObservationError(f"no free cell within {reach} of ({x_m}, {y_m}); is the start inside a rack?")
         self._pending = None
         return self.filter.reset(prior)
 
