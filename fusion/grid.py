@@ -1,4 +1,4 @@
-"""Frames of discernment for localization: a metric pose grid, and a topological frame of places.
+"""The metric frame of discernment for localization: a pose grid.
 
 ``PoseGrid`` cells are (heading, row, column) bins laid out heading-major: cell
 index = (h · ny + iy) · nx + ix, so one heading slice is a contiguous ``(ny, nx)``
@@ -6,8 +6,7 @@ image (motion shifts whole slices) and x varies fastest.  Positions are in metre
 in the site's own frame, whose lower-left corner is ``(x0_m, y0_m)`` (the site's origin; 0, 0
 unless the case sets one); headings in radians, bin 0 centred on 0 (east), counter-clockwise.
 
-``PlaceGraph`` is the second frame kind: one cell per named place, with passages
-of known length between them, for sites described by places rather than geometry.
+The second frame kind, a graph of places joined by passages, is ``fusion.places``.
 """
 
 from __future__ import annotations
@@ -20,7 +19,7 @@ import numpy as np
 
 from fusion.errors import PoseError, ResourceError, SiteError
 
-__all__ = ["PoseGrid", "PlaceGraph", "MAX_CELLS"]
+__all__ = ["PoseGrid", "MAX_CELLS"]
 
 MAX_CELLS = 50_000_000
 """Largest pose grid accepted: at 8 bytes a cell and a few working copies per step, more would not
@@ -183,57 +182,3 @@ class PoseGrid:
         if plane.shape != (self.ny, self.nx):
             raise SiteError(f"a map plane must have shape (ny, nx) = {(self.ny, self.nx)}, got {plane.shape}")
         return np.broadcast_to(plane, self.shape).reshape(-1)
-
-
-@dataclass(frozen=True)
-class PlaceGraph:
-    """Places (one cell each) joined by passages of known length.
-
-    ``passages`` are (place, place, length_m).  ``distances()`` gives the shortest
-    travel distance between every pair (scipy's Dijkstra), used to spread belief
-    along passages the way a pose grid blurs it in space.
-    """
-
-    places: tuple[str, ...]
-    passages: tuple[tuple[str, str, float], ...] = ()
-
-    def __post_init__(self):
-        if len(self.places) == 0 or len(set(self.places)) != len(self.places):
-            raise SiteError(f"places must be a non-empty list of distinct names, got {list(self.places)!r}")
-        known = set(self.places)
-        for i, (a, b, length) in enumerate(self.passages):
-            for end in (a, b):
-                if end not in known:
-                    raise SiteError(f"passage {i + 1} ({a!r}–{b!r}) names the unknown place {end!r}")
-            if not isinstance(length, (int, float)) or not math.isfinite(length) or length <= 0:
-                raise SiteError(f"passage {i + 1} ({a!r}–{b!r}) needs a positive length in metres, got {length!r}")
-
-    @property
-    def n_cells(self) -> int:
-        return len(self.places)
-
-    @property
-    def shape(self) -> tuple[int]:
-        return (len(self.places),)
-
-    def cell_of(self, place: str) -> int:
-        try:
-            return self.places.index(place)
-        except ValueError:
-            raise PoseError(f"unknown place {place!r}; known places: {', '.join(self.places)}") from None
-
-    def pose_of(self, cell: int) -> str:
-        if isinstance(cell, bool) or not isinstance(cell, (int, np.integer)) or not 0 <= cell < self.n_cells:
-            raise PoseError(f"cell {cell!r} is not a place of this graph (valid: 0 to {self.n_cells - 1})")
-        return self.places[int(cell)]
-
-    def distances(self) -> np.ndarray:
-        from scipy.sparse import coo_matrix
-        from scipy.sparse.csgraph import shortest_path
-
-        n = self.n_cells
-        rows = [self.places.index(a) for a, _, _ in self.passages]
-        cols = [self.places.index(b) for _, b, _ in self.passages]
-        lengths = [float(length) for _, _, length in self.passages]
-        graph = coo_matrix((lengths, (rows, cols)), shape=(n, n)).tocsr()
-        return shortest_path(graph, method="D", directed=False)

@@ -4,7 +4,8 @@ import numpy as np
 import pytest
 
 from fusion.errors import PoseError, ResourceError, SiteError
-from fusion.grid import PlaceGraph, PoseGrid
+from fusion.grid import PoseGrid
+from fusion.places.graph import PlaceGraph
 from fusion.site import Door, Marker, SiteMap
 
 

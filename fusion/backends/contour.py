@@ -80,7 +80,11 @@ class ContourFilter:
         self.grid, self.rule, self.motion, self.report_region = grid, rule, motion, report_region
         self.free = free_cells(grid, free)
         self.belief = ContourBelief.vacuous_on(self.free)
-        self._residual = SubCellMotion(grid.headings)
+        self._residual = self._motion_state()
+
+    def _motion_state(self):
+        """What prediction carries from one odometry record to the next (the sub-cell residual box)."""
+        return SubCellMotion(self.grid.headings)
 
     def fork(self) -> ContourFilter:
         other = copy.copy(self)

@@ -1,0 +1,1 @@
+"""Localization on a graph of places: the frame, its motion, its sensors and its filters."""

@@ -1,0 +1,221 @@
+"""The frame of discernment on a place graph: where along which passage, facing which way.
+
+Every passage of length L is cut into n = max(1, round(L / resolution)) steps of L / n, in each
+direction.  A cell is (directed passage a→b, step i), i = 0 … n − 1: the robot is i · L / n from a,
+facing b.  Step 0 is at place a itself, so a place with k passages has k cells, one per passage
+it can face.  Lengths are thus rounded to whole steps (at most half a step per passage: the
+frame's grid error, as the pose grid's cell size is).
+
+Moving one step forward takes (a→b, i) to (a→b, i + 1), and from the last step to place b, where
+the **turn rule** says which passage the robot then faces:
+
+- *arriving*: the robot faces the onward passage whose bearing at b is nearest its heading (straight
+  on); each onward passage c gets weight exp(−½ (Δβ / σ)²) + ``FLOOR``, Δβ the angle between c's
+  bearing and the arriving heading, σ the junction tolerance, normalised over b's passages;
+- *turning at a place*: a turn Δ measured by the odometry while the robot stands at b takes the
+  passage it faces, c, to c' with weight exp(−½ ((β_c' − β_c − Δ) / σ)²) + ``FLOOR``;
+- turns smaller than ``MIN_TURN_DEG`` are the robot following its passage, not choosing another;
+- without bearings (a place or neighbour with no coordinates) arriving goes on into every onward
+  passage but the one it came by alike (back only at a dead end), and a turn of 45° or more faces
+  every other passage alike.
+
+``FLOOR`` keeps every onward passage possible: a robot that took a passage the rule calls unlikely
+is found again by the readings, not ruled out for good.  Moving one step back is the reverse of a
+step forward, each arrival weighted as the turn rule weighs it.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from fusion.errors import PoseError, SiteError
+from fusion.places.graph import PlaceGraph
+
+__all__ = ["PlaceFrame", "FLOOR", "MIN_TURN_DEG", "TURN_TOLERANCE_DEG"]
+
+FLOOR = 1e-3
+"""Weight of every onward passage beside the turn rule's (our choice: one in a thousand)."""
+MIN_TURN_DEG = 15.0
+"""Turns below this, measured at a place, leave the passage faced unchanged (our choice)."""
+TURN_TOLERANCE_DEG = 25.0
+"""Default spread of a passage's bearing at a junction against its drawn direction (common practice, no
+source: corridors meet at roughly, not exactly, the angles a plan shows)."""
+
+
+def _wrap(angle):
+    return (np.asarray(angle) + math.pi) % (2 * math.pi) - math.pi
+
+
+class PlaceFrame:
+    """Cells along every directed passage of ``graph`` at ``resolution_m``; the one-step operators."""
+
+    def __init__(self, graph: PlaceGraph, resolution_m: float = 1.0, turn_tolerance_deg: float = TURN_TOLERANCE_DEG):
+        if not isinstance(resolution_m, (int, float)) or not math.isfinite(resolution_m) or resolution_m <= 0:
+            raise SiteError(f"the passage resolution must be a positive number of metres, got {resolution_m!r}")
+        if not graph.passages:
+            raise SiteError("a place graph needs at least one passage: the robot moves along passages")
+        self.graph, self.resolution_m = graph, float(resolution_m)
+        self.tolerance = math.radians(turn_tolerance_deg)
+        ends = [(graph.cell_of(p.a), graph.cell_of(p.b), k) for k, p in enumerate(graph.passages)]
+        self.edges = [e for a, b, k in ends for e in ((a, b, k), (b, a, k))]  # directed: (from, to, passage)
+        lengths = np.array([graph.passages[k].length_m for _, _, k in self.edges], float)
+        self.steps = np.maximum(1, np.rint(lengths / self.resolution_m)).astype(np.int64)
+        self.offsets = np.concatenate([[0], np.cumsum(self.steps)])
+        self.n_cells = int(self.offsets[-1])
+        self.edge_of = np.repeat(np.arange(len(self.edges)), self.steps)
+        self.index = np.arange(self.n_cells) - self.offsets[self.edge_of]
+        self.step_m = (lengths / self.steps)[self.edge_of]
+        self.length_m = lengths[self.edge_of]
+        self.from_place = np.array([a for a, _, _ in self.edges])[self.edge_of]
+        self.to_place = np.array([b for _, b, _ in self.edges])[self.edge_of]
+        self.along_m = self.index * self.step_m
+        self.out_edges = [[] for _ in graph.places]
+        for e, (a, _, _) in enumerate(self.edges):
+            self.out_edges[a].append(e)
+        self.bearings = self._bearings()
+        self.forward, self.backward = self._step_operators()
+        self._positions = None
+
+    # ----------------------------------------------------------------- shape
+    @property
+    def shape(self) -> tuple[int]:
+        return (self.n_cells,)
+
+    def cell_of(self, place: str, toward: str | None = None, along_m: float = 0.0) -> int:
+        """The cell ``along_m`` from ``place`` on the passage toward ``toward`` (its first passage when None);
+        ``along_m`` is clipped to the passage's last step (arriving at ``toward`` is ``cell_on``'s)."""
+        a = self.graph.cell_of(place)
+        if not self.out_edges[a]:
+            raise PoseError(f"place {place!r} has no passage, so the robot cannot be there")
+        e = self.out_edges[a][0] if toward is None else self.edge_between(place, toward)
+        return self.cell_on(e, along_m)
+
+    def cell_on(self, e: int, along_m: float, onward: int | None = None) -> int:
+        """The cell ``along_m`` metres along directed passage ``e``; from half a step before its end, the cell at
+        its end place facing directed passage ``onward`` (its last step when None)."""
+        step = self.length_m[self.offsets[e]] / self.steps[e]
+        i = int(np.rint(max(along_m, 0.0) / step))
+        if i >= self.steps[e]:
+            return int(self.offsets[onward]) if onward is not None else int(self.offsets[e + 1] - 1)
+        return int(self.offsets[e] + i)
+
+    def edge_between(self, a: str, b: str) -> int:
+        ia, ib = self.graph.cell_of(a), self.graph.cell_of(b)
+        for e in self.out_edges[ia]:
+            if self.edges[e][1] == ib:
+                return e
+        raise PoseError(f"no passage joins {a!r} to {b!r}")
+
+    def describe(self, cell: int) -> str:
+        """A cell in words: "at pharmacy, facing lift lobby" or "3.0 m from pharmacy toward lift lobby"."""
+        a, b = self.graph.places[self.from_place[cell]], self.graph.places[self.to_place[cell]]
+        if self.index[cell] == 0:
+            return f"at {a}, facing {b}"
+        return f"{self.along_m[cell]:.1f} m from {a} toward {b}"
+
+    # ----------------------------------------------------------------- places
+    def place_distance(self) -> tuple[np.ndarray, np.ndarray]:
+        """Per cell: the nearer end place of its passage, and the distance to it in metres."""
+        back = self.length_m - self.along_m
+        nearer = np.where(self.along_m <= back, self.from_place, self.to_place)
+        return nearer, np.minimum(self.along_m, back)
+
+    def place_belief(self, p: np.ndarray) -> np.ndarray:
+        """Probability per place: every cell counts for the nearer end of its passage."""
+        nearer, _ = self.place_distance()
+        return np.bincount(nearer, weights=p, minlength=self.graph.n_cells)
+
+    def positions(self) -> np.ndarray:
+        """(n_cells, 2): each cell drawn on the graph's layout (``PlaceGraph.layout``), in metres (read-only)."""
+        if self._positions is None:
+            xy = self.graph.layout()
+            share = (self.along_m / self.length_m)[:, None]
+            self._positions = xy[self.from_place] * (1 - share) + xy[self.to_place] * share
+            self._positions.flags.writeable = False
+        return self._positions
+
+    def travel_m(self, a: int, b: int) -> float:
+        """Distance along the graph between the positions of cells ``a`` and ``b`` (direction ignored)."""
+        d = self.graph.distances()
+        ea, eb = self.edges[self.edge_of[a]], self.edges[self.edge_of[b]]
+        if {ea[0], ea[1]} == {eb[0], eb[1]}:  # the same passage, either way
+            pos_b = self.along_m[b] if ea[0] == eb[0] else self.length_m[b] - self.along_m[b]
+            return float(abs(self.along_m[a] - pos_b))
+        ends_a = ((ea[0], self.along_m[a]), (ea[1], self.length_m[a] - self.along_m[a]))
+        ends_b = ((eb[0], self.along_m[b]), (eb[1], self.length_m[b] - self.along_m[b]))
+        return float(min(da + d[pa, pb] + db for pa, da in ends_a for pb, db in ends_b))
+
+    # ----------------------------------------------------------------- the turn rule
+    def _bearings(self) -> np.ndarray:
+        """Bearing (radians) of every directed passage at its start; nan where a coordinate is missing."""
+        at = self.graph.at
+        out = np.full(len(self.edges), np.nan)
+        for e, (a, b, _) in enumerate(self.edges):
+            if at[a] is not None and at[b] is not None:
+                out[e] = math.atan2(at[b][1] - at[a][1], at[b][0] - at[a][0])
+        return out
+
+    def arrival_weights(self, e: int) -> tuple[list[int], np.ndarray]:
+        """(onward passages at the end of ``e``, the probability of facing each on arriving by ``e``)."""
+        a, b, _ = self.edges[e]
+        onward = self.out_edges[b]
+        heading = self.bearings[e]
+        bearings = self.bearings[onward]
+        if np.isfinite(heading) and np.isfinite(bearings).all():
+            w = np.exp(-0.5 * (_wrap(bearings - heading) / self.tolerance) ** 2) + FLOOR
+        else:
+            back = np.array([self.edges[c][1] == a for c in onward])
+            w = np.where(back, FLOOR if not back.all() else 1.0, 1.0)
+        return onward, w / w.sum()
+
+    def turn_weights(self, place: int, turn_rad: float, sigma_rad: float) -> np.ndarray:
+        """(k, k) matrix over the place's passages: column c gives the chance of facing each after turning
+        ``turn_rad`` from facing c (the turn rule)."""
+        onward = self.out_edges[place]
+        k = len(onward)
+        bearings = self.bearings[onward]
+        if np.isfinite(bearings).all():
+            target = bearings[None, :] + turn_rad  # column c: the heading after the turn
+            w = np.exp(-0.5 * (_wrap(bearings[:, None] - target) / sigma_rad) ** 2) + FLOOR
+        elif abs(turn_rad) < math.radians(45.0) or k == 1:
+            w = np.eye(k)
+        else:
+            w = 1.0 - np.eye(k)
+        return w / w.sum(axis=0, keepdims=True)
+
+    def _step_operators(self):
+        """Sparse matrices S (one step forward) and B (one step back), column c: where mass at c goes."""
+        from scipy.sparse import csr_matrix
+
+        rows, cols, vals = [], [], []
+        back_rows, back_cols, back_vals = [], [], []
+        inner = np.flatnonzero(self.index < self.steps[self.edge_of] - 1)
+        rows += list(inner + 1)
+        cols += list(inner)
+        vals += [1.0] * len(inner)
+        back_rows += list(inner)
+        back_cols += list(inner + 1)
+        back_vals += [1.0] * len(inner)
+        incoming = [[] for _ in self.graph.places]  # per place: (last cell of an arriving passage, onward, weight)
+        for e in range(len(self.edges)):
+            last = int(self.offsets[e + 1] - 1)
+            onward, w = self.arrival_weights(e)
+            for c, wc in zip(onward, w):
+                rows.append(int(self.offsets[c]))
+                cols.append(last)
+                vals.append(float(wc))
+                incoming[self.edges[e][1]].append((last, int(self.offsets[c]), float(wc)))
+        for arrivals in incoming:  # one step back from (b→c, 0): to the arriving passages, weighted alike
+            for first in {f for _, f, _ in arrivals}:
+                came = [(last, w) for last, f, w in arrivals if f == first]
+                total = sum(w for _, w in came)
+                for last, w in came:
+                    back_rows.append(last)
+                    back_cols.append(first)
+                    back_vals.append(w / total)
+        n = self.n_cells
+        forward = csr_matrix((vals, (rows, cols)), shape=(n, n))
+        backward = csr_matrix((back_vals, (back_rows, back_cols)), shape=(n, n))
+        return forward, backward
