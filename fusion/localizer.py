@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from fusion.backends import BACKENDS, build
+from fusion.backends.base import free_cells
 from fusion.conflict import EvidenceAverages, pairwise_conflict, weight_of_conflict
 from fusion.decision import Decision
 from fusion.errors import FusionError, ObservationError
@@ -88,7 +89,7 @@ class Localizer:
             raise ObservationError(f"unknown back end {backend!r}; choose one of: {', '.join(BACKENDS)}")
         policy = Policy() if policy is None else policy
         self.sensors, self.policy, self.full_figures, self.explain = sensors, policy, full_figures, explain
-        grid, free = sensors.grid, sensors.site.free
+        grid, free = sensors.grid, sensors.free
         # The best region is computed once per tick by the pose estimate, not after every update.
         try:
             self.filter = build(
@@ -102,7 +103,7 @@ class Localizer:
         self.last_t = -math.inf
         self._odometry_t: float | None = None  # time of the last accepted odometry record
         self._pending: Travel | None = None  # odometry composed since the last prediction
-        self._free_prior = grid.broadcast(free).astype(np.float64)
+        self._free_prior = free_cells(grid, free).astype(np.float64)
         self.recovery = Recovery(policy, self.monitor, self._free_prior)
 
     @classmethod
@@ -154,6 +155,19 @@ class Localizer:
         mean = np.array([x_m, y_m, math.radians(heading_deg) % (2 * math.pi)])
         prior = GridView(self.sensors.grid, self._free_prior > 0).density(PoseGaussian(mean, cov))
         return prior * (self._free_prior > 0)
+
+    def start_with(self, prior: np.ndarray) -> str | None:
+        """Start from a given prior (a probability, or 0/1 mask, per cell; off free space counts 0): on a place graph,
+        ``fusion.places.frame.PlaceFrame.cells_at`` gives one.  Returns what the back end says of the start."""
+        prior = np.asarray(prior, dtype=np.float64).reshape(-1)
+        n = self._free_prior.size
+        if prior.shape != (n,) or not np.isfinite(prior).all() or (prior < 0).any():
+            raise ObservationError(f"a start needs one finite weight ≥ 0 per cell ({n} cells), got {prior.size} values")
+        prior = prior * self._free_prior
+        if not (prior > 0).any():
+            raise ObservationError("the start's weights are 0 on every free cell")
+        self._pending = None
+        return self.filter.reset(prior)
 
     def start_anywhere(self) -> str | None:
         """Start from ignorance over free space (global localization); returns what the back end says of it."""

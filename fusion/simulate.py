@@ -24,7 +24,7 @@ from fusion.case_model import Case
 from fusion.io.observations import Observation
 from fusion.sensors.kinds import sensor_kind
 
-__all__ = ["Tick", "TruePose", "simulate"]
+__all__ = ["Tick", "TruePose", "simulate", "tick_readings", "active_faults"]
 
 
 @dataclass(frozen=True)
@@ -129,18 +129,31 @@ def simulate(case: Case, seed: int | None = None, max_ticks: int = 100_000) -> l
             forward, turn = 0.0, 0.0
         else:
             forward, turn = driver.step(dt) if k else (0.0, 0.0)
-        active = tuple(f"{s.name}: {f.kind}" for s in case.sensors for f in s.faults if f.active(t))
-        truth = TruePose(t, driver.x, driver.y, driver.heading, active, carry is not None)
-        observations = []
-        for i, spec in enumerate(case.sensors):
-            kind = sensor_kind(spec.kind)
-            if kind.motion:
-                observations.append(
-                    Observation(t, spec.name, spec.kind, kind.simulate(spec, forward, turn, t, dt, rngs[i]))
-                )
-            elif _fires(i, k, spec.rate_hz, dt):
-                observations.append(Observation(t, spec.name, spec.kind, kind.simulate(case, spec, truth, rngs[i])))
-        observations.sort(key=lambda o: not sensor_kind(o.kind).motion)  # motion first, then the readings
-        ticks.append(Tick(truth, tuple(observations)))
+        truth = TruePose(t, driver.x, driver.y, driver.heading, active_faults(case, t), carry is not None)
+        ticks.append(Tick(truth, tick_readings(case, k, truth, forward, turn, rngs)))
         k += 1
     return ticks
+
+
+def active_faults(case, t: float) -> tuple[str, ...]:
+    """ "sensor: fault" of every fault active at ``t``."""
+    return tuple(f"{s.name}: {f.kind}" for s in case.sensors for f in s.faults if f.active(t))
+
+
+def tick_readings(case, k: int, truth, forward: float, turn: float, rngs) -> tuple[Observation, ...]:
+    """The observations of tick ``k`` (at ``truth.t``): the odometry's report of the true move (``forward`` m,
+    ``turn`` deg), then each sensor due at its rate; a simulated reading of None is no reading."""
+    t, dt = truth.t, case.run.tick_s
+    observations = []
+    for i, spec in enumerate(case.sensors):
+        kind = sensor_kind(spec.kind)
+        if kind.motion:
+            observations.append(
+                Observation(t, spec.name, spec.kind, kind.simulate(spec, forward, turn, t, dt, rngs[i]))
+            )
+        elif _fires(i, k, spec.rate_hz, dt):
+            reading = kind.simulate(case, spec, truth, rngs[i])
+            if reading is not None:
+                observations.append(Observation(t, spec.name, spec.kind, reading))
+    observations.sort(key=lambda o: not sensor_kind(o.kind).motion)  # motion first, then the readings
+    return tuple(observations)

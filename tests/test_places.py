@@ -49,8 +49,8 @@ def junction() -> PlaceFrame:
 
 def test_operators_keep_probability_and_round_lengths():
     frame = junction()
-    # 4 passages each way: 6 + 5 + 7 + 4 steps, twice.
-    assert frame.n_cells == 44
+    # 4 passages each way: 6 + 5 + 7 + 4 steps, each with its arrival cell, twice.
+    assert frame.n_cells == 2 * (6 + 5 + 7 + 4 + 4)
     for op in (frame.forward, frame.backward):
         np.testing.assert_allclose(np.asarray(op.sum(axis=0)).ravel(), 1.0, atol=1e-12)
     p = np.random.default_rng(3).random(frame.n_cells)
@@ -70,7 +70,8 @@ def test_turn_rule_takes_the_passage_turned_to():
     for _ in range(6):
         filt.predict(PlaceMove(1.0))
     p = filt.distribution()
-    assert p[frame.cell_of("hub", "north")] > 0.99
+    assert p[frame.arrival[frame.edge_between("south", "hub")]] > 0.99
+    assert frame.describe(int(np.argmax(p))) == "at hub, arrived from south"
     for _ in range(9):  # a 90° turn in 10° records, standing still
         filt.predict(PlaceMove(0.0, math.radians(10.0)))
     filt.predict(PlaceMove(1.0))
@@ -148,36 +149,34 @@ def test_noisy_moves_match_hmmlearn():
 
 
 def _corridor_by_hand(hit: float, false: float, q: float) -> tuple[float, float]:
-    """Share of 'door 3 facing east' after door, 6 m east, door, from a start anywhere facing east.
+    """Share of 'arrived at door 3 from door 2' after door, 6 m east, door, from a start anywhere facing east.
 
-    Worked out on the corridor's own numbers, not with the frame's operators: positions 0–19 m facing east
-    are equally likely; a door reading weighs hit at 2, 5, 11 m and ``false`` elsewhere.  Driving 6 m, the robot
-    goes on through each place it reaches with probability q and turns back with 1 − q; at the east end it
-    turns back for sure.  Returns (the peak's share, the summed weight of every outcome)."""
+    Worked out on the corridor's own numbers, not with the frame's operators.  The start is any cell facing
+    east: positions 0–19 m, and a second one at each place the robot may have just arrived at (2, 5, 11, 20 m),
+    all equally likely.  A door reading weighs hit at 2, 5, 11 m and ``false`` elsewhere.  Leaving a place it
+    has arrived at, the robot goes on with probability q and turns back with 1 − q; at either end it turns
+    back for sure.  Returns (the peak's share, the summed weight of every outcome)."""
     doors = {2, 5, 11}
-    places = {2, 5, 11}
+    places = {0, 2, 5, 11, 20}
     weight = {}
 
-    def walk(x, facing, left, w):
+    def walk(x, facing, arrived, left, w, came):
         if left == 0:
-            key = (x, facing)
+            key = (x, facing, arrived, came)
             weight[key] = weight.get(key, 0.0) + w
             return
-        x += facing
-        if x == 20:  # the east end: the only way on is back
-            walk(x, -1, left - 1, w)
-        elif x == 0:
-            walk(x, +1, left - 1, w)
-        elif x in places:
-            walk(x, facing, left - 1, w * q)
-            walk(x, -facing, left - 1, w * (1 - q))
-        else:
-            walk(x, facing, left - 1, w)
+        options = [(facing, 1.0)]
+        if arrived:
+            options = [(-facing, 1.0)] if x in (0, 20) else [(facing, q), (-facing, 1 - q)]
+        for way, share in options:
+            nxt = x + way
+            walk(nxt, way, nxt in places, left - 1, w * share, x)
 
-    for x0 in range(20):
-        walk(x0, +1, 6, (hit if x0 in doors else false) / 20)
-    total = sum(w * (hit if x in doors else false) for (x, _), w in weight.items())
-    return weight[(11, +1)] * hit / total, total
+    starts = [(x, False) for x in range(20)] + [(x, True) for x in sorted(places - {0})]
+    for x0, arrived in starts:
+        walk(x0, +1, arrived, 6, (hit if x0 in doors else false) / len(starts), x0 - 1)
+    total = sum(w * (hit if x in doors else false) for (x, _, _, _), w in weight.items())
+    return weight[(11, +1, True, 10)] * hit / total, total
 
 
 def test_three_door_corridor_after_fox_burgard_thrun():
@@ -190,17 +189,22 @@ def test_three_door_corridor_after_fox_burgard_thrun():
         filt.reset(east.astype(float))
         filt.update(detector.encode(True))
         first = filt.distribution()
-        # Three equal peaks, one at each door facing east; every other cell holds false / hit of a peak.
+        # Three equal peaks, one at each door (its cell facing east and the cell arriving there from the west);
+        # every other cell holds false / hit of a peak.
         doors = [frame.cell_of(d, on) for d, on in (("door 1", "door 2"), ("door 2", "door 3"), ("door 3", "east"))]
+        doors += [
+            frame.arrival[frame.edge_between(a, b)]
+            for a, b in (("west", "door 1"), ("door 1", "door 2"), ("door 2", "door 3"))
+        ]
         assert np.ptp(first[doors]) < 1e-12
-        assert abs(np.sort(first)[-4] - first[doors[0]] * false / hit) < 1e-12
+        assert abs(np.sort(first)[-7] - first[doors[0]] * false / hit) < 1e-12
         for _ in range(6):
             filt.predict(PlaceMove(1.0))
         filt.update(detector.encode(True))
         p = filt.distribution()
         # Without coordinates, going on through a place weighs 1 against FLOOR for turning back.
         share, _ = _corridor_by_hand(hit, false, 1.0 / (1.0 + FLOOR))
-        peak = frame.cell_of("door 3", "east")
+        peak = frame.arrival[frame.edge_between("door 2", "door 3")]
         assert int(np.argmax(p)) == peak
         assert abs(p[peak] - share) < 1e-9, (name, p[peak], share)
         assert place_fix(frame, p).place == "door 3"

@@ -1,7 +1,9 @@
 """Every back end behind one ``Backend`` protocol (see ``base``), listed in one table.
 
 ``build(name, grid, free, rule=…, motion=…, max_focal=…)`` is the only place that turns a back-end
-name into a filter; nothing outside this package compares back-end names.
+name into a filter; nothing outside this package compares back-end names.  Given a place graph's frame
+instead of a pose grid, it builds that frame's filters (``fusion.places.filters.build_on``: the histogram
+filter and the evidential contour filter; the other families are refused there).
 
 - ``bayes``: the histogram filter (``bayes.HistogramFilter``);
 - ``particles``: Monte Carlo localization with KLD-sampling and random-particle recovery
@@ -160,6 +162,12 @@ def build(
     from fusion.motion import MOTION_MODELS
 
     builder = backend_kind(name).build
+    from fusion.grid import PoseGrid
+
+    if not isinstance(grid, PoseGrid):  # a place graph's frame (fusion.places)
+        from fusion.places.filters import build_on
+
+        return build_on(name, grid, rule=rule, motion=motion, report_region=report_region)
     if motion not in MOTION_MODELS:
         raise RuleError(f"unknown motion model {motion!r}; choose one of: {', '.join(MOTION_MODELS)}")
     return builder(

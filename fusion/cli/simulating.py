@@ -28,11 +28,13 @@ def cases_command(args: argparse.Namespace) -> int:
     """The shipped cases: name, what each stresses (its description), and the folder that holds them."""
     from fusion.cli.opening import builtin_cases
     from fusion.io.case import load_case
+    from fusion.places.case import is_place_case, load_place_case
     from fusion.view.tables import cases_table
 
     rows = []
     for name in builtin_cases():
-        case = load_case(builtin_case(f"{name}.toml"))
+        path = builtin_case(f"{name}.toml")
+        case = load_place_case(path) if is_place_case(path) else load_case(path)
         rows.append((name, case.description or case.name))
     print_table = cases_table(rows, str(builtin_case("")))
     from rich.console import Console
@@ -46,10 +48,13 @@ def run_command(args: argparse.Namespace) -> int:
     from rich.console import Console
     from rich.live import Live
 
+    from fusion.places.case import is_place_case
     from fusion.runner import RESULT_FILES, run_case, write_results
     from fusion.simulate import simulate
     from fusion.view.live import RunView, actions_timeline, summary_table
 
+    if is_place_case(args.case):
+        return _run_on_graph(args)
     case = open_case(args.case, getattr(args, "calibration", None), args.seed)  # validated before anything is written
     backends = list(dict.fromkeys(args.backend or case.run.backends))
     rule = known_rule(args.rule or case.run.rule)
@@ -84,9 +89,51 @@ def run_command(args: argparse.Namespace) -> int:
     return 0
 
 
+def _run_on_graph(args: argparse.Namespace) -> int:
+    """``fusion run`` on a place-graph case: both back ends side by side, a table, the files of
+    ``fusion.places.outputs``."""
+    import dataclasses
+
+    from rich.console import Console
+
+    from fusion.places.case import load_place_case
+    from fusion.places.outputs import PLACE_FILES, write_place_results
+    from fusion.places.run import run_places
+    from fusion.view.place_graph import place_run_table
+
+    case = load_place_case(args.case)
+    if getattr(args, "calibration", None):
+        raise FusionError("--calibration is not read for place-graph cases yet; run without it")
+    if args.seed is not None:
+        case = dataclasses.replace(case, run=dataclasses.replace(case.run, seed=args.seed))
+    backends = list(dict.fromkeys(args.backend or case.run.backends))
+    if args.rule:
+        case = dataclasses.replace(case, run=dataclasses.replace(case.run, rule=known_rule(args.rule)))
+    from fusion.places.filters import build_on
+
+    for b in backends:
+        build_on(b, case.frame, rule=case.run.rule)  # refuses a back end or rule not built on graphs, before any work
+    settings = {"case": where(args.case), "seed": case.run.seed, "backends": backends, "rule": case.run.rule}
+    folder = claim_output(args, "run", args.case, settings, [f"seed{case.run.seed}", "+".join(backends), case.run.rule])
+    console = Console()
+    notice(console)
+    for w in case.warnings:
+        console.print(f"[yellow]warning:[/] {literal(w)}")
+    result = run_places(case, backends=backends)
+    write_place_results(result, folder.path)
+    folder.finish(list(PLACE_FILES))
+    console.print(place_run_table(result))
+    console.print(f"results written to [bold]{literal(folder.path)}[/] ({', '.join(PLACE_FILES)})")
+    return 0
+
+
 def check_command(args: argparse.Namespace) -> int:
     from fusion.io.case import load_case
+    from fusion.places.case import is_place_case
     from fusion.site_check import describe
+
+    if is_place_case(args.case):
+        return _check_graph(args)
 
     case = load_case(args.case)  # the same validation as every command: what passes here can run
     print(SAFETY_NOTICE)
@@ -96,6 +143,20 @@ def check_command(args: argparse.Namespace) -> int:
 
         path = write_preview(case, args.preview or preview_path(args.case), args.replace)
         print(f"site drawn in {literal(path)} (walls, doors, markers{', route' if case.route else ''}; metres)")
+    return 0
+
+
+def _check_graph(args: argparse.Namespace) -> int:
+    from fusion.places.case import load_place_case
+    from fusion.view.place_graph import describe_graph, draw_graph
+    from fusion.view.site_preview import preview_path, write_picture
+
+    case = load_place_case(args.case)
+    print(SAFETY_NOTICE)
+    print(describe_graph(case, args.case))
+    if not args.no_preview:
+        path = write_picture(draw_graph(case), args.preview or preview_path(args.case), args.replace)
+        print(f"graph drawn in {literal(path)} (places, passages with their lengths, markers, route)")
     return 0
 
 

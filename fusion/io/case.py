@@ -36,6 +36,7 @@ from fusion.io.bounded import read_text
 from fusion.io.run_tables import TABLE_KEYS, settings_tables, start_covariance
 from fusion.io.site_file import MAX_BOXES, MAX_ITEMS, free_point, free_segment, read_site
 from fusion.io.toml_reader import TomlReader, finite_numbers, load_toml
+from fusion.places.graph import PlaceGraph
 from fusion.sensors.kinds import kinds, sensor_kind
 from fusion.sensors.limits import problems
 from fusion.site import SiteMap
@@ -72,6 +73,11 @@ def parse_case(text: str, path: str = "<case>") -> Case:
     """The case of TOML ``text``; ``path`` names it in errors and anchors a site's map image."""
     data = load_toml(text, path)
     r = TomlReader(path, text)
+    if "places" in data:
+        r.fail(
+            ("places",),
+            "this is a place-graph case ([places]); 'fusion run' and 'fusion check' take it, other commands do not yet",
+        )
     r.only(data, (), {"case", "site", "sensors", "route", "run", "compare"})
     head = r.table(data, (), "case")
     r.only(head, ("case",), {"name", "description"})
@@ -101,6 +107,8 @@ def _params(r: TomlReader, d: dict, where: tuple, cls, skip: set) -> object:
         default = getattr(defaults, f.name)
         if isinstance(default, tuple):
             values[f.name] = r.numbers(d, where, f.name)
+        elif isinstance(default, str):
+            values[f.name] = r.name(d, where, f.name)
         elif isinstance(default, int) and not isinstance(default, bool):
             values[f.name] = r.number(d, where, f.name, whole=True, low=1)
         else:
@@ -133,6 +141,19 @@ def _sensor(r: TomlReader, d: dict, w: tuple, site: SiteMap) -> SensorSpec:
     name = r.name(d, w, "name")
     kind_name = r.text(d, w, "kind", choices=tuple(kinds()))
     kind = sensor_kind(kind_name)
+    on_places = isinstance(site, PlaceGraph)
+    if (kind.place_model if on_places else kind.model) is None:
+        fit = [k for k, v in kinds().items() if (v.place_model if on_places else v.model) is not None]
+        r.fail(
+            (*w, "kind"),
+            f"a {kind_name} sensor reads "
+            + (
+                "a metric site, and this case is a place graph ([places])"
+                if on_places
+                else "a place graph ([places]), and this case is a metric site ([site])"
+            )
+            + f"; the kinds for this case: {', '.join(fit)}",
+        )
     rate = r.number(d, w, "rate_hz", 10.0 if kind.motion else None, positive=True, high=100)
     door = None
     if kind.needs_door:
@@ -176,6 +197,10 @@ def _fault(r: TomlReader, fd: dict, fw: tuple, kind, site: SiteMap) -> FaultSpec
             marker = r.name(fd, fw, key)
             if marker not in {m.marker_id for m in site.markers}:
                 r.fail((*fw, key), f"no marker {marker!r} on the site")
+        elif option.type == "place":
+            place = r.name(fd, fw, key)
+            if place not in site.places:
+                r.fail((*fw, key), f"no place {place!r} on the graph")
         elif option.type == "point":
             r.numbers(fd, fw, key, length=2)
         elif option.type == "flag":

@@ -19,7 +19,7 @@ import numpy as np
 
 from fusion.backends.base import PoseEstimate, region_size
 from fusion.backends.bayes import HistogramFilter
-from fusion.backends.contour import ContourFilter
+from fusion.backends.contour import CONTOUR_RULES, ContourFilter
 from fusion.belief.contour import ContourBelief
 from fusion.errors import RuleError
 from fusion.places.frame import PlaceFrame
@@ -123,12 +123,19 @@ class PlaceContourFilter(ContourFilter):
         return estimate_on_graph(self.grid, self.distribution())
 
 
-def build_on(name: str, frame: PlaceFrame, *, rule: str = "dempster", motion: str = "probabilistic"):
+def build_on(
+    name: str, frame: PlaceFrame, *, rule: str = "dempster", motion: str = "probabilistic", report_region: bool = True
+):
     """The filter called ``name`` on a place graph: "bayes" or "evidential" (the families built there)."""
     if name == "bayes":
-        return PlaceHistogramFilter(frame)
+        return PlaceHistogramFilter(frame, report_region=report_region)
     if name == "evidential":
-        return PlaceContourFilter(frame, rule=rule, motion=motion)
+        if rule not in CONTOUR_RULES:
+            raise RuleError(
+                f"the evidential filter on a place graph runs {' and '.join(CONTOUR_RULES)}, not {rule!r}: the rules "
+                "that keep focal sets are not built on graphs"
+            )
+        return PlaceContourFilter(frame, rule=rule, motion=motion, report_region=report_region)
     raise RuleError(
         f"the {name!r} back end does not run on a place graph; the graph runs the 'bayes' and 'evidential' back ends"
     )

@@ -1,27 +1,31 @@
 """The frame of discernment on a place graph: where along which passage, facing which way.
 
 Every passage of length L is cut into n = max(1, round(L / resolution)) steps of L / n, in each
-direction.  A cell is (directed passage a→b, step i), i = 0 … n − 1: the robot is i · L / n from a,
-facing b.  Step 0 is at place a itself, so a place with k passages has k cells, one per passage
-it can face.  Lengths are thus rounded to whole steps (at most half a step per passage: the
-frame's grid error, as the pose grid's cell size is).
+direction.  A cell is (directed passage a→b, i), i = 0 … n: the robot is i · L / n from a, going toward b.
+Two of them are at places: i = 0 is *at a, facing the passage to b* (about to leave by it), and i = n is
+*at b, arrived from a* (its heading still the passage's).  A place with k passages thus has 2k cells.
+Lengths are rounded to whole steps (at most half a step per passage: the frame's grid error, as the pose
+grid's cell size is).
 
-Moving one step forward takes (a→b, i) to (a→b, i + 1), and from the last step to place b, where
-the **turn rule** says which passage the robot then faces:
+Moving one step forward takes (a→b, i) to (a→b, i + 1); from the arrival cell (a→b, n) the robot goes
+on into the passage the **turn rule** gives, one step along it:
 
-- *arriving*: the robot faces the onward passage whose bearing at b is nearest its heading (straight
-  on); each onward passage c gets weight exp(−½ (Δβ / σ)²) + ``FLOOR``, Δβ the angle between c's
-  bearing and the arriving heading, σ the junction tolerance, normalised over b's passages;
-- *turning at a place*: a turn Δ measured by the odometry while the robot stands at b takes the
-  passage it faces, c, to c' with weight exp(−½ ((β_c' − β_c − Δ) / σ)²) + ``FLOOR``;
+- *driving through*: each onward passage c at b gets weight exp(−½ (Δβ / σ)²) + ``FLOOR``, Δβ the angle
+  between c's bearing and the arriving heading, σ the junction tolerance, normalised over b's passages;
+- *turning at a place*: a turn Δ measured while the robot stands at b takes an arrival cell (heading h)
+  to the cell facing c with weight exp(−½ ((β_c − h − Δ) / σ)²) + ``FLOOR``, and a cell facing c to one
+  facing c' with weight exp(−½ ((β_c' − β_c − Δ) / σ)²) + ``FLOOR``;
 - turns smaller than ``MIN_TURN_DEG`` are the robot following its passage, not choosing another;
-- without bearings (a place or neighbour with no coordinates) arriving goes on into every onward
-  passage but the one it came by alike (back only at a dead end), and a turn of 45° or more faces
-  every other passage alike.
+- a robot turns at places only: a turn applied while the belief is one step from a place (odometry a little
+  short or long) first moves that mass onto the place (``snap``), then turns it;
+- without bearings (a place or neighbour with no coordinates) driving through goes into every onward
+  passage but the one it came by alike (back only at a dead end); a turn of less than 135° does the same
+  from an arrival, and faces every other passage alike from a cell facing one; 135° or more turns back.
 
 ``FLOOR`` keeps every onward passage possible: a robot that took a passage the rule calls unlikely
 is found again by the readings, not ruled out for good.  Moving one step back is the reverse of a
-step forward, each arrival weighted as the turn rule weighs it.
+step forward along a passage; from a cell facing a passage at a place it goes to the arriving passages'
+last steps, weighted alike.
 """
 
 from __future__ import annotations
@@ -62,9 +66,9 @@ class PlaceFrame:
         self.edges = [e for a, b, k in ends for e in ((a, b, k), (b, a, k))]  # directed: (from, to, passage)
         lengths = np.array([graph.passages[k].length_m for _, _, k in self.edges], float)
         self.steps = np.maximum(1, np.rint(lengths / self.resolution_m)).astype(np.int64)
-        self.offsets = np.concatenate([[0], np.cumsum(self.steps)])
+        self.offsets = np.concatenate([[0], np.cumsum(self.steps + 1)])  # n + 1 cells a directed passage
         self.n_cells = int(self.offsets[-1])
-        self.edge_of = np.repeat(np.arange(len(self.edges)), self.steps)
+        self.edge_of = np.repeat(np.arange(len(self.edges)), self.steps + 1)
         self.index = np.arange(self.n_cells) - self.offsets[self.edge_of]
         self.step_m = (lengths / self.steps)[self.edge_of]
         self.length_m = lengths[self.edge_of]
@@ -72,11 +76,16 @@ class PlaceFrame:
         self.to_place = np.array([b for _, b, _ in self.edges])[self.edge_of]
         self.along_m = self.index * self.step_m
         self.out_edges = [[] for _ in graph.places]
-        for e, (a, _, _) in enumerate(self.edges):
+        self.in_edges = [[] for _ in graph.places]
+        for e, (a, b, _) in enumerate(self.edges):
             self.out_edges[a].append(e)
+            self.in_edges[b].append(e)
+        self.arrival = self.offsets[1:] - 1  # per directed passage: its arrival cell
         self.bearings = self._bearings()
         self.forward, self.backward = self._step_operators()
+        self.snap = self._snap_operator()
         self._positions = None
+        self._distances = None
 
     # ----------------------------------------------------------------- shape
     @property
@@ -85,20 +94,17 @@ class PlaceFrame:
 
     def cell_of(self, place: str, toward: str | None = None, along_m: float = 0.0) -> int:
         """The cell ``along_m`` from ``place`` on the passage toward ``toward`` (its first passage when None);
-        ``along_m`` is clipped to the passage's last step (arriving at ``toward`` is ``cell_on``'s)."""
+        ``along_m`` is clipped to the passage's length."""
         a = self.graph.cell_of(place)
         if not self.out_edges[a]:
             raise PoseError(f"place {place!r} has no passage, so the robot cannot be there")
         e = self.out_edges[a][0] if toward is None else self.edge_between(place, toward)
         return self.cell_on(e, along_m)
 
-    def cell_on(self, e: int, along_m: float, onward: int | None = None) -> int:
-        """The cell ``along_m`` metres along directed passage ``e``; from half a step before its end, the cell at
-        its end place facing directed passage ``onward`` (its last step when None)."""
+    def cell_on(self, e: int, along_m: float) -> int:
+        """The cell ``along_m`` metres along directed passage ``e`` (from half a step before its end: its arrival cell)."""
         step = self.length_m[self.offsets[e]] / self.steps[e]
-        i = int(np.rint(max(along_m, 0.0) / step))
-        if i >= self.steps[e]:
-            return int(self.offsets[onward]) if onward is not None else int(self.offsets[e + 1] - 1)
+        i = min(int(np.rint(max(along_m, 0.0) / step)), int(self.steps[e]))
         return int(self.offsets[e] + i)
 
     def edge_between(self, a: str, b: str) -> int:
@@ -113,6 +119,8 @@ class PlaceFrame:
         a, b = self.graph.places[self.from_place[cell]], self.graph.places[self.to_place[cell]]
         if self.index[cell] == 0:
             return f"at {a}, facing {b}"
+        if cell == self.arrival[self.edge_of[cell]]:
+            return f"at {b}, arrived from {a}"
         return f"{self.along_m[cell]:.1f} m from {a} toward {b}"
 
     # ----------------------------------------------------------------- places
@@ -136,9 +144,19 @@ class PlaceFrame:
             self._positions.flags.writeable = False
         return self._positions
 
+    def nearest_cell(self, x: float, y: float, heading_deg: float = 0.0) -> int:
+        """The cell drawn nearest (x, y) on the layout; among cells as near, the one facing closest to the heading."""
+        xy = self.positions()
+        d2 = (xy[:, 0] - x) ** 2 + (xy[:, 1] - y) ** 2
+        near = np.flatnonzero(d2 <= d2.min() + 1e-9)
+        facing = np.abs(_wrap(np.nan_to_num(self.bearings[self.edge_of[near]]) - math.radians(heading_deg)))
+        return int(near[np.argmin(facing)])
+
     def travel_m(self, a: int, b: int) -> float:
         """Distance along the graph between the positions of cells ``a`` and ``b`` (direction ignored)."""
-        d = self.graph.distances()
+        if self._distances is None:
+            self._distances = self.graph.distances()
+        d = self._distances
         ea, eb = self.edges[self.edge_of[a]], self.edges[self.edge_of[b]]
         if {ea[0], ea[1]} == {eb[0], eb[1]}:  # the same passage, either way
             pos_b = self.along_m[b] if ea[0] == eb[0] else self.length_m[b] - self.along_m[b]
@@ -170,51 +188,60 @@ class PlaceFrame:
             w = np.where(back, FLOOR if not back.all() else 1.0, 1.0)
         return onward, w / w.sum()
 
-    def turn_weights(self, place: int, turn_rad: float, sigma_rad: float) -> np.ndarray:
-        """(k, k) matrix over the place's passages: column c gives the chance of facing each after turning
-        ``turn_rad`` from facing c (the turn rule)."""
-        onward = self.out_edges[place]
-        k = len(onward)
+    def turn_weights(self, place: int, turn_rad: float, sigma_rad: float) -> tuple[np.ndarray, np.ndarray]:
+        """(cells, matrix) of turning ``turn_rad`` at a place: ``cells`` are the place's cells facing its passages,
+        then its arrival cells; column j of the (faced × all) matrix gives where the mass of cells[j] goes among
+        the faced cells (the turn rule)."""
+        onward, came = self.out_edges[place], self.in_edges[place]
+        cells = np.concatenate([self.offsets[onward], self.arrival[came]])
         bearings = self.bearings[onward]
-        if np.isfinite(bearings).all():
-            target = bearings[None, :] + turn_rad  # column c: the heading after the turn
-            w = np.exp(-0.5 * (_wrap(bearings[:, None] - target) / sigma_rad) ** 2) + FLOOR
-        elif abs(turn_rad) < math.radians(45.0) or k == 1:
-            w = np.eye(k)
+        headings = np.concatenate([bearings, self.bearings[came]]) + turn_rad  # the heading after the turn
+        if np.isfinite(headings).all() and np.isfinite(bearings).all():
+            w = np.exp(-0.5 * (_wrap(bearings[:, None] - headings[None, :]) / sigma_rad) ** 2) + FLOOR
         else:
-            w = 1.0 - np.eye(k)
-        return w / w.sum(axis=0, keepdims=True)
+            k = len(onward)
+            back = np.array([[self.edges[c][1] == self.edges[e][0] for e in came] for c in onward], bool).reshape(k, -1)
+            if abs(turn_rad) >= math.radians(135.0):
+                arrived = np.where(back, 1.0, FLOOR)
+            else:
+                arrived = np.where(back, FLOOR, 1.0)
+            faced = np.eye(k) if abs(turn_rad) < math.radians(45.0) or k == 1 else 1.0 - np.eye(k)
+            w = np.concatenate([faced, arrived], axis=1)
+        return cells, w / w.sum(axis=0, keepdims=True)
+
+    def _snap_operator(self):
+        """Sparse matrix moving the mass one step from a place onto that place (the turn rule's lag): the last step
+        before a passage's end goes to its arrival cell, the first step past a place back to the cell leaving it;
+        other cells stay."""
+        from scipy.sparse import csr_matrix
+
+        target = np.arange(self.n_cells)
+        n = self.steps[self.edge_of]
+        before_end = (self.index == n - 1) & (n >= 2)
+        target[before_end] += 1
+        after_start = (self.index == 1) & (n >= 3)
+        target[after_start] -= 1
+        return csr_matrix((np.ones(self.n_cells), (target, np.arange(self.n_cells))), shape=(self.n_cells,) * 2)
 
     def _step_operators(self):
         """Sparse matrices S (one step forward) and B (one step back), column c: where mass at c goes."""
         from scipy.sparse import csr_matrix
 
-        rows, cols, vals = [], [], []
-        back_rows, back_cols, back_vals = [], [], []
-        inner = np.flatnonzero(self.index < self.steps[self.edge_of] - 1)
-        rows += list(inner + 1)
-        cols += list(inner)
-        vals += [1.0] * len(inner)
-        back_rows += list(inner)
-        back_cols += list(inner + 1)
-        back_vals += [1.0] * len(inner)
-        incoming = [[] for _ in self.graph.places]  # per place: (last cell of an arriving passage, onward, weight)
+        inner = np.flatnonzero(self.index < self.steps[self.edge_of])  # every cell but the arrival cells
+        rows, cols, vals = list(inner + 1), list(inner), [1.0] * len(inner)
+        moving = np.flatnonzero(self.index > 0)
+        back_rows, back_cols, back_vals = list(moving - 1), list(moving), [1.0] * len(moving)
         for e in range(len(self.edges)):
-            last = int(self.offsets[e + 1] - 1)
             onward, w = self.arrival_weights(e)
-            for c, wc in zip(onward, w):
-                rows.append(int(self.offsets[c]))
-                cols.append(last)
-                vals.append(float(wc))
-                incoming[self.edges[e][1]].append((last, int(self.offsets[c]), float(wc)))
-        for arrivals in incoming:  # one step back from (b→c, 0): to the arriving passages, weighted alike
-            for first in {f for _, f, _ in arrivals}:
-                came = [(last, w) for last, f, w in arrivals if f == first]
-                total = sum(w for _, w in came)
-                for last, w in came:
-                    back_rows.append(last)
-                    back_cols.append(first)
-                    back_vals.append(w / total)
+            rows += [int(self.offsets[c] + 1) for c in onward]
+            cols += [int(self.arrival[e])] * len(onward)
+            vals += list(w)
+        for place, onward in enumerate(self.out_edges):  # back from a cell facing a passage: to the arriving ones
+            came = self.in_edges[place]
+            for c in onward:
+                back_rows += [int(self.arrival[e] - 1) for e in came]
+                back_cols += [int(self.offsets[c])] * len(came)
+                back_vals += [1.0 / len(came)] * len(came)
         n = self.n_cells
         forward = csr_matrix((vals, (rows, cols)), shape=(n, n))
         backward = csr_matrix((back_vals, (back_rows, back_cols)), shape=(n, n))

@@ -14,8 +14,9 @@ Records are rarely whole steps long, so ``PlaceMotion`` carries what a record le
 - the noise: its variance is added up, and a discrete Gaussian is applied once it reaches a quarter of a
   step² (below that it would round to nothing); the variance that kernel actually has is then taken off,
   so the blur follows the distance driven, not the number of records;
-- the turn: turns are added up while the robot stands at a place, and applied by the turn rule when it
-  drives on (``MOVING_SHARE`` of a step counts as driving).
+- the turn: a record's turn counts after its drive; turns are added up until the belief next moves a whole
+  step, and applied by the turn rule just before that step (the belief reaches a place half a step before
+  the robot does, and leaves it half a step after, so a turn made standing at a place is applied there).
 """
 
 from __future__ import annotations
@@ -28,10 +29,8 @@ import numpy as np
 
 from fusion.places.frame import MIN_TURN_DEG, PlaceFrame
 
-__all__ = ["PlaceMove", "PlaceMotion", "MOVING_SHARE"]
+__all__ = ["PlaceMove", "PlaceMotion", "gaussian_taps"]
 
-MOVING_SHARE = 0.05
-"""A record driving at least this share of a step counts as driving on (our choice)."""
 _APPLY_VARIANCE = 0.25  # steps²: the pending variance at which a kernel is applied (half a step, squared)
 
 
@@ -79,15 +78,15 @@ class PlaceMotion:
         """The density after ``move``: a new array (``p`` is not changed)."""
         frame = self.frame
         step = frame.resolution_m
-        self.turn += move.turn_rad
-        self.turn_variance += move.sigma_turn_rad**2
-        if abs(move.forward_m) >= MOVING_SHARE * step:
-            if abs(self.turn) >= math.radians(MIN_TURN_DEG):
-                p = self.rotate(p, self.turn, math.sqrt(frame.tolerance**2 + self.turn_variance))
-            self.turn = self.turn_variance = 0.0
         self.driven += move.forward_m / step
         whole = int(round(self.driven)) - self.moved
         self.moved += whole
+        if whole != 0:  # the belief leaves its cells: the turn made there is applied first
+            if abs(self.turn) >= math.radians(MIN_TURN_DEG):
+                p = self.rotate(frame.snap @ p, self.turn, math.sqrt(frame.tolerance**2 + self.turn_variance))
+            self.turn = self.turn_variance = 0.0
+        self.turn += move.turn_rad  # a record's turn counts after its drive
+        self.turn_variance += move.sigma_turn_rad**2
         self.variance += (move.sigma_m / step) ** 2
         taps = {whole: 1.0}
         if self.variance >= _APPLY_VARIANCE:
@@ -119,9 +118,9 @@ class PlaceMotion:
         """The density after turning ``turn_rad`` at a place: the cells at every place mix by the turn rule."""
         frame = self.frame
         out = p.copy()
-        for place, onward in enumerate(frame.out_edges):
-            if len(onward) < 2:
-                continue
-            cells = frame.offsets[onward]
-            out[cells] = frame.turn_weights(place, turn_rad, sigma_rad) @ p[cells]
+        for place in range(frame.graph.n_cells):
+            cells, w = frame.turn_weights(place, turn_rad, sigma_rad)
+            k = w.shape[0]
+            out[cells[:k]] = w @ p[cells]
+            out[cells[k:]] = 0.0
         return out

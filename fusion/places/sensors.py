@@ -16,6 +16,7 @@ independent given the cell, as in the histogram filter on the pose grid.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -55,8 +56,9 @@ class _PlaceSensor:
         nearer, distance = self.frame.place_distance()
         self._place = np.where(distance <= self.reach_m, nearer, -1)  # per cell: the place it is at, or −1
 
-    def explain(self, reading, cell: int) -> str:
-        """What the reading says against what the graph gives at ``cell``, in words."""
+    def explain(self, reading, x: float, y: float, heading_deg: float) -> str:
+        """What the reading says against what the graph gives at the pose drawn at (x, y, heading), in words."""
+        cell = self.frame.nearest_cell(x, y, heading_deg)
         return f"read {reading!r} {self.frame.describe(cell)}, where {self.expected(cell)}"
 
 
@@ -151,3 +153,16 @@ class WidthDetector(_PlaceSensor):
 
 PLACE_SENSORS = {"feature": FeatureDetector, "marker": MarkerReader, "width": WidthDetector}
 """Place-level sensor kinds, by the name a case gives them."""
+
+
+def feature_detector(spec, graph, frame: PlaceFrame) -> FeatureDetector:
+    """The registry's builder (``fusion.sensors.kinds.SensorKind.place_model``)."""
+    return FeatureDetector(spec.name, frame, **dataclasses.asdict(spec.params))
+
+
+def marker_reader(spec, graph, frame: PlaceFrame) -> MarkerReader:
+    return MarkerReader(spec.name, frame, **dataclasses.asdict(spec.params))
+
+
+def width_detector(spec, graph, frame: PlaceFrame) -> WidthDetector:
+    return WidthDetector(spec.name, frame, **dataclasses.asdict(spec.params))

@@ -6,7 +6,7 @@ record and read back, how the simulator draws them, and its faults; and one ``re
 call.  Case validation (``fusion.io.case``), observation records (``fusion.io.observations``), the
 sensor set of a localizer (``fusion.localizer.SensorSet``), the simulator (``fusion.simulate``) and
 calibration (``fusion.calibration``, through the kind's ``Calibrator``) read this registry and nothing else
-about a kind.  The built-in kinds (ranging, markers, door, odometry)
+about a kind.  The built-in kinds (ranging, markers, door, odometry; on place graphs feature, place_marker, width)
 register themselves when their modules are imported; ``kinds()`` imports them first.
 
 Fault options are declared, not coded: each option names its type (``OPTION_TYPES``), and the case
@@ -31,9 +31,10 @@ __all__ = [
     "OPTION_TYPES",
 ]
 
-OPTION_TYPES = ("rate", "number", "positive", "flag", "marker", "point")
+OPTION_TYPES = ("rate", "number", "positive", "flag", "marker", "point", "place")
 """rate: a number in [0, 1], required; number / positive: a number (positive: > 0) with a default; flag: true or
-false, required; marker: the id of a marker of the site, required; point: [x, y] in metres, required."""
+false, required; marker: the id of a marker of the site, required; point: [x, y] in metres, required; place: the
+name of a place of a place graph, required."""
 
 
 @dataclass(frozen=True)
@@ -81,7 +82,9 @@ class ModelCost:
 class SensorKind:
     name: str
     params: type  # the parameter dataclass: the case's fields of a sensor of this kind
-    model: Callable  # (spec, site, grid) -> the sensor model (for odometry: the motion model)
+    model: (
+        Callable | None
+    )  # (spec, site, grid) -> the sensor model on a pose grid (odometry: the motion model); None: none
     to_record: Callable  # reading -> the fields of its log record (``fusion.io.observations``)
     from_record: Callable  # (record, where) -> reading; ObservationError naming the field
     # (case, spec, truth, rng) -> reading, for a sensor that fires at rate_hz; for a motion kind
@@ -105,6 +108,8 @@ class SensorKind:
     rules: dict[str, str] = field(default_factory=dict)
     calibrator: Calibrator | None = None  # None: calibration has no model for this kind
     cost: Callable | None = None  # (spec, site) -> ModelCost; None: the model builds nothing that grows
+    # (spec, graph, frame) -> the sensor model on a place graph (``fusion.places``); None: the kind reads poses only
+    place_model: Callable | None = None
 
 
 def named(path: str):
@@ -128,7 +133,13 @@ def lazy(path: str) -> Callable:
 
 _KINDS: dict[str, SensorKind] = {}
 _loaded = False
-_BUILTINS = ("fusion.sensors.ranging", "fusion.sensors.markers", "fusion.sensors.doors", "fusion.sensors.odometry")
+_BUILTINS = (
+    "fusion.sensors.ranging",
+    "fusion.sensors.markers",
+    "fusion.sensors.doors",
+    "fusion.sensors.odometry",
+    "fusion.places.kinds",
+)
 
 
 def register(kind: SensorKind) -> SensorKind:

@@ -40,6 +40,8 @@ __all__ = [
     "Motion",
     "OdometrySensor",
     "MAX_TURN_DEG",
+    "check_reading",
+    "noise_of",
     "Travel",
     "moved_pose",
     "check_odometry_step",
@@ -151,6 +153,32 @@ def check_odometry_step(previous_t: float | None, t: float, sensor: str) -> None
         )
 
 
+def noise_of(p: OdometryParams, dist_m: float, turned_deg: float) -> tuple[float, float]:
+    """(σ of the distance in metres, σ of the heading in degrees) after driving ``dist_m`` and turning
+    ``turned_deg``: variances add along the path."""
+    sigma_deg = math.sqrt((p.turn_sigma_per_m_deg**2) * dist_m + (p.turn_sigma_per_turn**2) * turned_deg * _DEG_PER_RAD)
+    return p.sigma_per_m * math.sqrt(dist_m), sigma_deg
+
+
+def check_reading(sensor: str, reading: OdometryReading, longest_m: float, longest: str) -> None:
+    """Refuse an odometry record that is not finite, moves farther than ``longest_m`` (``longest`` names it) or
+    turns more than ``MAX_TURN_DEG``."""
+    fields = {"forward_m": reading.forward_m, "left_m": reading.left_m, "turn_deg": reading.turn_deg}
+    for field, v in fields.items():
+        if not isinstance(v, (int, float)) or not math.isfinite(v):
+            raise ObservationError(f"sensor {sensor!r}: odometry {field} must be a finite number, got {v!r}")
+    if math.hypot(reading.forward_m, reading.left_m) > longest_m:
+        raise ObservationError(
+            f"sensor {sensor!r}: odometry moves {math.hypot(reading.forward_m, reading.left_m):.4g} m in one "
+            f"record, more than {longest} ({longest_m:.1f} m); check the log's units (metres)"
+        )
+    if abs(reading.turn_deg) > MAX_TURN_DEG:
+        raise ObservationError(
+            f"sensor {sensor!r}: odometry turns {reading.turn_deg:.4g}° in one record, more than "
+            f"{MAX_TURN_DEG:g}°; check the log's units (degrees)"
+        )
+
+
 class OdometrySensor:
     def __init__(self, name: str, grid: PoseGrid, params: OdometryParams = OdometryParams()):
         self.name, self.grid, self.params = name, grid, params
@@ -159,21 +187,7 @@ class OdometrySensor:
     def check(self, reading: OdometryReading) -> None:
         """Refuse a record that is not finite, moves farther than the site's diagonal or turns more than
         ``MAX_TURN_DEG``: a unit or logging fault, which taken as given would build a kernel of any size."""
-        fields = {"forward_m": reading.forward_m, "left_m": reading.left_m, "turn_deg": reading.turn_deg}
-        for field, v in fields.items():
-            if not isinstance(v, (int, float)) or not math.isfinite(v):
-                raise ObservationError(f"sensor {self.name!r}: odometry {field} must be a finite number, got {v!r}")
-        diagonal = math.hypot(self.grid.width_m, self.grid.height_m)
-        if math.hypot(reading.forward_m, reading.left_m) > diagonal:
-            raise ObservationError(
-                f"sensor {self.name!r}: odometry moves {math.hypot(reading.forward_m, reading.left_m):.4g} m in one "
-                f"record, more than the site's diagonal ({diagonal:.1f} m); check the log's units (metres)"
-            )
-        if abs(reading.turn_deg) > MAX_TURN_DEG:
-            raise ObservationError(
-                f"sensor {self.name!r}: odometry turns {reading.turn_deg:.4g}° in one record, more than "
-                f"{MAX_TURN_DEG:g}°; check the log's units (degrees)"
-            )
+        check_reading(self.name, reading, math.hypot(self.grid.width_m, self.grid.height_m), "the site's diagonal")
 
     def motion(self, reading: OdometryReading, travelled: Travel | None = None) -> Motion:
         """The move of ``reading`` on the grid; its errors follow ``travelled`` (the path length and the
@@ -189,8 +203,7 @@ class OdometrySensor:
         dist = math.hypot(fwd, left) if travelled is None else travelled.path_m
         turned = abs(reading.turn_deg) if travelled is None else travelled.turned_deg
         # Variances add along the path (probabilistic); bounds add along the path (set-valued).
-        sigma_m = p.sigma_per_m * math.sqrt(dist)
-        sigma_deg = math.sqrt((p.turn_sigma_per_m_deg**2) * dist + (p.turn_sigma_per_turn**2) * turned * _DEG_PER_RAD)
+        sigma_m, sigma_deg = noise_of(p, dist, turned)
         bound_m = p.bound_sigmas * p.sigma_per_m * dist
         bound_deg = p.bound_sigmas * (p.turn_sigma_per_m_deg * dist + p.turn_sigma_per_turn * turned)
         step_deg = math.degrees(g.heading_step)
@@ -268,6 +281,7 @@ def _register() -> None:
             {"drift": drift, "slip": slip},
             motion=True,
             removed_fields=REMOVED_FIELDS,
+            place_model=lazy("fusion.places.odometry:place_odometry"),
             # No reliability is derived: the slip model has no counterpart in the fit, so the case's is kept.
             calibrator=Calibrator(
                 ("sigma_per_m", "turn_sigma_per_m_deg", "turn_sigma_per_turn"),

@@ -18,18 +18,30 @@ class SensorSet:
     """The sensor models of a site, by name; turns observations into evidence and motion."""
 
     def __init__(self, site: SiteMap, grid: PoseGrid, specs):
+        """``site`` and ``grid``: a ``SiteMap`` and its ``PoseGrid``, or a ``PlaceGraph`` and its ``PlaceFrame``
+        (``fusion.places``); each kind's model for that frame is built."""
         self.site, self.grid = site, grid
         self.kinds: dict[str, str] = {}
         self.models: dict[str, SensorModel] = {}
         self.odometry: OdometrySensor | None = None
         self._cache: dict[int, tuple] = {}
+        on_places = not isinstance(grid, PoseGrid)
         for spec in specs:
             self.kinds[spec.name] = spec.kind
             kind = sensor_kind(spec.kind)  # the registry builds each model (fusion.sensors.kinds)
+            build = kind.place_model if on_places else kind.model
+            if build is None:
+                where = "a place graph" if on_places else "a metric site"
+                raise ObservationError(f"sensor {spec.name!r}: a {spec.kind} sensor does not read {where}")
             if kind.motion:
-                self.odometry = kind.model(spec, site, grid)
+                self.odometry = build(spec, site, grid)
             else:
-                self.models[spec.name] = kind.model(spec, site, grid)
+                self.models[spec.name] = build(spec, site, grid)
+
+    @property
+    def free(self):
+        """The site's free plane, or None where every cell is free (a place graph)."""
+        return getattr(self.site, "free", None)
 
     def explain(self, sensor: str, reading, x: float, y: float, heading_deg: float) -> str:
         """What ``sensor``'s ``reading`` measured against what the map gives at the pose, in words."""

@@ -25,6 +25,7 @@ __all__ = [
     "legend_if_any",
     "site_figsize",
     "write_preview",
+    "write_picture",
     "preview_path",
     "PREVIEW_MARK",
 ]
@@ -118,6 +119,12 @@ def preview_path(case_path) -> Path:
 
 def write_preview(case: Case, path, replace: bool = False) -> Path:
     """Draw the site into ``path``: a preview fusion drew before is replaced; any other file only with ``replace``."""
+    return write_picture(draw_site(case), path, replace)
+
+
+def write_picture(data: bytes, path, replace: bool = False) -> Path:
+    """Write a site picture's PNG ``data`` into ``path``: one fusion drew before is replaced; any other file only with
+    ``replace``."""
     path = Path(path)
     if path.is_dir():
         raise FolderError(f"{path} is a folder; give a file name for the site picture")
@@ -126,7 +133,7 @@ def write_preview(case: Case, path, replace: bool = False) -> Path:
             f"{path} exists and is not a site picture fusion drew; choose another name with --preview, "
             "or pass --replace to overwrite it"
         )
-    atomic_write(path, draw_site(case))
+    atomic_write(path, data)
     return path
 
 

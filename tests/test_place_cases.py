@@ -1,0 +1,174 @@
+"""Place-graph cases: the case format's refusals (file, line, field), the simulator's faults, and `fusion run` and
+`fusion check` on the shipped basement case.  These check our own format and plumbing (no outside source); the
+filters' results are checked against outside references in ``test_places.py``."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from fusion.cli import main
+from fusion.errors import InputFileError
+from fusion.places.case import load_place_case, parse_place_case
+from fusion.places.simulate import simulate_places
+
+BASEMENT = Path(__file__).parent.parent / "cases" / "basement.toml"
+
+SMALL = """
+[case]
+name = "two doors"
+
+[places]
+resolution_m = 1.0
+
+[[places.place]]
+name = "west"
+at = [0.0, 0.0]
+
+[[places.place]]
+name = "door a"
+at = [4.0, 0.0]
+features = ["door"]
+
+[[places.place]]
+name = "door b"
+at = [12.0, 0.0]
+features = ["door"]
+
+[[places.passage]]
+between = ["west", "door a"]
+length_m = 4.0
+
+[[places.passage]]
+between = ["door a", "door b"]
+length_m = 8.0
+
+[[sensors]]
+name = "wheels"
+kind = "odometry"
+rate_hz = 4.0
+
+[[sensors]]
+name = "doors"
+kind = "feature"
+feature = "door"
+rate_hz = 4.0
+
+[route]
+through = ["west", "door b"]
+speed_mps = 1.0
+"""
+
+
+def _line(text: str, needle: str) -> int:
+    return next(i for i, line in enumerate(text.splitlines(), start=1) if needle in line)
+
+
+@pytest.mark.parametrize(
+    "old, new, field, words",
+    [
+        (
+            'between = ["door a", "door b"]',
+            'between = ["door a", "lift"]',
+            "places.passage[1].between",
+            "unknown place 'lift'",
+        ),
+        ("length_m = 8.0", "length_m = 0.0", "places.passage[1].length_m", "greater than 0"),
+        ("length_m = 8.0", "length_m = -8.0", "places.passage[1].length_m", "greater than 0"),
+        ('kind = "feature"', 'kind = "ranging"', "sensors[1].kind", "reads a metric site"),
+        ('through = ["west", "door b"]', 'through = ["west", "roof"]', "route.through", "unknown place 'roof'"),
+        ('feature = "door"', 'feature = "door"\nhit_rate = 0.01', "sensors", "must exceed"),
+    ],
+)
+def test_bad_graphs_are_refused_with_file_line_and_field(old, new, field, words):
+    text = SMALL.replace(old, new, 1)
+    assert text != SMALL
+    with pytest.raises(InputFileError) as err:
+        parse_place_case(text, "small.toml")
+    message = str(err.value)
+    assert "small.toml" in message and field in message and words in message, message
+    assert f"line {_line(text, new.splitlines()[0])}" in message or field == "sensors", message
+
+
+def test_a_route_across_pieces_of_the_graph_is_refused():
+    text = SMALL + '\n[[places.place]]\nname = "island"\nat = [30.0, 0.0]\n'
+    text = text.replace('through = ["west", "door b"]', 'through = ["west", "island"]')
+    with pytest.raises(InputFileError, match="in pieces"):
+        parse_place_case(text, "small.toml")
+
+
+def test_a_feature_no_sensor_sees_is_a_warning_and_place_kinds_are_refused_on_metric_sites():
+    case = parse_place_case(SMALL.replace('features = ["door"]', 'features = ["door", "fire hose"]', 1), "small.toml")
+    assert case.warnings == ("no sensor detects the feature 'fire hose': it is drawn, not used",)
+    from fusion.io.case import parse_case
+    from tests.test_case import TINY
+
+    metric = TINY.read_text() + '\n[[sensors]]\nname = "doors"\nkind = "feature"\nrate_hz = 2.0\n'
+    with pytest.raises(InputFileError, match="reads a place graph"):
+        parse_case(metric, "tiny.toml")
+    with pytest.raises(InputFileError, match="place-graph case"):
+        parse_case(SMALL, "small.toml")
+
+
+def test_simulated_faults_show_in_the_readings():
+    case = parse_place_case(
+        SMALL.replace(
+            "rate_hz = 4.0\n\n[route]",
+            'rate_hz = 4.0\n[[sensors.faults]]\nkind = "missed"\nplace = "door b"\n'
+            '[[sensors.faults]]\nkind = "phantom"\nrate = 1.0\nstart_s = 2.0\nend_s = 3.0\n\n[route]',
+        ),
+        "small.toml",
+    )
+    ticks = simulate_places(case, seed=3)
+    seen = [(t.truth.t, t.truth.near(0.5), o.reading) for t in ticks for o in t.observations if o.sensor == "doors"]
+    door_b = case.graph.cell_of("door b")
+    assert all(not r for _, at, r in seen if at == door_b)  # missed at door b
+    assert all(r for t, at, r in seen if 2.0 <= t < 3.0 and at is None)  # phantom in its window
+    again = simulate_places(case, seed=3)
+    assert [o.to_record() for t in again for o in t.observations] == [
+        o.to_record() for t in ticks for o in t.observations
+    ]
+
+
+def test_wheel_slip_makes_a_passage_look_longer():
+    slip = SMALL.replace(
+        'rate_hz = 4.0\n\n[[sensors]]\nname = "doors"',
+        'rate_hz = 4.0\n[[sensors.faults]]\nkind = "drift"\nscale = 1.5\n\n[[sensors]]\nname = "doors"',
+    )
+    case = parse_place_case(slip, "small.toml")
+    driven = sum(o.reading.forward_m for t in simulate_places(case, seed=1) for o in t.observations if o.moves)
+    assert abs(driven - 1.5 * 12.0) < 0.5
+
+
+def test_run_and_check_on_the_basement(tmp_path, capsys):
+    out = tmp_path / "run"
+    assert main(["run", str(BASEMENT), "--out", str(out), "--seed", "4"]) == 0
+    said = capsys.readouterr().out
+    assert "found itself from the start" in said and "not a certified safety function" in said
+    for name in ("observations.jsonl", "truth.jsonl", "steps.csv", "summary.json", "beliefs.png"):
+        assert (out / name).stat().st_size > 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert set(summary["backends"]) == {"bayes", "evidential"} and summary["seed"] == 4
+    # Other work into the same folder is refused, and nothing is overwritten.
+    assert main(["run", str(BASEMENT), "--out", str(out), "--seed", "5"]) != 0
+    assert json.loads((out / "summary.json").read_text())["seed"] == 4
+    picture = tmp_path / "graph.png"
+    assert main(["check", str(BASEMENT), "--preview", str(picture)]) == 0
+    assert picture.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert "13 places" in capsys.readouterr().out
+    assert main(["run", str(BASEMENT), "--out", str(tmp_path / "x"), "--backend", "particles"]) != 0
+    assert "does not run on a place graph" in capsys.readouterr().err
+
+
+def test_both_back_ends_find_the_courier_from_an_unknown_start():
+    from fusion.places.run import run_places
+
+    case = load_place_case(BASEMENT)
+    result = run_places(case)
+    for b in ("bayes", "evidential"):
+        first = result.episodes(b)[0]
+        assert first.localized_s is not None and first.places_needed <= 3, first
+    assert np.mean([r.right for r in result.rows if r.t > 30.0 and r.t < 150.0]) > 0.9
