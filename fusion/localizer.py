@@ -38,6 +38,7 @@ from fusion.figures import TickFigures
 from fusion.io.observations import Observation
 from fusion.monitor import ALERT, CARRY_ON, QUARANTINE, RELOCALIZE, Monitor, Policy
 from fusion.monitor.at_fault import ReadingAtFault, TickReading, reading_at_fault
+from fusion.monitor.policy import INFORMATIVE
 from fusion.monitor.recovery import Recovery, informative
 from fusion.sensors.kinds import kinds
 from fusion.sensors.odometry import OdometryReading, Travel, check_odometry_step, moved_pose
@@ -58,6 +59,7 @@ class _Tick:
     figures: TickFigures
     conflicting: bool = False
     clear: bool = True
+    vouched: bool = False  # some clear reading ruled out at least INFORMATIVE of the site
     applied: list = field(default_factory=list)  # (sensor, evidence as absorbed: a quarantined one discounted)
     undiscounted: list = field(default_factory=list)  # (sensor, evidence as the sensor gave it)
     met: list = field(default_factory=list)  # TickReading per reading, when the readings were given
@@ -131,34 +133,17 @@ class Localizer:
         """Start from a known pose: every free cell within ``radius_m`` and ``heading_tol_deg`` is equally possible;
         or, given a 3 × 3 ``covariance`` in (m, m, rad), that Gaussian around the pose on the free cells.  Returns
         what the back end says of the start, if anything (``Backend.reset``)."""
-        g = self.sensors.grid
-        g.cell_of(x_m, y_m, math.radians(heading_deg))  # PoseError if off the site
-        if covariance is not None:
-            prior = self._gaussian_prior(x_m, y_m, heading_deg, covariance)
-        else:
-            xs, ys, hs = g.poses_of(np.arange(g.n_cells))
-            near = (xs - x_m) ** 2 + (ys - y_m) ** 2 <= max(radius_m, g.resolution_m) ** 2
-            dh = np.abs((np.degrees(hs) - heading_deg + 180.0) % 360.0 - 180.0)
-            prior = near & (dh <= max(heading_tol_deg, math.degrees(g.heading_step) / 2)) & (self._free_prior > 0)
-            prior = prior.astype(np.float64)
-        if not prior.any():
-            reach = "the start covariance's reach" if covariance is not None else f"{radius_m} m"
-            raise ObservationError(f"no free cell within {reach} of ({x_m}, {y_m}); is the start inside a rack?")
+        from fusion.start_prior import known_start_prior
+
+        prior = known_start_prior(
+            self.sensors.grid, self._free_prior > 0, x_m, y_m, heading_deg, radius_m, heading_tol_deg, covariance
+        )
         self._pending = None
         return self.filter.reset(prior)
 
-    def _gaussian_prior(self, x_m: float, y_m: float, heading_deg: float, covariance) -> np.ndarray:
-        from fusion.backends.gaussian_grid import GridView
-        from fusion.belief.gaussian import PoseGaussian, check_covariance
-
-        cov = check_covariance(covariance, "start covariance")
-        mean = np.array([x_m, y_m, math.radians(heading_deg) % (2 * math.pi)])
-        prior = GridView(self.sensors.grid, self._free_prior > 0).density(PoseGaussian(mean, cov))
-        return prior * (self._free_prior > 0)
-
     def start_with(self, prior: np.ndarray) -> str | None:
-        """Start from a given prior (a probability, or 0/1 mask, per cell; off free space counts 0): on a place graph,
-        ``fusion.places.frame.PlaceFrame.cells_at`` gives one.  Returns what the back end says of the start."""
+        """Start from a given prior (a probability, or 0/1 mask, per cell; off free space counts 0), e.g. the truth's cell
+        on a place graph.  Returns what the back end says of the start."""
         prior = np.asarray(prior, dtype=np.float64).reshape(-1)
         n = self._free_prior.size
         if prior.shape != (n,) or not np.isfinite(prior).all() or (prior < 0).any():
@@ -267,7 +252,7 @@ class Localizer:
             if trial is not None:
                 self.filter, moved = trial
                 self.averages.reset()
-        calm = tick.clear and not tick.conflicting
+        calm = tick.clear and tick.vouched and not tick.conflicting
         verdict = self.monitor.judge(tick.conflicting, calm, blame, moved, persistent is None or bool(persistent))
         if calm:
             recovery.clear()
@@ -322,7 +307,9 @@ class Localizer:
                 tick.figures.evidence_ratio = ratio
                 if not quarantined and ratio > p.lost_ratio:
                     disagree, clear = True, False
-            self.monitor.record_reading(sensor, disagree, informative(original))
+            said = informative(original)
+            self.monitor.record_reading(sensor, disagree, said)
+            tick.vouched |= clear and said >= INFORMATIVE
             if len(given) == len(encoded):
                 tick.met.append(TickReading(sensor, given[len(tick.met)], figure))
             if not self.monitor.is_quarantined(sensor):

@@ -172,3 +172,36 @@ def test_both_back_ends_find_the_courier_from_an_unknown_start():
         first = result.episodes(b)[0]
         assert first.localized_s is not None and first.places_needed <= 3, first
     assert np.mean([r.right for r in result.rows if r.t > 30.0 and r.t < 150.0]) > 0.9
+
+
+def test_readings_that_rule_out_little_do_not_vouch_for_the_belief():
+    # A door seen (informative: it rules out every cell without a door) where the belief has none, every other
+    # tick; between them only "no junction here", which rules out almost nothing.  Those quiet ticks must not
+    # end the run of conflicting ticks (our policy: a calm tick needs a clear reading that rules out at least
+    # half the site, fusion.monitor.policy.INFORMATIVE), so the monitor acts.
+    from fusion.io.observations import Observation
+    from fusion.localizer import Localizer
+    from fusion.monitor import CARRY_ON, Policy
+    from fusion.sensors.odometry import OdometryReading
+
+    case = load_place_case(BASEMENT)
+    loc = Localizer("bayes", case.sensor_set(), Policy())
+    prior = np.zeros(case.frame.n_cells)
+    prior[case.frame.cell_of("lift lobby", "pharmacy store", 6.0)] = 1.0
+    loc.start_with(prior)
+    actions = []
+    for k in range(12):
+        t = 0.25 * k
+        reading = (
+            Observation(t, "door spotter", "feature", True)
+            if k % 2 == 0
+            else Observation(t, "junction sonar", "feature", False)
+        )
+        actions.append(loc.step(Observation(t, "wheels", "odometry", OdometryReading(0.0)), [reading]).action)
+    assert any(a != CARRY_ON for a in actions), actions
+
+
+def test_targets_on_a_place_graph(capsys):
+    assert main(["targets", "--case", str(BASEMENT), "--seeds", "2", "--backend", "bayes"]) == 0
+    out = capsys.readouterr().out
+    assert "found from the start" in out and "2/2" in out

@@ -280,3 +280,19 @@ def test_layout_without_coordinates_keeps_travel_distances():
     xy = graph.layout()
     d = np.linalg.norm(xy[:, None] - xy[None], axis=2)
     np.testing.assert_allclose(d[0, 2], 7.0, atol=1e-9)
+
+
+def test_turning_all_places_at_once_equals_the_rule_place_by_place():
+    # The vectorised turn (places with bearings) against turn_weights applied to each place on its own.
+    frame = junction()
+    p = np.random.default_rng(5).random(frame.n_cells)
+    p /= p.sum()
+    motion = PlaceMotion(frame)
+    for turn in (-2.0, -0.8, 0.4, 1.6, math.pi):
+        expected = p.copy()
+        for place in range(frame.graph.n_cells):
+            cells, w = frame.turn_weights(place, turn, 0.5)
+            expected[cells[: w.shape[0]]] = w @ p[cells]
+            expected[cells[w.shape[0] :]] = 0.0
+        np.testing.assert_allclose(motion.rotate(p, turn, 0.5), expected, atol=1e-14)
+        assert abs(motion.rotate(p, turn, 0.5).sum() - 1.0) < 1e-12

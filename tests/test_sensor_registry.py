@@ -192,9 +192,22 @@ def test_every_back_end_and_sensor_model_satisfies_its_protocol(compass):
         for rule in ("dempster", "yager"):
             assert isinstance(build(name, grid, case.site.free, rule=rule), Backend), (name, rule)
     sensors = SensorSet(case.site, grid, case.sensors)
-    assert {s.kind for s in case.sensors} == set(kinds())  # every registered kind is in this case
+    metric = {name for name, kind in kinds().items() if kind.model is not None}
+    assert {s.kind for s in case.sensors} == metric  # every kind that reads a metric site is in this case
     for model in sensors.models.values():
         assert isinstance(model, SensorModel), model
+    # The place-graph kinds and back ends, on the shipped basement.
+    from pathlib import Path
+
+    from fusion.places.case import load_place_case
+
+    basement = load_place_case(Path(__file__).parent.parent / "cases" / "basement.toml")
+    places = {name for name, kind in kinds().items() if kind.place_model is not None}
+    assert {s.kind for s in basement.sensors} == places and metric | places == set(kinds())
+    for model in basement.sensor_set().models.values():
+        assert isinstance(model, SensorModel), model
+    for name in ("bayes", "evidential"):
+        assert isinstance(build(name, basement.frame), Backend), name
 
 
 def test_a_registered_kind_is_read_from_a_robots_table_through_a_layout(compass, tmp_path):

@@ -24,6 +24,7 @@ def bench_command(args: argparse.Namespace) -> int:
     from fusion.bench_steps import bench_backend_steps
     from fusion.bench_sweep import bench_sweep
     from fusion.fidelity import measure_fidelity
+    from fusion.places.bench import bench_graph_steps
     from fusion.view.tables import bench_table, fidelity_table
 
     console = Console(stderr=args.json)
@@ -34,6 +35,7 @@ def bench_command(args: argparse.Namespace) -> int:
         if not args.quick:
             rows += bench_localizer(builtin_case("depot.toml"))
             rows += bench_backend_steps(builtin_case("depot.toml"))
+            rows += bench_graph_steps()
         rows += bench_imports(repeats=3 if args.quick else 7)
     if args.sweep:
         with console.status(f"timing the demo case's compare sweep on {args.sweep} seeds, 1 worker then 2…"):
@@ -82,13 +84,9 @@ def targets_command(args: argparse.Namespace) -> int:
     from fusion.view.tables import targets_table
 
     console = Console(stderr=args.json)
-    if args.attribution:
-        cases = args.case or list(ATTRIBUTION_CASES)
-        unknown = [c for c in cases if c not in ATTRIBUTION_CASES]
-        if unknown:
-            raise FusionError(f"unknown attribution case {unknown[0]!r}; choose among: {', '.join(ATTRIBUTION_CASES)}")
-    else:  # a shipped case by name, or any case file: its target follows from what it holds
-        cases = [case_file_or_error(c) for c in (args.case or FAULT_CASES)]
+    cases = _target_cases(args, ATTRIBUTION_CASES, FAULT_CASES)
+    if _place_cases(cases):  # graphs measured on their own, then the metric cases
+        return _graph_targets(args, _place_cases(cases), console) or _targets_after(args, cases)
     notice(console)
     eta = _targets_eta(cases, args.seeds, args.backend)
     if eta.remaining_s() > LONG_SWEEP_S:
@@ -131,6 +129,64 @@ def targets_command(args: argparse.Namespace) -> int:
     if interrupted:
         console.print(f"interrupted: the {len(rows)} verdicts above are the runs that finished")
         return 130
+    return 0
+
+
+def _target_cases(args: argparse.Namespace, attribution_cases, fault_cases) -> list:
+    """The cases a ``fusion targets`` call measures: for --attribution, names among ``attribution_cases``;
+    otherwise shipped cases by name or any case file (its target follows from what it holds)."""
+    if not args.attribution:
+        return [case_file_or_error(c) for c in (args.case or fault_cases)]
+    cases = args.case or list(attribution_cases)
+    unknown = [c for c in cases if c not in attribution_cases]
+    if unknown:
+        raise FusionError(f"unknown attribution case {unknown[0]!r}; choose among: {', '.join(attribution_cases)}")
+    return cases
+
+
+def _place_cases(cases) -> list:
+    from fusion.places.case import is_place_case
+
+    return [c for c in cases if is_place_case(c)]
+
+
+def _targets_after(args: argparse.Namespace, cases) -> int:
+    """The metric cases of a ``fusion targets`` call that also named place-graph cases."""
+    rest = [c for c in cases if c not in _place_cases(cases)]
+    if not rest:
+        return 0
+    args.case = [str(c) for c in rest]
+    return targets_command(args)
+
+
+def _graph_targets(args: argparse.Namespace, cases, console) -> int:
+    """``fusion targets`` on place-graph cases (``fusion.places.targets``); 0 when every case finished."""
+    from fusion.places.case import load_place_case
+    from fusion.places.targets import measure_graph
+    from fusion.view.place_graph import graph_targets_table
+
+    notice(console)
+    for path in cases:
+        case = load_place_case(path)
+        backends = args.backend or list(case.run.backends)
+        seeds = range(args.first_seed, args.first_seed + args.seeds)
+
+        def landed(seed, result, name=case.name):
+            said = "; ".join(
+                f"{b}: "
+                + ", ".join(
+                    "lost" if e.places_needed is None else f"{e.places_needed} places" for e in result.episodes(b)
+                )
+                for b in result.backends
+            )
+            console.print(f"[dim]{literal(name)} seed {seed}: {literal(said)}[/]")
+
+        try:
+            rows = measure_graph(case, seeds, backends, landed)
+        except KeyboardInterrupt:
+            console.print("interrupted: the runs above finished")
+            return 130
+        console.print(graph_targets_table(case.name, rows))
     return 0
 
 

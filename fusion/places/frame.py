@@ -84,6 +84,7 @@ class PlaceFrame:
         self.bearings = self._bearings()
         self.forward, self.backward = self._step_operators()
         self.snap = self._snap_operator()
+        self.turn_table = self._turn_table()
         self._positions = None
         self._distances = None
 
@@ -208,6 +209,28 @@ class PlaceFrame:
             faced = np.eye(k) if abs(turn_rad) < math.radians(45.0) or k == 1 else 1.0 - np.eye(k)
             w = np.concatenate([faced, arrived], axis=1)
         return cells, w / w.sum(axis=0, keepdims=True)
+
+    def _turn_table(self) -> dict:
+        """The places whose passages all have bearings, padded to the largest number of passages, for turning them
+        all at once (``fusion.places.moves.PlaceMotion.rotate``): their cells facing each passage and arrival
+        cells (padding: ``n_cells``, a cell holding nothing), the bearings faced and the arrival headings (nan);
+        ``others``: the places turned one by one (``turn_weights``)."""
+        degree = [len(o) for o in self.out_edges]
+        full = [i for i, o in enumerate(self.out_edges) if o and np.isfinite(self.bearings[o]).all()]
+        full = [i for i in full if np.isfinite(self.bearings[self.in_edges[i]]).all()]
+        width = max((degree[i] for i in full), default=0)
+        faced = np.full((len(full), width), self.n_cells)
+        arrived = np.full((len(full), width), self.n_cells)
+        faced_b = np.full((len(full), width), np.nan)
+        arrived_b = np.full((len(full), width), np.nan)
+        for row, place in enumerate(full):
+            onward, came = self.out_edges[place], self.in_edges[place]
+            faced[row, : len(onward)] = self.offsets[onward]
+            faced_b[row, : len(onward)] = self.bearings[onward]
+            arrived[row, : len(came)] = self.arrival[came]
+            arrived_b[row, : len(came)] = self.bearings[came]
+        others = [i for i in range(self.graph.n_cells) if self.out_edges[i] and i not in set(full)]
+        return {"faced": faced, "arrived": arrived, "faced_b": faced_b, "arrived_b": arrived_b, "others": others}
 
     def _snap_operator(self):
         """Sparse matrix moving the mass one step from a place onto that place (the turn rule's lag): the last step

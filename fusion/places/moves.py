@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fusion.places.frame import MIN_TURN_DEG, PlaceFrame
+from fusion.places.frame import FLOOR, MIN_TURN_DEG, PlaceFrame
 
 __all__ = ["PlaceMove", "PlaceMotion", "gaussian_taps"]
 
@@ -115,10 +115,24 @@ class PlaceMotion:
         return out
 
     def rotate(self, p: np.ndarray, turn_rad: float, sigma_rad: float) -> np.ndarray:
-        """The density after turning ``turn_rad`` at a place: the cells at every place mix by the turn rule."""
+        """The density after turning ``turn_rad`` at a place: the cells at every place mix by the turn rule
+        (``PlaceFrame.turn_weights``; the places with bearings all at once)."""
         frame = self.frame
         out = p.copy()
-        for place in range(frame.graph.n_cells):
+        table = frame.turn_table
+        if len(table["faced"]):
+            padded = np.append(p, 0.0)
+            cells = np.concatenate([table["faced"], table["arrived"]], axis=1)
+            headings = np.concatenate([table["faced_b"], table["arrived_b"]], axis=1) + turn_rad
+            gap = (table["faced_b"][:, :, None] - headings[:, None, :] + math.pi) % (2 * math.pi) - math.pi
+            w = np.exp(-0.5 * (gap / sigma_rad) ** 2) + FLOOR
+            w[np.isnan(w)] = 0.0  # padding: no such passage to face
+            w /= np.maximum(w.sum(axis=1, keepdims=True), 1e-300)
+            turned = np.einsum("mij,mj->mi", w, padded[cells])
+            real = table["faced"] < frame.n_cells
+            out[table["faced"][real]] = turned[real]
+            out[table["arrived"][table["arrived"] < frame.n_cells]] = 0.0
+        for place in table["others"]:
             cells, w = frame.turn_weights(place, turn_rad, sigma_rad)
             k = w.shape[0]
             out[cells[:k]] = w @ p[cells]

@@ -19,7 +19,7 @@ from fusion.text import literal
 from fusion.view.html_page import pyplot
 from fusion.view.site_preview import PREVIEW_MARK
 
-__all__ = ["draw_graph", "draw_run", "place_run_table", "describe_graph"]
+__all__ = ["draw_graph", "draw_run", "place_run_table", "describe_graph", "graph_targets_table"]
 MAX_LABELS = 80
 """Places labelled by name on a picture (more would hide the graph; our choice)."""
 _FEATURE_STYLE = {"door": ("s", "tab:brown"), "junction": ("D", "tab:blue"), "dead end": ("X", "tab:gray")}
@@ -188,3 +188,38 @@ def _pieces(graph) -> int:
             seen |= np.isfinite(d[i])
             count += 1
     return count
+
+
+def graph_targets_table(name: str, rows) -> Table:
+    """``fusion targets`` on a place graph: per back end, runs that found themselves from an unknown start (target
+    95%) and carries found again within ``CARRY_PLACES`` distinctive places (target 90%)."""
+    from fusion.places.targets import CARRY_PLACES
+
+    table = Table(title=f"{literal(name)}: finding itself on the graph")
+    for column in ("back end", "found from the start", "median places", "carries found again", "median places"):
+        table.add_column(column, justify="right" if column != "back end" else "left")
+    for r in rows:
+        start_share = r.found / r.seeds if r.seeds else 0.0
+        carry_share = r.carried_found / r.carries if r.carries else None
+        start_ok = "met" if start_share >= 0.95 else "not met"
+        carry = (
+            "no carry"
+            if carry_share is None
+            else f"{r.carried_found}/{r.carries} within {CARRY_PLACES} ({carry_share:.0%}, "
+            + ("met)" if carry_share >= 0.9 else "not met)")
+        )
+        med = GraphTargetMedian(r)
+        table.add_row(r.backend, f"{r.found}/{r.seeds} ({start_share:.0%}, {start_ok})", med.start, carry, med.carry)
+    table.caption = (
+        "Each seed starts the route at another of its places (fusion/places/targets.py). Targets: found from an unknown "
+        f"start in 95% of seeds; found again within {CARRY_PLACES} distinctive places of a carry in 90%."
+    )
+    return table
+
+
+class GraphTargetMedian:
+    """The medians of a ``GraphTarget`` in words."""
+
+    def __init__(self, row):
+        self.start = "—" if not row.places else f"{row.median(row.places):g}"
+        self.carry = "—" if not row.carried_places else f"{row.median(row.carried_places):g}"
