@@ -204,4 +204,4 @@ def test_readings_that_rule_out_little_do_not_vouch_for_the_belief():
 def test_targets_on_a_place_graph(capsys):
     assert main(["targets", "--case", str(BASEMENT), "--seeds", "2", "--backend", "bayes"]) == 0
     out = capsys.readouterr().out
-    assert "found from the start" in out and "2/2" in out
+    assert "finding itself on the graph" in out and "2/2 (100%" in out
