@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 
 from fusion.figures import TickFigures
 from fusion.monitor.at_fault import ReadingAtFault
+from fusion.places.frame import PlaceFix
 
 __all__ = ["Decision"]
 
@@ -35,6 +36,8 @@ class Decision:
     pairs: list[tuple[str, str, float]] = field(default_factory=list)
     # At an action: the blamed sensor's reading that conflicted most, against the estimate before the tick.
     at_fault: ReadingAtFault | None = None
+    # On a place graph: the most probable place, its probability and the most probable cell in words.
+    place: PlaceFix | None = None
 
     def to_record(self) -> dict:
         return {
@@ -60,4 +63,5 @@ class Decision:
                 "conflict": round(self.at_fault.conflict, 6),
                 "said": self.at_fault.said,
             },
+            **({} if self.place is None else {"place": self.place.to_record()}),
         }

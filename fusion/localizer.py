@@ -353,6 +353,7 @@ class Localizer:
     ) -> Decision:
         est = self.filter.pose_estimate()
         x, y, heading = est.x_m, est.y_m, est.heading_rad
+        fix = getattr(self.sensors.grid, "fix", None)  # a frame of places says where in words
         if self._pending is not None:  # carried along by the odometry not yet applied to the belief
             x, y, heading = moved_pose(x, y, heading, self._pending.reading)
         return Decision(
@@ -372,6 +373,7 @@ class Localizer:
             time.perf_counter() - start,
             list(pairs),
             fault,
+            None if fix is None else fix(self.filter.distribution()),
         )
 
     def _unchanged(self, t, rejected, start) -> Decision:

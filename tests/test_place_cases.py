@@ -205,3 +205,26 @@ def test_targets_on_a_place_graph(capsys):
     assert main(["targets", "--case", str(BASEMENT), "--seeds", "2", "--backend", "bayes"]) == 0
     out = capsys.readouterr().out
     assert "finding itself on the graph" in out and "2/2 (100%" in out
+
+
+def test_stream_on_a_place_graph_answers_every_line_with_the_place():
+    import io
+
+    from fusion.places.run import place_localizer
+    from fusion.stream import stream
+
+    case = load_place_case(BASEMENT)
+    ticks = simulate_places(case, seed=2)[:60]
+    lines = [json.dumps(o.to_record()) for t in ticks for o in t.observations]
+    lines.insert(5, '{"t": 1.0, "sensor": "door spotter", "kind": "feature", "seen": "yes"}')
+    loc = place_localizer(case, "evidential")
+    loc.start_with(case.frame.start_prior(case.graph.places[ticks[0].truth.a]))
+    out, err = io.StringIO(), io.StringIO()
+    written, rejected = stream(loc, io.BytesIO(("\n".join(lines) + "\n").encode()), out, err)
+    answers = [json.loads(x) for x in out.getvalue().splitlines()]
+    assert [a["line"] for a in answers] == list(range(1, len(lines) + 1)) and rejected == 1
+    assert "must be true or false" in answers[5]["error"]
+    decided = [a for a in answers if "place" in a]
+    assert len(decided) == written and decided[-1]["place"]["share"] > 0.5
+    truth = ticks[-1].truth
+    assert decided[-1]["place"]["name"] in {case.graph.places[truth.a], case.graph.places[truth.b]}

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from fusion.errors import PoseError, RuleError, SiteError
-from fusion.places.filters import PlaceContourFilter, PlaceHistogramFilter, build_on, place_fix
+from fusion.places.filters import PlaceContourFilter, PlaceHistogramFilter, build_on
 from fusion.places.frame import FLOOR, PlaceFrame
 from fusion.places.graph import PlaceGraph
 from fusion.places.moves import PlaceMotion, PlaceMove
@@ -207,7 +207,7 @@ def test_three_door_corridor_after_fox_burgard_thrun():
         peak = frame.arrival[frame.edge_between("door 2", "door 3")]
         assert int(np.argmax(p)) == peak
         assert abs(p[peak] - share) < 1e-9, (name, p[peak], share)
-        assert place_fix(frame, p).place == "door 3"
+        assert frame.fix(p).place == "door 3"
 
 
 def test_evidential_equals_bayes_with_reliable_bayesian_evidence():

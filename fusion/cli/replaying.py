@@ -8,7 +8,7 @@ import sys
 from fusion import SAFETY_NOTICE
 from fusion.cli.opening import notice, open_case, progress_bar
 from fusion.cli.outputs import calibration_name, claim_output, where
-from fusion.errors import InputFileError
+from fusion.errors import FusionError, InputFileError
 from fusion.text import literal, plain
 from fusion.words import plural
 
@@ -101,8 +101,11 @@ def _layout_of(args: argparse.Namespace, case):
 
 def stream_command(args: argparse.Namespace) -> int:
     from fusion.localizer import Localizer
+    from fusion.places.case import is_place_case
     from fusion.stream import stream
 
+    if is_place_case(args.site):
+        return _stream_on_graph(args)
     case = open_case(args.site, args.calibration)
     loc = Localizer.from_case(case, args.backend)
     if args.start:
@@ -111,6 +114,28 @@ def stream_command(args: argparse.Namespace) -> int:
         start = parse_start(args.start)
         loc.start_anywhere() if start == ANYWHERE else loc.start_at(*start)
     print(f"fusion stream: {args.backend} back end on {plain(case.site.name)}; {SAFETY_NOTICE}", file=sys.stderr)
+    written, rejected = stream(loc)
+    print(f"fusion stream: {plural(written, 'decision')}, {plural(rejected, 'line')} rejected", file=sys.stderr)
+    return 0
+
+
+def _stream_on_graph(args: argparse.Namespace) -> int:
+    """``fusion stream`` on a place-graph site: ``--start`` is "anywhere" (the default), a place, or "PLACE,TOWARD"."""
+    from fusion.io.start_pose import ANYWHERE
+    from fusion.places.case import load_place_case
+    from fusion.places.run import place_localizer
+    from fusion.stream import stream
+
+    if args.calibration:
+        raise FusionError("--calibration is not read for place-graph sites yet; stream without it")
+    case = load_place_case(args.site)
+    loc = place_localizer(case, args.backend)
+    if args.start and args.start.strip().lower() != ANYWHERE:
+        loc.start_with(case.frame.start_prior(args.start))
+    print(
+        f"fusion stream: {args.backend} back end on the place graph of {plain(case.name)}; {SAFETY_NOTICE}",
+        file=sys.stderr,
+    )
     written, rejected = stream(loc)
     print(f"fusion stream: {plural(written, 'decision')}, {plural(rejected, 'line')} rejected", file=sys.stderr)
     return 0

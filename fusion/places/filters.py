@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import copy
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
@@ -25,25 +24,7 @@ from fusion.errors import RuleError
 from fusion.places.frame import PlaceFrame
 from fusion.places.moves import PlaceMotion, PlaceMove
 
-__all__ = ["PlaceHistogramFilter", "PlaceContourFilter", "PlaceFix", "place_fix", "estimate_on_graph", "build_on"]
-
-
-@dataclass(frozen=True)
-class PlaceFix:
-    """Where a belief on a graph puts the robot: the most probable place and the probability it holds
-    (every cell counted for the nearer end of its passage), and the most probable cell in words."""
-
-    place: str
-    share: float
-    cell: int
-    where: str
-
-
-def place_fix(frame: PlaceFrame, p: np.ndarray) -> PlaceFix:
-    per_place = frame.place_belief(p)
-    best = int(np.argmax(per_place))
-    cell = int(np.argmax(p))
-    return PlaceFix(frame.graph.places[best], float(per_place[best]), cell, frame.describe(cell))
+__all__ = ["PlaceHistogramFilter", "PlaceContourFilter", "estimate_on_graph", "build_on"]
 
 
 def estimate_on_graph(frame: PlaceFrame, p: np.ndarray) -> PoseEstimate:

@@ -31,13 +31,14 @@ last steps, weighted alike.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
 from fusion.errors import PoseError, SiteError
 from fusion.places.graph import PlaceGraph
 
-__all__ = ["PlaceFrame", "FLOOR", "MIN_TURN_DEG", "TURN_TOLERANCE_DEG"]
+__all__ = ["PlaceFrame", "PlaceFix", "FLOOR", "MIN_TURN_DEG", "TURN_TOLERANCE_DEG"]
 
 FLOOR = 1e-3
 """Weight of every onward passage beside the turn rule's (our choice: one in a thousand)."""
@@ -50,6 +51,20 @@ source: corridors meet at roughly, not exactly, the angles a plan shows)."""
 
 def _wrap(angle):
     return (np.asarray(angle) + math.pi) % (2 * math.pi) - math.pi
+
+
+@dataclass(frozen=True)
+class PlaceFix:
+    """Where a belief on a graph puts the robot: the most probable place and the probability it holds (every cell
+    counted for the nearer end of its passage), and the most probable cell, also in words."""
+
+    place: str
+    share: float
+    cell: int
+    where: str
+
+    def to_record(self) -> dict:
+        return {"name": self.place, "share": round(self.share, 6), "where": self.where}
 
 
 class PlaceFrame:
@@ -102,6 +117,21 @@ class PlaceFrame:
         e = self.out_edges[a][0] if toward is None else self.edge_between(place, toward)
         return self.cell_on(e, along_m)
 
+    def start_prior(self, text: str) -> np.ndarray:
+        """The prior of a start given as "PLACE" (every cell at the place alike) or "PLACE,TOWARD" (at the place,
+        facing the passage to TOWARD); ``PoseError`` naming the places when it names none of the graph's."""
+        place, _, toward = (part.strip() for part in text.partition(","))
+        prior = np.zeros(self.n_cells)
+        if toward:
+            prior[self.cell_of(place, toward)] = 1.0
+            return prior
+        at = self.graph.cell_of(place)
+        prior[self.offsets[self.out_edges[at]]] = 1.0
+        prior[self.arrival[self.in_edges[at]]] = 1.0
+        if not prior.any():
+            raise PoseError(f"place {place!r} has no passage, so the robot cannot be there")
+        return prior
+
     def cell_on(self, e: int, along_m: float) -> int:
         """The cell ``along_m`` metres along directed passage ``e`` (from half a step before its end: its arrival cell)."""
         step = self.length_m[self.offsets[e]] / self.steps[e]
@@ -135,6 +165,13 @@ class PlaceFrame:
         """Probability per place: every cell counts for the nearer end of its passage."""
         nearer, _ = self.place_distance()
         return np.bincount(nearer, weights=p, minlength=self.graph.n_cells)
+
+    def fix(self, p: np.ndarray) -> PlaceFix:
+        """The ``PlaceFix`` of probabilities ``p`` over the cells."""
+        per_place = self.place_belief(p)
+        best = int(np.argmax(per_place))
+        cell = int(np.argmax(p))
+        return PlaceFix(self.graph.places[best], float(per_place[best]), cell, self.describe(cell))
 
     def positions(self) -> np.ndarray:
         """(n_cells, 2): each cell drawn on the graph's layout (``PlaceGraph.layout``), in metres (read-only)."""

@@ -17,10 +17,9 @@ import numpy as np
 
 from fusion.monitor.policy import ALERT, QUARANTINE, RELOCALIZE
 from fusion.places.case import PlaceCase
-from fusion.places.filters import place_fix
 from fusion.places.simulate import simulate_places
 
-__all__ = ["PlaceRow", "PlaceRunResult", "Episode", "run_places", "RIGHT_STEPS"]
+__all__ = ["PlaceRow", "PlaceRunResult", "Episode", "run_places", "place_localizer", "RIGHT_STEPS", "HOLD_S"]
 
 HOLD_S = 15.0
 """How long the estimate must stay at the right place, from a start or a carry, for the back end to have found
@@ -134,16 +133,23 @@ def _distinctive_reached(case: PlaceCase, ticks) -> np.ndarray:
     return np.array(out)
 
 
-def run_places(case: PlaceCase, backends=None, seed: int | None = None, on_tick=None) -> PlaceRunResult:
-    """Simulate ``case`` and run its back ends side by side on the same readings."""
+def place_localizer(case: PlaceCase, backend: str, sensors=None):
+    """A ``Localizer`` of ``backend`` on the case's graph, with its policy and rule (``sensors``: the case's
+    sensor set to share, or None to build one)."""
     from fusion.localizer import Localizer
     from fusion.monitor import Policy
 
+    sensors = case.sensor_set() if sensors is None else sensors
+    policy = Policy(**case.run.policy)
+    return Localizer(backend, sensors, policy, rule=case.run.rule, motion=case.run.motion, seed=case.run.seed)
+
+
+def run_places(case: PlaceCase, backends=None, seed: int | None = None, on_tick=None) -> PlaceRunResult:
+    """Simulate ``case`` and run its back ends side by side on the same readings."""
     backends = tuple(backends or case.run.backends)
     sensors = case.sensor_set()
     frame = case.frame
-    policy = Policy(**case.run.policy)
-    localizers = {b: Localizer(b, sensors, policy, rule=case.run.rule, motion=case.run.motion) for b in backends}
+    localizers = {b: place_localizer(case, b, sensors) for b in backends}
     ticks = simulate_places(case, seed=seed)
     result = PlaceRunResult(case, ticks, backends=backends)
     if ticks and case.route.start_known:
@@ -159,7 +165,7 @@ def run_places(case: PlaceCase, backends=None, seed: int | None = None, on_tick=
         for name, loc in localizers.items():
             d = loc.step(odometry, readings)
             decisions[name] = d
-            fix = place_fix(frame, loc.filter.distribution())
+            fix = frame.fix(loc.filter.distribution())
             error = frame.travel_m(fix.cell, truth_cell)
             right = error <= RIGHT_STEPS * frame.resolution_m + 1e-9
             row = PlaceRow(
