@@ -228,3 +228,27 @@ def test_stream_on_a_place_graph_answers_every_line_with_the_place():
     assert len(decided) == written and decided[-1]["place"]["share"] > 0.5
     truth = ticks[-1].truth
     assert decided[-1]["place"]["name"] in {case.graph.places[truth.a], case.graph.places[truth.b]}
+
+
+def test_the_live_view_draws_the_graph_with_each_back_ends_belief():
+    from rich.console import Console
+
+    from fusion.places.run import run_places
+    from fusion.view.place_live import GraphRunView
+
+    case = load_place_case(BASEMENT)
+    view = GraphRunView(case, ("bayes", "evidential"), 1074)
+    ticks = []
+
+    def on_tick(tick, decisions, localizers):
+        view.on_tick(tick, decisions, localizers)
+        ticks.append(tick)
+        if len(ticks) == 120:
+            raise StopIteration
+
+    with pytest.raises(StopIteration):
+        run_places(case, on_tick=on_tick)
+    console = Console(width=120, height=40, record=True, color_system=None)
+    console.print(view)
+    screen = console.export_text()
+    assert "◆" in screen and "○" in screen and screen.count("holds") == 2 and "error along the graph" in screen

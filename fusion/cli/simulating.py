@@ -119,7 +119,17 @@ def _run_on_graph(args: argparse.Namespace) -> int:
     notice(console)
     for w in case.warnings:
         console.print(f"[yellow]warning:[/] {literal(w)}")
-    result = run_places(case, backends=backends)
+    if console.is_terminal and not args.quiet:
+        from rich.live import Live
+
+        from fusion.places.simulate import simulate_places
+        from fusion.view.place_live import GraphRunView
+
+        view = GraphRunView(case, backends, len(simulate_places(case)))
+        with Live(view, console=console, refresh_per_second=8, transient=False):
+            result = run_places(case, backends=backends, on_tick=view.on_tick)
+    else:
+        result = run_places(case, backends=backends)
     write_place_results(result, folder.path)
     folder.finish(list(PLACE_FILES))
     console.print(place_run_table(result))

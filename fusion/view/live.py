@@ -113,6 +113,8 @@ def sparkline(values, width: int = 44, top: float | None = None) -> str:
 class RunView:
     """Holds what the live view shows and renders it; the runner feeds it one tick at a time."""
 
+    legend = None  # the line of glyphs under the header (``LEGEND`` when None)
+
     def __init__(self, case, backends, total_ticks: int):
         self.case, self.backends = case, tuple(backends)
         self.history = {b: [] for b in self.backends}
@@ -136,11 +138,15 @@ class RunView:
             plane = f.distribution().reshape(localizers[name].sensors.grid.shape).sum(axis=0)
             self.latest[name] = (d, plane, f.overlay())
             if d.action != "carry on":
-                self.events.append(
-                    f"[bold]{tick.truth.t:6.2f} s[/] {name}: [bold]{d.action}[/] — "
-                    + literal(d.reasons[0] if d.reasons else "")
-                )
+                self._event(tick, name, d)
         self.progress.advance(self.task)
+
+    def _event(self, tick, name: str, d) -> None:
+        """A monitor action, one line: time, back end, action, its first reason."""
+        self.events.append(
+            f"[bold]{tick.truth.t:6.2f} s[/] {name}: [bold]{d.action}[/] — "
+            + literal(d.reasons[0] if d.reasons else "")
+        )
 
     def _panel(self, name: str, map_width: int) -> Panel:
         if name not in self.latest:
@@ -206,7 +212,7 @@ class RunView:
         head = Text.from_markup(
             f"[bold]{literal(self.case.name)}[/]   t = {t:6.2f} s   injected now: {literal(faults)}"
         )
-        legend = Text.from_markup(LEGEND, style="dim")
+        legend = Text.from_markup(self.legend or LEGEND, style="dim")
         used = sum(_lines(console, part, width) for part in (head, legend, maps)) + 1  # and the progress bar
         room = max(1, height - used - 2)  # the events panel's own border takes two
         lines = [Text.from_markup(e, overflow="ellipsis") for e in self.events[-room:]]
