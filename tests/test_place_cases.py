@@ -252,3 +252,19 @@ def test_the_live_view_draws_the_graph_with_each_back_ends_belief():
     console.print(view)
     screen = console.export_text()
     assert "◆" in screen and "○" in screen and screen.count("holds") == 2 and "error along the graph" in screen
+
+
+def test_compare_on_a_place_graph_writes_runs_and_verdicts(tmp_path, capsys):
+    out = tmp_path / "cmp"
+    argv = ["compare", str(BASEMENT), "--seeds", "2", "--rule", "dempster", "--rule", "conjunctive", "--out", str(out)]
+    assert main(argv) == 0
+    said = capsys.readouterr().out
+    assert "alerts" in said and "Bayes" in said
+    rows = (out / "runs.csv").read_text().splitlines()
+    assert len(rows) == 1 + 3 * 2  # header, then 3 settings × 2 seeds
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["verdicts"] and {f["figure"] for f in summary["figures"]} >= {"right_share", "carry_found"}
+    # Dempster's rule and the unnormalised conjunctive rule hold the same contour up to scale: same figures.
+    by = {r.split(",")[0] + r.split(",")[1]: r.split(",")[4:-1] for r in rows[1:]}
+    assert by["evidential-dempster1"] == by["evidential-conjunctive1"]
+    assert main(["compare", str(BASEMENT), "--backend", "gaussian", "--out", str(tmp_path / "g")]) != 0

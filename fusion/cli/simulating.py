@@ -176,9 +176,12 @@ def compare_command(args: argparse.Namespace) -> int:
     from fusion.cli.sweep_progress import SweepProgress
     from fusion.compare import SweepInterrupted, run_sweep, sweep_digest
     from fusion.compare.conclusion import conclude
+    from fusion.places.case import is_place_case
     from fusion.view.compare_report import write_report
     from fusion.view.compare_tables import comparison_text
 
+    if is_place_case(args.case):
+        return _compare_on_graph(args)
     _known_figure(args.rank_by)
     case, settings, spec, seeds = _sweep_plan(args)
     runs = len(settings) * spec.seeds
@@ -219,6 +222,40 @@ def compare_command(args: argparse.Namespace) -> int:
     for part in comparison_text(found, console.width):
         console.print(part)
     console.print(f"written to [bold]{literal(out_dir)}[/]: {', '.join(files)}, and runs/ (one file per run)")
+    return 0
+
+
+def _compare_on_graph(args: argparse.Namespace) -> int:
+    """``fusion compare`` on a place-graph case (``fusion.places.compare``): one process, the settings of
+    --backend and --rule (default: the case's back ends and rule), --seeds (default 20)."""
+    from rich.console import Console
+
+    from fusion.places.case import load_place_case
+    from fusion.places.compare import compare_graph, graph_settings
+    from fusion.places.filters import build_on
+    from fusion.places.outputs import write_comparison
+    from fusion.view.place_graph import graph_compare_table
+
+    case = load_place_case(args.case)
+    for option in ("reliability", "fault_rate", "calibration", "scheduler"):
+        if getattr(args, option, None):
+            raise FusionError(f"--{option.replace('_', '-')} is not read for place-graph cases yet; compare without it")
+    settings = graph_settings(case, args.backend, args.rule)
+    for s in settings:
+        build_on(s.backend, case.frame, rule=s.rule or case.run.rule)  # refuses what graphs do not run, before any work
+    seeds = list(range(case.run.seed, case.run.seed + (args.seeds or 20)))
+    work = {"case": where(args.case), "settings": [s.key for s in settings], "seeds": [seeds[0], len(seeds)]}
+    folder = claim_output(args, "compare", args.case, work, ["+".join(s.key for s in settings)])
+    console = Console()
+    notice(console)
+    with console.status(f"{len(settings)} settings × {len(seeds)} seeds on the graph…"):
+        found = compare_graph(case, seeds, settings)
+    files = write_comparison(found, folder.path)
+    folder.finish(files)
+    console.print(graph_compare_table(found))
+    for v in found.verdicts:
+        console.print(f"• {literal(v.sentence)}")
+    console.print(f"written to [bold]{literal(folder.path)}[/]: {', '.join(files)}")
     return 0
 
 

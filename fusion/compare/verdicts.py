@@ -18,10 +18,10 @@ INTERVAL = "95% bootstrap interval (BCa, 2,000 resamples; Efron & Tibshirani 199
 RESAMPLES = 2000
 
 
-def summarise(records: list[RunRecord], settings: list[Setting], level: float = 0.95):
+def summarise(records: list[RunRecord], settings: list[Setting], level: float = 0.95, table: dict | None = None):
     """One row per setting and figure: runs, mean and its bootstrap interval over seeds (pandas DataFrame).
 
-    The interval is the bias-corrected and accelerated bootstrap of the mean (Efron & Tibshirani 1993, An
+    ``table``: the figures' definitions by name (``FIGURES`` when None).  The interval is the bias-corrected and accelerated bootstrap of the mean (Efron & Tibshirani 1993, An
     Introduction to the Bootstrap, ch. 14; scipy.stats.bootstrap), seeded so that it is reproducible.  Being
     made of means of resampled runs, it never leaves the range a run's figure can take (an error is never
     below 0 m, a share never above 1), which a Student-t interval on skewed figures does."""
@@ -30,7 +30,7 @@ def summarise(records: list[RunRecord], settings: list[Setting], level: float = 
     rows = []
     for s in settings:
         mine = [r for r in records if r.key == s.key]
-        for name in FIGURES:
+        for name in FIGURES if table is None else table:
             values = np.array([r.value(name) for r in mine], dtype=float)
             values = values[np.isfinite(values)]
             mean = float(values.mean()) if len(values) else math.nan
@@ -74,12 +74,16 @@ def interval(values: np.ndarray, level: float = 0.95) -> tuple[float, float]:
     return math.nan, math.nan
 
 
-def verdicts(records: list[RunRecord], settings: list[Setting], figures: Iterable[str] = FIGURES) -> list[Verdict]:
-    """Per figure: the best setting, the runner-up, and how sure that order is (paired over seeds)."""
+def verdicts(
+    records: list[RunRecord], settings: list[Setting], figures: Iterable[str] = FIGURES, table: dict | None = None
+) -> list[Verdict]:
+    """Per figure: the best setting, the runner-up, and how sure that order is (paired over seeds).  ``table``: the
+    figures' definitions (``Figure``) by name, ``FIGURES`` when None (a place graph has its own)."""
+    table = FIGURES if table is None else table
     by_key = {s.key: s for s in settings}
     out = []
     for name in figures:
-        fig = FIGURES[name]
+        fig = table[name]
         sign = 1.0 if fig.better == "low" else -1.0
         per = {}
         for s in settings:

@@ -71,3 +71,29 @@ def write_place_results(result: PlaceRunResult, out_dir) -> Path:
         last = result.ticks[-1].truth
         atomic_write(out / "beliefs.png", draw_run(result.case, result.final, last.cell(frame), last.t))
     return out
+
+
+def write_comparison(found, out_dir) -> list[str]:
+    """``runs.csv`` (one row per setting and seed: its figures) and ``summary.json`` (means, intervals, verdicts) of
+    a comparison on a graph; returns the file names."""
+    from fusion.places.compare import GRAPH_FIGURES
+
+    out = Path(out_dir)
+    buf = io.StringIO()
+    writer = csv.writer(buf)
+    writer.writerow(["key", "seed", "backend", "rule", *GRAPH_FIGURES])
+    for r in found.records:
+        writer.writerow(
+            [r.key, r.seed, r.setting["backend"], r.setting["rule"] or "", *(r.figures[n] for n in GRAPH_FIGURES)]
+        )
+    atomic_write(out / "runs.csv", buf.getvalue())
+    summary = {
+        "case": found.case,
+        "tool": f"fusion {__version__}",
+        "notice": SAFETY_NOTICE,
+        "seeds": list(found.seeds),
+        "figures": found.summary.replace({float("nan"): None}).to_dict(orient="records"),
+        "verdicts": [v.sentence for v in found.verdicts],
+    }
+    atomic_write(out / "summary.json", json.dumps(summary, indent=2, allow_nan=False) + "\n")
+    return ["runs.csv", "summary.json"]

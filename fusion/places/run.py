@@ -43,6 +43,7 @@ class PlaceRow:
     reasons: tuple[str, ...]
     carried: bool
     conflict: float
+    seconds: float = 0.0  # wall time of the localizer's step
 
 
 @dataclass(frozen=True)
@@ -181,6 +182,7 @@ def run_places(case: PlaceCase, backends=None, seed: int | None = None, on_tick=
                 tuple(d.reasons),
                 tick.truth.carried,
                 float(d.figures.conflict),
+                d.seconds,
             )
             result.rows.append(row)
         if on_tick is not None:

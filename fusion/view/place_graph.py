@@ -19,7 +19,7 @@ from fusion.text import literal
 from fusion.view.html_page import pyplot
 from fusion.view.site_preview import PREVIEW_MARK
 
-__all__ = ["draw_graph", "draw_run", "place_run_table", "describe_graph", "graph_targets_table"]
+__all__ = ["draw_graph", "draw_run", "place_run_table", "describe_graph", "graph_targets_table", "graph_compare_table"]
 MAX_LABELS = 80
 """Places labelled by name on a picture (more would hide the graph; our choice)."""
 _FEATURE_STYLE = {"door": ("s", "tab:brown"), "junction": ("D", "tab:blue"), "dead end": ("X", "tab:gray")}
@@ -223,3 +223,28 @@ class GraphTargetMedian:
     def __init__(self, row):
         self.start = "—" if not row.places else f"{row.median(row.places):g}"
         self.carry = "—" if not row.carried_places else f"{row.median(row.carried_places):g}"
+
+
+def graph_compare_table(found) -> Table:
+    """``fusion compare`` on a graph: per figure and setting, the mean over seeds and its 95% interval."""
+    from fusion.places.compare import GRAPH_FIGURES
+
+    table = Table(
+        title=f"{literal(found.case)}: {len(found.settings)} settings × {len(found.seeds)} seeds on the graph"
+    )
+    table.add_column("figure")
+    for s in found.settings:
+        table.add_column(s.label, justify="right")
+    summary = found.summary
+    for name, fig in GRAPH_FIGURES.items():
+        cells = []
+        for s in found.settings:
+            row = summary[(summary["key"] == s.key) & (summary["figure"] == name)].iloc[0]
+            cells.append("—" if row["runs"] == 0 else f"{row['mean']:.3g} [{row['low']:.3g}–{row['high']:.3g}]")
+        better = "↑" if fig.better == "high" else "↓"
+        table.add_row(f"{fig.label}{' (' + fig.unit + ')' if fig.unit else ''} {better}", *cells)
+    table.caption = (
+        "Mean over seeds [95% bootstrap interval]; ↑ higher is better, ↓ lower. Each seed starts the route at another "
+        "of its places, with identical readings for every setting."
+    )
+    return table
