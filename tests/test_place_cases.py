@@ -268,3 +268,32 @@ def test_compare_on_a_place_graph_writes_runs_and_verdicts(tmp_path, capsys):
     by = {r.split(",")[0] + r.split(",")[1]: r.split(",")[4:-1] for r in rows[1:]}
     assert by["evidential-dempster1"] == by["evidential-conjunctive1"]
     assert main(["compare", str(BASEMENT), "--backend", "gaussian", "--out", str(tmp_path / "g")]) != 0
+
+
+def test_inspect_a_graph_log_finds_the_carry_and_sets_aside_what_it_cannot_use(tmp_path, capsys):
+    run = tmp_path / "run"
+    assert main(["run", str(BASEMENT), "--out", str(run), "--quiet"]) == 0
+    log = tmp_path / "log.jsonl"
+    lines = (run / "observations.jsonl").read_text().splitlines()
+    lines.insert(10, '{"t": 1.0, "sensor": "bumper ranger", "kind": "ranging", "ranges_m": [1.0]}')  # a metric sensor
+    lines.insert(20, "not json")
+    log.write_text("\n".join(lines) + "\n")
+    truth = tmp_path / "truth.jsonl"
+    truth.write_text(
+        (run / "truth.jsonl").read_text() + '{"t": 999, "from": "roof", "to": "lift lobby", "along_m": 1}\n'
+    )
+    out = tmp_path / "inspect"
+    argv = ["inspect", str(log), "--site", str(BASEMENT), "--truth", str(truth), "--out", str(out)]
+    assert main(argv) == 0
+    said = " ".join(capsys.readouterr().out.split())
+    assert "conflict episode" in said and "Median error along the graph" in said
+    aside = [json.loads(x) for x in (out / "set_aside.jsonl").read_text().splitlines()]
+    reasons = " ".join(a["reason"] for a in aside)
+    assert len(aside) == 3 and "bumper ranger" in reasons and "roof" in reasons
+    episodes = json.loads((out / "episodes.json").read_text())
+    carried_at = next(
+        json.loads(x)["t"] for x in (run / "truth.jsonl").read_text().splitlines() if json.loads(x)["carried"]
+    )
+    assert any(e["start_t"] >= carried_at and e["actions"] for e in episodes)  # the carry is caught and acted on
+    assert (out / "beliefs.png").stat().st_size > 0
+    assert main(["inspect", str(log), "--site", str(BASEMENT), "--layout", str(log), "--out", str(tmp_path / "x")]) != 0

@@ -76,7 +76,7 @@ def parse_case(text: str, path: str = "<case>") -> Case:
     if "places" in data:
         r.fail(
             ("places",),
-            "this is a place-graph case ([places]); 'fusion run', 'check', 'compare', 'stream' and 'targets' take it; 'inspect', 'soak' and 'calibrate' do not yet",
+            "this is a place-graph case ([places]); 'fusion run', 'check', 'compare', 'inspect', 'stream' and 'targets' take it; 'soak' and 'calibrate' do not yet",
         )
     r.only(data, (), {"case", "site", "sensors", "route", "run", "compare"})
     head = r.table(data, (), "case")

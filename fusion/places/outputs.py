@@ -39,7 +39,9 @@ def write_place_results(result: PlaceRunResult, out_dir) -> Path:
         out / "observations.jsonl",
         "".join(json.dumps(o.to_record()) + "\n" for t in result.ticks for o in t.observations),
     )
-    atomic_write(out / "truth.jsonl", "".join(json.dumps(t.truth.to_record()) + "\n" for t in result.ticks))
+    atomic_write(
+        out / "truth.jsonl", "".join(json.dumps(t.truth.to_record(result.case.graph)) + "\n" for t in result.ticks)
+    )
     buf = io.StringIO()
     writer = csv.writer(buf)
     writer.writerow(STEP_COLUMNS)

@@ -134,15 +134,16 @@ def _distinctive_reached(case: PlaceCase, ticks) -> np.ndarray:
     return np.array(out)
 
 
-def place_localizer(case: PlaceCase, backend: str, sensors=None):
+def place_localizer(case: PlaceCase, backend: str, sensors=None, explain: bool = False):
     """A ``Localizer`` of ``backend`` on the case's graph, with its policy and rule (``sensors``: the case's
-    sensor set to share, or None to build one)."""
+    sensor set to share, or None to build one; ``explain``: blame on every busy tick, for an investigation)."""
     from fusion.localizer import Localizer
     from fusion.monitor import Policy
 
     sensors = case.sensor_set() if sensors is None else sensors
     policy = Policy(**case.run.policy)
-    return Localizer(backend, sensors, policy, rule=case.run.rule, motion=case.run.motion, seed=case.run.seed)
+    run = case.run
+    return Localizer(backend, sensors, policy, rule=run.rule, motion=run.motion, seed=run.seed, explain=explain)
 
 
 def run_places(case: PlaceCase, backends=None, seed: int | None = None, on_tick=None) -> PlaceRunResult:

@@ -52,11 +52,12 @@ class PlaceTruth:
         e = frame.edge_between(frame.graph.places[self.a], frame.graph.places[self.b])
         return frame.cell_on(e, self.along_m)
 
-    def to_record(self) -> dict:
+    def to_record(self, graph) -> dict:
+        """The truth file's record (``fusion.places.inspect.read_truth`` reads it back): places by name."""
         return {
             "t": round(self.t, 6),
-            "from": int(self.a),
-            "to": int(self.b),
+            "from": graph.places[self.a],
+            "to": graph.places[self.b],
             "along_m": round(self.along_m, 4),
             "x_m": round(self.x_m, 4),
             "y_m": round(self.y_m, 4),

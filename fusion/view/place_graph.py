@@ -80,8 +80,9 @@ def draw_graph(case: PlaceCase) -> bytes:
     return data
 
 
-def draw_run(case: PlaceCase, beliefs: dict, truth_cell: int, t: float) -> bytes:
-    """One panel per back end (``beliefs``: name -> probability per cell) at time ``t``, the truth at ``truth_cell``."""
+def draw_run(case: PlaceCase, beliefs: dict, truth_cell: int | None, t: float) -> bytes:
+    """One panel per back end (``beliefs``: name -> probability per cell) at time ``t``, the truth at ``truth_cell``
+    (None: not known)."""
     plt = pyplot()
     frame, graph = case.frame, case.graph
     xy = graph.layout()
@@ -104,7 +105,10 @@ def draw_run(case: PlaceCase, beliefs: dict, truth_cell: int, t: float) -> bytes
             linewidths=0.3,
         )
         best = int(np.argmax(p))
-        ax.plot(*cells_xy[truth_cell], "o", mfc="none", mec="tab:red", markersize=14, mew=2, zorder=6, label="truth")
+        if truth_cell is not None:
+            ax.plot(
+                *cells_xy[truth_cell], "o", mfc="none", mec="tab:red", markersize=14, mew=2, zorder=6, label="truth"
+            )
         ax.plot(*cells_xy[best], "+", color="k", markersize=14, mew=2, zorder=7, label="estimate")
         top = int(np.argmax(per_place))
         ax.set_title(f"{name}: {graph.places[top]} holds {per_place[top]:.0%} (t = {t:.1f} s)", fontsize=9)
