@@ -294,5 +294,23 @@ def test_turning_all_places_at_once_equals_the_rule_place_by_place():
             cells, w = frame.turn_weights(place, turn, 0.5)
             expected[cells[: w.shape[0]]] = w @ p[cells]
             expected[cells[w.shape[0] :]] = 0.0
-        np.testing.assert_allclose(motion.rotate(p, turn, 0.5), expected, atol=1e-14)
-        assert abs(motion.rotate(p, turn, 0.5).sum() - 1.0) < 1e-12
+        turned = motion.rotate(p, turn, 0.5)
+        np.testing.assert_allclose(turned, expected, atol=1e-14)
+        assert turned.sum() <= 1.0 + 1e-12  # a turn toward no passage keeps less of the mass (its fit)
+
+
+def test_a_turn_toward_no_passage_is_evidence():
+    # Standing at the dead end 'north' or at the T 'hub' (south, west, east, north), equally likely: a left turn of
+    # 90° fits the T (south → west ... any passage 90° left of the one faced) and no passage of the dead end.
+    frame = junction()
+    filt = PlaceHistogramFilter(frame)
+    prior = np.zeros(frame.n_cells)
+    prior[frame.arrival[frame.edge_between("south", "hub")]] = 0.5  # at the hub, heading north
+    prior[frame.arrival[frame.edge_between("hub", "north")]] = 0.5  # at the dead end, heading north
+    filt.reset(prior)
+    for _ in range(9):
+        filt.predict(PlaceMove(0.0, math.radians(10.0)))
+    filt.predict(PlaceMove(1.0))
+    p = filt.distribution()
+    at_hub = p[frame.cell_of("hub", "west", 1.0)]
+    assert at_hub > 0.9, (at_hub, frame.describe(int(np.argmax(p))))

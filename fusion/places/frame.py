@@ -14,7 +14,9 @@ on into the passage the **turn rule** gives, one step along it:
   between c's bearing and the arriving heading, σ the junction tolerance, normalised over b's passages;
 - *turning at a place*: a turn Δ measured while the robot stands at b takes an arrival cell (heading h)
   to the cell facing c with weight exp(−½ ((β_c − h − Δ) / σ)²) + ``FLOOR``, and a cell facing c to one
-  facing c' with weight exp(−½ ((β_c' − β_c − Δ) / σ)²) + ``FLOOR``;
+  facing c' with weight exp(−½ ((β_c' − β_c − Δ) / σ)²) + ``FLOOR``; the weights are normalised only when
+  they sum to more than 1, so a turn toward no passage of the place (its fit, the sum, is small) keeps
+  little of the mass there: the turn is evidence about where the robot is;
 - turns smaller than ``MIN_TURN_DEG`` are the robot following its passage, not choosing another;
 - a robot turns at places only: a turn applied while the belief is one step from a place (odometry a little
   short or long) first moves that mass onto the place (``snap``), then turns it;
@@ -229,7 +231,9 @@ class PlaceFrame:
     def turn_weights(self, place: int, turn_rad: float, sigma_rad: float) -> tuple[np.ndarray, np.ndarray]:
         """(cells, matrix) of turning ``turn_rad`` at a place: ``cells`` are the place's cells facing its passages,
         then its arrival cells; column j of the (faced × all) matrix gives where the mass of cells[j] goes among
-        the faced cells (the turn rule)."""
+        the faced cells (the turn rule).  With bearings, a column sums to the turn's fit, min(1, Σ of its weights):
+        a turn toward no passage of the place (90° at a dead end) keeps little of the mass that stood there, and
+        the filter's normalisation moves it to the places where the turn fits."""
         onward, came = self.out_edges[place], self.in_edges[place]
         cells = np.concatenate([self.offsets[onward], self.arrival[came]])
         bearings = self.bearings[onward]
@@ -245,7 +249,8 @@ class PlaceFrame:
                 arrived = np.where(back, FLOOR, 1.0)
             faced = np.eye(k) if abs(turn_rad) < math.radians(45.0) or k == 1 else 1.0 - np.eye(k)
             w = np.concatenate([faced, arrived], axis=1)
-        return cells, w / w.sum(axis=0, keepdims=True)
+            return cells, w / w.sum(axis=0, keepdims=True)
+        return cells, w / np.maximum(w.sum(axis=0, keepdims=True), 1.0)
 
     def _turn_table(self) -> dict:
         """The places whose passages all have bearings, padded to the largest number of passages, for turning them

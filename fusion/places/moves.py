@@ -127,7 +127,7 @@ class PlaceMotion:
             gap = (table["faced_b"][:, :, None] - headings[:, None, :] + math.pi) % (2 * math.pi) - math.pi
             w = np.exp(-0.5 * (gap / sigma_rad) ** 2) + FLOOR
             w[np.isnan(w)] = 0.0  # padding: no such passage to face
-            w /= np.maximum(w.sum(axis=1, keepdims=True), 1e-300)
+            w /= np.maximum(w.sum(axis=1, keepdims=True), 1.0)  # a column sums to the turn's fit (turn_weights)
             turned = np.einsum("mij,mj->mi", w, padded[cells])
             real = table["faced"] < frame.n_cells
             out[table["faced"][real]] = turned[real]
