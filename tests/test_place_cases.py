@@ -297,3 +297,33 @@ def test_inspect_a_graph_log_finds_the_carry_and_sets_aside_what_it_cannot_use(t
     assert any(e["start_t"] >= carried_at and e["actions"] for e in episodes)  # the carry is caught and acted on
     assert (out / "beliefs.png").stat().st_size > 0
     assert main(["inspect", str(log), "--site", str(BASEMENT), "--layout", str(log), "--out", str(tmp_path / "x")]) != 0
+
+
+def test_one_sure_reading_of_each_of_two_sensors_is_not_a_move():
+    # A door detector's false alarm and a misread tag, one reading each, on two ticks: each is what the sensor's
+    # own error rates expect now and then (false_alarm_rate, false_read), so the monitor must not take them for
+    # the robot having been moved (two conflicting readings of a sensor at least make it a voice).
+    from fusion.io.observations import Observation
+    from fusion.localizer import Localizer
+    from fusion.monitor import RELOCALIZE, Policy
+    from fusion.sensors.odometry import OdometryReading
+
+    case = load_place_case(BASEMENT)
+    loc = Localizer("bayes", case.sensor_set(), Policy())
+    prior = np.zeros(case.frame.n_cells)
+    prior[case.frame.cell_of("lift lobby", "pharmacy store", 6.0)] = 1.0
+    loc.start_with(prior)
+    said = [("door spotter", "feature", True), ("tag reader", "place_marker", "B-XRAY")]
+    said += [("junction sonar", "feature", False)] * 10
+    actions = []
+    for k, (sensor, kind, reading) in enumerate(said):
+        t = 0.25 * k
+        odometry = Observation(t, "wheels", "odometry", OdometryReading(0.0))
+        actions.append(loc.step(odometry, [Observation(t, sensor, kind, reading)]).action)
+    assert RELOCALIZE not in actions, actions
+
+
+def test_a_route_longer_than_the_tick_limit_is_refused():
+    # The simulator stops at 100,000 ticks; a route it cannot finish is refused before anything runs, not cut short.
+    with pytest.raises(InputFileError, match="limit is 100,000 ticks"):
+        parse_place_case(SMALL.replace("speed_mps = 1.0", "speed_mps = 0.0001"), "small.toml")

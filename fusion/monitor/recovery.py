@@ -75,8 +75,9 @@ class Recovery:
         moment, one faulty reading absorbed would make the next good reading disagree with it.  Two sets:
 
         - persistent: sensors whose weights of conflict −log(1 − K) with it, added up (weights of
-          independent conflicts add, Shafer 1976), reach twice the weight of the conflict threshold; one
-          odd reading of a good sensor, at the time of another's fault, is not yet a second voice;
+          independent conflicts add, Shafer 1976), reach twice the weight of the conflict threshold, from two
+          readings at least that each conflict beyond it; one odd reading of a good sensor, at the time of
+          another's fault, is not yet a second voice, however sure it is;
         - against: the sensors that testify to a move (``moved_elsewhere`` wants two).  The persistent
           ones, and, when exactly one is persistent and no sensor's informative reading (ruling out at
           least half the site, see ``informative``) still fits the old place, also the sensors each of
@@ -86,6 +87,7 @@ class Recovery:
           and a lone odd sighting are faults, not a move.
         """
         weights: dict[str, float] = {}
+        voices: dict[str, int] = {}
         odd: dict[str, list[bool]] = {}
         single = weight_of_conflict(self.policy.conflict_k)
         reference = self.anchor
@@ -95,9 +97,12 @@ class Recovery:
             for sensor, evidence in given:
                 weight = weight_of_conflict(f.reading_conflict(reference, evidence))
                 weights[sensor] = weights.get(sensor, 0.0) + weight
+                voices[sensor] = voices.get(sensor, 0) + (weight > single)
                 if informative(evidence) >= INFORMATIVE:
                     odd.setdefault(sensor, []).append(weight > single)
-        persistent = {sensor for sensor, w in weights.items() if w >= 2.0 * single}
+        # Two conflicting readings at least: one confident reading of a good sensor (a door detector's false alarm,
+        # a misread tag) reaches twice the weight alone, and is what its own error rates expect now and then.
+        persistent = {sensor for sensor, w in weights.items() if w >= 2.0 * single and voices[sensor] >= 2}
         unanimous = {sensor for sensor, flags in odd.items() if all(flags)}
         if len(persistent) == 1 and set(odd) <= persistent | unanimous:
             return persistent, persistent | unanimous

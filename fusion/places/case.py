@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
 
+from fusion.budget import MAX_TICKS
 from fusion.case_model import RunSpec, SensorSpec
 from fusion.errors import FusionError, SiteError
 from fusion.io.bounded import read_text
@@ -124,6 +125,13 @@ def parse_place_case(text: str, path: str = "<case>") -> PlaceCase:
             f"the graph needs {frame_cells:,} cells at {resolution:g} m (limit "
             f"{MAX_CELLS:,}); use a coarser resolution",
         )
+    seconds = _route_seconds(case)
+    if seconds / run.tick_s > MAX_TICKS:
+        r.fail(
+            ("route",),
+            f"the route takes about {seconds:,.0f} s, {seconds / run.tick_s:,.0f} ticks of {run.tick_s:g} s; the limit is "
+            f"{MAX_TICKS:,} ticks: shorten the route or raise its speed",
+        )
     try:
         case.sensor_set()  # every model built now: what passes here can run
     except FusionError as err:
@@ -219,6 +227,14 @@ def _route(r: TomlReader, d: dict, graph: PlaceGraph) -> PlaceRoute:
         tuple(sorted(carries, key=lambda c: c.at_s)),
         start_known,
     )
+
+
+def _route_seconds(case: PlaceCase) -> float:
+    """The drive's length in seconds: its passages at the route's speed, and a half turn at every place (an
+    upper bound of the turning)."""
+    graph, path = case.graph, case.route.path
+    metres = sum(graph.passage(a, b).length_m for a, b in zip(path, path[1:]))
+    return metres / case.route.speed_mps + len(path) * 180.0 / case.route.turn_rate_deg_s
 
 
 def route_through(graph: PlaceGraph, through) -> tuple[str, ...]:
