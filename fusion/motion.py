@@ -57,6 +57,23 @@ def shift_kernel(shift: float, sigma: float) -> tuple[int, np.ndarray]:
     return whole, weights
 
 
+def _taps_each(shifts: np.ndarray, sigma: float) -> list[list[tuple[int, float]]]:
+    """``_taps`` of every shift in ``shifts`` (one per heading), the Gaussian built once: the same weights, bit for bit,
+    as ``shift_kernel`` gives each shift (the same operations on the same numbers), without one Gaussian per shift."""
+    _, gauss = shift_kernel(0.0, sigma)  # frac 0: the Gaussian itself, its ends emptied and normalised
+    rolled = np.roll(gauss, 1)
+    shifts = np.asarray(shifts, dtype=np.float64)
+    wholes = np.floor(shifts)
+    fracs = shifts - wholes
+    weights = (1 - fracs)[:, None] * gauss[None, :] + fracs[:, None] * rolled[None, :]
+    radius = gauss.size // 2
+    out = []
+    for whole, row in zip(wholes.astype(np.int64).tolist(), weights):
+        keep = np.flatnonzero(row > 1e-15)
+        out.append([(whole + int(i) - radius, w) for i, w in zip(keep.tolist(), row[keep].tolist())])
+    return out
+
+
 def _taps(shift: float, sigma: float) -> list[tuple[int, float]]:
     """(offset, weight) pairs of ``shift_kernel``, dropping weights too small to matter (< 1e-15 of the total)."""
     whole, weights = shift_kernel(shift, sigma)
@@ -99,9 +116,10 @@ def predict_density(
     sigma_turn = motion.sigma_turn if sigma_turn is None else sigma_turn
     headings = belief.shape[0]
     moved = np.empty_like(belief)
+    across, along = _taps_each(motion.dx, sigma), _taps_each(motion.dy, sigma)
     for h in range(headings):
-        plane = _convolve_zero(belief[h], _taps(motion.dx[h], sigma), axis=1)
-        moved[h] = _convolve_zero(plane, _taps(motion.dy[h], sigma), axis=0)
+        plane = _convolve_zero(belief[h], across[h], axis=1)
+        moved[h] = _convolve_zero(plane, along[h], axis=0)
     # Headings wrap: fold each tap's offset round the circle.
     turn: dict[int, float] = {}
     for offset, w in _taps(motion.turn, sigma_turn):

@@ -73,3 +73,14 @@ def test_packed_set_motion_equals_the_cell_by_cell_reference(
     expected = reference_predict_sets(masks, motion, bound, bound_turn)
     packed = predict_sets(bitset.pack_masks(masks.reshape(3, -1)), grid, motion, bound=bound, bound_turn=bound_turn)
     np.testing.assert_array_equal(bitset.unpack(packed, grid.n_cells).reshape(masks.shape), expected)
+
+
+def test_taps_of_every_heading_at_once_are_each_headings_own_bit_for_bit():
+    # The batched kernels of predict_density (one Gaussian for all headings) against shift_kernel per shift:
+    # identical operations on identical numbers, so identical weights (our implementation's own invariant).
+    from fusion.motion import _taps, _taps_each
+
+    rng = np.random.default_rng(4)
+    for sigma in (0.0, 1e-7, 0.3, 1.7, 6.0):
+        shifts = np.concatenate([rng.normal(0, 3, 36), [0.0, -0.5, 2.0, -3.25]])
+        assert _taps_each(shifts, sigma) == [_taps(float(s), sigma) for s in shifts]
