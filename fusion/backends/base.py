@@ -235,7 +235,9 @@ def estimate_pose(grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None =
     lx = float(local.sum(axis=0) @ xs) / weight if weight > 0 else bx
     ly = float(local.sum(axis=1) @ ys) / weight if weight > 0 else by
     th = grid.heading_centres()
-    ph = (cube * near[None]).sum(axis=(1, 2))
+    rows, cols = np.flatnonzero(near.any(axis=1)), np.flatnonzero(near.any(axis=0))
+    box = (slice(None), slice(rows[0], rows[-1] + 1), slice(cols[0], cols[-1] + 1)) if rows.size else np.s_[:, :0, :0]
+    ph = (cube[box] * near[box[1:]][None]).sum(axis=(1, 2))  # only the window around the best cell: the rest is 0
     heading = math.atan2(float(ph @ np.sin(th)), float(ph @ np.cos(th))) % (2 * math.pi) if weight > 0 else bh
     dist2 = (xs[None, :] - lx) ** 2 + (ys[:, None] - ly) ** 2
     spread = math.sqrt(max(float((plane * dist2).sum()) / max(float(plane.sum()), 1e-300), 0.0))
