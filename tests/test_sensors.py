@@ -144,3 +144,16 @@ def test_odometry_noise_grows_with_distance(depot):
     assert_close(short.dx[0], 2.0) and assert_close(short.dy[9], 2.0)  # heading bin 9 = 90°
     with pytest.raises(ObservationError, match="forward_m must be a finite number"):
         odo.motion(OdometryReading(float("inf")))
+
+
+def test_a_scan_reads_the_same_whether_the_padded_field_is_gathered_whole_or_by_window(depot, monkeypatch):
+    # Two ways to the same sums (our implementation's invariant): the beam's density gathered over the whole padded
+    # field once, or over each heading's window; a long range on a fine grid takes the second.
+    from fusion.sensors import ranging
+
+    sensor = RangeSensor("lidar", depot, depot.grid(4), RangeParams(max_range_m=8.0, wall_spread_m=0.2))
+    scan = [1.5, 2.0, 8.0, 3.25, 0.7]
+    whole = sensor.log_likelihood(scan)
+    original = ranging.gathers_whole_field
+    monkeypatch.setattr(ranging, "gathers_whole_field", lambda field, grid: not original(field, grid))
+    np.testing.assert_array_equal(sensor.log_likelihood(scan), whole)

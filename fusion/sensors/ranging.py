@@ -132,10 +132,16 @@ class RangeSensor:
             if z[b] >= self.params.max_range_m:
                 continue
             table = np.log(self.beam_density(z[b], self._distances, self.grid_sigma(z[b])))
+            # When the padded field is smaller than the windows the headings read, the beam's log density is gathered
+            # at every cell of it once and each heading reads a window of that (a view); otherwise (a long range on a
+            # fine grid) each heading gathers its own window from the table.
+            whole = gathers_whole_field(self._field_index.size, g.n_cells)
+            field = table[self._field_index] if whole else None
             for h, theta in enumerate(g.heading_centres()):
                 sx = int(round(z[b] * math.cos(theta + bearing) / res))
                 sy = int(round(z[b] * math.sin(theta + bearing) / res))
-                out[h] += table[self._field_index[pad + sy : pad + sy + g.ny, pad + sx : pad + sx + g.nx]]
+                window = (slice(pad + sy, pad + sy + g.ny), slice(pad + sx, pad + sx + g.nx))
+                out[h] += field[window] if whole else table[self._field_index[window]]
         return out
 
     # Its short and random returns are floors of the density, not contradictions: a working ranger
@@ -306,3 +312,9 @@ def _register() -> None:
 
 
 _register()
+
+
+def gathers_whole_field(field_cells: int, grid_cells: int) -> bool:
+    """Is gathering a beam's density over the whole padded field (``field_cells``) less work than the windows every
+    heading reads (``grid_cells`` together)?  (``RangeSensor.log_likelihood``.)"""
+    return field_cells <= grid_cells
