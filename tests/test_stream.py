@@ -8,6 +8,7 @@ from fusion.simulate import simulate
 from fusion.stream import MAX_LINE_BYTES, stream
 
 TINY = Path(__file__).parent / "data" / "tiny.toml"
+CASES = Path(__file__).parent.parent / "cases"
 
 
 def test_stream_writes_a_decision_per_line_and_survives_bad_lines():
@@ -66,3 +67,22 @@ def test_a_reading_the_gaussian_filter_cannot_linearise_is_a_rejected_record_on_
     assert records[0]["rejected"] == [] and records[2]["rejected"] == []
     assert "could not use it" in records[1]["error"] and "range 0 m" in records[1]["error"]
     assert "line 2" in err.getvalue()
+
+
+def test_a_carried_robot_is_re_localized_through_the_stream():
+    # In a stream every line is its own tick, so an odometry line is a tick without readings.  Such a tick says nothing
+    # for the belief and must not end a run of conflicting ticks: before, it did, and the stream never alerted or
+    # re-localized after the depot robot was carried (our monitor's own policy, docs/localizer.md).
+    case = load_case(CASES / "carried.toml")
+    ticks = simulate(case)[:340]  # 85 s: the carry is at 62 s
+    carried_at = next(t.truth.t for t in ticks if t.truth.carried)
+    lines = [json.dumps(o.to_record()) for t in ticks for o in t.observations]
+    loc = Localizer.from_case(case, "bayes")
+    first = ticks[0].truth
+    loc.start_at(first.x_m, first.y_m, first.heading_deg)
+    out = io.StringIO()
+    stream(loc, io.BytesIO(("\n".join(lines) + "\n").encode()), out, io.StringIO())
+    decisions = [json.loads(x) for x in out.getvalue().splitlines()]
+    assert any(d.get("action") == "re-localize" and d["t"] >= carried_at for d in decisions)
+    last = decisions[-1]
+    assert ((last["x_m"] - ticks[-1].truth.x_m) ** 2 + (last["y_m"] - ticks[-1].truth.y_m) ** 2) ** 0.5 < 0.5
