@@ -135,3 +135,21 @@ def test_region_size_is_the_highest_density_region_by_its_definition(concentrati
         desc = np.sort(p[p > 0])[::-1]
         expected = int(np.searchsorted(np.cumsum(desc), 0.95 * desc.sum() * (1 - 1e-12)) + 1)
         assert region_size(p, 0.95) == min(expected, desc.size)
+
+
+def test_region_by_bins_counts_as_the_full_sort_does():
+    # The binned count of a spread belief (float64 bit patterns order as the values do, IEEE 754) against the
+    # highest-density region by its definition, a full sort (Hyndman 1996), on spread, tied and wide-ranging values.
+    from fusion.backends.base import _region_by_bins
+
+    rng = np.random.default_rng(8)
+    for values in (
+        rng.random(50_000),
+        np.repeat(rng.random(40), 500),
+        np.exp(rng.normal(0.0, 6.0, 30_000)),
+        np.full(10_000, 0.25),
+    ):
+        target = 0.95 * values.sum() * (1 - 1e-12)
+        desc = np.sort(values)[::-1]
+        expected = int(min(np.searchsorted(np.cumsum(desc), target) + 1, desc.size))
+        assert _region_by_bins(values, target) == expected
