@@ -22,7 +22,15 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-__all__ = ["Estimate", "estimate", "case_problems", "MEMORY_BUDGET_GIB", "WORK_BUDGET_MINUTES", "MAX_TICKS"]
+__all__ = [
+    "Estimate",
+    "estimate",
+    "case_problems",
+    "route_too_long",
+    "MEMORY_BUDGET_GIB",
+    "WORK_BUDGET_MINUTES",
+    "MAX_TICKS",
+]
 
 MEMORY_BUDGET_GIB = 4.0
 """Default memory budget of one run (our choice: a robot's computer or a laptop runs it beside other work)."""
@@ -125,18 +133,24 @@ def estimate(case, backends=None, rule: str | None = None) -> Estimate:
     return est
 
 
+def route_too_long(ticks: float, tick_s: float) -> str | None:
+    """Why a route of ``ticks`` ticks of ``tick_s`` is refused (more than ``MAX_TICKS``: the simulator stops there),
+    or None."""
+    if ticks <= MAX_TICKS:
+        return None
+    return (
+        f"the route takes about {ticks * tick_s:,.0f} s, {ticks:,.0f} ticks of {tick_s:g} s; the limit is "
+        f"{MAX_TICKS:,} ticks: shorten the route or raise its speed"
+    )
+
+
 def case_problems(case) -> list[tuple[tuple, str]]:
     """``(where, what)`` for each budget the case exceeds; ``where`` is a key path for the loader's error."""
     out = []
     est = estimate(case)
-    if est.ticks > MAX_TICKS:
-        out.append(
-            (
-                ("route",),
-                f"the route takes about {est.ticks * case.run.tick_s:,.0f} s, {est.ticks:,.0f} ticks of "
-                f"{case.run.tick_s:g} s; the limit is {MAX_TICKS:,} ticks: shorten the route or raise its speed",
-            )
-        )
+    too_long = route_too_long(est.ticks, case.run.tick_s)
+    if too_long:
+        out.append((("route",), too_long))
         return out
     checks = (
         ("budget_gib", est.memory, 1024**3, "GiB", "coarsen the grid, shorten the sensors' range"),

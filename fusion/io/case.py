@@ -79,12 +79,7 @@ def parse_case(text: str, path: str = "<case>") -> Case:
             "this is a place-graph case ([places]); 'fusion run', 'check', 'compare', 'inspect', 'stream' and 'targets' take it; 'soak' and 'calibrate' do not yet",
         )
     r.only(data, (), {"case", "site", "sensors", "route", "run", "compare"})
-    head = r.table(data, (), "case")
-    r.only(head, ("case",), {"name", "description"})
-    name = r.name(head, ("case",), "name")
-    description = head.get("description", "")
-    if not isinstance(description, str) or len(description) > MAX_DESCRIPTION_CHARS:
-        r.fail(("case", "description"), f"must be text of at most {MAX_DESCRIPTION_CHARS:,} characters")
+    name, description = case_head(r, data)
     site, headings = read_site(r, r.table(data, (), "site"), path)
     sensors = _sensors(r, data, site)
     route = _route(r, data["route"], site) if "route" in data else None
@@ -96,6 +91,17 @@ def parse_case(text: str, path: str = "<case>") -> Case:
     for where, problem in case_problems(case):  # memory and time, before anything runs
         r.fail(where, problem)
     return case
+
+
+def case_head(r: TomlReader, data: dict) -> tuple[str, str]:
+    """The ``[case]`` table of either kind of case: its name and description, checked."""
+    head = r.table(data, (), "case")
+    r.only(head, ("case",), {"name", "description"})
+    name = r.name(head, ("case",), "name")
+    description = head.get("description", "")
+    if not isinstance(description, str) or len(description) > MAX_DESCRIPTION_CHARS:
+        r.fail(("case", "description"), f"must be text of at most {MAX_DESCRIPTION_CHARS:,} characters")
+    return name, description
 
 
 def _params(r: TomlReader, d: dict, where: tuple, cls, skip: set) -> object:

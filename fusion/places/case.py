@@ -11,12 +11,13 @@ from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
 
-from fusion.budget import MAX_TICKS
+from fusion.budget import route_too_long
 from fusion.case_model import RunSpec, SensorSpec
 from fusion.errors import FusionError, SiteError
 from fusion.io.bounded import read_text
+from fusion.io.case import MAX_CASE_BYTES
 from fusion.io.toml_reader import TomlReader, finite_numbers, load_toml
-from fusion.places.frame import TURN_TOLERANCE_DEG, PlaceFrame
+from fusion.places.frame import TURN_TOLERANCE_DEG, PlaceFrame, frame_size
 from fusion.places.graph import Passage, PlaceGraph
 
 __all__ = [
@@ -27,6 +28,8 @@ __all__ = [
     "parse_place_case",
     "is_place_case",
     "route_through",
+    "route_length_m",
+    "detected_features",
 ]
 
 MAX_PLACES = 100_000
@@ -86,28 +89,23 @@ def is_place_case(path) -> bool:
     """Does the case file at ``path`` describe a place graph (a ``[places]`` table)?  False when it cannot be read
     (the case reader then says why)."""
     try:
-        return "places" in load_toml(read_text(Path(path), 1024**2, "case file"), str(path))
+        return "places" in load_toml(read_text(Path(path), MAX_CASE_BYTES, "case file"), str(path))
     except (FusionError, OSError):
         return False
 
 
 def load_place_case(path) -> PlaceCase:
     path = Path(path)
-    return parse_place_case(read_text(path, 1024**2, "case file"), str(path))
+    return parse_place_case(read_text(path, MAX_CASE_BYTES, "case file"), str(path))
 
 
 def parse_place_case(text: str, path: str = "<case>") -> PlaceCase:
-    from fusion.io.case import _run, _sensors
+    from fusion.io.case import _run, _sensors, case_head
 
     data = load_toml(text, path)
     r = TomlReader(path, text)
     r.only(data, (), {"case", "places", "sensors", "route", "run"})
-    head = r.table(data, (), "case")
-    r.only(head, ("case",), {"name", "description"})
-    name = r.name(head, ("case",), "name")
-    description = head.get("description", "")
-    if not isinstance(description, str) or len(description) > 4000:
-        r.fail(("case", "description"), "must be text of at most 4,000 characters")
+    name, description = case_head(r, data)
     places = r.table(data, (), "places")
     graph = _graph(r, places)
     resolution = float(r.number(places, ("places",), "resolution_m", 1.0, positive=True, high=100))
@@ -118,20 +116,16 @@ def parse_place_case(text: str, path: str = "<case>") -> PlaceCase:
     run = _run(r, run_table, sensors)
     run = _graph_run(r, run_table, run)
     case = PlaceCase(name, path, graph, resolution, tolerance, sensors, route, run, description)
-    frame_cells = sum(2 * max(1, round(p.length_m / resolution)) for p in graph.passages)
+    frame_cells = frame_size(graph, resolution)
     if frame_cells > MAX_CELLS:
         r.fail(
             ("places", "resolution_m"),
             f"the graph needs {frame_cells:,} cells at {resolution:g} m (limit "
             f"{MAX_CELLS:,}); use a coarser resolution",
         )
-    seconds = _route_seconds(case)
-    if seconds / run.tick_s > MAX_TICKS:
-        r.fail(
-            ("route",),
-            f"the route takes about {seconds:,.0f} s, {seconds / run.tick_s:,.0f} ticks of {run.tick_s:g} s; the limit is "
-            f"{MAX_TICKS:,} ticks: shorten the route or raise its speed",
-        )
+    too_long = route_too_long(_route_seconds(case) / run.tick_s, run.tick_s)
+    if too_long:
+        r.fail(("route",), too_long)
     try:
         case.sensor_set()  # every model built now: what passes here can run
     except FusionError as err:
@@ -229,12 +223,21 @@ def _route(r: TomlReader, d: dict, graph: PlaceGraph) -> PlaceRoute:
     )
 
 
+def route_length_m(case: PlaceCase) -> float:
+    """Metres of passage the route drives."""
+    path = case.route.path
+    return sum(case.graph.passage(a, b).length_m for a, b in zip(path, path[1:]))
+
+
+def detected_features(case: PlaceCase) -> set[str]:
+    """The features some sensor of the case looks for."""
+    return {s.params.feature for s in case.sensors if s.kind == "feature"}
+
+
 def _route_seconds(case: PlaceCase) -> float:
     """The drive's length in seconds: its passages at the route's speed, and a half turn at every place (an
     upper bound of the turning)."""
-    graph, path = case.graph, case.route.path
-    metres = sum(graph.passage(a, b).length_m for a, b in zip(path, path[1:]))
-    return metres / case.route.speed_mps + len(path) * 180.0 / case.route.turn_rate_deg_s
+    return route_length_m(case) / case.route.speed_mps + len(case.route.path) * 180.0 / case.route.turn_rate_deg_s
 
 
 def route_through(graph: PlaceGraph, through) -> tuple[str, ...]:
@@ -274,8 +277,7 @@ def _with_warnings(case: PlaceCase) -> PlaceCase:
     """A feature the site gives that no sensor looks for: allowed (a plan shows more than a robot senses), said."""
     import dataclasses
 
-    seen = {s.params.feature for s in case.sensors if s.kind == "feature"}
-    unseen = sorted(case.graph.feature_names() - seen)
+    unseen = sorted(case.graph.feature_names() - detected_features(case))
     out = [f"no sensor detects the feature {f!r}: it is drawn, not used" for f in unseen]
     if all(m is None for m in case.graph.markers) and any(s.kind == "place_marker" for s in case.sensors):
         out.append("a place_marker sensor is given but no place carries a marker")

@@ -40,7 +40,7 @@ import numpy as np
 from fusion.errors import PoseError, SiteError
 from fusion.places.graph import PlaceGraph
 
-__all__ = ["PlaceFrame", "PlaceFix", "FLOOR", "MIN_TURN_DEG", "TURN_TOLERANCE_DEG"]
+__all__ = ["PlaceFrame", "PlaceFix", "frame_size", "passage_steps", "FLOOR", "MIN_TURN_DEG", "TURN_TOLERANCE_DEG"]
 
 FLOOR = 1e-3
 """Weight of every onward passage beside the turn rule's (our choice: one in a thousand)."""
@@ -69,6 +69,16 @@ class PlaceFix:
         return {"name": self.place, "share": round(self.share, 6), "where": self.where}
 
 
+def passage_steps(lengths_m, resolution_m: float) -> np.ndarray:
+    """Steps of each passage: max(1, round(length / resolution))."""
+    return np.maximum(1, np.rint(np.asarray(lengths_m, dtype=np.float64) / resolution_m)).astype(np.int64)
+
+
+def frame_size(graph: PlaceGraph, resolution_m: float) -> int:
+    """Cells of the frame of ``graph`` at ``resolution_m``, without building it: n + 1 a passage, each way."""
+    return int(2 * (passage_steps([p.length_m for p in graph.passages], resolution_m) + 1).sum())
+
+
 class PlaceFrame:
     """Cells along every directed passage of ``graph`` at ``resolution_m``; the one-step operators."""
 
@@ -82,7 +92,7 @@ class PlaceFrame:
         ends = [(graph.cell_of(p.a), graph.cell_of(p.b), k) for k, p in enumerate(graph.passages)]
         self.edges = [e for a, b, k in ends for e in ((a, b, k), (b, a, k))]  # directed: (from, to, passage)
         lengths = np.array([graph.passages[k].length_m for _, _, k in self.edges], float)
-        self.steps = np.maximum(1, np.rint(lengths / self.resolution_m)).astype(np.int64)
+        self.steps = passage_steps(lengths, self.resolution_m)
         self.offsets = np.concatenate([[0], np.cumsum(self.steps + 1)])  # n + 1 cells a directed passage
         self.n_cells = int(self.offsets[-1])
         self.edge_of = np.repeat(np.arange(len(self.edges)), self.steps + 1)

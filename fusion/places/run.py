@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from fusion.monitor.policy import ALERT, QUARANTINE, RELOCALIZE
-from fusion.places.case import PlaceCase
+from fusion.places.case import PlaceCase, detected_features
 from fusion.places.simulate import simulate_places
 
 __all__ = ["PlaceRow", "PlaceRunResult", "Episode", "run_places", "place_localizer", "RIGHT_STEPS", "HOLD_S"]
@@ -120,7 +120,7 @@ def _first_held(rows: list[PlaceRow]) -> int | None:
 
 def _distinctive_reached(case: PlaceCase, ticks) -> np.ndarray:
     """Per tick, how many distinctive places the robot has reached so far (a place counts on each arrival)."""
-    seen = {s.params.feature for s in case.sensors if s.kind == "feature"}
+    seen = detected_features(case)
     reads = any(s.kind == "place_marker" for s in case.sensors)
     graph = case.graph
     distinctive = [bool(seen & set(f)) or (reads and m is not None) for f, m in zip(graph.features, graph.markers)]

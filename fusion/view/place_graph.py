@@ -14,7 +14,7 @@ import numpy as np
 from rich.table import Table
 
 from fusion import __version__
-from fusion.places.case import PlaceCase
+from fusion.places.case import PlaceCase, route_length_m
 from fusion.text import literal
 from fusion.view.html_page import pyplot
 from fusion.view.site_preview import PREVIEW_MARK
@@ -166,7 +166,7 @@ def describe_graph(case: PlaceCase, path) -> str:
         ),
         f"  markers: {sum(m is not None for m in graph.markers)}",
         "  sensors: " + ", ".join(f"{s.name} ({s.kind}, {s.rate_hz:g} Hz)" for s in case.sensors),
-        f"  route: {len(case.route.path)} places, {_route_m(case):g} m, start "
+        f"  route: {len(case.route.path)} places, {route_length_m(case):g} m, start "
         + ("known" if case.route.start_known else "unknown (global localization)")
         + (
             f", {len(case.route.carries)} carr{'y' if len(case.route.carries) == 1 else 'ies'}"
@@ -177,11 +177,6 @@ def describe_graph(case: PlaceCase, path) -> str:
     ]
     lines += [f"  warning: {w}" for w in case.warnings]
     return "\n".join(lines)
-
-
-def _route_m(case: PlaceCase) -> float:
-    graph = case.graph
-    return sum(graph.passage(a, b).length_m for a, b in zip(case.route.path, case.route.path[1:]))
 
 
 def _pieces(graph) -> int:
