@@ -281,7 +281,8 @@ class PlaceFrame:
             faced_b[row, : len(onward)] = self.bearings[onward]
             arrived[row, : len(came)] = self.arrival[came]
             arrived_b[row, : len(came)] = self.bearings[came]
-        others = [i for i in range(self.graph.n_cells) if self.out_edges[i] and i not in set(full)]
+        turned_at_once = set(full)
+        others = [i for i in range(self.graph.n_cells) if self.out_edges[i] and i not in turned_at_once]
         return {"faced": faced, "arrived": arrived, "faced_b": faced_b, "arrived_b": arrived_b, "others": others}
 
     def _snap_operator(self):

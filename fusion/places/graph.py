@@ -47,6 +47,7 @@ class PlaceGraph:
     markers: tuple = ()
     at: tuple = ()
     _index: dict = field(default=None, repr=False, compare=False)
+    _pairs: dict = field(default=None, repr=False, compare=False)  # {a, b} -> the passage between them
 
     def __post_init__(self):
         if len(self.places) == 0 or len(set(self.places)) != len(self.places):
@@ -54,7 +55,7 @@ class PlaceGraph:
         object.__setattr__(self, "_index", {name: i for i, name in enumerate(self.places)})
         passages = tuple(p if isinstance(p, Passage) else Passage(*p) for p in self.passages)
         object.__setattr__(self, "passages", passages)
-        seen = set()
+        seen = {}
         for i, p in enumerate(passages):
             what = f"passage {i + 1} ({p.a!r}–{p.b!r})"
             for end in (p.a, p.b):
@@ -69,7 +70,8 @@ class PlaceGraph:
             pair = frozenset((p.a, p.b))
             if pair in seen:
                 raise SiteError(f"{what} repeats a passage between the same places; give each pair one passage")
-            seen.add(pair)
+            seen[pair] = p
+        object.__setattr__(self, "_pairs", seen)
         n = len(self.places)
         for name, default in (("features", ()), ("markers", None), ("at", None)):
             values = getattr(self, name)
@@ -103,10 +105,8 @@ class PlaceGraph:
         return [p.b if p.a == place else p.a for p in self.passages if place in (p.a, p.b)]
 
     def passage(self, a: str, b: str) -> Passage | None:
-        for p in self.passages:
-            if (p.a, p.b) in ((a, b), (b, a)):
-                return p
-        return None
+        """The passage between ``a`` and ``b`` (either way), or None."""
+        return self._pairs.get(frozenset((a, b)))
 
     def feature_names(self) -> set[str]:
         return {f for fs in self.features for f in fs}

@@ -55,8 +55,9 @@ class GraphInspection:
         return float(np.median(values)) if values else None
 
 
-def read_truth(path, case: PlaceCase, set_aside: list[SetAside]) -> list[tuple[float, int]]:
-    """(t, cell) of every usable line of a graph truth file, in time order; the others set aside with their reason."""
+def read_truth(path, case: PlaceCase, set_aside: list[SetAside]) -> tuple[np.ndarray, np.ndarray]:
+    """(times, cells) of every usable line of a graph truth file, in time order; the others set aside with their
+    reason."""
     frame, out = case.frame, []
     for number, text, problem in text_lines(path):
         if text is not None and not text.strip():
@@ -75,7 +76,8 @@ def read_truth(path, case: PlaceCase, set_aside: list[SetAside]) -> list[tuple[f
         except (FusionError, ValueError, KeyError, TypeError) as err:
             why = f"missing field {err}" if isinstance(err, KeyError) else str(err)
             set_aside.append(SetAside(number, f"truth: {why}", (text or "")[:80]))
-    return sorted(out)
+    out.sort()
+    return np.array([t for t, _ in out], dtype=np.float64), np.array([c for _, c in out], dtype=np.int64)
 
 
 def inspect_graph(case: PlaceCase, log_path, out_dir, *, truth_path=None, start: str | None = None, backends=None):
@@ -114,14 +116,15 @@ class _GraphReplay:
         self.rows = io.StringIO()
         self.writer = csv.writer(self.rows)
         self.writer.writerow(STEP_COLUMNS)
-        self.peak = (-1.0, None)  # (severity, beliefs) at the worst episode's peak so far
-        self.last_beliefs = None
+        self.peak = (-1.0, None)  # (severity, (t, beliefs, true cell)) at the worst episode's peak so far
+        self.last = None  # (t, true cell) of the last tick: its beliefs are the filters' own at the end
 
     def _truth_at(self, t: float) -> int | None:
-        if not self.truth:
+        """The true cell of the last truth record at or before ``t`` (the first one before them all)."""
+        if self.truth is None or not self.truth[0].size:
             return None
-        i = np.searchsorted([x for x, _ in self.truth], t, side="right") - 1
-        return self.truth[max(i, 0)][1]
+        times, cells = self.truth
+        return int(cells[max(int(np.searchsorted(times, t, side="right")) - 1, 0)])
 
     def tick(self, group) -> None:
         found, first = self.found, min(line for line, _ in group)
@@ -139,7 +142,6 @@ class _GraphReplay:
         if closed is not None:
             found.episodes.append(closed)
         true_cell = self._truth_at(t)
-        beliefs = {b: loc.filter.distribution().copy() for b, loc in self.locs.items()}
         for b, d in decisions.items():
             error = "" if true_cell is None else self.case.frame.travel_m(d.place.cell, true_cell)
             if true_cell is not None:
@@ -167,9 +169,13 @@ class _GraphReplay:
                 ]
             )
         if episode is not None and episode.severity > self.peak[0] and episode.peak_tick == found.ticks:
-            self.peak = (episode.severity, (t, beliefs, true_cell))
-        self.last_beliefs = (t, beliefs, true_cell)
+            self.peak = (episode.severity, (t, self._beliefs(), true_cell))
+        self.last = (t, true_cell)
         found.ticks += 1
+
+    def _beliefs(self) -> dict:
+        """Each back end's probability per cell now (copies: the filters go on)."""
+        return {b: loc.filter.distribution().copy() for b, loc in self.locs.items()}
 
     def finish(self, out: Path) -> None:
         from fusion.view.place_graph import draw_run
@@ -197,7 +203,7 @@ class _GraphReplay:
         }
         atomic_write(out / "summary.json", json.dumps(summary, indent=2) + "\n")
         f.files = ["steps.csv", "episodes.json", "set_aside.jsonl", "summary.json"]
-        moment = self.peak[1] or self.last_beliefs
+        moment = self.peak[1] or (None if self.last is None else (self.last[0], self._beliefs(), self.last[1]))
         if moment is not None:
             t, beliefs, true_cell = moment
             atomic_write(out / "beliefs.png", draw_run(self.case, beliefs, true_cell, t))

@@ -12,6 +12,7 @@ place it was put down included) until then.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -70,11 +71,16 @@ class PlaceRunResult:
     def rows_of(self, backend: str) -> list[PlaceRow]:
         return [r for r in self.rows if r.backend == backend]
 
+    @cached_property
+    def reached(self) -> np.ndarray:
+        """Per tick, the distinctive places the robot has reached so far (``_distinctive_reached``)."""
+        return _distinctive_reached(self.case, self.ticks)
+
     def episodes(self, backend: str) -> list[Episode]:
         rows = self.rows_of(backend)
         cuts = [0] + [i for i, r in enumerate(rows) if r.carried] + [len(rows)]
         cuts = sorted(set(cuts))
-        reached = _distinctive_reached(self.case, self.ticks)
+        reached = self.reached
         out = []
         for lo, hi in zip(cuts, cuts[1:]):
             part = rows[lo:hi]
@@ -167,7 +173,7 @@ def run_places(case: PlaceCase, backends=None, seed: int | None = None, on_tick=
         for name, loc in localizers.items():
             d = loc.step(odometry, readings)
             decisions[name] = d
-            fix = frame.fix(loc.filter.distribution())
+            fix = d.place  # the decision's own: the belief after the step (``PlaceFrame.fix``)
             error = frame.travel_m(fix.cell, truth_cell)
             right = error <= RIGHT_STEPS * frame.resolution_m + 1e-9
             row = PlaceRow(
