@@ -85,8 +85,9 @@ def targets_command(args: argparse.Namespace) -> int:
 
     console = Console(stderr=args.json)
     cases = _target_cases(args, ATTRIBUTION_CASES, FAULT_CASES)
-    if _place_cases(cases):  # graphs measured on their own, then the metric cases
-        return _graph_targets(args, _place_cases(cases), console) or _targets_after(args, cases)
+    graphs = _place_cases(cases)
+    if graphs:  # graphs measured on their own, then the metric cases
+        return _graph_targets(args, graphs, console) or _targets_after(args, [c for c in cases if c not in graphs])
     notice(console)
     eta = _targets_eta(cases, args.seeds, args.backend)
     if eta.remaining_s() > LONG_SWEEP_S:
@@ -150,9 +151,8 @@ def _place_cases(cases) -> list:
     return [c for c in cases if is_place_case(c)]
 
 
-def _targets_after(args: argparse.Namespace, cases) -> int:
-    """The metric cases of a ``fusion targets`` call that also named place-graph cases."""
-    rest = [c for c in cases if c not in _place_cases(cases)]
+def _targets_after(args: argparse.Namespace, rest) -> int:
+    """The metric cases (``rest``) of a ``fusion targets`` call that also named place-graph cases."""
     if not rest:
         return 0
     args.case = [str(c) for c in rest]

@@ -184,7 +184,7 @@ class RunView:
         ``OTHER_LINES``) with ``panel_rows`` rows of panels: a character is about twice as tall as wide, so a
         narrower map is also shorter."""
         ny, nx = self.case.site.occupied.shape
-        rows_allowed = max(4, (height - OTHER_LINES) // panel_rows - PANEL_LINES)
+        rows_allowed = self._rows_allowed(height, panel_rows)
         width = max(8, panel_width - 4)
         while width > 8:
             step = math.ceil(nx / width)
@@ -192,6 +192,11 @@ class RunView:
                 break
             width -= 1
         return width
+
+    @staticmethod
+    def _rows_allowed(height: int, panel_rows: int) -> int:
+        """Lines a panel's map may take with ``panel_rows`` rows of panels on a screen of ``height`` lines."""
+        return max(4, (height - OTHER_LINES) // panel_rows - PANEL_LINES)
 
     def __rich_console__(self, console, options):
         width, height = options.max_width, options.height or console.size.height

@@ -94,6 +94,7 @@ class GraphRunView(RunView):
     def __init__(self, case, backends, total_ticks: int):
         super().__init__(case, backends, total_ticks)
         self._rasters: dict[tuple[int, int], _Raster] = {}
+        self._map_rows = 12  # lines a map may take, set by each rendering (``_map_width``)
 
     def on_tick(self, tick, decisions, localizers) -> None:
         self.truth = tick.truth
@@ -130,11 +131,11 @@ class GraphRunView(RunView):
         return Panel(body, title=BACKEND_TITLES[name], border_style=_BORDER.get(d.action, "blue"))
 
     def _map_width(self, panel_width: int, height: int, panel_rows: int = 1) -> int:
-        self._rows_allowed = max(4, (height - 7) // panel_rows - 6)
+        self._map_rows = self._rows_allowed(height, panel_rows)
         return max(8, panel_width - 4)
 
     def _raster(self, width: int) -> _Raster:
-        key = (width, getattr(self, "_rows_allowed", 12))
+        key = (width, self._map_rows)
         if key not in self._rasters:
             self._rasters[key] = _Raster(self.case.frame, *key)
         return self._rasters[key]
