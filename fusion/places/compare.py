@@ -93,6 +93,22 @@ def _figures(result, backend: str) -> dict:
     }
 
 
+def _shared_runs(settings: list[Setting]) -> list[tuple[str | None, list[Setting]]]:
+    """The settings grouped into runs: one run holds each back end once and one rule, so the settings it holds see
+    the same simulated drive and share its sensors' encoding (a back end without a rule joins any run)."""
+    runs: list[list] = []
+    for s in settings:
+        for run in runs:
+            backends = {m.backend for m in run[1]}
+            if s.backend not in backends and (s.rule is None or run[0] is None or s.rule == run[0]):
+                run[0] = run[0] or s.rule
+                run[1].append(s)
+                break
+        else:
+            runs.append([s.rule, [s]])
+    return [(rule, members) for rule, members in runs]
+
+
 def compare_graph(case: PlaceCase, seeds, settings: list[Setting], landed=None) -> GraphComparison:
     """Every setting on every seed; ``landed(record)`` after each run."""
     from fusion.compare.verdicts import summarise, verdicts
@@ -100,13 +116,15 @@ def compare_graph(case: PlaceCase, seeds, settings: list[Setting], landed=None) 
     records = []
     for seed in seeds:
         base = rotated(case, seed)
-        for s in settings:
-            run = dataclasses.replace(base.run, rule=s.rule or base.run.rule)
-            result = run_places(dataclasses.replace(base, run=run), backends=[s.backend])
-            record = GraphRecord(s.key, seed, s.as_dict(), _figures(result, s.backend))
-            records.append(record)
+        made = {}
+        for rule, members in _shared_runs(settings):
+            run = dataclasses.replace(base.run, rule=rule or base.run.rule)
+            result = run_places(dataclasses.replace(base, run=run), backends=[s.backend for s in members])
+            made.update({s.key: GraphRecord(s.key, seed, s.as_dict(), _figures(result, s.backend)) for s in members})
+        for s in settings:  # in the settings' order, whatever run each came from
+            records.append(made[s.key])
             if landed is not None:
-                landed(record)
+                landed(made[s.key])
     table = summarise(records, settings, table=GRAPH_FIGURES)
     found = verdicts(records, settings, GRAPH_FIGURES, table=GRAPH_FIGURES)
     return GraphComparison(case.name, tuple(seeds), tuple(settings), tuple(records), table, tuple(found))

@@ -105,6 +105,7 @@ class MarkerReader(_PlaceSensor):
         self.false_read = _rate(f"sensor {self.name!r}: false_read", self.false_read)
         markers = list(self.frame.graph.markers) + [None]
         self.marker_at = np.array([markers[i] for i in self._place], dtype=object)
+        self.at_marker = self.marker_at != None  # noqa: E711 (elementwise on an object array)
         self.ids = sorted({m for m in self.frame.graph.markers if m is not None})
         self.odd_rate = max(self.confusion, self.false_read)
 
@@ -112,9 +113,8 @@ class MarkerReader(_PlaceSensor):
         if not isinstance(marker, str) or not marker:
             raise ObservationError(f"sensor {self.name!r} reads a marker's id (text), got {marker!r}")
         others = max(len(self.ids) - (marker in self.ids), 1)
-        at_marker = self.marker_at != None  # noqa: E711 (elementwise on an object array)
         same = self.marker_at == marker
-        return np.where(same, 1 - self.confusion, np.where(at_marker, self.confusion / others, self.false_read))
+        return np.where(same, 1 - self.confusion, np.where(self.at_marker, self.confusion / others, self.false_read))
 
     def encode(self, marker: str) -> Evidence:
         return _evidence(self.name, self.likelihood(marker), self.reliability)
