@@ -58,3 +58,11 @@ def number_field(rec: dict, key: str, where: str) -> float:
     if v is None:
         raise ObservationError(f"{where}: field '{key}' must be a finite number, got {shown(rec[key])}")
     return v
+
+
+def flag_field(rec: dict, key: str, where: str) -> bool:
+    """Field ``key`` of a record as true or false; ``ObservationError`` naming it otherwise."""
+    value = rec.get(key)
+    if not isinstance(value, bool):
+        raise ObservationError(f"{where}: field '{key}' must be true or false, got {shown(value)}")
+    return value

@@ -48,12 +48,9 @@ def _seen_record(seen) -> dict:
 
 
 def _seen_from(rec: dict, where: str) -> bool:
-    from fusion.errors import ObservationError
+    from fusion.io.json_line import flag_field
 
-    seen = rec.get("seen")
-    if not isinstance(seen, bool):
-        raise ObservationError(f"{where}: field 'seen' must be true or false, got {seen!r}")
-    return seen
+    return flag_field(rec, "seen", where)
 
 
 def _marker_record(marker) -> dict:
@@ -62,10 +59,15 @@ def _marker_record(marker) -> dict:
 
 def _marker_from(rec: dict, where: str) -> str:
     from fusion.errors import ObservationError
+    from fusion.io.json_line import shown
+    from fusion.text import MAX_NAME_CHARS
 
     marker = rec.get("marker")
-    if not isinstance(marker, str) or not marker:
-        raise ObservationError(f"{where}: field 'marker' must be a marker's id (text), got {marker!r}")
+    if not isinstance(marker, str) or not marker or len(marker) > MAX_NAME_CHARS:
+        raise ObservationError(
+            f"{where}: field 'marker' must be a marker's id (text of at most {MAX_NAME_CHARS} characters), got "
+            f"{shown(marker)}"
+        )
     return marker
 
 

@@ -85,12 +85,9 @@ class DoorSensor:
 
 # ----------------------------------------------------------------------------- the kind
 def _from_record(rec: dict, where: str) -> DoorReading:
-    from fusion.io.json_line import shown
+    from fusion.io.json_line import flag_field
 
-    active = rec.get("active")
-    if not isinstance(active, bool):
-        raise ObservationError(f"{where}: field 'active' must be true or false, got {shown(active)}")
-    return DoorReading(active)
+    return DoorReading(flag_field(rec, "active", where))
 
 
 def _from_fields(value, feed) -> DoorReading:
