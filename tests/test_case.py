@@ -10,7 +10,7 @@ CASES = sorted((Path(__file__).parent.parent / "cases").glob("*.toml"))
 
 
 def test_all_shipped_cases_are_valid():
-    from fusion.places.case import is_place_case, load_place_case
+    from fusion.place_cases.case import is_place_case, load_place_case
 
     assert len(CASES) >= 5
     for path in CASES:

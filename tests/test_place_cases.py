@@ -12,8 +12,8 @@ import pytest
 
 from fusion.cli import main
 from fusion.errors import InputFileError
-from fusion.places.case import load_place_case, parse_place_case
-from fusion.places.simulate import simulate_places
+from fusion.place_cases.case import load_place_case, parse_place_case
+from fusion.place_cases.simulate import simulate_places
 
 BASEMENT = Path(__file__).parent.parent / "cases" / "basement.toml"
 
@@ -164,7 +164,7 @@ def test_run_and_check_on_the_basement(tmp_path, capsys):
 
 
 def test_both_back_ends_find_the_courier_from_an_unknown_start():
-    from fusion.places.run import run_places
+    from fusion.place_cases.run import run_places
 
     case = load_place_case(BASEMENT)
     result = run_places(case)
@@ -210,7 +210,7 @@ def test_targets_on_a_place_graph(capsys):
 def test_stream_on_a_place_graph_answers_every_line_with_the_place():
     import io
 
-    from fusion.places.run import place_localizer
+    from fusion.place_cases.run import place_localizer
     from fusion.stream import stream
 
     case = load_place_case(BASEMENT)
@@ -233,7 +233,7 @@ def test_stream_on_a_place_graph_answers_every_line_with_the_place():
 def test_the_live_view_draws_the_graph_with_each_back_ends_belief():
     from rich.console import Console
 
-    from fusion.places.run import run_places
+    from fusion.place_cases.run import run_places
     from fusion.view.place_live import GraphRunView
 
     case = load_place_case(BASEMENT)

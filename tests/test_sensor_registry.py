@@ -199,7 +199,7 @@ def test_every_back_end_and_sensor_model_satisfies_its_protocol(compass):
     # The place-graph kinds and back ends, on the shipped basement.
     from pathlib import Path
 
-    from fusion.places.case import load_place_case
+    from fusion.place_cases.case import load_place_case
 
     basement = load_place_case(Path(__file__).parent.parent / "cases" / "basement.toml")
     places = {name for name, kind in kinds().items() if kind.place_model is not None}

@@ -24,7 +24,7 @@ def bench_command(args: argparse.Namespace) -> int:
     from fusion.bench_steps import bench_backend_steps
     from fusion.bench_sweep import bench_sweep
     from fusion.fidelity import measure_fidelity
-    from fusion.places.bench import bench_graph_steps
+    from fusion.place_cases.bench import bench_graph_steps
     from fusion.view.tables import bench_table, fidelity_table
 
     console = Console(stderr=args.json)
@@ -146,7 +146,7 @@ def _target_cases(args: argparse.Namespace, attribution_cases, fault_cases) -> l
 
 
 def _place_cases(cases) -> list:
-    from fusion.places.case import is_place_case
+    from fusion.place_cases.case import is_place_case
 
     return [c for c in cases if is_place_case(c)]
 
@@ -160,9 +160,9 @@ def _targets_after(args: argparse.Namespace, rest) -> int:
 
 
 def _graph_targets(args: argparse.Namespace, cases, console) -> int:
-    """``fusion targets`` on place-graph cases (``fusion.places.targets``); 0 when every case finished."""
-    from fusion.places.case import load_place_case
-    from fusion.places.targets import measure_graph
+    """``fusion targets`` on place-graph cases (``fusion.place_cases.targets``); 0 when every case finished."""
+    from fusion.place_cases.case import load_place_case
+    from fusion.place_cases.targets import measure_graph
     from fusion.view.place_graph import graph_targets_table
 
     notice(console)

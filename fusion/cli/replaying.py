@@ -101,7 +101,7 @@ def _layout_of(args: argparse.Namespace, case):
 
 def stream_command(args: argparse.Namespace) -> int:
     from fusion.localizer import Localizer
-    from fusion.places.case import is_place_case
+    from fusion.place_cases.case import is_place_case
     from fusion.stream import stream
 
     if is_place_case(args.site):
@@ -122,8 +122,8 @@ def stream_command(args: argparse.Namespace) -> int:
 def _stream_on_graph(args: argparse.Namespace) -> int:
     """``fusion stream`` on a place-graph site: ``--start`` is "anywhere" (the default), a place, or "PLACE,TOWARD"."""
     from fusion.io.start_pose import ANYWHERE
-    from fusion.places.case import load_place_case
-    from fusion.places.run import place_localizer
+    from fusion.place_cases.case import load_place_case
+    from fusion.place_cases.run import place_localizer
     from fusion.stream import stream
 
     if args.calibration:
@@ -142,7 +142,7 @@ def _stream_on_graph(args: argparse.Namespace) -> int:
 
 
 def inspect_command(args: argparse.Namespace) -> int:
-    from fusion.places.case import is_place_case
+    from fusion.place_cases.case import is_place_case
 
     if is_place_case(args.site):
         return _inspect_on_graph(args)
@@ -150,11 +150,11 @@ def inspect_command(args: argparse.Namespace) -> int:
 
 
 def _inspect_on_graph(args: argparse.Namespace) -> int:
-    """``fusion inspect`` of a log on a place-graph site (``fusion.places.inspect``)."""
+    """``fusion inspect`` of a log on a place-graph site (``fusion.place_cases.inspect``)."""
     from rich.console import Console
 
-    from fusion.places.case import load_place_case
-    from fusion.places.inspect import inspect_graph
+    from fusion.place_cases.case import load_place_case
+    from fusion.place_cases.inspect import inspect_graph
     from fusion.view.place_inspect import graph_inspection_table
 
     for option in ("layout", "calibration"):

@@ -28,7 +28,7 @@ def cases_command(args: argparse.Namespace) -> int:
     """The shipped cases: name, what each stresses (its description), and the folder that holds them."""
     from fusion.cli.opening import builtin_cases
     from fusion.io.case import load_case
-    from fusion.places.case import is_place_case, load_place_case
+    from fusion.place_cases.case import is_place_case, load_place_case
     from fusion.view.tables import cases_table
 
     rows = []
@@ -48,7 +48,7 @@ def run_command(args: argparse.Namespace) -> int:
     from rich.console import Console
     from rich.live import Live
 
-    from fusion.places.case import is_place_case
+    from fusion.place_cases.case import is_place_case
     from fusion.runner import RESULT_FILES, run_case, write_results
     from fusion.simulate import simulate
     from fusion.view.live import RunView, actions_timeline, summary_table
@@ -91,14 +91,14 @@ def run_command(args: argparse.Namespace) -> int:
 
 def _run_on_graph(args: argparse.Namespace) -> int:
     """``fusion run`` on a place-graph case: both back ends side by side, a table, the files of
-    ``fusion.places.outputs``."""
+    ``fusion.place_cases.outputs``."""
     import dataclasses
 
     from rich.console import Console
 
-    from fusion.places.case import load_place_case
-    from fusion.places.outputs import PLACE_FILES, write_place_results
-    from fusion.places.run import run_places
+    from fusion.place_cases.case import load_place_case
+    from fusion.place_cases.outputs import PLACE_FILES, write_place_results
+    from fusion.place_cases.run import run_places
     from fusion.view.place_graph import place_run_table
 
     case = load_place_case(args.case)
@@ -122,7 +122,7 @@ def _run_on_graph(args: argparse.Namespace) -> int:
     if console.is_terminal and not args.quiet:
         from rich.live import Live
 
-        from fusion.places.simulate import simulate_places
+        from fusion.place_cases.simulate import simulate_places
         from fusion.view.place_live import GraphRunView
 
         view = GraphRunView(case, backends, len(simulate_places(case)))
@@ -139,7 +139,7 @@ def _run_on_graph(args: argparse.Namespace) -> int:
 
 def check_command(args: argparse.Namespace) -> int:
     from fusion.io.case import load_case
-    from fusion.places.case import is_place_case
+    from fusion.place_cases.case import is_place_case
     from fusion.site_check import describe
 
     if is_place_case(args.case):
@@ -157,7 +157,7 @@ def check_command(args: argparse.Namespace) -> int:
 
 
 def _check_graph(args: argparse.Namespace) -> int:
-    from fusion.places.case import load_place_case
+    from fusion.place_cases.case import load_place_case
     from fusion.view.place_graph import describe_graph, draw_graph
     from fusion.view.site_preview import preview_path, write_picture
 
@@ -176,7 +176,7 @@ def compare_command(args: argparse.Namespace) -> int:
     from fusion.cli.sweep_progress import SweepProgress
     from fusion.compare import SweepInterrupted, run_sweep, sweep_digest
     from fusion.compare.conclusion import conclude
-    from fusion.places.case import is_place_case
+    from fusion.place_cases.case import is_place_case
     from fusion.view.compare_report import write_report
     from fusion.view.compare_tables import comparison_text
 
@@ -226,14 +226,14 @@ def compare_command(args: argparse.Namespace) -> int:
 
 
 def _compare_on_graph(args: argparse.Namespace) -> int:
-    """``fusion compare`` on a place-graph case (``fusion.places.compare``): one process, the settings of
+    """``fusion compare`` on a place-graph case (``fusion.place_cases.compare``): one process, the settings of
     --backend and --rule (default: the case's back ends and rule), --seeds (default 20)."""
     from rich.console import Console
 
-    from fusion.places.case import load_place_case
-    from fusion.places.compare import compare_graph, graph_settings
+    from fusion.place_cases.case import load_place_case
+    from fusion.place_cases.compare import compare_graph, graph_settings
+    from fusion.place_cases.outputs import write_comparison
     from fusion.places.filters import build_on
-    from fusion.places.outputs import write_comparison
     from fusion.view.place_graph import graph_compare_table
 
     case = load_place_case(args.case)

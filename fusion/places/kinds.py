@@ -8,7 +8,7 @@ Simulated readings follow the models' own parameters; the faults are what the mo
 - feature ``phantom``: it reports the feature where there is none, with probability ``rate`` per reading (a
   recess, a parked trolley).
 
-The simulation functions take the truth of ``fusion.places.simulate.PlaceTruth``; a reading of None is
+The simulation functions take the truth of ``fusion.place_cases.simulate.PlaceTruth``; a reading of None is
 no reading (a marker reader that saw nothing).
 """
 

@@ -14,7 +14,7 @@ import numpy as np
 from rich.table import Table
 
 from fusion import __version__
-from fusion.places.case import PlaceCase, route_length_m
+from fusion.place_cases.case import PlaceCase, route_length_m
 from fusion.text import literal
 from fusion.view.html_page import pyplot
 from fusion.view.site_preview import PREVIEW_MARK
@@ -192,7 +192,7 @@ def _pieces(graph) -> int:
 def graph_targets_table(name: str, rows) -> Table:
     """``fusion targets`` on a place graph: per back end, runs that found themselves from an unknown start (target
     95%) and carries found again within ``CARRY_PLACES`` distinctive places (target 90%)."""
-    from fusion.places.targets import CARRY_PLACES
+    from fusion.place_cases.targets import CARRY_PLACES
 
     table = Table(title=f"{literal(name)}: finding itself on the graph")
     for column in ("back end", "found from the start", "median places", "carries found again", "median places"):
@@ -210,7 +210,7 @@ def graph_targets_table(name: str, rows) -> Table:
         med = GraphTargetMedian(r)
         table.add_row(r.backend, f"{r.found}/{r.seeds} ({start_share:.0%}, {start_ok})", med.start, carry, med.carry)
     table.caption = (
-        "Each seed starts the route at another of its places (fusion/places/targets.py). Targets: found from an unknown "
+        "Each seed starts the route at another of its places (fusion/place_cases/targets.py). Targets: found from an unknown "
         f"start in 95% of seeds; found again within {CARRY_PLACES} distinctive places of a carry in 90%."
     )
     return table
@@ -226,7 +226,7 @@ class GraphTargetMedian:
 
 def graph_compare_table(found) -> Table:
     """``fusion compare`` on a graph: per figure and setting, the mean over seeds and its 95% interval."""
-    from fusion.places.compare import GRAPH_FIGURES
+    from fusion.place_cases.compare import GRAPH_FIGURES
 
     table = Table(
         title=f"{literal(found.case)}: {len(found.settings)} settings × {len(found.seeds)} seeds on the graph"

@@ -87,7 +87,7 @@ def graph_map(raster: _Raster, p: np.ndarray, truth_cell: int | None, estimate_c
 
 
 class GraphRunView(RunView):
-    """``RunView`` with the graph's map in each panel; fed by ``fusion.places.run.run_places``'s ``on_tick``."""
+    """``RunView`` with the graph's map in each panel; fed by ``fusion.place_cases.run.run_places``'s ``on_tick``."""
 
     legend = GRAPH_LEGEND
 

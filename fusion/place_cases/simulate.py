@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fusion.places.case import PlaceCase
+from fusion.place_cases.case import PlaceCase
 from fusion.simulate import Tick, active_faults, tick_readings
 
 __all__ = ["PlaceTruth", "simulate_places"]
@@ -53,7 +53,7 @@ class PlaceTruth:
         return frame.cell_on(e, self.along_m)
 
     def to_record(self, graph) -> dict:
-        """The truth file's record (``fusion.places.inspect.read_truth`` reads it back): places by name."""
+        """The truth file's record (``fusion.place_cases.inspect.read_truth`` reads it back): places by name."""
         return {
             "t": round(self.t, 6),
             "from": graph.places[self.a],

@@ -4,7 +4,7 @@ after the robot is carried, within few distinctive places?
 Each seed drives the case's route from a different place: the list of places the route goes through is
 rotated by the seed (seed mod its length), the legs being shortest paths as in the case, so the start, its
 direction and the places seen first differ from seed to seed; sensor noise and faults follow the seed as in
-every run.  Carries stay at their times.  "Found itself" and the places it took are ``fusion.places.run``'s.
+every run.  Carries stay at their times.  "Found itself" and the places it took are ``fusion.place_cases.run``'s.
 """
 
 from __future__ import annotations
@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fusion.places.case import PlaceCase
-from fusion.places.run import run_places
+from fusion.place_cases.case import PlaceCase
+from fusion.place_cases.run import run_places
 
 __all__ = ["GraphTarget", "measure_graph", "CARRY_PLACES", "rotated"]
 
@@ -40,7 +40,7 @@ class GraphTarget:
 
 def rotated(case: PlaceCase, seed: int) -> PlaceCase:
     """The case with its route started ``seed`` places further along its list, and the seed set."""
-    from fusion.places.case import route_through
+    from fusion.place_cases.case import route_through
 
     through = case.route.through
     k = seed % len(through)

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from fusion import SAFETY_NOTICE, __version__
 from fusion.io.outdir import atomic_write
-from fusion.places.run import PlaceRunResult
+from fusion.place_cases.run import PlaceRunResult
 
 __all__ = ["write_place_results", "PLACE_FILES"]
 
@@ -78,7 +78,7 @@ def write_place_results(result: PlaceRunResult, out_dir) -> Path:
 def write_comparison(found, out_dir) -> list[str]:
     """``runs.csv`` (one row per setting and seed: its figures) and ``summary.json`` (means, intervals, verdicts) of
     a comparison on a graph; returns the file names."""
-    from fusion.places.compare import GRAPH_FIGURES
+    from fusion.place_cases.compare import GRAPH_FIGURES
 
     out = Path(out_dir)
     buf = io.StringIO()

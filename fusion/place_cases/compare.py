@@ -1,7 +1,7 @@
 """``fusion compare`` on a place graph: each setting (a back end, and for the evidential one a rule) on the same
 seeds, identical readings per seed, the figures of a graph run, intervals over seeds and paired verdicts.
 
-Each seed drives the route from another of its places, as ``fusion targets`` does (``fusion.places.targets``);
+Each seed drives the route from another of its places, as ``fusion targets`` does (``fusion.place_cases.targets``);
 the statistics are the metric comparison's own (``fusion.compare.verdicts``: bias-corrected bootstrap intervals
 of the mean, Wilcoxon signed-rank tests over paired seeds) on the figures of ``GRAPH_FIGURES``.
 """
@@ -16,9 +16,9 @@ import numpy as np
 
 from fusion.compare.settings import Figure, Setting
 from fusion.monitor.policy import ALERT, RELOCALIZE
-from fusion.places.case import PlaceCase
-from fusion.places.run import run_places
-from fusion.places.targets import CARRY_PLACES, rotated
+from fusion.place_cases.case import PlaceCase
+from fusion.place_cases.run import run_places
+from fusion.place_cases.targets import CARRY_PLACES, rotated
 
 __all__ = ["GRAPH_FIGURES", "GraphRecord", "GraphComparison", "compare_graph", "graph_settings"]
 

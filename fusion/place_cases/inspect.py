@@ -29,7 +29,7 @@ from fusion.io.logs import ReadPosition, SetAside, require_readable, text_lines
 from fusion.io.outdir import atomic_write
 from fusion.monitor.episodes import Episode, EpisodeFinder
 from fusion.monitor.policy import CARRY_ON
-from fusion.places.case import PlaceCase
+from fusion.place_cases.case import PlaceCase
 
 __all__ = ["GraphInspection", "inspect_graph", "read_truth"]
 
@@ -84,7 +84,7 @@ def inspect_graph(case: PlaceCase, log_path, out_dir, *, truth_path=None, start:
     """Replay ``log_path`` on the graph of ``case`` with each back end; write the findings into ``out_dir``."""
     from fusion.io import recording
     from fusion.io.ticks import form_ticks
-    from fusion.places.run import place_localizer
+    from fusion.place_cases.run import place_localizer
 
     require_readable(log_path, "log")
     backends = tuple(backends or case.run.backends)

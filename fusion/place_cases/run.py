@@ -17,8 +17,8 @@ from functools import cached_property
 import numpy as np
 
 from fusion.monitor.policy import ALERT, QUARANTINE, RELOCALIZE
-from fusion.places.case import PlaceCase, detected_features
-from fusion.places.simulate import simulate_places
+from fusion.place_cases.case import PlaceCase, detected_features
+from fusion.place_cases.simulate import simulate_places
 
 __all__ = ["PlaceRow", "PlaceRunResult", "Episode", "run_places", "place_localizer", "RIGHT_STEPS", "HOLD_S"]
 
