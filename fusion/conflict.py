@@ -147,7 +147,7 @@ def jousselme_distance(m1: MassFunction, m2: MassFunction) -> float:
     keep = np.abs(diff) > 0
     if not keep.any():
         return 0.0
-    sets = acc._gather(np.flatnonzero(keep).tolist())
+    sets = acc.rows_of(np.flatnonzero(keep))
     diff = diff[keep]
     card = bitset.cardinality(sets).astype(np.float64)
     inter = bitset.intersection_counts(sets, sets).astype(np.float64)

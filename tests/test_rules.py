@@ -253,3 +253,42 @@ def test_one_pass_combine_and_cap_equals_the_two_steps(case, cap):
     assert one.mass_function.is_close(two.mass_function, 1e-12)
     assert_close(one.mass_moved, two.mass_moved, tol=1e-12)
     assert one.sets_merged == two.sets_merged
+
+
+# ---------------------------------------------------------------- exact merging under fingerprint collisions
+def _conjunctive_by_definition(f1: dict, f2: dict) -> dict:
+    # m(A) = Σ_{B∩C=A} m1(B) m2(C) (Smets 1990), on Python sets: no fingerprints, no packing.
+    out: dict = {}
+    for b, x in f1.items():
+        for c, y in f2.items():
+            out[b & c] = out.get(b & c, 0.0) + x * y
+    return out
+
+
+@pytest.mark.parametrize("n", [150, 700])
+def test_different_sets_sharing_a_fingerprint_are_never_merged(monkeypatch, n):
+    # A fingerprint that is only the set's size makes many different sets collide, within one batch and
+    # across batches; the exact comparison behind every merge must keep them apart.
+    from fusion.belief import bitset
+
+    monkeypatch.setattr(bitset, "fingerprint", lambda w: np.bitwise_count(w).sum(axis=-1).astype(np.uint64))
+    rng = np.random.default_rng(n)
+    sizes = rng.integers(1, 4, 24)  # few sizes: most sets collide with another of their size
+    masks = np.zeros((24, n), dtype=bool)
+    for i, size in enumerate(sizes):
+        masks[i, rng.choice(n // 10, size, replace=False)] = True  # small cells range: intersections repeat
+    masks[12:15] = masks[0]  # and some sets really are equal
+    w1, w2 = rng.random(12), rng.random(12)
+    w1, w2 = w1 / w1.sum(), w2 / w2.sum()
+    f1, f2 = {}, {}
+    for f, rows, w in ((f1, masks[:12], w1), (f2, masks[12:], w2)):
+        for row, x in zip(rows, w):
+            key = frozenset(np.flatnonzero(row).tolist())
+            f[key] = f.get(key, 0.0) + x
+    m1 = MassFunction.from_focal(n, {tuple(sorted(k)): v for k, v in f1.items()})
+    m2 = MassFunction.from_focal(n, {tuple(sorted(k)): v for k, v in f2.items()})
+    got = {frozenset(fs.cells): fs.mass for fs in rules.conjunctive(m1, m2)}
+    expected = {k: v for k, v in _conjunctive_by_definition(f1, f2).items() if v > 0}
+    assert got.keys() == expected.keys()
+    for key, value in expected.items():
+        assert_close(got[key], value, tol=1e-12)
