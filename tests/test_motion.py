@@ -78,9 +78,11 @@ def test_packed_set_motion_equals_the_cell_by_cell_reference(
 def test_taps_of_every_heading_at_once_are_each_headings_own_bit_for_bit():
     # The batched kernels of predict_density (one Gaussian for all headings) against shift_kernel per shift:
     # identical operations on identical numbers, so identical weights (our implementation's own invariant).
-    from fusion.motion import _taps, _taps_each
+    from fusion.motion import _tap_table, _taps
 
     rng = np.random.default_rng(4)
     for sigma in (0.0, 1e-7, 0.3, 1.7, 6.0):
         shifts = np.concatenate([rng.normal(0, 3, 36), [0.0, -0.5, 2.0, -3.25]])
-        assert _taps_each(shifts, sigma) == [_taps(float(s), sigma) for s in shifts]
+        offsets, weights, counts = _tap_table(shifts, sigma)
+        rows = [list(zip(offsets[h, :c].tolist(), weights[h, :c].tolist())) for h, c in enumerate(counts.tolist())]
+        assert rows == [_taps(float(s), sigma) for s in shifts]

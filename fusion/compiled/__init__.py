@@ -1,0 +1,75 @@
+"""Compiled kernels for the hot loops, with the numpy code as the fallback and the reference.
+
+A kernel here is used only where it was measured to pay for itself, its start-up and first-call compilation
+included (``docs/benchmark.md``).  Each one computes the same numbers as its numpy twin, in the same order of
+operations, and ``tests/test_compiled.py`` checks the two against each other.
+
+The kernels need numba (``pip install "fusion-localize[fast]"``); numba is imported on the first call, never
+with ``import fusion``, and its compiled code is cached on disk, so a process after the first loads it
+instead of compiling it again.  Without numba, or with ``FUSION_KERNELS=numpy`` in the environment, the numpy
+code runs; ``FUSION_KERNELS=compiled`` makes a missing numba an error instead of a silent fallback.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from types import ModuleType
+
+ENV = "FUSION_KERNELS"
+CHOICES = ("auto", "numpy", "compiled")
+
+
+@dataclass(frozen=True)
+class KernelChoice:
+    """Which code runs the hot loops in this process, and why."""
+
+    compiled: bool
+    why: str  # e.g. "numba 0.68.1", "FUSION_KERNELS=numpy", "numba is not installed"
+
+
+_loaded: tuple[KernelChoice, ModuleType | None] | None = None
+
+
+class KernelSetupError(RuntimeError):
+    """``FUSION_KERNELS`` asks for something this process cannot give."""
+
+
+def _load() -> tuple[KernelChoice, ModuleType | None]:
+    wanted = os.environ.get(ENV, "auto").strip().lower() or "auto"
+    if wanted not in CHOICES:
+        raise KernelSetupError(f"{ENV}={wanted!r}: expected one of {', '.join(CHOICES)}")
+    if wanted == "numpy":
+        return KernelChoice(False, f"{ENV}=numpy"), None
+    try:
+        import numba
+
+        from fusion.compiled import loops
+    except ImportError as exc:  # numba absent, or its llvmlite broken on this platform
+        if wanted == "compiled":
+            raise KernelSetupError(
+                f"{ENV}=compiled, but numba cannot be imported ({exc}); install fusion-localize[fast]"
+            ) from exc
+        return KernelChoice(False, "numba is not installed (pip install fusion-localize[fast])"), None
+    return KernelChoice(True, f"numba {numba.__version__}"), loops
+
+
+def kernels() -> ModuleType | None:
+    """The compiled loops (``fusion.compiled.loops``), or None when the numpy code is to run."""
+    global _loaded
+    if _loaded is None:
+        _loaded = _load()
+    return _loaded[1]
+
+
+def choice() -> KernelChoice:
+    """Which code runs the hot loops, loading the kernels if that has not happened yet."""
+    kernels()
+    assert _loaded is not None
+    return _loaded[0]
+
+
+def reset() -> None:
+    """Forget the choice, so the next call reads ``FUSION_KERNELS`` again (for tests)."""
+    global _loaded
+    _loaded = None

@@ -1,0 +1,129 @@
+"""The compiled loops (numba) against their numpy twins, and the switch that chooses between them.
+
+The numpy code is the reference here; it is itself checked against closed forms and outside references
+in the other test files (e.g. ``test_motion.py``).  A compiled loop keeps the numpy code's order of
+operations, so the two must agree to the last bit, not merely to a tolerance.
+"""
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from fusion import compiled, motion
+from fusion.sensors.odometry import Motion
+
+numba = pytest.importorskip("numba")
+
+
+@pytest.fixture
+def kernels(monkeypatch):
+    monkeypatch.delenv(compiled.ENV, raising=False)
+    compiled.reset()
+    loops = compiled.kernels()
+    assert loops is not None, compiled.choice().why
+    yield loops
+    compiled.reset()
+
+
+def _motion(headings, speed, angle, turn, sigma, sigma_turn):
+    ang = angle + np.arange(headings) * 2 * math.pi / headings
+    return Motion(
+        dx=speed * np.cos(ang), dy=speed * np.sin(ang), turn=turn, sigma=sigma, sigma_turn=sigma_turn,
+        bound=1, bound_turn=1, reliability=1.0, slip=0, slip_turn=0,
+    )  # fmt: skip
+
+
+def _numpy_prediction(belief, m):
+    across, along = motion._tap_table(m.dx, m.sigma), motion._tap_table(m.dy, m.sigma)
+    return motion._predict_numpy(belief, across, along, motion._turn_taps(m.turn, m.sigma_turn, belief.shape[0]))
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    st.integers(1, 12),
+    st.integers(1, 17),
+    st.integers(1, 19),
+    st.floats(0, 25),  # shifts up to beyond the whole array: everything leaves the map
+    st.floats(-math.pi, math.pi),
+    st.floats(-30, 30),
+    st.sampled_from([0.0, 1e-9, 0.3, 1.1, 4.0]),
+    st.sampled_from([0.0, 0.25, 2.0]),
+    st.integers(0, 2**32 - 1),
+)
+def test_compiled_prediction_equals_numpy_bit_for_bit(
+    kernels, headings, ny, nx, speed, angle, turn, sigma, sigma_turn, seed
+):
+    belief = np.random.default_rng(seed).random((headings, ny, nx))
+    m = _motion(headings, speed, angle, turn, sigma, sigma_turn)
+    np.testing.assert_array_equal(motion.predict_density(belief, m), _numpy_prediction(belief, m))
+
+
+def test_compiled_prediction_takes_a_strided_belief(kernels):
+    # A belief seen through a view (every other heading) is copied to a contiguous array first.
+    belief = np.random.default_rng(1).random((16, 9, 11))[::2]
+    m = _motion(8, 1.7, 0.3, 12.0, 0.4, 0.3)
+    np.testing.assert_array_equal(motion.predict_density(belief, m), _numpy_prediction(np.array(belief), m))
+
+
+def test_the_numpy_path_runs_when_asked(monkeypatch):
+    monkeypatch.setenv(compiled.ENV, "numpy")
+    compiled.reset()
+    try:
+        assert compiled.kernels() is None
+        assert compiled.choice() == compiled.KernelChoice(False, "FUSION_KERNELS=numpy")
+        belief = np.random.default_rng(2).random((4, 6, 5))
+        m = _motion(4, 0.8, 0.1, 40.0, 0.3, 0.5)
+        np.testing.assert_array_equal(motion.predict_density(belief, m), _numpy_prediction(belief, m))
+    finally:
+        compiled.reset()
+
+
+def test_a_wrong_kernel_setting_is_refused_with_the_choices(monkeypatch):
+    monkeypatch.setenv(compiled.ENV, "fastest")
+    compiled.reset()
+    try:
+        with pytest.raises(compiled.KernelSetupError, match="expected one of auto, numpy, compiled"):
+            compiled.kernels()
+    finally:
+        compiled.reset()
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.integers(1, 9), st.integers(1, 9), st.integers(1, 300), st.booleans(), st.integers(0, 2**32 - 1))
+def test_compiled_pair_sets_equal_numpy_and_fingerprint(kernels, k1, k2, words, union, seed):
+    from fusion.belief import bitset
+
+    rng = np.random.default_rng(seed)
+    a = rng.integers(0, 2**64, size=(k1, words), dtype=np.uint64)
+    b = rng.integers(0, 2**64, size=(k2, words), dtype=np.uint64)
+    rows = np.empty((k1, k2, words), dtype=np.uint64)
+    fps = np.empty((k1, k2), dtype=np.uint64)
+    kernels.pair_sets(a, b, bitset.multipliers(words), union, rows, fps)
+    op = np.bitwise_or if union else np.bitwise_and
+    expected = op(a[:, None, :], b[None, :, :])
+    np.testing.assert_array_equal(rows, expected)
+    np.testing.assert_array_equal(fps, bitset.fingerprint(expected))
+
+
+def test_rules_on_a_large_frame_give_the_same_result_either_way(monkeypatch):
+    # 32 × 32 focal sets on 40,000 cells: enough candidate words for the compiled pair loop.
+    from fusion.belief import rules
+    from fusion.belief.mass import MassFunction
+
+    rng = np.random.default_rng(3)
+    n = 40_000
+    m1 = MassFunction.from_contour(np.clip(rng.random(n) + 0.05, 0, 1), levels=32)
+    m2 = MassFunction.from_contour(np.clip(rng.random(n) + 0.1, 0, 1), levels=32)
+    results = {}
+    for mode in ("numpy", "auto"):
+        monkeypatch.setenv(compiled.ENV, mode)
+        compiled.reset()
+        results[mode] = [rules.dempster(m1, m2), rules.disjunctive(m1, m2), rules.yager(m1, m2)]
+    compiled.reset()
+    assert compiled.choice().compiled
+    for got, expected in zip(results["auto"], results["numpy"]):
+        np.testing.assert_array_equal(got.sets, expected.sets)
+        np.testing.assert_array_equal(got.masses, expected.masses)
