@@ -141,6 +141,13 @@ class FocalAccumulator:
             raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
         return self.rows_of(np.arange(len(self._weights))), self._weights.copy()
 
+    def empty_slots(self) -> np.ndarray:
+        """Which slots hold the empty set: its fingerprint is 0, confirmed exactly (few rows to look at)."""
+        empty = self._fps == 0
+        for slot in np.flatnonzero(empty).tolist():
+            empty[slot] = not self._row(slot).any()
+        return empty
+
     def reduced(self, max_focal: int, merge: str = "union") -> tuple[FocalAccumulator, float, int]:
         """Like ``arrays`` followed by ``rules.reduce_focal_sets``, but copies only the rows it keeps.
 
@@ -157,10 +164,7 @@ class FocalAccumulator:
         if not len(self._weights):
             raise MassValueError("no focal set received any mass; a mass function needs total mass 1")
         w = np.asarray(self._weights, dtype=np.float64)
-        fps = np.asarray(self._fps, dtype=np.uint64)
-        empty = np.zeros(len(w), dtype=bool)
-        for s in np.flatnonzero(fps == 0).tolist():
-            empty[s] = not self._row(s).any()
+        empty = self.empty_slots()
         nonempty = np.flatnonzero(~empty & (w > 0))
         if len(nonempty) <= max_focal:
             return self, 0.0, 0

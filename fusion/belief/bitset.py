@@ -22,6 +22,7 @@ __all__ = [
     "cardinality",
     "full",
     "fingerprint",
+    "multipliers",
     "intersection_counts",
 ]
 
@@ -95,21 +96,25 @@ def full(n: int) -> np.ndarray:
 _multipliers: dict[int, np.ndarray] = {}
 
 
-def fingerprint(words: np.ndarray) -> np.ndarray:
-    """A 64-bit fingerprint per row, equal for equal sets.
-
-    Rows with equal fingerprints are almost surely equal; callers that merge sets
-    confirm with an exact comparison, so a collision never merges two sets.
-    """
-    w = words.shape[-1]
+def multipliers(w: int) -> np.ndarray:
+    """The odd 64-bit multipliers of ``fingerprint`` for rows of ``w`` words (the same in every process)."""
     mult = _multipliers.get(w)
     if mult is None:
         rng = np.random.default_rng(_MULTIPLIER_SEED)
         mult = rng.integers(0, 2**63, size=w, dtype=np.uint64) * np.uint64(2) + np.uint64(1)
         _multipliers[w] = mult
+    return mult
+
+
+def fingerprint(words: np.ndarray) -> np.ndarray:
+    """A 64-bit fingerprint per row, equal for equal sets: Σ_k word_k · multiplier_k modulo 2⁶⁴.
+
+    Rows with equal fingerprints are almost surely equal; callers that merge sets
+    confirm with an exact comparison, so a collision never merges two sets.
+    """
     # uint64 array arithmetic wraps modulo 2**64 by design; the product with a
     # vector makes no temporary copy of the rows.
-    return np.ascontiguousarray(words, dtype=WORD) @ mult
+    return np.ascontiguousarray(words, dtype=WORD) @ multipliers(words.shape[-1])
 
 
 # Words unpacked at once by intersection_counts (64 Ki cells: float32 sums stay exact).

@@ -62,7 +62,7 @@ class MassFunction:
     Instances are immutable.
     """
 
-    __slots__ = ("n", "_sets", "_masses", "_card")
+    __slots__ = ("n", "_sets", "_masses", "_card", "_empty")
 
     def __init__(self, n: int, sets: np.ndarray, masses: np.ndarray):
         """Low-level constructor from packed words ``(k, W)`` and masses ``(k,)``.
@@ -84,25 +84,27 @@ class MassFunction:
         acc = FocalAccumulator(n)
         acc.add(sets, masses)
         merged = MassFunction.collected(acc)
-        self.n, self._sets, self._masses, self._card = n, merged._sets, merged._masses, None
+        self.n, self._sets, self._masses, self._card, self._empty = n, merged._sets, merged._masses, None, merged._empty
         self._masses = self._masses / self._masses.sum()
         self._masses.flags.writeable = False
 
     @classmethod
     def collected(cls, acc: FocalAccumulator) -> MassFunction:
         """The mass function an accumulator has merged (``FocalAccumulator.arrays``)."""
-        return cls._trusted(acc.n, *acc.arrays())
+        return cls._trusted(acc.n, *acc.arrays(), empty=acc.empty_slots())
 
     @classmethod
-    def _trusted(cls, n: int, sets: np.ndarray, masses: np.ndarray) -> MassFunction:
-        """Wrap arrays already merged and valid (used by the rules; no checks, no copy)."""
+    def _trusted(cls, n: int, sets: np.ndarray, masses: np.ndarray, empty: np.ndarray | None = None) -> MassFunction:
+        """Wrap arrays already merged and valid (used by the rules; no checks, no copy).  ``empty``: which rows
+        are the empty set, when the caller knows (it saves counting every set's cells to find out)."""
         self = object.__new__(cls)
         keep = masses > 0.0
         if not keep.all():
             sets, masses = sets[keep], masses[keep]
+            empty = None if empty is None else empty[keep]
         sets.flags.writeable = False
         masses.flags.writeable = False
-        self.n, self._sets, self._masses, self._card = int(n), sets, masses, None
+        self.n, self._sets, self._masses, self._card, self._empty = int(n), sets, masses, None, empty
         return self
 
     # ----------------------------------------------------------------- constructors
@@ -248,11 +250,16 @@ class MassFunction:
         order = np.argsort(-self._masses, kind="stable")
         return [FocalSet(bitset.indices(self._sets[i], self.n), float(self._masses[i])) for i in order]
 
+    def _empty_rows(self) -> np.ndarray:
+        """Which focal sets are the empty set (from the combination that made them when it said so)."""
+        if self._card is None and self._empty is not None:
+            return self._empty
+        return self.cardinalities == 0
+
     @property
     def conflict(self) -> float:
         """m(∅): the mass an unnormalised combination could not give to any cell."""
-        empty = self.cardinalities == 0
-        return float(self._masses[empty].sum())
+        return float(self._masses[self._empty_rows()].sum())
 
     @property
     def is_normal(self) -> bool:
@@ -313,7 +320,7 @@ class MassFunction:
 
     def normalised(self) -> MassFunction:
         """Dempster normalisation: remove m(∅) and rescale the rest (raises on m(∅) = 1)."""
-        nonempty = self.cardinalities > 0
+        nonempty = ~self._empty_rows()
         total = float(self._masses[nonempty].sum())
         if total <= 0.0:
             raise TotalConflictError(
@@ -326,7 +333,9 @@ class MassFunction:
         # The empty set usually comes last (the accumulator puts it there): then a view, not a copy.
         sets = self._sets[:count] if nonempty[:count].all() else self._sets[nonempty]
         out = MassFunction._trusted(self.n, sets, self._masses[nonempty] / total)
-        out._card = self.cardinalities[nonempty]
+        if self._card is not None:
+            out._card = self._card[nonempty]
+        out._empty = np.zeros(count, dtype=bool)
         return out
 
     def is_close(self, other: MassFunction, tol: float = 1e-9) -> bool:
