@@ -29,7 +29,7 @@ def informative(evidence) -> float:
     """How much a reading says about where the robot is: the share of cells it rules out (contour < ½).
     A quiet door contact rules out almost nothing and so cannot vouch for a belief against a sensor
     that disagrees with it."""
-    return float(np.mean(evidence.contour < 0.5))
+    return float(evidence.ruled_out)
 
 
 class Recovery:

@@ -58,6 +58,12 @@ class Evidence:
         return len(self.contour)
 
     @cached_property
+    def ruled_out(self) -> float:
+        """The share of cells the reading rules out (contour < ½): how much it says about where the robot is
+        (``fusion.monitor.recovery.informative``); counted once, as the monitor asks for it every tick."""
+        return np.count_nonzero(self.contour < 0.5) / max(self.n, 1)
+
+    @cached_property
     def likelihood(self) -> np.ndarray:
         """r · c + (1 − r): the Bayesian likelihood, up to a constant factor."""
         r = self.reliability
