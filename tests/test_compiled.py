@@ -127,3 +127,28 @@ def test_rules_on_a_large_frame_give_the_same_result_either_way(monkeypatch):
     for got, expected in zip(results["auto"], results["numpy"]):
         np.testing.assert_array_equal(got.sets, expected.sets)
         np.testing.assert_array_equal(got.masses, expected.masses)
+
+
+@pytest.mark.parametrize("max_range_m", [3.0, 12.0])  # short: the whole padded field is gathered; long: windows
+def test_compiled_scan_likelihood_equals_numpy_bit_for_bit(monkeypatch, max_range_m):
+    from fusion.sensors.ranging import RangeParams, RangeScan, RangeSensor
+    from fusion.site import SiteMap
+
+    site = SiteMap.empty(9.0, 6.0, 0.25, name="test bay").with_box(3.0, 2.0, 4.5, 3.5)
+    sensor = RangeSensor("lidar", site, site.grid(12), RangeParams(max_range_m=max_range_m))
+    rng = np.random.default_rng(int(max_range_m))
+    got = {}
+    for mode in ("numpy", "auto"):
+        monkeypatch.setenv(compiled.ENV, mode)
+        compiled.reset()
+        got[mode] = [
+            sensor.log_likelihood(
+                RangeScan(tuple(rng.uniform(0.1, max_range_m * 1.1, len(sensor.params.bearings_deg))))
+            )
+            for _ in range(4)
+        ]
+        rng = np.random.default_rng(int(max_range_m))  # the same scans for both
+    compiled.reset()
+    assert compiled.choice().compiled
+    for a, b in zip(got["auto"], got["numpy"]):
+        np.testing.assert_array_equal(a, b)

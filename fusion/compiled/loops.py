@@ -93,3 +93,21 @@ def pair_sets(a, b, multipliers, union, rows, fps):  # pragma: no cover - compil
                     out[k] = x
                     h += x * multipliers[k]
             fps[i, j] = h
+
+
+@numba.njit(cache=True, nogil=True)
+def scan_log_likelihood(tables, field_index, sx, sy, pad, out):  # pragma: no cover - compiled
+    """``fusion.sensors.ranging.RangeSensor.log_likelihood`` into ``out`` (zeros on entry): for each heading h and beam
+    b in order, out[h] += tables[b][field_index[window of h, b]], the window shifted by (sx[b, h], sy[b, h]) cells."""
+    headings, ny, nx = out.shape
+    for h in range(headings):
+        plane = out[h]
+        for b in range(tables.shape[0]):
+            table = tables[b]
+            top = pad + sy[b, h]
+            left = pad + sx[b, h]
+            for y in range(ny):
+                row = plane[y]
+                index = field_index[top + y, left : left + nx]
+                for x in range(nx):
+                    row[x] += table[index[x]]

@@ -38,6 +38,7 @@ from functools import cached_property
 
 import numpy as np
 
+from fusion import compiled
 from fusion.errors import ObservationError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence, contour_from_log
@@ -128,19 +129,30 @@ class RangeSensor:
         z = self._ranges(scan)
         g, pad, res = self.grid, self._pad, self.grid.resolution_m
         out = np.zeros(g.shape)
-        for b, bearing in enumerate(np.radians(self.params.bearings_deg)):
-            if z[b] >= self.params.max_range_m:
-                continue
-            table = np.log(self.beam_density(z[b], self._distances, self.grid_sigma(z[b])))
-            # When the padded field is smaller than the windows the headings read, the beam's log density is gathered
-            # at every cell of it once and each heading reads a window of that (a view); otherwise (a long range on a
-            # fine grid) each heading gathers its own window from the table.
-            whole = gathers_whole_field(self._field_index.size, g.n_cells)
+        beams = [b for b in range(z.size) if z[b] < self.params.max_range_m]  # no return: no position information
+        if not beams:
+            return out
+        bearings = np.radians(self.params.bearings_deg)
+        tables = np.stack([np.log(self.beam_density(z[b], self._distances, self.grid_sigma(z[b]))) for b in beams])
+        # Where each heading's window of the padded field starts, per beam (cells).
+        sx = np.array(
+            [[int(round(z[b] * math.cos(t + bearings[b]) / res)) for t in g.heading_centres()] for b in beams]
+        )
+        sy = np.array(
+            [[int(round(z[b] * math.sin(t + bearings[b]) / res)) for t in g.heading_centres()] for b in beams]
+        )
+        loops = compiled.kernels()
+        if loops is not None:
+            loops.scan_log_likelihood(tables, self._field_index, sx, sy, pad, out)
+            return out
+        # When the padded field is smaller than the windows the headings read, the beam's log density is gathered
+        # at every cell of it once and each heading reads a window of that (a view); otherwise (a long range on a
+        # fine grid) each heading gathers its own window from the table.
+        whole = gathers_whole_field(self._field_index.size, g.n_cells)
+        for table, row_x, row_y in zip(tables, sx, sy):
             field = table[self._field_index] if whole else None
-            for h, theta in enumerate(g.heading_centres()):
-                sx = int(round(z[b] * math.cos(theta + bearing) / res))
-                sy = int(round(z[b] * math.sin(theta + bearing) / res))
-                window = (slice(pad + sy, pad + sy + g.ny), slice(pad + sx, pad + sx + g.nx))
+            for h in range(g.headings):
+                window = (slice(pad + row_y[h], pad + row_y[h] + g.ny), slice(pad + row_x[h], pad + row_x[h] + g.nx))
                 out[h] += field[window] if whole else table[self._field_index[window]]
         return out
 
