@@ -128,16 +128,23 @@ class ContourBelief:
         ``LOWEST_LEVEL`` are visited: the sets below that level carry less mass than that in all."""
         e = np.asarray(contour, dtype=np.float64).reshape(-1)
         cells, bins = self._active()
-        values = e[cells] if transform is None else transform(e[cells])
         if bayesian:
             total = float(e.sum())
             if total <= 0:
                 return 1.0
+            values = e[cells] if transform is None else transform(e[cells])
             reach = np.cumsum(np.bincount(bins, weights=values, minlength=_BINS + 1)) / total
         else:
-            per_bin = np.zeros(_BINS + 1)
-            np.maximum.at(per_bin, bins, values)
+            # Pl_e({pl ≥ λ}) is the largest reading value over the cells of the bins above λ.  The transform is
+            # monotone (a plausibility of fit rises with the contour), so it is applied to those few maxima, one
+            # per bin, not to every cell: max of t(v) = t(max of v).
+            per_bin = np.full(_BINS + 1, -1.0)  # below every reading value: marks the bins before the first cell
+            np.maximum.at(per_bin, bins, e[cells])
             reach = np.maximum.accumulate(per_bin)
+            before = reach < 0.0
+            if transform is not None:
+                reach = transform(np.maximum(reach, 0.0))
+            reach[before] = 0.0
         agree = float((_WIDTHS * reach).sum())  # not np.dot: a BLAS call costs more than this sum here
         if agree <= LOWEST_LEVEL and not np.any((self._contour > 0) & (e > 0)):
             return 1.0  # no cell both allow: total conflict, exactly
