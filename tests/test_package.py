@@ -8,10 +8,10 @@ from fusion import SAFETY_NOTICE
 from fusion.cli import main
 
 
-def test_import_is_light_and_never_pulls_torch():
+def test_import_is_light_and_never_pulls_torch_or_numba():
     code = (
         "import sys, fusion; fusion.MassFunction; fusion.Posterior; fusion.combine;"
-        "heavy = [m for m in ('torch', 'pyro', 'matplotlib', 'pandas', 'rich') if m in sys.modules];"
+        "heavy = [m for m in ('torch', 'pyro', 'matplotlib', 'pandas', 'rich', 'numba') if m in sys.modules];"
         "print(','.join(heavy))"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
@@ -36,7 +36,9 @@ def test_bench_reports_ratios_as_json(capsys):
     rows = out["cost"]
     assert {(r["backend"], r["operation"]) for r in rows} == {
         ("bayes", "update"),
+        ("bayes", "update + region size"),
         ("bayes", "predict"),
+        ("mass functions", "Dempster's rule"),
         ("evidential", "update"),
         ("evidential", "predict (probabilistic)"),
         ("evidential", "predict (bounded)"),

@@ -20,6 +20,7 @@ def bench_command(args: argparse.Namespace) -> int:
     from rich.console import Console
 
     from fusion.bench import SIZES, bench_localizer, run_bench
+    from fusion.bench_combination import FRAME_SIZES, bench_combination
     from fusion.bench_imports import bench_imports
     from fusion.bench_steps import bench_backend_steps
     from fusion.bench_sweep import bench_sweep
@@ -32,7 +33,14 @@ def bench_command(args: argparse.Namespace) -> int:
     sizes = SIZES[:1] if args.quick else SIZES
     with console.status("measuring… (each figure is the fastest of several runs)"):
         rows = run_bench(sizes=sizes, repeats=args.repeats, seed=args.seed)
+        frames = FRAME_SIZES[:-1] if args.quick else FRAME_SIZES
+        rows += bench_combination(repeats=args.repeats, seed=args.seed, sizes=frames)
         if not args.quick:
+            from fusion.bench_kernels import bench_kernels
+            from fusion.io.case import load_case
+
+            depot = load_case(builtin_case("depot.toml"))
+            rows += bench_kernels(depot.site.grid(depot.headings), repeats=args.repeats, seed=args.seed)
             rows += bench_localizer(builtin_case("depot.toml"))
             rows += bench_backend_steps(builtin_case("depot.toml"))
             rows += bench_graph_steps()
