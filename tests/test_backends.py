@@ -125,7 +125,7 @@ def test_region_size_is_the_highest_density_region_by_its_definition(concentrati
     # The smallest set of cells holding 95% of the mass is the most probable cells taken in order
     # until their sum reaches 95% (Hyndman 1996, Computing and graphing highest density regions):
     # counted here by a full sort, against the partial selection the back ends use.
-    from fusion.backends.base import REGION_PROBE, region_size
+    from fusion.backends.region import REGION_PROBE, region_size
 
     rng = np.random.default_rng(int(concentration * 1000))
     for n in (10, 3 * REGION_PROBE, 200_000):
@@ -140,7 +140,7 @@ def test_region_size_is_the_highest_density_region_by_its_definition(concentrati
 def test_region_by_bins_counts_as_the_full_sort_does():
     # The binned count of a spread belief (float64 bit patterns order as the values do, IEEE 754) against the
     # highest-density region by its definition, a full sort (Hyndman 1996), on spread, tied and wide-ranging values.
-    from fusion.backends.base import _region_by_bins
+    from fusion.backends.region import _region_by_bins
 
     rng = np.random.default_rng(8)
     for values in (

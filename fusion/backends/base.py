@@ -15,6 +15,7 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
+from fusion.backends.region import REGION_LEVEL, region_size
 from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
@@ -35,8 +36,6 @@ __all__ = [
 
 TOTAL_CONFLICT = 1.0 - 1e-12
 """A conflict K at or above this is total (the rest is rounding): no normalisation can absorb the reading."""
-REGION_LEVEL = 0.95
-"""Probability held by the 'best region' reported with every estimate (common practice, no source)."""
 
 
 @dataclass(frozen=True)
@@ -177,58 +176,6 @@ class Backend(Protocol):
 def free_cells(grid: PoseGrid, free: np.ndarray | None) -> np.ndarray:
     """One bool per cell: the site's free plane ((ny, nx)) repeated over every heading; every cell when None."""
     return np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
-
-
-def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:
-    """Number of cells in the smallest set holding ``level`` of ``p`` (most probable cells first).
-
-    Only cells holding at least (1 − level) · total / n can be in it: all the cells below that hold less than
-    (1 − level) of the total together, so the cells above it, most probable first, reach ``level`` before any
-    of them is needed.  That one pass leaves a few hundred candidates of a tracked belief's 1.4 M cells."""
-    total = float(p.sum())
-    if total <= 0:
-        return 0
-    nz = p[p >= max((1.0 - level) * total / p.size, np.finfo(np.float64).tiny)]
-    n = nz.size
-    if n == 0:
-        return 0
-    target = level * total * (1 - 1e-12)
-    # A tracked belief holds its mass in a few hundred cells: a partial selection of the largest
-    # REGION_PROBE (linear time) and a sort of those settles it, a tenth of a full sort's cost on
-    # 1.4 M cells (measured).  The top k values, sorted, are the first k of the full sort (ties are
-    # equal values), so the count is the full sort's.  A spread belief falls back to the full sort.
-    if n > 2 * REGION_PROBE:
-        desc = np.sort(np.partition(nz, n - REGION_PROBE)[n - REGION_PROBE :])[::-1]
-        cum = np.cumsum(desc)
-        if cum[-1] >= target:
-            return int(np.searchsorted(cum, target) + 1)
-        return _region_by_bins(nz, target)
-    desc = np.sort(nz)[::-1]
-    return int(min(np.searchsorted(np.cumsum(desc), target) + 1, n))
-
-
-_BIN_SHIFT = 44
-"""Bits of a float64 dropped to bin it in ``_region_by_bins``: 8 mantissa bits kept, 256 bins a binade (our choice)."""
-
-
-def _region_by_bins(nz: np.ndarray, target: float) -> int:
-    """``region_size`` of a spread belief without a full sort.  Positive float64 values order as their bit patterns do
-    (IEEE 754), so the top bits bin them by size with no logarithm: the bins are summed from the top until the
-    one where the sum crosses ``target``, and only that bin's values are sorted.  Every value of a higher bin is
-    larger than every value of that bin, so the count is the full sort's (ties are equal values, in one bin).  The
-    values are at least (1 − level) · total / n, so they span a few dozen binades: a few thousand bins."""
-    key = nz.view(np.int64) >> _BIN_SHIFT
-    key = key - key.min()
-    held = np.cumsum(np.bincount(key, weights=nz)[::-1])  # from the largest bin down
-    b = int(min(np.searchsorted(held, target), held.size - 1))
-    edge = held.size - 1 - b
-    above, above_mass = int(np.count_nonzero(key > edge)), float(held[b - 1]) if b else 0.0
-    inside = np.sort(nz[key == edge])[::-1]
-    return int(min(above + np.searchsorted(np.cumsum(inside), target - above_mass) + 1, above + inside.size))
-
-
-REGION_PROBE = 4096
-"""Cells taken by the partial selection of ``region_size`` before it falls back to a full sort (our choice)."""
 
 
 def estimate_pose(grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None = None) -> PoseEstimate:
