@@ -102,24 +102,37 @@ def _convolve_zero(plane: np.ndarray, taps, axis: int) -> np.ndarray:
 
 
 def predict_density(
-    belief: np.ndarray, motion: Motion, sigma: float | None = None, sigma_turn: float | None = None
+    belief: np.ndarray,
+    motion: Motion,
+    sigma: float | None = None,
+    sigma_turn: float | None = None,
+    free: np.ndarray | None = None,
 ) -> np.ndarray:
-    """Predicted density of shape (headings, ny, nx); not renormalised (mass may leave the map).
+    """Predicted density of shape (headings, ny, nx); not renormalised (mass may leave the map).  ``free``: a mask of
+    the same shape (or one entry per cell); the density is set to 0 where it is False.
 
     Kernels are short (a move of a few tenths of a metre has two or three taps per axis), so
     the convolutions are written as a few shifted multiply-adds per heading slice; with numba
-    installed a compiled loop does the same operations in one pass per slice (``fusion.compiled``).
+    installed a compiled loop does the same operations a block of rows at a time (``fusion.compiled``).
     """
     sigma = motion.sigma if sigma is None else sigma
     sigma_turn = motion.sigma_turn if sigma_turn is None else sigma_turn
     across, along = _tap_table(motion.dx, sigma), _tap_table(motion.dy, sigma)
     turn = _turn_taps(motion.turn, sigma_turn, belief.shape[0])
+    mask = None if free is None else np.asarray(free, dtype=bool).reshape(belief.shape)
     loops = compiled.kernels()
     if loops is not None and belief.dtype == np.float64:
         out = np.empty(belief.shape)
-        loops.predict_density(np.ascontiguousarray(belief), *across, *along, *_pair(turn), out)
+        given = _NO_MASK if mask is None else np.ascontiguousarray(mask)
+        loops.predict_density(np.ascontiguousarray(belief), *across, *along, *_pair(turn), given, out)
         return out
-    return _predict_numpy(belief, across, along, turn)
+    out = _predict_numpy(belief, across, along, turn)
+    if mask is not None:
+        out *= mask
+    return out
+
+
+_NO_MASK = np.zeros((0, 0, 0), dtype=bool)
 
 
 def _turn_taps(turn: float, sigma_turn: float, headings: int) -> dict[int, float]:

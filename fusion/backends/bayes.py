@@ -67,12 +67,14 @@ class HistogramFilter:
 
     def predict(self, motion: Motion) -> None:
         cube = self.belief.probabilities.reshape(self.grid.shape)
-        moved = predict_density(cube, motion)
         if motion.reliability < 1.0:  # wheel slip: with 1 − r the move is only known within the slip bound
+            moved = predict_density(cube, motion)
             slipped = predict_density(cube, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
             moved = motion.reliability * moved + (1.0 - motion.reliability) * slipped
-        moved = moved.reshape(-1)
-        moved *= self.free
+            moved = moved.reshape(-1)
+            moved *= self.free
+        else:
+            moved = predict_density(cube, motion, free=self.free).reshape(-1)
         try:
             self.belief.set(moved, owned=True)
         except ZeroEvidenceError:  # every cell moved off free space: keep the belief, the monitor will see it

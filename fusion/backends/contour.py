@@ -111,18 +111,19 @@ class ContourFilter:
     # ----------------------------------------------------------------- prediction
     def predict(self, motion: Motion) -> None:
         cube = self.belief.contour.reshape(self.grid.shape)
-        if self.motion == "probabilistic":
+        if self.motion == "probabilistic" and motion.reliability == 1.0:
+            moved = predict_density(cube, motion, free=self.free).reshape(-1)  # masked as it is made
+        elif self.motion == "probabilistic":
             moved = predict_density(cube, motion)
-            if motion.reliability < 1.0:
-                slipped = predict_density(cube, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
-                moved = motion.reliability * moved + (1.0 - motion.reliability) * slipped
+            slipped = predict_density(cube, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
+            moved = (motion.reliability * moved + (1.0 - motion.reliability) * slipped).reshape(-1) * self.free
         else:
             x, y, turn = self._residual.advance(motion, motion.bound_cells, motion.bound_bins)
             moved = dilate_density(cube, x, y, turn)
             if motion.reliability < 1.0:  # with 1 − r the wheels slipped: the move is known within the slip bound
                 slipped = dilate_density(cube, *bound_offsets(motion, motion.slip, motion.slip_turn))
                 moved = motion.reliability * moved + (1.0 - motion.reliability) * slipped
-        moved = moved.reshape(-1) * self.free
+            moved = moved.reshape(-1) * self.free
         if moved.max() > 0:  # everything moved into walls: keep the belief; the next update shows the conflict
             self.belief = ContourBelief(moved, self.belief.empty, owned=True)
 

@@ -9,65 +9,164 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-_BLOCK = 1024  # cells per block of the heading mix: 36 headings × 1,024 × 8 bytes stay in a core's cache
+_ADD, _ZERO, _PRODUCT = 0, 1, 2  # how a sum of taps starts: onto what is there, onto 0.0, or as the bare product
+_ROWS = 16  # grid rows per block of the prediction: every heading's moved rows of a block stay in cache (measured)
 
 
 @numba.njit(cache=True, nogil=True)
-def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, out):  # pragma: no cover - compiled
+def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, free, out):  # pragma: no cover
     """``fusion.motion.predict_density`` into ``out``: per heading h, Σ_k wx[h,k]·(slice moved by ox[h,k] along x),
-    zero-filled; the same along y; then headings mixed by the turn taps (wrapping round).
+    zero-filled; the same along y; then headings mixed by the turn taps (wrapping round); then cells where ``free``
+    is False set to 0 (``free`` empty: no mask).  The taps are padded tables: heading h uses the first cx[h] (cy[h])
+    entries of its row.
 
-    The taps are padded tables: heading h uses the first cx[h] (cy[h]) entries of its row.
+    The grid is done a block of rows at a time, for every heading, so what one heading's slice moved to is still in
+    cache when the headings are mixed, instead of a whole moved belief going out to memory and back.
     """
     headings, ny, nx = belief.shape
-    across = np.empty((ny, nx))
-    moved = np.empty((headings, ny, nx))
+    taps = max(ox.shape[1], oy.shape[1], turn_offsets.size, 1)
+    rows_buf = np.empty(taps, np.int64)
+    shifts_buf = np.zeros(taps, np.int64)
+    weights_buf = np.empty(taps)
+    lowest, highest = 0, 0
     for h in range(headings):
-        plane = belief[h]
-        for iy in range(ny):
-            row = across[iy]
-            src = plane[iy]
-            for ix in range(nx):
-                row[ix] = 0.0
-            for k in range(cx[h]):
-                offset = ox[h, k]
-                weight = wx[h, k]
-                lo = max(0, offset)
-                hi = min(nx, nx + offset)
-                if lo < hi:
-                    dst = row[lo:hi]
-                    got = src[lo - offset : hi - offset]
-                    for j in range(hi - lo):
-                        dst[j] += weight * got[j]
-        level = moved[h]
-        for iy in range(ny):
-            row = level[iy]
-            for ix in range(nx):
-                row[ix] = 0.0
-            for k in range(cy[h]):
-                source = iy - oy[h, k]
-                if 0 <= source < ny:
-                    weight = wy[h, k]
-                    got = across[source]
-                    for ix in range(nx):
-                        row[ix] += weight * got[ix]
-    # Headings mixed block by block of cells, so each moved value is fetched from memory once, not once per tap.
-    cells = ny * nx
-    flat_moved = moved.reshape(headings, cells)
-    flat_out = out.reshape(headings, cells)
-    for start in range(0, cells, _BLOCK):
-        stop = min(cells, start + _BLOCK)
+        for k in range(cy[h]):
+            lowest = min(lowest, oy[h, k])
+            highest = max(highest, oy[h, k])
+    across = np.empty((_ROWS + highest - lowest, nx))
+    moved = np.empty((headings, _ROWS * nx))
+    masked = free.size > 0
+    for y0 in range(0, ny, _ROWS):
+        y1 = min(ny, y0 + _ROWS)
+        first, last = max(0, y0 - highest), min(ny, y1 - lowest)  # the rows the block's y pass reads
         for h in range(headings):
-            dst = flat_out[h, start:stop]
-            for t in range(turn_offsets.size):
-                got = flat_moved[(h - turn_offsets[t]) % headings, start:stop]
-                weight = turn_weights[t]
-                if t == 0:
-                    for i in range(stop - start):
-                        dst[i] = weight * got[i]
+            plane = belief[h]
+            for r in range(first, last):
+                _convolve_row(across[r - first], plane, r, ox[h], wx[h], cx[h], rows_buf)
+            for y in range(y0, y1):
+                used = 0
+                for k in range(cy[h]):
+                    source = y - oy[h, k]
+                    if 0 <= source < ny:
+                        rows_buf[used] = source - first
+                        weights_buf[used] = wy[h, k]
+                        used += 1
+                row = moved[h, (y - y0) * nx : (y - y0 + 1) * nx]
+                if used == 0:
+                    row[:] = 0.0
                 else:
-                    for i in range(stop - start):
-                        dst[i] += weight * got[i]
+                    _combine(row, across, rows_buf, shifts_buf, weights_buf, used, 0, nx, _ZERO)
+        cells = (y1 - y0) * nx
+        for t in range(turn_offsets.size):
+            shifts_buf[t] = 0
+        for h in range(headings):
+            dst = out[h, y0:y1].reshape(cells)
+            for t in range(turn_offsets.size):
+                rows_buf[t] = (h - turn_offsets[t]) % headings
+            _combine(dst, moved, rows_buf, shifts_buf, turn_weights, turn_offsets.size, 0, cells, _PRODUCT)
+            if masked:
+                allowed = free[h, y0:y1].reshape(cells)
+                for i in range(cells):
+                    if not allowed[i]:
+                        dst[i] = 0.0
+
+
+@numba.njit(inline="always")
+def _convolve_row(dst, plane, row, offsets, weights, count, rows_buf):  # pragma: no cover - compiled
+    """dst = Σ_k weights[k]·(plane[row] moved by offsets[k]), zero-filled, taps in order (numpy's ``_convolve_zero``
+    on one row): the cells every tap reaches in passes of up to four taps, the edge cells tap by tap."""
+    n = dst.size
+    lo, hi = 0, n
+    for k in range(count):
+        lo = max(lo, offsets[k])
+        hi = min(hi, n + offsets[k])
+        rows_buf[k] = row
+    if lo >= hi:  # no cell that every tap reaches: all are edge cells
+        lo, hi = n, n
+    _combine(dst, plane, rows_buf, offsets, weights, count, lo, hi, _ZERO)
+    _edge_cells(dst, plane[row], offsets, weights, count, 0, lo)
+    _edge_cells(dst, plane[row], offsets, weights, count, hi, n)
+
+
+@numba.njit(inline="always")
+def _edge_cells(dst, source, offsets, weights, count, first, last):  # pragma: no cover - compiled
+    """dst[i] for i in [first, last): the taps whose source cell is on the row, in order, onto 0.0."""
+    n = dst.size
+    for i in range(first, last):
+        total = 0.0
+        for k in range(count):
+            j = i - offsets[k]
+            if 0 <= j < n:
+                total += weights[k] * source[j]
+        dst[i] = total
+
+
+@numba.njit(inline="always")
+def _combine(dst, table, rows, shifts, weights, count, lo, hi, start_as):  # pragma: no cover - compiled
+    """dst[i] for i in [lo, hi) = (start) + Σ_k weights[k]·table[rows[k], i − shifts[k]] in tap order, up to four taps a
+    pass; ``start_as``: onto dst (_ADD), onto 0.0 (_ZERO) or the bare first product (_PRODUCT).  Each product is rounded
+    and then added, in the order numpy adds the taps one array at a time, so the sums are numpy's to the last bit."""
+    m = hi - lo
+    if m <= 0:
+        return
+    k = 0
+    mode = start_as
+    d = dst[lo:hi]
+    while k < count:
+        group = min(4, count - k)
+        w0 = weights[k]
+        a = table[rows[k], lo - shifts[k] : hi - shifts[k]]
+        if group == 1:
+            if mode == _PRODUCT:
+                for i in range(m):
+                    d[i] = w0 * a[i]
+            elif mode == _ZERO:
+                for i in range(m):
+                    d[i] = 0.0 + w0 * a[i]
+            else:
+                for i in range(m):
+                    d[i] = d[i] + w0 * a[i]
+        elif group == 2:
+            w1 = weights[k + 1]
+            b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
+            if mode == _PRODUCT:
+                for i in range(m):
+                    d[i] = w0 * a[i] + w1 * b[i]
+            elif mode == _ZERO:
+                for i in range(m):
+                    d[i] = (0.0 + w0 * a[i]) + w1 * b[i]
+            else:
+                for i in range(m):
+                    d[i] = (d[i] + w0 * a[i]) + w1 * b[i]
+        elif group == 3:
+            w1, w2 = weights[k + 1], weights[k + 2]
+            b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
+            c = table[rows[k + 2], lo - shifts[k + 2] : hi - shifts[k + 2]]
+            if mode == _PRODUCT:
+                for i in range(m):
+                    d[i] = (w0 * a[i] + w1 * b[i]) + w2 * c[i]
+            elif mode == _ZERO:
+                for i in range(m):
+                    d[i] = ((0.0 + w0 * a[i]) + w1 * b[i]) + w2 * c[i]
+            else:
+                for i in range(m):
+                    d[i] = ((d[i] + w0 * a[i]) + w1 * b[i]) + w2 * c[i]
+        else:
+            w1, w2, w3 = weights[k + 1], weights[k + 2], weights[k + 3]
+            b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
+            c = table[rows[k + 2], lo - shifts[k + 2] : hi - shifts[k + 2]]
+            e = table[rows[k + 3], lo - shifts[k + 3] : hi - shifts[k + 3]]
+            if mode == _PRODUCT:
+                for i in range(m):
+                    d[i] = ((w0 * a[i] + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
+            elif mode == _ZERO:
+                for i in range(m):
+                    d[i] = (((0.0 + w0 * a[i]) + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
+            else:
+                for i in range(m):
+                    d[i] = (((d[i] + w0 * a[i]) + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
+        k += group
+        mode = _ADD
 
 
 @numba.njit(cache=True, nogil=True)
@@ -111,3 +210,55 @@ def scan_log_likelihood(tables, field_index, sx, sy, pad, out):  # pragma: no co
                 index = field_index[top + y, left : left + nx]
                 for x in range(nx):
                     row[x] += table[index[x]]
+
+
+@numba.njit(cache=True, nogil=True)
+def region_scan(p, threshold, base, shift, mass, count, few):  # pragma: no cover - compiled
+    """One pass over ``p`` for ``fusion.backends.base.region_size``: the values ≥ ``threshold`` (the candidates) binned
+    by their top bits, (bits >> ``shift``) − ``base``, their mass and number added up per bin in the order of ``p`` (as
+    ``np.bincount`` does); the first ``few.size`` candidates copied to ``few`` in that order.  Returns how many there
+    are."""
+    bits = p.view(np.int64)
+    n = 0
+    for i in range(p.size):
+        v = p[i]
+        if v >= threshold:
+            b = min(
+                (bits[i] >> shift) - base, mass.size - 1
+            )  # a value above the total (not a probability) stays in bounds
+            mass[b] += v
+            count[b] += 1
+            if n < few.size:
+                few[n] = v
+            n += 1
+    return n
+
+
+@numba.njit(cache=True, nogil=True)
+def region_values(p, threshold, base, shift, lowest, highest, last, out):  # pragma: no cover - compiled
+    """The candidates of ``region_scan`` whose bin (at most ``last``, as there) is in [lowest, highest], in the order of
+    ``p``, into ``out``; returns how many."""
+    bits = p.view(np.int64)
+    n = 0
+    for i in range(p.size):
+        v = p[i]
+        if v >= threshold:
+            b = min((bits[i] >> shift) - base, last)
+            if lowest <= b <= highest:
+                out[n] = v
+                n += 1
+    return n
+
+
+@numba.njit(cache=True, nogil=True)
+def pignistic_levels(contour, bins, below, upper, counts, out):  # pragma: no cover - compiled
+    """``fusion.belief.contour.ContourBelief.pignistic`` before its normalisation: per cell, below[b] + (contour −
+    upper[b]) / max(counts[b], 1) with b its level bin, 0 where the contour is 0 (the numpy code's arithmetic, in
+    one pass instead of five)."""
+    for i in range(contour.size):
+        c = contour[i]
+        if c <= 0.0:
+            out[i] = 0.0
+        else:
+            b = bins[i]
+            out[i] = below[b] + (c - upper[b]) / max(counts[b], 1.0)
