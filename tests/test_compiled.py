@@ -61,6 +61,18 @@ def test_compiled_prediction_equals_numpy_bit_for_bit(
     np.testing.assert_array_equal(motion.predict_density(belief, m), _numpy_prediction(belief, m))
 
 
+def test_compiled_prediction_masks_as_numpy_does(kernels):
+    # The free-space mask applied inside the loop equals the prediction multiplied by the mask afterwards.
+    rng = np.random.default_rng(5)
+    for shape in ((6, 37, 21), (36, 20, 30), (3, 1, 40)):
+        belief = rng.random(shape)
+        free = rng.random(shape[1:]) < 0.6
+        m = _motion(shape[0], 2.3, 0.4, 25.0, 0.6, 0.4)
+        np.testing.assert_array_equal(
+            motion.predict_density(belief, m, free=np.broadcast_to(free, shape)), _numpy_prediction(belief, m) * free
+        )
+
+
 def test_compiled_prediction_takes_a_strided_belief(kernels):
     # A belief seen through a view (every other heading) is copied to a contiguous array first.
     belief = np.random.default_rng(1).random((16, 9, 11))[::2]
@@ -148,6 +160,52 @@ def test_compiled_scan_likelihood_equals_numpy_bit_for_bit(monkeypatch, max_rang
             for _ in range(4)
         ]
         rng = np.random.default_rng(int(max_range_m))  # the same scans for both
+    compiled.reset()
+    assert compiled.choice().compiled
+    for a, b in zip(got["auto"], got["numpy"]):
+        np.testing.assert_array_equal(a, b)
+
+
+def test_compiled_region_size_counts_as_numpy_does(monkeypatch):
+    # Tracked (a few cells), spread (every cell a candidate), heavy-tailed, tied and two-level beliefs, on both sides of
+    # the sizes where the numpy code switches from a sort to a partial selection to bins.
+    from fusion.backends.region import region_size
+
+    rng = np.random.default_rng(11)
+    beliefs = []
+    for n in (7, 5_000, 9_000, 200_000):
+        tracked = np.zeros(n)
+        tracked[rng.integers(0, n, 5)] = rng.random(5)
+        beliefs += [
+            rng.random(n),
+            rng.random(n) ** 8,
+            np.exp(rng.normal(0, 3, n)),
+            np.round(rng.random(n), 2),
+            np.where(rng.random(n) < 0.001, 1.0, 1e-9),
+            tracked,
+        ]
+    got = {}
+    for mode in ("numpy", "auto"):
+        monkeypatch.setenv(compiled.ENV, mode)
+        compiled.reset()
+        got[mode] = [region_size(p) for p in beliefs]
+    compiled.reset()
+    assert compiled.choice().compiled
+    assert got["auto"] == got["numpy"]
+
+
+def test_compiled_pignistic_transform_equals_numpy_bit_for_bit(monkeypatch):
+    from fusion.belief.contour import ContourBelief
+
+    rng = np.random.default_rng(12)
+    contours = [rng.random(5000) ** 3, np.where(rng.random(3000) < 0.3, 0.0, rng.random(3000)), np.ones(100)]
+    for c in contours:
+        c[np.argmax(c)] = 1.0
+    got = {}
+    for mode in ("numpy", "auto"):
+        monkeypatch.setenv(compiled.ENV, mode)
+        compiled.reset()
+        got[mode] = [ContourBelief(c).pignistic() for c in contours]
     compiled.reset()
     assert compiled.choice().compiled
     for a, b in zip(got["auto"], got["numpy"]):

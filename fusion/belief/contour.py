@@ -37,6 +37,7 @@ import math
 
 import numpy as np
 
+from fusion import compiled
 from fusion.belief.mass import MassFunction, geometric_level_index
 from fusion.errors import MassValueError
 
@@ -157,8 +158,13 @@ class ContourBelief:
         share = _WIDTHS / np.maximum(counts, 1.0)
         # Whole bins below bin j (levels under its lower edge): every set there holds bin j's cells.
         below = np.append(np.cumsum(share[::-1])[::-1][1:], 0.0)
-        p = below[bins] + (self._contour - _EDGES[bins + 1]) / np.maximum(counts[bins], 1.0)
-        p[self._contour <= 0] = 0.0
+        loops = compiled.kernels()
+        if loops is not None:
+            p = np.empty(self.n)
+            loops.pignistic_levels(self._contour, bins, below, _EDGES[1:], counts, p)
+        else:
+            p = below[bins] + (self._contour - _EDGES[bins + 1]) / np.maximum(counts[bins], 1.0)
+            p[self._contour <= 0] = 0.0
         return p / p.sum()
 
     def as_mass_function(self, levels: int = DISTANCE_LEVELS) -> MassFunction:

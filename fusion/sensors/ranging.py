@@ -134,13 +134,10 @@ class RangeSensor:
             return out
         bearings = np.radians(self.params.bearings_deg)
         tables = np.stack([np.log(self.beam_density(z[b], self._distances, self.grid_sigma(z[b]))) for b in beams])
-        # Where each heading's window of the padded field starts, per beam (cells).
-        sx = np.array(
-            [[int(round(z[b] * math.cos(t + bearings[b]) / res)) for t in g.heading_centres()] for b in beams]
-        )
-        sy = np.array(
-            [[int(round(z[b] * math.sin(t + bearings[b]) / res)) for t in g.heading_centres()] for b in beams]
-        )
+        # Where each heading's window of the padded field starts, per beam (cells; halves round to even).
+        angle = g.heading_centres()[None, :] + bearings[beams][:, None]
+        sx = np.rint(z[beams][:, None] * np.cos(angle) / res).astype(np.int64)
+        sy = np.rint(z[beams][:, None] * np.sin(angle) / res).astype(np.int64)
         loops = compiled.kernels()
         if loops is not None:
             loops.scan_log_likelihood(tables, self._field_index, sx, sy, pad, out)
