@@ -170,12 +170,14 @@ class FocalAccumulator:
             return self, 0.0, 0
         order = nonempty[np.argsort(-w[nonempty], kind="stable")]
         keep, dropped = order[: max_focal - 1].tolist(), order[max_focal - 1 :].tolist()
-        rows = [self._row(s).copy() for s in keep]
+        rows = np.empty((len(keep) + 1, self._w), dtype=bitset.WORD)  # the kept sets, and room for the union
+        for i, s in enumerate(keep):
+            rows[i] = self._row(s)
         masses = [float(w[s]) for s in keep]
         moved = float(w[dropped].sum())
         orphans = dropped
         if merge == "nearest":
-            signatures = np.stack([np.packbits(r != 0) for r in rows])
+            signatures = np.stack([np.packbits(r != 0) for r in rows[: len(keep)]])
             sizes = np.bitwise_count(signatures).sum(axis=1)
             grown: set[int] = set()
             orphans = []
@@ -194,14 +196,14 @@ class FocalAccumulator:
                     moved += masses[j]  # the kept set's own mass now sits on a larger set too
                 masses[j] += float(w[s])
         if orphans:
-            union = np.zeros(self._w, dtype=bitset.WORD)
+            union = rows[len(keep)]
+            union[:] = 0
             for s in orphans:
                 np.bitwise_or(union, self._row(s), out=union)
-            rows.append(union)
             masses.append(float(w[orphans].sum()))
         empty_slots = np.flatnonzero(empty & (w > 0)).tolist()
         acc = FocalAccumulator(self.n)  # enlarged sets may now coincide: merge them exactly
-        acc.add(np.stack(rows), masses, owned=True)
+        acc.add(rows[: len(masses)], masses, owned=True)
         if empty_slots:
             acc.add(np.stack([self._row(s) for s in empty_slots]), w[empty_slots])
         return acc, moved, len(dropped)
