@@ -10,10 +10,12 @@ import numpy as np
 from fusion.belief import bitset
 from fusion.errors import (
     CellIndexError,
+    FrameMismatchError,
     MassValueError,
+    RuleError,
 )
 
-__all__ = ["MASS_TOLERANCE", "cell_vector"]
+__all__ = ["MASS_TOLERANCE", "cell_vector", "check_same_frame"]
 
 MASS_TOLERANCE = 1e-9
 """How far the masses given to a constructor may sum from 1 (they are then rescaled)."""
@@ -102,3 +104,22 @@ def _short(cells) -> str:
     if len(items) > 6:
         return "{" + ", ".join(map(str, items[:3])) + f", … ({len(items)} cells)" + "}"
     return "{" + ", ".join(map(str, items)) + "}"
+
+
+def check_same_frame(*ms) -> int:
+    """Frame size shared by all arguments; ``FrameMismatchError`` naming the first that differs."""
+    from fusion.belief.mass import MassFunction  # mass.py imports this module, so this import waits for a call
+
+    if not ms:
+        raise RuleError("at least one mass function is needed")
+    for i, m in enumerate(ms):
+        if not isinstance(m, MassFunction):
+            raise RuleError(f"argument {i + 1} is a {type(m).__name__}, not a MassFunction")
+    n = ms[0].n
+    for i, m in enumerate(ms[1:], start=2):
+        if m.n != n:
+            raise FrameMismatchError(
+                f"mass function {i} is over {m.n} cells but mass function 1 is over {n}; "
+                "beliefs can only be combined on the same frame of discernment"
+            )
+    return n

@@ -29,12 +29,11 @@ from fusion.belief.frame_checks import (
     _check_masses,
     _check_table,
     _short,
+    check_same_frame,
 )
 from fusion.errors import (
     CellIndexError,
-    FrameMismatchError,
     MassValueError,
-    RuleError,
     TotalConflictError,
 )
 
@@ -388,20 +387,3 @@ def geometric_level_index(contour: np.ndarray, levels: int) -> np.ndarray:
     np.clip(index, 0, levels - 1, out=index)
     index[contour <= 0] = levels
     return index
-
-
-def check_same_frame(*ms: MassFunction) -> int:
-    """Frame size shared by all arguments; ``FrameMismatchError`` naming the first that differs."""
-    if not ms:
-        raise RuleError("at least one mass function is needed")
-    for i, m in enumerate(ms):
-        if not isinstance(m, MassFunction):
-            raise RuleError(f"argument {i + 1} is a {type(m).__name__}, not a MassFunction")
-    n = ms[0].n
-    for i, m in enumerate(ms[1:], start=2):
-        if m.n != n:
-            raise FrameMismatchError(
-                f"mass function {i} is over {m.n} cells but mass function 1 is over {n}; "
-                "beliefs can only be combined on the same frame of discernment"
-            )
-    return n
