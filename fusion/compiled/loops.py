@@ -64,11 +64,10 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
             for t in range(turn_offsets.size):
                 rows_buf[t] = (h - turn_offsets[t]) % headings
             _combine(dst, moved, rows_buf, shifts_buf, turn_weights, turn_offsets.size, 0, cells, _PRODUCT)
-            if masked:
+            if masked:  # times 1.0 or 0.0, as numpy multiplies by a boolean mask
                 allowed = free[h, y0:y1].reshape(cells)
                 for i in range(cells):
-                    if not allowed[i]:
-                        dst[i] = 0.0
+                    dst[i] = dst[i] * allowed[i]
 
 
 @numba.njit(inline="always")
