@@ -210,3 +210,20 @@ def test_compiled_pignistic_transform_equals_numpy_bit_for_bit(monkeypatch):
     assert compiled.choice().compiled
     for a, b in zip(got["auto"], got["numpy"]):
         np.testing.assert_array_equal(a, b)
+
+
+def test_compiled_level_maxima_equal_numpy_maximum_at(kernels):
+    # The per-level maxima of a reading (K against a consonant belief) against np.maximum.at, gathered and not,
+    # with ties, empty bins and a NaN (kept once met, as np.maximum keeps it).
+    rng = np.random.default_rng(13)
+    values = rng.random(5000)
+    values[17] = np.nan
+    bins = rng.integers(0, 40, 5000)
+    cells = rng.permutation(5000)[:3000]
+    for gather in (cells, np.zeros(0, dtype=np.intp)):
+        expected = np.full(50, -1.0)
+        with np.errstate(invalid="ignore"):  # numpy warns as it keeps the NaN
+            np.maximum.at(expected, bins[: len(gather) or None], values[gather] if len(gather) else values)
+        got = np.full(50, -1.0)
+        kernels.level_maxima(values, gather, bins[: len(gather) or None], got)
+        np.testing.assert_array_equal(got, expected)

@@ -140,7 +140,11 @@ class ContourBelief:
             # monotone (a plausibility of fit rises with the contour), so it is applied to those few maxima, one
             # per bin, not to every cell: max of t(v) = t(max of v).
             per_bin = np.full(_BINS + 1, -1.0)  # below every reading value: marks the bins before the first cell
-            np.maximum.at(per_bin, bins, e[cells])
+            loops = compiled.kernels()
+            if loops is not None:
+                loops.level_maxima(e, _NO_CELLS if isinstance(cells, slice) else cells, bins, per_bin)
+            else:
+                np.maximum.at(per_bin, bins, e[cells])
             reach = np.maximum.accumulate(per_bin)
             before = reach < 0.0
             if transform is not None:
@@ -195,11 +199,16 @@ class ContourBelief:
         return self._bins
 
 
+_NO_CELLS = np.zeros(0, dtype=np.intp)
+
+
 def _bins_of(level: np.ndarray) -> np.ndarray:
     """Level bin of each value.  Floored at LOWEST_LEVEL before the logarithm: no denormals or zeros reach
     it (both are slow); values of 0 share the last bin with those below LOWEST_LEVEL (the bin's width is
     LOWEST_LEVEL, so K moves by less than that; the pignistic transform zeroes them afterwards)."""
-    scaled = np.log(np.maximum(level, LOWEST_LEVEL).astype(np.float32))
+    scaled = np.empty(level.shape, dtype=np.float32)
+    np.maximum(level, LOWEST_LEVEL, out=scaled)  # in float64, rounded to float32 as it is stored
+    np.log(scaled, out=scaled)
     scaled *= _PER_LOG
     np.minimum(scaled, np.float32(_BINS), out=scaled)
     return scaled.astype(np.intp)
