@@ -108,12 +108,10 @@ def _short(cells) -> str:
 
 def check_same_frame(*ms) -> int:
     """Frame size shared by all arguments; ``FrameMismatchError`` naming the first that differs."""
-    from fusion.belief.mass import MassFunction  # mass.py imports this module, so this import waits for a call
-
     if not ms:
         raise RuleError("at least one mass function is needed")
     for i, m in enumerate(ms):
-        if not isinstance(m, MassFunction):
+        if not all(hasattr(m, name) for name in ("n", "sets", "masses")):  # what a MassFunction offers the rules
             raise RuleError(f"argument {i + 1} is a {type(m).__name__}, not a MassFunction")
     n = ms[0].n
     for i, m in enumerate(ms[1:], start=2):
