@@ -227,3 +227,29 @@ def test_compiled_level_maxima_equal_numpy_maximum_at(kernels):
         got = np.full(50, -1.0)
         kernels.level_maxima(values, gather, bins[: len(gather) or None], got)
         np.testing.assert_array_equal(got, expected)
+
+
+def test_compiled_geometric_levels_equal_frexp(monkeypatch):
+    # Each value rounded up to 1, 1/2, 1/4, …: from the bits against np.frexp, on powers of two (down into the
+    # subnormals), zeros of both signs, negatives, values above 1, infinity and NaN, for few and many levels.
+    from fusion.belief.mass import geometric_level_index
+
+    rng = np.random.default_rng(14)
+    values = np.concatenate(
+        [
+            rng.random(20_000),
+            rng.random(2_000) ** 30,
+            2.0 ** -np.arange(0, 1100, dtype=float),
+            [0.0, -0.0, -0.3, 1.0, 1.5, np.inf, np.nan, 5e-324, 3e-320, 2.2250738585072014e-308, 0.75],
+        ]
+    )
+    got = {}
+    for mode in ("numpy", "auto"):
+        monkeypatch.setenv(compiled.ENV, mode)
+        compiled.reset()
+        got[mode] = [geometric_level_index(values, levels) for levels in (1, 2, 6, 40, 2000, 5000)]
+    compiled.reset()
+    assert compiled.choice().compiled
+    for a, b in zip(got["auto"], got["numpy"]):
+        assert a.dtype == b.dtype
+        np.testing.assert_array_equal(a, b)

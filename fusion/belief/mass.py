@@ -18,6 +18,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from fusion import compiled
 from fusion.belief import bitset
 from fusion.belief.accumulator import MERGE_STRATEGIES, FocalAccumulator
 from fusion.belief.frame_checks import (
@@ -382,6 +383,11 @@ class MassFunction:
 def geometric_level_index(contour: np.ndarray, levels: int) -> np.ndarray:
     """Each cell's level after rounding its plausibility *up* to 1, 1/2, …, 2^−(levels−1): 0 for the top
     level, ``levels`` for a plausibility of 0 (in no focal set)."""
+    loops = compiled.kernels()
+    if loops is not None:
+        out = np.empty(np.shape(contour), dtype=np.int64)
+        loops.geometric_levels(np.ascontiguousarray(contour, dtype=np.float64), int(levels), out.reshape(-1))
+        return out
     mantissa, exponent = np.frexp(contour)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
     index = np.where(mantissa == 0.5, -exponent + 1, -exponent).astype(np.int64)
     np.clip(index, 0, levels - 1, out=index)
