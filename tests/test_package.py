@@ -83,3 +83,14 @@ def test_the_back_end_step_benchmark_times_every_family_on_the_same_ticks():
         assert r.operation == "back-end step" and r.best_ms >= 0 and "11 ticks after the first" in r.note
         assert abs(r.ratio - r.best_ms / r.floor_ms) < 1e-9 * max(r.ratio, 1e-12)
     assert "particles at the end" in next(r for r in rows if r.backend == "particles").note
+
+
+def test_bench_measures_the_stream_rate_of_every_back_end():
+    # The rows behind the stream-rate target (docs/benchmark.md); a short run here, the bench itself runs 3,000 lines.
+    from fusion.backends import BACKENDS
+    from fusion.bench_stream import bench_stream
+    from fusion.cli.opening import builtin_case
+
+    rows = bench_stream(builtin_case("depot.toml"), lines=60)
+    assert [r.backend for r in rows] == list(BACKENDS)
+    assert all(r.best_ms > 0 and "lines per CPU second over 60 lines" in r.note for r in rows)

@@ -41,6 +41,9 @@ def bench_command(args: argparse.Namespace) -> int:
 
             depot = load_case(builtin_case("depot.toml"))
             rows += bench_kernels(depot.site.grid(depot.headings), repeats=args.repeats, seed=args.seed)
+            from fusion.bench_stream import bench_stream
+
+            rows += bench_stream(builtin_case("depot.toml"))
             rows += bench_localizer(builtin_case("depot.toml"))
             rows += bench_backend_steps(builtin_case("depot.toml"))
             rows += bench_graph_steps()
