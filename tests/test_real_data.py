@@ -10,7 +10,7 @@ the layout, scored against the data set's motion-capture ground truth.  The accu
 the project's targets for this data set (median ≤ 0.25 m and 95th percentile ≤ 0.8 m with a
 known start; the evidential 95th percentile within 1.5× of Bayes; found within 0.5 m / 15°
 inside 30 s from an unknown start); the sensor parameters are the converter's generic guesses,
-not fitted to this log.
+not fitted to this log, but for the camera's range, read from the log's own sightings (never its truth).
 """
 
 from __future__ import annotations
@@ -53,6 +53,21 @@ def test_the_converted_case_keeps_the_surveyed_coordinates(converted):
     assert (marker.x, marker.y) == (0.5884, -4.2821)
     assert case.site.origin_m[1] < -4.2821 and case.route is None
     assert {f.sensor for f in layout.feeds} == {"wheels", "camera"} and layout.truth is not None
+
+
+def test_the_camera_range_covers_every_landmark_sighting_of_the_log(converted):
+    # The data set's own table: the longest range the camera reported for a landmark (barcodes of robots are not
+    # landmarks) must not be declared impossible; the range is that, rounded up to half a metre, or the 6 m guess.
+    out, case, _ = converted
+    codes = {m.marker_id for m in case.site.markers}
+    ranges = [
+        float(row.split()[2])
+        for row in (SLICE / "Robot1_Measurement.dat").read_text().splitlines()
+        if row.strip() and not row.startswith("#") and row.split()[1] in codes
+    ]
+    camera = next(s for s in case.sensors if s.name == "camera")
+    longest = max(ranges)
+    assert longest <= camera.params.max_range_m < max(longest, 6.0) + 0.5
 
 
 def test_known_start_meets_the_accuracy_targets(converted, tmp_path):

@@ -16,7 +16,9 @@ layout (docs/recordings.md).  This script only writes what the tables do not say
   cut to the first ``--seconds`` if given.
 
 The sensor parameters are generic guesses written before any replay, not fitted to a log:
-run ``fusion calibrate`` on a log with its true poses to fit them.
+run ``fusion calibrate`` on a log with its true poses to fit them.  One is read from the log itself, never from
+its true poses: the camera's range is at least the longest range it reported for a landmark (rounded up to half a
+metre), since a model that declares such a sighting impossible makes it conflict with every pose.
 
     python docs/mrclam/convert.py DATA_FOLDER --robot 1 --out OUT [--seconds 150]
     fusion inspect OUT/layout.toml --site OUT/case.toml
@@ -56,7 +58,7 @@ turn_sigma_per_turn = 0.1
 name = "camera"
 kind = "markers"
 rate_hz = 5.0
-max_range_m = 6.0
+max_range_m = {camera_range:.1f}
 fov_deg = 120.0
 p_detect = 0.5
 false_rate = 0.05
@@ -104,6 +106,10 @@ heading = 4
 """
 
 
+CAMERA_RANGE_GUESS_M = 6.0
+"""The camera's range guessed before any replay; raised to the longest landmark range the log reports."""
+
+
 def rows(path: Path) -> list[list[str]]:
     return [
         line.split() for line in path.read_text().splitlines() if line.strip() and not line.lstrip().startswith("#")
@@ -133,6 +139,11 @@ def main(argv=None) -> int:
         for s, (x, y) in sorted(landmarks.items())
     )
     robots = ", ".join(f'"{barcode[s]}"' for s in sorted(barcode) if s not in landmarks)
+    landmark_codes = {int(barcode[s]) for s in landmarks}
+    seen = [
+        float(r[2]) for r in rows(data / names["Measurement"]) if float(r[0]) <= end and int(r[1]) in landmark_codes
+    ]
+    camera_range = max([CAMERA_RANGE_GUESS_M, *(math.ceil(2.0 * r) / 2.0 for r in seen)])
     out = args.out
     out.mkdir(parents=True, exist_ok=True)
     for name in names.values():
@@ -156,6 +167,7 @@ def main(argv=None) -> int:
             width=width,
             height=height,
             markers=markers,
+            camera_range=camera_range,
         )
     )
     (out / "layout.toml").write_text(
