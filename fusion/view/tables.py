@@ -21,7 +21,7 @@ def bench_table(rows, width: int = 120) -> list:
         grid = r.size.split(" (")[0]
         peak = "" if r.peak_copies is None else f"{r.peak_copies:.1f} beliefs"
         ratio = "" if r.ratio != r.ratio else f"{r.ratio:.2f}×" if r.ratio < 10 else f"{r.ratio:.1f}×"  # NaN: no floor
-        floor = f"{r.floor_ms:.2f}" if r.floor_ms else ""
+        floor = _ms(r.floor_ms) if r.floor_ms else ""
         cells.append([grid, r.backend, r.operation, _ms(r.best_ms), floor, ratio, peak, mark])
     keys = [Column("grid"), Column("back end"), Column("operation")]
     values = [Column(h, "right") for h in ("best ms", "floor ms", "ratio", "peak memory", "note")]
@@ -33,7 +33,8 @@ def bench_table(rows, width: int = 120) -> list:
     out.append(
         "floor: Bayes and evidential = one multiply-and-normalise pass (Bayes predict: a memory copy); focal sets "
         "and Dempster's rule = bare AND of all focal-set word pairs; compiled loops = their numpy code. CPU time, "
-        "fastest of repeated runs after a warm-up; peak memory of one call via tracemalloc."
+        "fastest of repeated runs after a warm-up (stream lines: one run; start-ups: wall time of fresh processes); "
+        "peak memory of one call via tracemalloc."
     )
     return out
 
