@@ -149,11 +149,19 @@ def test_odometry_noise_grows_with_distance(depot):
 def test_a_scan_reads_the_same_whether_the_padded_field_is_gathered_whole_or_by_window(depot, monkeypatch):
     # Two ways to the same sums (our implementation's invariant): the beam's density gathered over the whole padded
     # field once, or over each heading's window; a long range on a fine grid takes the second.
+    # Both are the numpy code's paths, so the compiled loop is switched off here (it is checked against them in
+    # tests/test_compiled.py).
+    from fusion import compiled
     from fusion.sensors import ranging
 
-    sensor = RangeSensor("lidar", depot, depot.grid(4), RangeParams(max_range_m=8.0, wall_spread_m=0.2))
-    scan = [1.5, 2.0, 8.0, 3.25]
-    whole = sensor.log_likelihood(scan)
-    original = ranging.gathers_whole_field
-    monkeypatch.setattr(ranging, "gathers_whole_field", lambda field, grid: not original(field, grid))
-    np.testing.assert_array_equal(sensor.log_likelihood(scan), whole)
+    monkeypatch.setenv(compiled.ENV, "numpy")
+    compiled.reset()
+    try:
+        sensor = RangeSensor("lidar", depot, depot.grid(4), RangeParams(max_range_m=8.0, wall_spread_m=0.2))
+        scan = [1.5, 2.0, 8.0, 3.25]
+        whole = sensor.log_likelihood(scan)
+        original = ranging.gathers_whole_field
+        monkeypatch.setattr(ranging, "gathers_whole_field", lambda field, grid: not original(field, grid))
+        np.testing.assert_array_equal(sensor.log_likelihood(scan), whole)
+    finally:
+        compiled.reset()
