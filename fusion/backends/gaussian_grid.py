@@ -168,10 +168,13 @@ def best_mode(grid: PoseGrid, p: np.ndarray) -> Mode | None:
     inside = labels == labels[iy, ix]
     weights = cube * inside[None]
     share = float(weights.sum()) / float(p.sum())
-    w = weights.reshape(-1)
-    cells = np.flatnonzero(w)
+    rows, cols = np.flatnonzero(inside.any(axis=1)), np.flatnonzero(inside.any(axis=0))
+    box = weights[:, rows[0] : rows[-1] + 1, cols[0] : cols[-1] + 1]  # the mode's cells lie in its bounding box
+    hh, yy, xx = np.nonzero(box)  # in the order of the whole cube's cells
+    cells = (hh * grid.ny + yy + rows[0]) * grid.nx + xx + cols[0]
+    w = box[hh, yy, xx]
     x, y, h = grid.poses_of(cells)
-    ww = w[cells] / w[cells].sum()
+    ww = w / w.sum()
     heading = math.atan2(float(ww @ np.sin(h)), float(ww @ np.cos(h))) % (2 * math.pi)
     centre = np.array([float(ww @ x), float(ww @ y), heading])
     offsets = np.column_stack([x - centre[0], y - centre[1], wrap(h - heading)])
