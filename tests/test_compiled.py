@@ -36,6 +36,18 @@ def _motion(headings, speed, angle, turn, sigma, sigma_turn):
     )  # fmt: skip
 
 
+def _both_ways(monkeypatch, compute):
+    """``compute()`` with the compiled loops and then with the numpy code only: (compiled result, numpy result)."""
+    got = {}
+    for mode in ("numpy", "auto"):
+        monkeypatch.setenv(compiled.ENV, mode)
+        compiled.reset()
+        got[mode] = compute()
+    compiled.reset()
+    assert compiled.choice().compiled
+    return got["auto"], got["numpy"]
+
+
 def _numpy_prediction(belief, m):
     across, along = motion._tap_table(m.dx, m.sigma), motion._tap_table(m.dy, m.sigma)
     return motion._predict_numpy(belief, across, along, motion._turn_taps(m.turn, m.sigma_turn, belief.shape[0]))
@@ -129,14 +141,10 @@ def test_rules_on_a_large_frame_give_the_same_result_either_way(monkeypatch):
     n = 40_000
     m1 = MassFunction.from_contour(np.clip(rng.random(n) + 0.05, 0, 1), levels=32)
     m2 = MassFunction.from_contour(np.clip(rng.random(n) + 0.1, 0, 1), levels=32)
-    results = {}
-    for mode in ("numpy", "auto"):
-        monkeypatch.setenv(compiled.ENV, mode)
-        compiled.reset()
-        results[mode] = [rules.dempster(m1, m2), rules.disjunctive(m1, m2), rules.yager(m1, m2)]
-    compiled.reset()
-    assert compiled.choice().compiled
-    for got, expected in zip(results["auto"], results["numpy"]):
+    fast, slow = _both_ways(
+        monkeypatch, lambda: [rules.dempster(m1, m2), rules.disjunctive(m1, m2), rules.yager(m1, m2)]
+    )
+    for got, expected in zip(fast, slow):
         np.testing.assert_array_equal(got.sets, expected.sets)
         np.testing.assert_array_equal(got.masses, expected.masses)
 
@@ -148,21 +156,15 @@ def test_compiled_scan_likelihood_equals_numpy_bit_for_bit(monkeypatch, max_rang
 
     site = SiteMap.empty(9.0, 6.0, 0.25, name="test bay").with_box(3.0, 2.0, 4.5, 3.5)
     sensor = RangeSensor("lidar", site, site.grid(12), RangeParams(max_range_m=max_range_m))
-    rng = np.random.default_rng(int(max_range_m))
-    got = {}
-    for mode in ("numpy", "auto"):
-        monkeypatch.setenv(compiled.ENV, mode)
-        compiled.reset()
-        got[mode] = [
-            sensor.log_likelihood(
-                RangeScan(tuple(rng.uniform(0.1, max_range_m * 1.1, len(sensor.params.bearings_deg))))
-            )
-            for _ in range(4)
+
+    def scans():
+        rng = np.random.default_rng(int(max_range_m))  # the same scans both ways
+        bearings = len(sensor.params.bearings_deg)
+        return [
+            sensor.log_likelihood(RangeScan(tuple(rng.uniform(0.1, max_range_m * 1.1, bearings)))) for _ in range(4)
         ]
-        rng = np.random.default_rng(int(max_range_m))  # the same scans for both
-    compiled.reset()
-    assert compiled.choice().compiled
-    for a, b in zip(got["auto"], got["numpy"]):
+
+    for a, b in zip(*_both_ways(monkeypatch, scans)):
         np.testing.assert_array_equal(a, b)
 
 
@@ -184,14 +186,8 @@ def test_compiled_region_size_counts_as_numpy_does(monkeypatch):
             np.where(rng.random(n) < 0.001, 1.0, 1e-9),
             tracked,
         ]
-    got = {}
-    for mode in ("numpy", "auto"):
-        monkeypatch.setenv(compiled.ENV, mode)
-        compiled.reset()
-        got[mode] = [region_size(p) for p in beliefs]
-    compiled.reset()
-    assert compiled.choice().compiled
-    assert got["auto"] == got["numpy"]
+    fast, slow = _both_ways(monkeypatch, lambda: [region_size(p) for p in beliefs])
+    assert fast == slow
 
 
 def test_compiled_pignistic_transform_equals_numpy_bit_for_bit(monkeypatch):
@@ -201,14 +197,7 @@ def test_compiled_pignistic_transform_equals_numpy_bit_for_bit(monkeypatch):
     contours = [rng.random(5000) ** 3, np.where(rng.random(3000) < 0.3, 0.0, rng.random(3000)), np.ones(100)]
     for c in contours:
         c[np.argmax(c)] = 1.0
-    got = {}
-    for mode in ("numpy", "auto"):
-        monkeypatch.setenv(compiled.ENV, mode)
-        compiled.reset()
-        got[mode] = [ContourBelief(c).pignistic() for c in contours]
-    compiled.reset()
-    assert compiled.choice().compiled
-    for a, b in zip(got["auto"], got["numpy"]):
+    for a, b in zip(*_both_ways(monkeypatch, lambda: [ContourBelief(c).pignistic() for c in contours])):
         np.testing.assert_array_equal(a, b)
 
 
@@ -243,13 +232,7 @@ def test_compiled_geometric_levels_equal_frexp(monkeypatch):
             [0.0, -0.0, -0.3, 1.0, 1.5, np.inf, np.nan, 5e-324, 3e-320, 2.2250738585072014e-308, 0.75],
         ]
     )
-    got = {}
-    for mode in ("numpy", "auto"):
-        monkeypatch.setenv(compiled.ENV, mode)
-        compiled.reset()
-        got[mode] = [geometric_level_index(values, levels) for levels in (1, 2, 6, 40, 2000, 5000)]
-    compiled.reset()
-    assert compiled.choice().compiled
-    for a, b in zip(got["auto"], got["numpy"]):
+    levels = (1, 2, 6, 40, 2000, 5000)
+    for a, b in zip(*_both_ways(monkeypatch, lambda: [geometric_level_index(values, n) for n in levels])):
         assert a.dtype == b.dtype
         np.testing.assert_array_equal(a, b)
