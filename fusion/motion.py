@@ -22,6 +22,7 @@ from fusion.sensors.odometry import Motion
 
 __all__ = [
     "predict_density",
+    "predict_on_free",
     "predict_sets",
     "move_sets",
     "dilate_density",
@@ -133,6 +134,17 @@ def predict_density(
 
 
 _NO_MASK = np.zeros((0, 0, 0), dtype=bool)
+
+
+def predict_on_free(belief: np.ndarray, motion: Motion, free: np.ndarray) -> np.ndarray:
+    """The prediction both grid filters apply, flat and 0 off ``free``: with probability 1 − reliability the wheels
+    slipped and the move is known only within the slip bound, so that prediction is mixed in; without slip the
+    mask is applied as the prediction is made."""
+    if motion.reliability == 1.0:
+        return predict_density(belief, motion, free=free).reshape(-1)
+    moved = predict_density(belief, motion)
+    slipped = predict_density(belief, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
+    return (motion.reliability * moved + (1.0 - motion.reliability) * slipped).reshape(-1) * free
 
 
 def _turn_taps(turn: float, sigma_turn: float, headings: int) -> dict[int, float]:

@@ -1,6 +1,6 @@
 """The Bayesian back end: a histogram filter over the pose grid.
 
-Prediction shifts and blurs each heading slice (``fusion.motion.predict_density``);
+Prediction shifts and blurs each heading slice (``fusion.motion.predict_on_free``);
 an update multiplies by the reading's likelihood and renormalises
 (``fusion.belief.posterior.Posterior``).  Cells off free space keep probability 0.
 """
@@ -26,7 +26,7 @@ from fusion.belief.posterior import Posterior
 from fusion.conflict import support_conflict, support_joint_conflict
 from fusion.errors import FrameMismatchError, ZeroEvidenceError
 from fusion.grid import PoseGrid
-from fusion.motion import predict_density
+from fusion.motion import predict_on_free
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
@@ -66,15 +66,7 @@ class HistogramFilter:
         self.reset(snapshot)
 
     def predict(self, motion: Motion) -> None:
-        cube = self.belief.probabilities.reshape(self.grid.shape)
-        if motion.reliability < 1.0:  # wheel slip: with 1 − r the move is only known within the slip bound
-            moved = predict_density(cube, motion)
-            slipped = predict_density(cube, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
-            moved = motion.reliability * moved + (1.0 - motion.reliability) * slipped
-            moved = moved.reshape(-1)
-            moved *= self.free
-        else:
-            moved = predict_density(cube, motion, free=self.free).reshape(-1)
+        moved = predict_on_free(self.belief.probabilities.reshape(self.grid.shape), motion, self.free)
         try:
             self.belief.set(moved, owned=True)
         except ZeroEvidenceError:  # every cell moved off free space: keep the belief, the monitor will see it

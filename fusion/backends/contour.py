@@ -8,7 +8,7 @@ approximation.  Prediction is one of two documented assumptions (``[run] motion`
 
 - ``probabilistic``: the belief after a move is the average of the belief moved by
   every displacement, weighted by the odometry error model; its contour is the contour
-  convolved with the same kernel as the Bayes side (``fusion.motion.predict_density``).
+  convolved with the same kernel as the Bayes side (``fusion.motion.predict_on_free``).
   With this motion and the same readings, the plausibility transform equals the Bayes
   posterior (Shafer 1976; Cobb & Shenoy 2006): what then separates the two back ends is
   how conflict is scored and acted on, not where they think the robot is.
@@ -45,7 +45,7 @@ from fusion.belief.contour import ContourBelief, consonant_distance
 from fusion.conflict import pignistic_disagreement, support_conflict
 from fusion.errors import FrameMismatchError, RuleError
 from fusion.grid import PoseGrid
-from fusion.motion import MOTION_MODELS, SubCellMotion, bound_offsets, dilate_density, predict_density
+from fusion.motion import MOTION_MODELS, SubCellMotion, bound_offsets, dilate_density, predict_on_free
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
@@ -111,12 +111,8 @@ class ContourFilter:
     # ----------------------------------------------------------------- prediction
     def predict(self, motion: Motion) -> None:
         cube = self.belief.contour.reshape(self.grid.shape)
-        if self.motion == "probabilistic" and motion.reliability == 1.0:
-            moved = predict_density(cube, motion, free=self.free).reshape(-1)  # masked as it is made
-        elif self.motion == "probabilistic":
-            moved = predict_density(cube, motion)
-            slipped = predict_density(cube, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
-            moved = (motion.reliability * moved + (1.0 - motion.reliability) * slipped).reshape(-1) * self.free
+        if self.motion == "probabilistic":
+            moved = predict_on_free(cube, motion, self.free)
         else:
             x, y, turn = self._residual.advance(motion, motion.bound_cells, motion.bound_bins)
             moved = dilate_density(cube, x, y, turn)
