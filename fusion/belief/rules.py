@@ -56,6 +56,7 @@ _CHUNK_BYTES = 256 * 1024**2
 _CACHE_BYTES = 1024**2
 # Candidate words from which the compiled pair loop is used: below, numba's start-up would not pay back.
 _COMPILED_WORDS = 2**18
+_COMPILED_OPS = (np.bitwise_and, np.bitwise_or)
 
 
 def _pairs(m1: MassFunction, m2: MassFunction, op: Callable):
@@ -71,7 +72,8 @@ def _pairs(m1: MassFunction, m2: MassFunction, op: Callable):
     row_bytes = max(1, k2 * w * 8)
     step = max(1, _CHUNK_BYTES // row_bytes)
     sub = max(1, _CACHE_BYTES // row_bytes)
-    loops = compiled.kernels() if len(s1) * k2 * w >= _COMPILED_WORDS else None
+    # The compiled pair loop knows AND and OR (the rules' two operations); anything else stays with numpy.
+    loops = compiled.kernels() if op in _COMPILED_OPS and len(s1) * k2 * w >= _COMPILED_WORDS else None
     for start in range(0, len(s1), step):
         a = s1[start : start + step]
         rows = np.empty((len(a), k2, w), dtype=bitset.WORD)
