@@ -222,15 +222,20 @@ def region_scan(p, threshold, base, shift, mass, count, few):  # pragma: no cove
     for i in range(p.size):
         v = p[i]
         if v >= threshold:
-            b = min(
-                (bits[i] >> shift) - base, mass.size - 1
-            )  # a value above the total (not a probability) stays in bounds
+            b = _region_bin(bits[i], shift, base, mass.size - 1)
             mass[b] += v
             count[b] += 1
             if n < few.size:
                 few[n] = v
             n += 1
     return n
+
+
+@numba.njit(inline="always")
+def _region_bin(bits, shift, base, last):  # pragma: no cover - compiled
+    """The bin of a candidate's bit pattern, at most ``last``: a value above the total (not a probability) stays in
+    bounds.  Both region loops bin through here, so they always agree on a value's bin."""
+    return min((bits >> shift) - base, last)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -242,7 +247,7 @@ def region_values(p, threshold, base, shift, lowest, highest, last, out):  # pra
     for i in range(p.size):
         v = p[i]
         if v >= threshold:
-            b = min((bits[i] >> shift) - base, last)
+            b = _region_bin(bits[i], shift, base, last)
             if lowest <= b <= highest:
                 out[n] = v
                 n += 1
