@@ -318,14 +318,4 @@ def bench_localizer(case_path, ticks: int = 40) -> list[BenchRow]:
 
 def grid_floor(grid) -> float:
     """Seconds of the multiply-and-normalise floor on ``grid`` (the Bayes update's least work), fastest of 9."""
-    rng = np.random.default_rng(0)
-    p = rng.random(grid.n_cells)
-    p /= p.sum()
-    lik = rng.random(grid.n_cells)
-    buf = np.empty_like(p)
-
-    def floor():
-        np.multiply(p, lik, out=buf)
-        buf.__imul__(1.0 / buf.sum())
-
-    return best_seconds(floor, 9)
+    return _multiply_floor(grid.n_cells, np.random.default_rng(0), 9)
