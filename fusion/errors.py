@@ -22,6 +22,7 @@ __all__ = [
     "ObservationError",
     "ResourceError",
     "InputFileError",
+    "KernelSetupError",
 ]
 
 
@@ -80,3 +81,7 @@ class InputFileError(FusionError, ValueError):
         self.path, self.line, self.field, self.problem = str(path), line, field, problem
         where = self.path + (f", line {line}" if line else "")
         super().__init__(f"{where}: {field + ': ' if field else ''}{problem}")
+
+
+class KernelSetupError(FusionError, RuntimeError):
+    """``FUSION_KERNELS`` asks for something this process cannot give (``fusion.compiled``)."""

@@ -236,3 +236,18 @@ def test_compiled_geometric_levels_equal_frexp(monkeypatch):
     for a, b in zip(*_both_ways(monkeypatch, lambda: [geometric_level_index(values, n) for n in levels])):
         assert a.dtype == b.dtype
         np.testing.assert_array_equal(a, b)
+
+
+def test_the_command_line_refuses_a_wrong_kernel_setting_before_any_work(monkeypatch, capsys, tmp_path):
+    # An error in the environment, said as such (exit 2, the variable and its choices), and no output folder made.
+    from fusion.cli import EXIT_BAD_INPUT, main
+
+    monkeypatch.setenv(compiled.ENV, "fastest")
+    compiled.reset()
+    try:
+        assert main(["run", "calm", "--quiet", "--out", str(tmp_path / "out")]) == EXIT_BAD_INPUT
+    finally:
+        compiled.reset()
+    said = capsys.readouterr().err
+    assert "FUSION_KERNELS='fastest' in the environment: expected one of auto, numpy, compiled" in said
+    assert not (tmp_path / "out").exists()

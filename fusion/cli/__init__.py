@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+from fusion import compiled
 from fusion.cli.args import joined_values
 from fusion.cli.parser import build_parser
 from fusion.errors import FusionError
@@ -37,6 +38,7 @@ def main(argv: list[str] | None = None) -> int:
 def _outcome(args: argparse.Namespace) -> int:
     """Run the command; every error becomes a message and an exit code, never a traceback."""
     try:
+        compiled.setting()  # a wrong FUSION_KERNELS is refused before any work, not at the first compiled loop
         return args.run(args)
     except FusionError as err:
         print(f"fusion: error: {plain(err)}", file=sys.stderr)

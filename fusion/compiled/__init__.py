@@ -16,6 +16,10 @@ import os
 from dataclasses import dataclass
 from types import ModuleType
 
+from fusion.errors import KernelSetupError
+
+__all__ = ["ENV", "CHOICES", "KernelChoice", "KernelSetupError", "kernels", "choice", "setting", "reset"]
+
 ENV = "FUSION_KERNELS"
 CHOICES = ("auto", "numpy", "compiled")
 
@@ -31,14 +35,19 @@ class KernelChoice:
 _loaded: tuple[KernelChoice, ModuleType | None] | None = None
 
 
-class KernelSetupError(RuntimeError):
-    """``FUSION_KERNELS`` asks for something this process cannot give."""
+def setting() -> str:
+    """``FUSION_KERNELS`` as given (``auto`` when unset), checked without importing numba: the command line checks
+    it before any work, so a wrong value is refused up front rather than at the first loop."""
+    wanted = os.environ.get(ENV, "auto").strip().lower() or "auto"
+    if wanted not in CHOICES:
+        raise KernelSetupError(
+            f"{ENV}={wanted!r} in the environment: expected one of {', '.join(CHOICES)}; unset it or set one of those"
+        )
+    return wanted
 
 
 def _load() -> tuple[KernelChoice, ModuleType | None]:
-    wanted = os.environ.get(ENV, "auto").strip().lower() or "auto"
-    if wanted not in CHOICES:
-        raise KernelSetupError(f"{ENV}={wanted!r}: expected one of {', '.join(CHOICES)}")
+    wanted = setting()
     if wanted == "numpy":
         return KernelChoice(False, f"{ENV}=numpy"), None
     try:
