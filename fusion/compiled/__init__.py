@@ -12,6 +12,7 @@ code runs; ``FUSION_KERNELS=compiled`` makes a missing numba an error instead of
 
 from __future__ import annotations
 
+import importlib.util
 import os
 from dataclasses import dataclass
 from types import ModuleType
@@ -43,6 +44,8 @@ def setting() -> str:
         raise KernelSetupError(
             f"{ENV}={wanted!r} in the environment: expected one of {', '.join(CHOICES)}; unset it or set one of those"
         )
+    if wanted == "compiled" and importlib.util.find_spec("numba") is None:
+        raise KernelSetupError(f"{ENV}=compiled, but numba is not installed; install fusion-localize[fast]")
     return wanted
 
 
