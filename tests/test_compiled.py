@@ -56,7 +56,7 @@ def _numpy_prediction(belief, m):
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(
     st.integers(1, 12),
-    st.integers(1, 17),
+    st.integers(1, 40),  # more than two blocks of rows (the loop's block is 16)
     st.integers(1, 19),
     st.floats(0, 25),  # shifts up to beyond the whole array: everything leaves the map
     st.floats(-math.pi, math.pi),

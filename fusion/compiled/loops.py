@@ -40,22 +40,8 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
         y1 = min(ny, y0 + _ROWS)
         first, last = max(0, y0 - highest), min(ny, y1 - lowest)  # the rows the block's y pass reads
         for h in range(headings):
-            plane = belief[h]
-            for r in range(first, last):
-                _convolve_row(across[r - first], plane, r, ox[h], wx[h], cx[h], rows_buf)
-            for y in range(y0, y1):
-                used = 0
-                for k in range(cy[h]):
-                    source = y - oy[h, k]
-                    if 0 <= source < ny:
-                        rows_buf[used] = source - first
-                        weights_buf[used] = wy[h, k]
-                        used += 1
-                row = moved[h, (y - y0) * nx : (y - y0 + 1) * nx]
-                if used == 0:
-                    row[:] = 0.0
-                else:
-                    _combine(row, across, rows_buf, shifts_buf, weights_buf, used, 0, nx, _ZERO)
+            _across_block(across, belief[h], first, last, ox[h], wx[h], cx[h], rows_buf, shifts_buf)
+            _along_block(moved[h], across, ny, y0, y1, first, oy[h], wy[h], cy[h], rows_buf, shifts_buf, weights_buf)
         cells = (y1 - y0) * nx
         for t in range(turn_offsets.size):
             shifts_buf[t] = 0
@@ -71,20 +57,63 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
 
 
 @numba.njit(inline="always")
-def _convolve_row(dst, plane, row, offsets, weights, count, rows_buf):  # pragma: no cover - compiled
-    """dst = Σ_k weights[k]·(plane[row] moved by offsets[k]), zero-filled, taps in order (numpy's ``_convolve_zero``
-    on one row): the cells every tap reaches in passes of up to four taps, the edge cells tap by tap."""
-    n = dst.size
-    lo, hi = 0, n
+def _across_block(across, plane, first, last, offsets, weights, count, rows_buf, shifts_buf):  # pragma: no cover
+    """across[r − first] = Σ_k weights[k]·(plane[r] moved by offsets[k]), zero-filled, for rows r in [first, last) (numpy's
+    ``_convolve_zero`` along x).  The cells every tap reaches from its own row are done as one run over the rows laid
+    end to end, in passes of up to four taps; that run also fills each row's edge cells from the next row's, and
+    those cells are then done again tap by tap (same sums, a fifth of the time of a call per row, measured)."""
+    ny, nx = plane.shape
+    lo, hi = 0, nx
     for k in range(count):
         lo = max(lo, offsets[k])
-        hi = min(hi, n + offsets[k])
-        rows_buf[k] = row
-    if lo >= hi:  # no cell that every tap reaches: all are edge cells
-        lo, hi = n, n
-    _combine(dst, plane, rows_buf, offsets, weights, count, lo, hi, _ZERO)
-    _edge_cells(dst, plane[row], offsets, weights, count, 0, lo)
-    _edge_cells(dst, plane[row], offsets, weights, count, hi, n)
+        hi = min(hi, nx + offsets[k])
+        rows_buf[k] = 0
+        shifts_buf[k] = offsets[k] - first * nx  # across's cell j reads the plane's flat cell j + first·nx − offset
+    if lo >= hi or count == 0:  # no cell that every tap reaches: all are edge cells
+        lo, hi = nx, nx
+    else:
+        dst, source, run = across.reshape(across.size), plane.reshape(1, ny * nx), (last - first - 1) * nx + hi
+        _combine(dst, source, rows_buf, shifts_buf, weights, count, lo, run, _ZERO)
+    for r in range(first, last):
+        _edge_cells(across[r - first], plane[r], offsets, weights, count, 0, lo)
+        _edge_cells(across[r - first], plane[r], offsets, weights, count, hi, nx)
+
+
+@numba.njit(inline="always")
+def _along_block(
+    moved, across, ny, y0, y1, first, offsets, weights, count, rows_buf, shifts_buf, weights_buf
+):  # pragma: no cover
+    """moved's rows y − y0 for y in [y0, y1) = Σ_k weights[k]·across[y − offsets[k] − first], the taps whose source row
+    is on the grid, in order, onto 0.0 (numpy's ``_convolve_zero`` along y).  The rows every tap's source is on the grid
+    for are one run; the others (next to the grid's top and bottom) are done a row at a time with their own taps."""
+    nx = across.shape[1]
+    ya, yb = y0, y1
+    for k in range(count):
+        ya = max(ya, offsets[k])
+        yb = min(yb, ny + offsets[k])
+        rows_buf[k] = 0
+        shifts_buf[k] = (offsets[k] + first - y0) * nx  # cell j reads across's flat j + (y0 − first − offset)·nx
+    if ya < yb and count > 0:
+        source = across.reshape(1, across.size)
+        _combine(moved, source, rows_buf, shifts_buf, weights, count, (ya - y0) * nx, (yb - y0) * nx, _ZERO)
+    else:
+        ya, yb = y1, y1
+    for y in range(y0, y1):
+        if ya <= y < yb:
+            continue
+        used = 0
+        for k in range(count):
+            source = y - offsets[k]
+            if 0 <= source < ny:
+                rows_buf[used] = source - first
+                shifts_buf[used] = 0
+                weights_buf[used] = weights[k]
+                used += 1
+        row = moved[(y - y0) * nx : (y - y0 + 1) * nx]
+        if used == 0:
+            row[:] = 0.0
+        else:
+            _combine(row, across, rows_buf, shifts_buf, weights_buf, used, 0, nx, _ZERO)
 
 
 @numba.njit(inline="always")
