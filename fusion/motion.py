@@ -108,9 +108,11 @@ def predict_density(
     sigma: float | None = None,
     sigma_turn: float | None = None,
     free: np.ndarray | None = None,
+    out: np.ndarray | None = None,
 ) -> np.ndarray:
     """Predicted density of shape (headings, ny, nx); not renormalised (mass may leave the map).  ``free``: a mask of
-    the same shape (or one entry per cell); the density is set to 0 where it is False.
+    the same shape (or one entry per cell); the density is set to 0 where it is False.  ``out``: a C-ordered float64
+    buffer of as many cells to write it into (not the belief itself).
 
     Kernels are short (a move of a few tenths of a metre has two or three taps per axis), so
     the convolutions are written as a few shifted multiply-adds per heading slice; with numba
@@ -122,29 +124,35 @@ def predict_density(
     turn = _turn_taps(motion.turn, sigma_turn, belief.shape[0])
     mask = None if free is None else np.asarray(free, dtype=bool).reshape(belief.shape)
     loops = compiled.kernels()
+    if out is not None and not (out.dtype == np.float64 and out.flags.c_contiguous and out.size == belief.size):
+        raise ValueError(f"out must be a C-ordered float64 buffer of {belief.size} cells")
+    target = np.empty(belief.shape) if out is None else out.reshape(belief.shape)
     if loops is not None and belief.dtype == np.float64:
-        out = np.empty(belief.shape)
         given = _NO_MASK if mask is None else np.ascontiguousarray(mask)
-        loops.predict_density(np.ascontiguousarray(belief), *across, *along, *_pair(turn), given, out)
-        return out
-    out = _predict_numpy(belief, across, along, turn)
+        loops.predict_density(np.ascontiguousarray(belief), *across, *along, *_pair(turn), given, target)
+        return target
+    np.copyto(target, _predict_numpy(belief, across, along, turn))
     if mask is not None:
-        out *= mask
-    return out
+        target *= mask
+    return target
 
 
 _NO_MASK = np.zeros((0, 0, 0), dtype=bool)
 
 
-def predict_on_free(belief: np.ndarray, motion: Motion, free: np.ndarray) -> np.ndarray:
+def predict_on_free(belief: np.ndarray, motion: Motion, free: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     """The prediction both grid filters apply, flat and 0 off ``free``: with probability 1 − reliability the wheels
     slipped and the move is known only within the slip bound, so that prediction is mixed in; without slip the
-    mask is applied as the prediction is made."""
+    mask is applied as the prediction is made.  ``out``: a flat float64 buffer to write it into."""
     if motion.reliability == 1.0:
-        return predict_density(belief, motion, free=free).reshape(-1)
+        return predict_density(belief, motion, free=free, out=out).reshape(-1)
     moved = predict_density(belief, motion)
     slipped = predict_density(belief, motion, sigma=motion.slip / 2, sigma_turn=motion.slip_turn / 2)
-    return (motion.reliability * moved + (1.0 - motion.reliability) * slipped).reshape(-1) * free
+    mixed = np.multiply(moved, motion.reliability, out=None if out is None else out.reshape(moved.shape))
+    mixed += (1.0 - motion.reliability) * slipped
+    mixed = mixed.reshape(-1)
+    mixed *= np.asarray(free).reshape(-1)
+    return mixed
 
 
 def _turn_taps(turn: float, sigma_turn: float, headings: int) -> dict[int, float]:

@@ -111,3 +111,56 @@ def test_a_belief_read_before_an_update_is_not_changed_by_it():
     belief.update([0.2, 0.3, 0.5])
     belief.update([0.2, 0.3, 0.5])
     assert_close(before, [1 / 3] * 3)
+
+
+def test_beliefs_read_between_steps_never_change_while_they_are_held():
+    # The buffers the posterior reuses are only taken back once no view of them is left: every belief read
+    # along a run of updates and predictions (in any shape) keeps its values, whatever is dropped meanwhile.
+    rng = np.random.default_rng(3)
+    belief = Posterior(rng.random(64))
+    held = []
+    for step in range(40):
+        if step % 3 == 0:
+            view = belief.probabilities
+            held.append((view.reshape(8, 8) if step % 2 else view, view.copy()))
+        if step % 7 == 6:
+            held = held[::2]  # drop some, so their buffers may be taken back
+        if step % 2:
+            belief.update(rng.random(64))
+        else:
+            belief.move(lambda p, out: np.copyto(out, np.roll(p, 1) * 0.9))
+        for view, values in held:
+            assert np.array_equal(view.reshape(-1), values)
+
+
+def test_a_prediction_is_renormalised_and_allocates_no_belief():
+    # move(f) is set(f(p), owned=True): f's output times the reciprocal of its sum; once nothing holds the old
+    # buffers, a step makes no new belief-sized array (traced by tracemalloc, which numpy reports to).
+    import tracemalloc
+
+    rng = np.random.default_rng(4)
+    n = 200_000
+    belief, reference = Posterior(rng.random(n)), Posterior(rng.random(n))
+    reference.set(belief.probabilities)
+    kernel = np.array([0.25, 0.5, 0.25])
+    for _ in range(3):
+        belief.move(lambda p, out: np.copyto(out, np.convolve(p, kernel, mode="same")))
+        reference.set(np.convolve(reference.probabilities, kernel, mode="same"), owned=True)
+        np.testing.assert_array_equal(belief.probabilities, reference.probabilities)
+    belief.update(rng.random(n))  # the views read above are gone: their buffer is free again
+    half = np.full(n, 0.5)
+    tracemalloc.start()
+    try:
+        belief.update(half)
+        belief.move(lambda p, out: np.multiply(p, 0.5, out=out))
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert peak < n * 8 / 2
+
+
+def test_a_prediction_that_holds_nothing_is_refused_and_the_belief_kept():
+    belief = Posterior([0.2, 0.8])
+    with pytest.raises(ZeroEvidenceError):
+        belief.move(lambda p, out: out.fill(0.0))
+    assert_close(belief.probabilities, [0.2, 0.8])

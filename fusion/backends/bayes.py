@@ -66,9 +66,9 @@ class HistogramFilter:
         self.reset(snapshot)
 
     def predict(self, motion: Motion) -> None:
-        moved = predict_on_free(self.belief.probabilities.reshape(self.grid.shape), motion, self.free)
+        shape = self.grid.shape
         try:
-            self.belief.set(moved, owned=True)
+            self.belief.move(lambda p, out: predict_on_free(p.reshape(shape), motion, self.free, out=out))
         except ZeroEvidenceError:  # every cell moved off free space: keep the belief, the monitor will see it
             pass
 
