@@ -190,6 +190,38 @@ def test_compiled_region_size_counts_as_numpy_does(monkeypatch):
     assert fast == slow
 
 
+def test_compiled_bayes_update_equals_numpy_and_refuses_the_same_likelihoods(monkeypatch):
+    # The one-pass product and check against numpy's minimum, maximum and product: the same posterior and evidence
+    # to the last bit, and the same error, naming the same cell, for each kind of bad likelihood (-0.0 is a zero).
+    from fusion.belief.posterior import COMPILED_FROM, Posterior
+    from fusion.errors import LikelihoodValueError, ZeroEvidenceError
+
+    n = COMPILED_FROM + 37
+    rng = np.random.default_rng(21)
+    prior = rng.random(n)
+    good = [rng.random(n), rng.random(n) ** 30, np.where(rng.random(n) < 0.5, -0.0, 1e-300), np.full(n, 2.0)]
+    bad = []
+    for value in (-1e-12, np.nan, np.inf, -np.inf, 0.0):
+        bad.append(rng.random(n) if value != 0.0 else np.zeros(n))
+        bad[-1][n // 3] = value
+
+    def run():
+        out = []
+        for lik in good:
+            belief = Posterior(prior)
+            out.append((belief.update(lik), belief.probabilities.copy()))
+        for lik in bad:
+            belief = Posterior(prior)
+            with pytest.raises((LikelihoodValueError, ZeroEvidenceError)) as caught:
+                belief.update(lik)
+            out.append((str(caught.value), belief.probabilities.copy()))
+        return out
+
+    for (a, pa), (b, pb) in zip(*_both_ways(monkeypatch, run)):
+        assert a == b
+        np.testing.assert_array_equal(pa, pb)
+
+
 def test_compiled_pignistic_transform_equals_numpy_bit_for_bit(monkeypatch):
     from fusion.belief.contour import ContourBelief
 

@@ -198,6 +198,25 @@ def _combine(dst, table, rows, shifts, weights, count, lo, hi, start_as):  # pra
 
 
 @numba.njit(cache=True, nogil=True)
+def checked_product(p, likelihood, out):  # pragma: no cover - compiled
+    """out = p · likelihood cell by cell (``fusion.belief.posterior.Posterior.update``'s product) and, in the same pass,
+    the bit pattern of the largest likelihood; −1 instead when a likelihood is negative (−0.0 included), NaN or
+    infinite, for the numpy code to find and name.  Non-negative float64 values order as their bit patterns do (IEEE
+    754), and integer minima and maxima vectorise where float ones, NaN-aware, do not: one pass at about the speed
+    of the product alone, against numpy's three (minimum, maximum, product)."""
+    bits = likelihood.view(np.int64)
+    lo, hi = np.int64(0), np.int64(0)
+    for i in range(p.size):
+        lo = min(lo, bits[i])
+        hi = max(hi, bits[i])
+        out[i] = p[i] * likelihood[i]
+    return np.int64(-1) if lo < 0 or hi >= _INFINITY_BITS else hi
+
+
+_INFINITY_BITS = np.int64(0x7FF0000000000000)  # +inf's bit pattern; positive NaNs lie above it
+
+
+@numba.njit(cache=True, nogil=True)
 def pair_sets(a, b, multipliers, union, rows, fps):  # pragma: no cover - compiled
     """rows[i, j] = a[i] & b[j] (a[i] | b[j] with ``union``) and fps[i, j] = Σ_k rows[i, j, k] · multipliers[k]
     modulo 2⁶⁴ (``fusion.belief.bitset.fingerprint``), in one pass over the words instead of two."""
