@@ -137,6 +137,19 @@ def test_region_size_is_the_highest_density_region_by_its_definition(concentrati
         assert region_size(p, 0.95) == min(expected, desc.size)
 
 
+def test_region_size_of_uniform_beliefs_is_the_definition():
+    # A uniform belief (a start anywhere, a re-seed) over all cells or a part of them: one bin of equal values,
+    # counted without a sort; the count is the definition's (Hyndman 1996), by a full sort and cumulative sum.
+    from fusion.backends.region import region_size
+
+    rng = np.random.default_rng(8)
+    for n in (50, 20_000, 300_000):
+        for p in (np.ones(n), (rng.random(n) < 0.6) * 0.25, np.where(rng.random(n) < 0.5, 1.0, 1e-9)):
+            desc = np.sort(p[p > 0])[::-1]
+            expected = int(np.searchsorted(np.cumsum(desc), 0.95 * p.sum() * (1 - 1e-12)) + 1)
+            assert region_size(p, 0.95) == min(expected, desc.size)
+
+
 def test_region_by_bins_counts_as_the_full_sort_does():
     # The binned count of a spread belief (float64 bit patterns order as the values do, IEEE 754) against the
     # highest-density region by its definition, a full sort (Hyndman 1996), on spread, tied and wide-ranging values.

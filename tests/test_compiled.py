@@ -184,6 +184,8 @@ def test_compiled_region_size_counts_as_numpy_does(monkeypatch):
             np.exp(rng.normal(0, 3, n)),
             np.round(rng.random(n), 2),
             np.where(rng.random(n) < 0.001, 1.0, 1e-9),
+            np.ones(n),
+            (rng.random(n) < 0.6) * 1.0,
             tracked,
         ]
     fast, slow = _both_ways(monkeypatch, lambda: [region_size(p) for p in beliefs])

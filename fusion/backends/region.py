@@ -43,11 +43,12 @@ def region_size(p: np.ndarray, level: float = REGION_LEVEL) -> int:
     # REGION_PROBE (linear time) and a sort of those settles it, a tenth of a full sort's cost on
     # 1.4 M cells (measured).  The top k values, sorted, are the first k of the full sort (ties are
     # equal values), so the count is the full sort's.  A spread belief falls back to the full sort.
-    if n > 2 * REGION_PROBE:
+    if n > 2 * REGION_PROBE and _probe_can_reach(float(nz.max()), target):
         desc = np.sort(np.partition(nz, n - REGION_PROBE)[n - REGION_PROBE :])[::-1]
         cum = np.cumsum(desc)
         if cum[-1] >= target:
             return int(np.searchsorted(cum, target) + 1)
+    if n > 2 * REGION_PROBE:
         return _region_by_bins(nz, target)
     desc = np.sort(nz)[::-1]
     return int(min(np.searchsorted(np.cumsum(desc), target) + 1, n))
@@ -69,8 +70,21 @@ def _region_by_bins(nz: np.ndarray, target: float) -> int:
     b = int(min(np.searchsorted(held, target), held.size - 1))
     edge = held.size - 1 - b
     above, above_mass = int(np.count_nonzero(key > edge)), float(held[b - 1]) if b else 0.0
-    inside = np.sort(nz[key == edge])[::-1]
+    inside = _descending(nz[key == edge])
     return int(min(above + np.searchsorted(np.cumsum(inside), target - above_mass) + 1, above + inside.size))
+
+
+def _descending(values: np.ndarray) -> np.ndarray:
+    """``values`` largest first; all equal (a uniform belief's one bin) they already are, and no sort is needed."""
+    if values.size and values.min() == values.max():
+        return values
+    return np.sort(values)[::-1]
+
+
+def _probe_can_reach(largest: float, target: float) -> bool:
+    """Whether the ``REGION_PROBE`` largest values, none above ``largest``, could hold ``target``: when not, a spread
+    belief (a uniform one, say) skips gathering and selecting them (a margin covers the sum's rounding)."""
+    return REGION_PROBE * largest * (1 + 1e-9) >= target
 
 
 REGION_PROBE = 4096
@@ -79,6 +93,11 @@ REGION_PROBE = 4096
 
 def _key(value: float) -> int:
     return int(np.float64(value).view(np.int64)) >> _BIN_SHIFT
+
+
+def _value(key: int) -> float:
+    """The smallest value of bin ``key`` (the inverse of ``_key`` at the bin's lower edge)."""
+    return float(np.int64(key << _BIN_SHIFT).view(np.float64))
 
 
 def _region_compiled(loops, p: np.ndarray, threshold: float, total: float, target: float) -> int:
@@ -97,20 +116,21 @@ def _region_compiled(loops, p: np.ndarray, threshold: float, total: float, targe
         desc = np.sort(few[:n])[::-1]
         return int(min(np.searchsorted(np.cumsum(desc), target) + 1, n))
     top = count.size - 1 - int(np.searchsorted(np.cumsum(count[::-1]), REGION_PROBE))  # lowest bin of the largest
-    if float(mass[top:].sum()) * (1 + 1e-9) >= target:  # else the largest REGION_PROBE, a part of these, fall short
+    used = np.flatnonzero(count)
+    lo, hi = int(used[0]), int(used[-1])  # the bins np.bincount would have made (from the smallest key up)
+    reach = _probe_can_reach(_value(hi + 1 + base), target)  # the bin above the highest bounds every value
+    if reach and float(mass[top:].sum()) * (1 + 1e-9) >= target:  # else the largest REGION_PROBE fall short
         gathered = _values(loops, p, threshold, base, top, count.size - 1, count)
         m = gathered.size
         desc = np.sort(np.partition(gathered, m - REGION_PROBE)[m - REGION_PROBE :])[::-1]
         cum = np.cumsum(desc)
         if cum[-1] >= target:
             return int(np.searchsorted(cum, target) + 1)
-    used = np.flatnonzero(count)
-    lo, hi = int(used[0]), int(used[-1])  # the bins np.bincount would have made (from the smallest key up)
     held = np.cumsum(mass[lo : hi + 1][::-1])
     b = int(min(np.searchsorted(held, target), held.size - 1))
     edge = lo + held.size - 1 - b
     above, above_mass = int(count[edge + 1 :].sum()), float(held[b - 1]) if b else 0.0
-    inside = np.sort(_values(loops, p, threshold, base, edge, edge, count))[::-1]
+    inside = _descending(_values(loops, p, threshold, base, edge, edge, count))
     return int(min(above + np.searchsorted(np.cumsum(inside), target - above_mass) + 1, above + inside.size))
 
 
