@@ -26,7 +26,8 @@ m = Motion(dx=np.zeros(2), dy=np.zeros(2), turn=0.0, sigma=0.5, sigma_turn=0.5, 
            reliability=1.0, slip=0, slip_turn=0)
 motion.predict_density(np.ones((2, 3, 4)), m)
 words = np.ones((2, 3), dtype=np.uint64)
-loops.pair_sets(words, words, bitset.multipliers(3), False, np.empty((2, 2, 3), np.uint64), np.empty((2, 2), np.uint64))
+out = np.empty((2, 2, 3), np.uint64), np.empty((2, 2), np.uint64), np.empty((2, 2), bool)
+loops.pair_sets(words, words, bitset.multipliers(3), False, *out)
 print(time.perf_counter() - start)
 """
 
@@ -62,10 +63,10 @@ def bench_kernels(grid, repeats: int = 9, seed: int = 0) -> list[BenchRow]:
     words = bitset.n_words(100_000)
     a = rng.integers(0, 2**63, size=(32, words), dtype=np.uint64)
     b = rng.integers(0, 2**63, size=(32, words), dtype=np.uint64)
-    rows_out, fps = np.empty((32, 32, words), np.uint64), np.empty((32, 32), np.uint64)
+    rows_out, fps, empty = np.empty((32, 32, words), np.uint64), np.empty((32, 32), np.uint64), np.empty((32, 32), bool)
     numpy_pairs = best_seconds(lambda: bitset.fingerprint(np.bitwise_and(a[:, None], b[None], out=rows_out)), repeats)
     mult = bitset.multipliers(words)
-    compiled_pairs = best_seconds(lambda: loops.pair_sets(a, b, mult, False, rows_out, fps), repeats)
+    compiled_pairs = best_seconds(lambda: loops.pair_sets(a, b, mult, False, rows_out, fps, empty), repeats)
     start = _start_up_seconds()
     label = f"compiled loops ({choice.why})"
 

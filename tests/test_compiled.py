@@ -117,19 +117,23 @@ def test_a_wrong_kernel_setting_is_refused_with_the_choices(monkeypatch):
 
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(st.integers(1, 9), st.integers(1, 9), st.integers(1, 300), st.booleans(), st.integers(0, 2**32 - 1))
-def test_compiled_pair_sets_equal_numpy_and_fingerprint(kernels, k1, k2, words, union, seed):
+def test_compiled_pair_sets_equal_numpy_fingerprint_and_emptiness(kernels, k1, k2, words, union, seed):
     from fusion.belief import bitset
 
     rng = np.random.default_rng(seed)
     a = rng.integers(0, 2**64, size=(k1, words), dtype=np.uint64)
     b = rng.integers(0, 2**64, size=(k2, words), dtype=np.uint64)
     rows = np.empty((k1, k2, words), dtype=np.uint64)
+    a[rng.random(k1) < 0.3] = 0  # empty sets, and pairs that meet in nothing
+    b[rng.random(k2) < 0.3] = 0
     fps = np.empty((k1, k2), dtype=np.uint64)
-    kernels.pair_sets(a, b, bitset.multipliers(words), union, rows, fps)
+    empty = np.empty((k1, k2), dtype=bool)
+    kernels.pair_sets(a, b, bitset.multipliers(words), union, rows, fps, empty)
     op = np.bitwise_or if union else np.bitwise_and
     expected = op(a[:, None, :], b[None, :, :])
     np.testing.assert_array_equal(rows, expected)
     np.testing.assert_array_equal(fps, bitset.fingerprint(expected))
+    np.testing.assert_array_equal(empty, ~expected.any(axis=2))
 
 
 def test_rules_on_a_large_frame_give_the_same_result_either_way(monkeypatch):

@@ -41,21 +41,28 @@ class FocalAccumulator:
         self._sorted: np.ndarray | None = None  # slots by fingerprint, for lookups
         self._shared = False  # two slots share a fingerprint (a collision): look up one row at a time
 
-    def add(self, rows: np.ndarray, weights, *, owned: bool = False, fingerprints=None) -> None:
+    def add(self, rows: np.ndarray, weights, *, owned: bool = False, fingerprints=None, empty=None) -> None:
         """Add ``weights[i]`` to the set ``rows[i]``.  With ``owned=True`` the caller hands
         ``rows`` over (it will not change them), which saves a copy; ``fingerprints`` may be
-        passed when already computed (``bitset.fingerprint`` of the rows)."""
+        passed when already computed (``bitset.fingerprint`` of the rows), and ``empty``, which rows are
+        known exactly to be the empty set (two of those are equal without comparing their words)."""
         rows = np.asarray(rows, dtype=bitset.WORD).reshape(-1, self._w)
         weights = np.asarray(weights, dtype=np.float64).reshape(-1)
         keep = weights != 0.0
         if not keep.all():
             rows, weights, owned = rows[keep], weights[keep], True
             fingerprints = None if fingerprints is None else np.asarray(fingerprints)[keep]
+            empty = None if empty is None else np.asarray(empty)[keep]
         if len(weights) == 0:
             return
         fps = bitset.fingerprint(rows) if fingerprints is None else np.asarray(fingerprints, dtype=np.uint64)
         uniq, first, inverse = np.unique(fps, return_index=True, return_inverse=True)
-        if self._shared or not self._exact(rows, np.arange(len(fps)), rows, first[inverse]):
+        which, against = np.arange(len(fps)), first[inverse]
+        if empty is not None:  # a row and its group's first row both known empty: equal, nothing to compare
+            empty = np.asarray(empty, dtype=bool)
+            unproven = ~(empty & empty[against])
+            which, against = which[unproven], against[unproven]
+        if self._shared or not self._exact(rows, which, rows, against):
             self._add_one_by_one(rows, weights, fps)  # a fingerprint collision: merge one row at a time
             return
         sums = np.bincount(inverse, weights=weights, minlength=len(uniq))

@@ -217,9 +217,10 @@ _INFINITY_BITS = np.int64(0x7FF0000000000000)  # +inf's bit pattern; positive Na
 
 
 @numba.njit(cache=True, nogil=True)
-def pair_sets(a, b, multipliers, union, rows, fps):  # pragma: no cover - compiled
+def pair_sets(a, b, multipliers, union, rows, fps, empty):  # pragma: no cover - compiled
     """rows[i, j] = a[i] & b[j] (a[i] | b[j] with ``union``) and fps[i, j] = Σ_k rows[i, j, k] · multipliers[k]
-    modulo 2⁶⁴ (``fusion.belief.bitset.fingerprint``), in one pass over the words instead of two."""
+    modulo 2⁶⁴ (``fusion.belief.bitset.fingerprint``), in one pass over the words instead of two; empty[i, j] tells
+    whether the row has no bit set (known exactly, so equal empty rows need no comparing afterwards)."""
     k1, words = a.shape
     k2 = b.shape[0]
     for i in range(k1):
@@ -228,17 +229,21 @@ def pair_sets(a, b, multipliers, union, rows, fps):  # pragma: no cover - compil
             right = b[j]
             out = rows[i, j]
             h = np.uint64(0)
+            seen = np.uint64(0)
             if union:
                 for k in range(words):
                     x = left[k] | right[k]
                     out[k] = x
                     h += x * multipliers[k]
+                    seen |= x
             else:
                 for k in range(words):
                     x = left[k] & right[k]
                     out[k] = x
                     h += x * multipliers[k]
+                    seen |= x
             fps[i, j] = h
+            empty[i, j] = seen == 0
 
 
 @numba.njit(cache=True, nogil=True)
