@@ -292,3 +292,15 @@ def test_different_sets_sharing_a_fingerprint_are_never_merged(monkeypatch, n):
     assert got.keys() == expected.keys()
     for key, value in expected.items():
         assert_close(got[key], value, tol=1e-12)
+
+
+def test_a_cap_of_one_set_merges_everything_into_the_union_with_either_strategy():
+    # With room for one set the nearest-set merge has no kept set to merge into: every non-empty set goes to the
+    # union, as with merge="union" (an outer approximation, Denœux 2001); it used to raise a numpy error.
+    m1 = MassFunction.from_focal(10, {(1, 2): 0.5, (2, 3): 0.3, (7,): 0.2})
+    m2 = MassFunction.from_focal(10, {(2,): 0.5, (1, 2, 3): 0.5})
+    nearest = rules.conjunctive_reduced(m1, m2, 1, "nearest")
+    union = rules.conjunctive_reduced(m1, m2, 1, "union")
+    assert nearest.mass_function.is_close(union.mass_function, 1e-15)
+    assert {frozenset(fs.cells) for fs in nearest.mass_function} == {frozenset(), frozenset({1, 2, 3})}
+    assert nearest.sets_merged == union.sets_merged

@@ -214,6 +214,8 @@ class FocalAccumulator:
         """Each dropped set into the kept row it overlaps most (judged on the 64-cell words they occupy), in place;
         returns (mass moved to a larger set, the dropped sets that overlap no kept row, the kept rows grown)."""
         w = self._weights
+        if not len(rows):  # a cap of one set keeps none: everything goes to the union
+            return moved, dropped, []
         signatures = np.stack([np.packbits(r != 0) for r in rows])
         sizes = np.bitwise_count(signatures).sum(axis=1)
         grown: set[int] = set()
