@@ -146,11 +146,57 @@ def test_rules_on_a_large_frame_give_the_same_result_either_way(monkeypatch):
     m1 = MassFunction.from_contour(np.clip(rng.random(n) + 0.05, 0, 1), levels=32)
     m2 = MassFunction.from_contour(np.clip(rng.random(n) + 0.1, 0, 1), levels=32)
     fast, slow = _both_ways(
-        monkeypatch, lambda: [rules.dempster(m1, m2), rules.disjunctive(m1, m2), rules.yager(m1, m2)]
+        monkeypatch,
+        lambda: (
+            [rules.dempster(m1, m2), rules.disjunctive(m1, m2), rules.yager(m1, m2)]
+            + [rules.conjunctive_reduced(m1, m2, 12, merge).mass_function for merge in ("union", "nearest")]
+        ),
     )
     for got, expected in zip(fast, slow):
         np.testing.assert_array_equal(got.sets, expected.sets)
         np.testing.assert_array_equal(got.masses, expected.masses)
+    k_fast, k_slow = _both_ways(monkeypatch, lambda: rules.conflict_mass(m1, m2))
+    assert k_fast == k_slow
+
+
+def test_a_pair_block_reads_as_the_rows_it_stands_for(kernels):
+    # A PairBlock is indexed, taken, selected and united as the array of its rows op(a[i], b[j]) would be.
+    from fusion.belief.pairs import PairBlock
+
+    rng = np.random.default_rng(9)
+    a = rng.integers(0, 2**64, size=(5, 70), dtype=np.uint64)
+    b = rng.integers(0, 2**64, size=(3, 70), dtype=np.uint64)
+    left, right = rng.integers(0, 5, 11), rng.integers(0, 3, 11)
+    for union, op in ((False, np.bitwise_and), (True, np.bitwise_or)):
+        block, rows = PairBlock(a, b, union, left, right, kernels), op(a[left], b[right])
+        mask = rng.random(11) < 0.5
+        for key in (0, 7, -1, np.int64(3), slice(2, 9, 3), mask, np.array([4, 0, 4, 10])):
+            np.testing.assert_array_equal(block[key], rows[key])
+        out = np.zeros((3, 70), dtype=np.uint64)
+        block.take(np.array([1, 5, 2]), axis=0, out=out)
+        np.testing.assert_array_equal(out, rows[[1, 5, 2]])
+        np.testing.assert_array_equal(block.select(mask)[:], rows[mask])
+        union_of = np.zeros(70, dtype=np.uint64)
+        block.union_into(np.array([0, 3, 8]), union_of)
+        np.testing.assert_array_equal(union_of, rows[0] | rows[3] | rows[8])
+        assert len(block) == 11 and block.shape == (11, 70)
+
+
+def test_compiled_pair_fingerprints_equal_the_written_pairs(kernels):
+    from fusion.belief import bitset
+
+    rng = np.random.default_rng(10)
+    a = rng.integers(0, 2**64, size=(6, 130), dtype=np.uint64)
+    b = rng.integers(0, 2**64, size=(4, 130), dtype=np.uint64)
+    a[2] = 0
+    b[1] = a[0] ^ np.uint64(2**64 - 1)  # meets a[0] in nothing
+    for union in (False, True):
+        rows, fps, empty = np.empty((6, 4, 130), np.uint64), np.empty((6, 4), np.uint64), np.empty((6, 4), bool)
+        kernels.pair_sets(a, b, bitset.multipliers(130), union, rows, fps, empty)
+        fps2, empty2 = np.empty((6, 4), np.uint64), np.empty((6, 4), bool)
+        kernels.pair_fingerprints(a, b, bitset.multipliers(130), union, fps2, empty2)
+        np.testing.assert_array_equal(fps2, fps)
+        np.testing.assert_array_equal(empty2, empty)
 
 
 @pytest.mark.parametrize("max_range_m", [3.0, 12.0])  # short: the whole padded field is gathered; long: windows
@@ -289,3 +335,38 @@ def test_the_command_line_refuses_a_wrong_kernel_setting_before_any_work(monkeyp
     said = capsys.readouterr().err
     assert "FUSION_KERNELS='fastest' in the environment: expected one of auto, numpy, compiled" in said
     assert not (tmp_path / "out").exists()
+
+
+def test_capped_rule_merges_exactly_when_every_fingerprint_collides(kernels, monkeypatch):
+    # The capped rule's unwritten rows (PairBlock) under the worst fingerprint: 0 for every set, so every pair
+    # collides and each merge rests on the exact comparison of rows written out on demand.  Uncapped, the result
+    # is the conjunctive rule by its definition on Python sets (Smets 1990); capped, the two-step reduction.
+    from fusion.belief import bitset, rules
+    from fusion.belief.mass import MassFunction
+
+    monkeypatch.setattr(rules, "_COMPILED_WORDS", 1)  # the compiled pair loops on a small frame
+    monkeypatch.setattr(bitset, "multipliers", lambda w: np.zeros(w, dtype=np.uint64))
+    rng = np.random.default_rng(17)
+    n = 700
+    masks = rng.random((20, n)) < 0.02
+    masks[:, : n // 10] |= rng.random((20, n // 10)) < 0.3  # overlapping sets: intersections repeat
+    masks[10:13] = masks[0]
+    f1 = {tuple(np.flatnonzero(r).tolist()): w for r, w in zip(masks[:10], rng.random(10))}
+    f2 = {tuple(np.flatnonzero(r).tolist()): w for r, w in zip(masks[10:], rng.random(10))}
+    f1 = {k: v / sum(f1.values()) for k, v in f1.items()}
+    f2 = {k: v / sum(f2.values()) for k, v in f2.items()}
+    m1, m2 = MassFunction.from_focal(n, f1), MassFunction.from_focal(n, f2)
+    expected = {}
+    for b, x in f1.items():
+        for c, y in f2.items():
+            key = frozenset(b) & frozenset(c)
+            expected[key] = expected.get(key, 0.0) + x * y
+    got = {frozenset(fs.cells): fs.mass for fs in rules.conjunctive_reduced(m1, m2, 1000).mass_function}
+    assert got.keys() == expected.keys()
+    for key, value in expected.items():
+        assert abs(got[key] - value) <= 1e-12
+    for cap in (1, 3, 8):
+        one = rules.conjunctive_reduced(m1, m2, cap, "nearest")
+        two = rules.reduce_focal_sets(rules.conjunctive(m1, m2), cap, "nearest")
+        assert one.mass_function.is_close(two.mass_function, 1e-12)
+        assert one.sets_merged == two.sets_merged

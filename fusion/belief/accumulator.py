@@ -6,6 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 from fusion.belief import bitset
+from fusion.belief.pairs import PairBlock
 from fusion.errors import (
     MassValueError,
     RuleError,
@@ -33,7 +34,7 @@ class FocalAccumulator:
     def __init__(self, n: int):
         self.n = int(n)
         self._w = bitset.n_words(n)
-        self._blocks: list[np.ndarray] = []  # the rows handed in, one array per batch
+        self._blocks: list[np.ndarray | PairBlock] = []  # the rows handed in, one array (or PairBlock) per batch
         self._fps = np.zeros(0, dtype=np.uint64)  # slot -> fingerprint
         self._weights = np.zeros(0, dtype=np.float64)
         self._block = np.zeros(0, dtype=np.intp)  # slot -> (block, row) where its set is stored
@@ -46,11 +47,13 @@ class FocalAccumulator:
         ``rows`` over (it will not change them), which saves a copy; ``fingerprints`` may be
         passed when already computed (``bitset.fingerprint`` of the rows), and ``empty``, which rows are
         known exactly to be the empty set (two of those are equal without comparing their words)."""
-        rows = np.asarray(rows, dtype=bitset.WORD).reshape(-1, self._w)
+        if not isinstance(rows, PairBlock):  # a PairBlock writes its rows out only when they are read
+            rows = np.asarray(rows, dtype=bitset.WORD).reshape(-1, self._w)
         weights = np.asarray(weights, dtype=np.float64).reshape(-1)
         keep = weights != 0.0
         if not keep.all():
-            rows, weights, owned = rows[keep], weights[keep], True
+            rows = rows.select(keep) if isinstance(rows, PairBlock) else rows[keep]
+            weights, owned = weights[keep], True
             fingerprints = None if fingerprints is None else np.asarray(fingerprints)[keep]
             empty = None if empty is None else np.asarray(empty)[keep]
         if len(weights) == 0:
@@ -134,14 +137,14 @@ class FocalAccumulator:
         ``out``.  Rows from one block are gathered straight into place, not through a temporary."""
         slots = np.asarray(slots, dtype=np.intp)
         if out is None and len(self._blocks) == 1 and len(slots) == len(self._blocks[0]):
-            if np.array_equal(self._row_at[slots], np.arange(len(slots))):
+            if isinstance(self._blocks[0], np.ndarray) and np.array_equal(self._row_at[slots], np.arange(len(slots))):
                 return self._blocks[0]
         if out is None:
             out = np.empty((len(slots), self._w), dtype=bitset.WORD)
         blocks = self._block[slots]
         used = np.unique(blocks).tolist()
         if len(used) == 1:
-            np.take(self._blocks[used[0]], self._row_at[slots], axis=0, out=out)
+            self._blocks[used[0]].take(self._row_at[slots], axis=0, out=out)
             return out
         for b in used:
             here = blocks == b
@@ -241,8 +244,11 @@ class FocalAccumulator:
         blocks = self._block[slots]
         out[:] = 0
         for b in np.unique(blocks).tolist():
-            rows = self._row_at[slots[blocks == b]]
-            bitset.union_of_rows(self._blocks[b], rows, out)
+            rows, block = self._row_at[slots[blocks == b]], self._blocks[b]
+            if isinstance(block, PairBlock):
+                block.union_into(rows, out)
+            else:
+                bitset.union_of_rows(block, rows, out)
 
     def _row(self, slot: int) -> np.ndarray:
         return self._blocks[self._block[slot]][self._row_at[slot]]

@@ -29,6 +29,7 @@ import numpy as np
 from fusion import compiled
 from fusion.belief import bitset
 from fusion.belief.mass import FocalAccumulator, MassFunction, check_same_frame
+from fusion.belief.pairs import PairBlock
 from fusion.errors import MassValueError, RuleError, TotalConflictError
 
 __all__ = [
@@ -59,14 +60,15 @@ _COMPILED_WORDS = 2**18
 _COMPILED_OPS = (np.bitwise_and, np.bitwise_or)
 
 
-def _pairs(m1: MassFunction, m2: MassFunction, op: Callable):
+def _pairs(m1: MassFunction, m2: MassFunction, op: Callable, *, lazy: bool = False):
     """Yield ``(op(B_i, C_j) rows, i, j, fingerprints, empty)`` over all focal-set pairs, a chunk of i at a time;
     ``empty`` tells which rows are the empty set, known exactly.
 
     Rows are fingerprinted right after they are made, a few at a time while they are still in
     cache (measured: about a third faster than fingerprinting a whole chunk afterwards); on large
     frames, with numba installed, a compiled loop makes, fingerprints and tests each row for emptiness
-    in one pass (``fusion.compiled``).
+    in one pass (``fusion.compiled``).  With ``lazy`` (and numba) the rows are not made at all: they come as a
+    ``PairBlock`` that writes out only the rows the caller reads.
     """
     s1, s2 = m1.sets, m2.sets
     k2, w = s2.shape
@@ -75,21 +77,26 @@ def _pairs(m1: MassFunction, m2: MassFunction, op: Callable):
     sub = max(1, _CACHE_BYTES // row_bytes)
     # The compiled pair loop knows AND and OR (the rules' two operations); anything else stays with numpy.
     loops = compiled.kernels() if op in _COMPILED_OPS and len(s1) * k2 * w >= _COMPILED_WORDS else None
+    union = op is np.bitwise_or
     for start in range(0, len(s1), step):
         a = s1[start : start + step]
-        rows = np.empty((len(a), k2, w), dtype=bitset.WORD)
         fps = np.empty((len(a), k2), dtype=np.uint64)
+        empty = np.empty((len(a), k2), dtype=bool)
+        ii = np.repeat(np.arange(start, start + len(a)), k2)
+        jj = np.tile(np.arange(k2), len(a))
+        if loops is not None and lazy:
+            loops.pair_fingerprints(a, s2, bitset.multipliers(w), union, fps, empty)
+            yield PairBlock(a, s2, union, ii - start, jj, loops), ii, jj, fps.reshape(-1), empty.reshape(-1)
+            continue
+        rows = np.empty((len(a), k2, w), dtype=bitset.WORD)
         if loops is not None:
-            empty = np.empty((len(a), k2), dtype=bool)
-            loops.pair_sets(a, s2, bitset.multipliers(w), op is np.bitwise_or, rows, fps, empty)
+            loops.pair_sets(a, s2, bitset.multipliers(w), union, rows, fps, empty)
             empty = empty.reshape(-1)
         else:
             for i in range(0, len(a), sub):
                 op(a[i : i + sub, None, :], s2[None, :, :], out=rows[i : i + sub])
                 fps[i : i + sub] = bitset.fingerprint(rows[i : i + sub])
             empty = _empty_rows(rows.reshape(-1, w), fps.reshape(-1))
-        ii = np.repeat(np.arange(start, start + len(a)), k2)
-        jj = np.tile(np.arange(k2), len(a))
         yield rows.reshape(-1, w), ii, jj, fps.reshape(-1), empty
 
 
@@ -101,10 +108,14 @@ def _empty_rows(rows: np.ndarray, fps: np.ndarray) -> np.ndarray:
     return empty
 
 
-def _products(m1: MassFunction, m2: MassFunction, op: Callable) -> FocalAccumulator:
-    """Every pair's set ``op(B_i, C_j)`` with weight m1(B_i) · m2(C_j), merged: the core of the product rules."""
+def _products(m1: MassFunction, m2: MassFunction, op: Callable, *, capped: bool = False) -> FocalAccumulator:
+    """Every pair's set ``op(B_i, C_j)`` with weight m1(B_i) · m2(C_j), merged: the core of the product rules.
+
+    ``capped``: the result will be cut to a few sets, so the sets are written out only when read (``PairBlock``):
+    the cap reads only those it keeps.  An uncapped result reads them all, and making them while fingerprinting is
+    cheaper than a second pass (measured: Dempster's rule on 100,000 cells, 1.1× against 1.8× the bitwise floor)."""
     acc = FocalAccumulator(check_same_frame(m1, m2))
-    for rows, ii, jj, fps, empty in _pairs(m1, m2, op):
+    for rows, ii, jj, fps, empty in _pairs(m1, m2, op, lazy=capped):
         acc.add(rows, m1.masses[ii] * m2.masses[jj], owned=True, fingerprints=fps, empty=empty)
     return acc
 
@@ -113,7 +124,7 @@ def conflict_mass(m1: MassFunction, m2: MassFunction) -> float:
     """K = Σ m1(B) m2(C) over pairs with B ∩ C = ∅: the conflict, without building the combination."""
     check_same_frame(m1, m2)
     k = 0.0
-    for _, ii, jj, _, empty in _pairs(m1, m2, np.bitwise_and):
+    for _, ii, jj, _, empty in _pairs(m1, m2, np.bitwise_and, lazy=True):
         k += float((m1.masses[ii[empty]] * m2.masses[jj[empty]]).sum())
     return k
 
@@ -130,7 +141,7 @@ def conjunctive_reduced(m1: MassFunction, m2: MassFunction, max_focal: int, merg
     union anyway, so they are never gathered into a table of their own.
     """
     _check_cap(max_focal)
-    return _reduction(_products(m1, m2, np.bitwise_and).reduced(max_focal, merge))
+    return _reduction(_products(m1, m2, np.bitwise_and, capped=True).reduced(max_focal, merge))
 
 
 def dempster(m1: MassFunction, m2: MassFunction, *, if_total_conflict: str = "raise") -> MassFunction:

@@ -247,6 +247,58 @@ def pair_sets(a, b, multipliers, union, rows, fps, empty):  # pragma: no cover -
 
 
 @numba.njit(cache=True, nogil=True)
+def pair_fingerprints(a, b, multipliers, union, fps, empty):  # pragma: no cover - compiled
+    """``pair_sets`` without writing the rows: fps[i, j] and empty[i, j] of a[i] & b[j] (a[i] | b[j] with ``union``),
+    for rules that keep only some of the rows (``fusion.belief.pairs.PairBlock``).  Reads the inputs only."""
+    k1, words = a.shape
+    for i in range(k1):
+        left = a[i]
+        for j in range(b.shape[0]):
+            right = b[j]
+            h = np.uint64(0)
+            seen = np.uint64(0)
+            if union:
+                for k in range(words):
+                    x = left[k] | right[k]
+                    h += x * multipliers[k]
+                    seen |= x
+            else:
+                for k in range(words):
+                    x = left[k] & right[k]
+                    h += x * multipliers[k]
+                    seen |= x
+            fps[i, j] = h
+            empty[i, j] = seen == 0
+
+
+@numba.njit(cache=True, nogil=True)
+def pair_rows(a, b, union, left, right, out):  # pragma: no cover - compiled
+    """out[r] = a[left[r]] & b[right[r]] (| with ``union``): the rows of a ``PairBlock`` that are read."""
+    for r in range(left.size):
+        x, y, row = a[left[r]], b[right[r]], out[r]
+        if union:
+            for k in range(row.size):
+                row[k] = x[k] | y[k]
+        else:
+            for k in range(row.size):
+                row[k] = x[k] & y[k]
+
+
+@numba.njit(cache=True, nogil=True)
+def pair_union(a, b, union, left, right, out):  # pragma: no cover - compiled
+    """out |= a[left[r]] & b[right[r]] (| with ``union``) for every r: the union of a ``PairBlock``'s rows, a row at
+    a time (``out`` stays in cache), none of them written out."""
+    for r in range(left.size):
+        x, y = a[left[r]], b[right[r]]
+        if union:
+            for k in range(out.size):
+                out[k] |= x[k] | y[k]
+        else:
+            for k in range(out.size):
+                out[k] |= x[k] & y[k]
+
+
+@numba.njit(cache=True, nogil=True)
 def scan_log_likelihood(tables, field_index, sx, sy, pad, out):  # pragma: no cover - compiled
     """``fusion.sensors.ranging.RangeSensor.log_likelihood`` into ``out`` (zeros on entry): for each heading h and beam
     b in order, out[h] += tables[b][field_index[window of h, b]], the window shifted by (sx[b, h], sy[b, h]) cells."""
