@@ -224,7 +224,8 @@ class FocalAccumulator:
         grown: set[int] = set()
         orphans = []
         for s in dropped.tolist():
-            sig = np.packbits(self._row(s) != 0)
+            row = self._row(s)  # read once: a PairBlock writes it out on every read
+            sig = np.packbits(row != 0)
             overlap = np.bitwise_count(signatures & sig).sum(axis=1)
             if not overlap.any():
                 orphans.append(s)
@@ -232,7 +233,7 @@ class FocalAccumulator:
             score = overlap / (sizes + np.bitwise_count(sig).sum() - overlap)
             j = int(np.argmax(score))
             before = rows[j].copy() if j not in grown else None
-            np.bitwise_or(rows[j], self._row(s), out=rows[j])
+            np.bitwise_or(rows[j], row, out=rows[j])
             if before is not None and not np.array_equal(before, rows[j]):
                 grown.add(j)
                 moved += masses[j]  # the kept set's own mass now sits on a larger set too
