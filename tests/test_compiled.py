@@ -75,14 +75,19 @@ def test_compiled_prediction_equals_numpy_bit_for_bit(
 
 def test_compiled_prediction_masks_as_numpy_does(kernels):
     # The free-space mask applied inside the loop equals the prediction multiplied by the mask afterwards.
+    # Heading noises from none to wide: one to four turn taps (mixed and masked in one pass) and more than four.
     rng = np.random.default_rng(5)
     for shape in ((6, 37, 21), (36, 20, 30), (3, 1, 40)):
         belief = rng.random(shape)
         free = rng.random(shape[1:]) < 0.6
-        m = _motion(shape[0], 2.3, 0.4, 25.0, 0.6, 0.4)
-        np.testing.assert_array_equal(
-            motion.predict_density(belief, m, free=np.broadcast_to(free, shape)), _numpy_prediction(belief, m) * free
-        )
+        for turn, sigma_turn in ((0.0, 0.0), (25.4, 0.0), (25.0, 0.2), (0.4, 0.134), (25.0, 0.4), (25.0, 2.0)):
+            m = _motion(shape[0], 2.3, 0.4, turn, 0.6, sigma_turn)
+            taps = len(motion._turn_taps(m.turn, m.sigma_turn, shape[0]))
+            np.testing.assert_array_equal(
+                motion.predict_density(belief, m, free=np.broadcast_to(free, shape)),
+                _numpy_prediction(belief, m) * free,
+                err_msg=f"{taps} turn taps",
+            )
 
 
 def test_compiled_prediction_takes_a_strided_belief(kernels):
