@@ -187,7 +187,7 @@ def test_a_pair_block_reads_as_the_rows_it_stands_for(kernels):
         assert len(block) == 11 and block.shape == (11, 70)
 
 
-def test_compiled_pair_fingerprints_equal_the_written_pairs(kernels):
+def test_compiled_pair_fingerprints_without_rows_equal_the_written_pairs(kernels):
     from fusion.belief import bitset
 
     rng = np.random.default_rng(10)
@@ -198,8 +198,8 @@ def test_compiled_pair_fingerprints_equal_the_written_pairs(kernels):
     for union in (False, True):
         rows, fps, empty = np.empty((6, 4, 130), np.uint64), np.empty((6, 4), np.uint64), np.empty((6, 4), bool)
         kernels.pair_sets(a, b, bitset.multipliers(130), union, rows, fps, empty)
-        fps2, empty2 = np.empty((6, 4), np.uint64), np.empty((6, 4), bool)
-        kernels.pair_fingerprints(a, b, bitset.multipliers(130), union, fps2, empty2)
+        fps2, empty2, unwritten = np.empty((6, 4), np.uint64), np.empty((6, 4), bool), np.empty((6, 4, 0), np.uint64)
+        kernels.pair_sets(a, b, bitset.multipliers(130), union, unwritten, fps2, empty2)
         np.testing.assert_array_equal(fps2, fps)
         np.testing.assert_array_equal(empty2, empty)
 

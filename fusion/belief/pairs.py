@@ -2,7 +2,7 @@
 
 A rule over k1 × k2 focal-set pairs needs every pair's fingerprint (to add up the weights of equal sets) but, once
 the result is capped at a few dozen sets, only the rows it keeps.  ``PairBlock`` stands for the rows op(a[i], b[j])
-of chosen pairs: ``fusion.compiled``'s pair loops fingerprint them in a pass that writes nothing, and write out only
+of chosen pairs: ``fusion.compiled``'s pair loop fingerprints them in a pass that writes nothing, and write out only
 the rows asked for, or their union.  ``FocalAccumulator`` stores it as it stores a block of rows.
 """
 

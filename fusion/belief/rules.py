@@ -85,7 +85,8 @@ def _pairs(m1: MassFunction, m2: MassFunction, op: Callable, *, lazy: bool = Fal
         ii = np.repeat(np.arange(start, start + len(a)), k2)
         jj = np.tile(np.arange(k2), len(a))
         if loops is not None and lazy:
-            loops.pair_fingerprints(a, s2, bitset.multipliers(w), union, fps, empty)
+            unwritten = np.empty((len(a), k2, 0), dtype=bitset.WORD)
+            loops.pair_sets(a, s2, bitset.multipliers(w), union, unwritten, fps, empty)
             yield PairBlock(a, s2, union, ii - start, jj, loops), ii, jj, fps.reshape(-1), empty.reshape(-1)
             continue
         rows = np.empty((len(a), k2, w), dtype=bitset.WORD)

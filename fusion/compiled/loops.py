@@ -247,53 +247,25 @@ _INFINITY_BITS = np.int64(0x7FF0000000000000)  # +inf's bit pattern; positive Na
 def pair_sets(a, b, multipliers, union, rows, fps, empty):  # pragma: no cover - compiled
     """rows[i, j] = a[i] & b[j] (a[i] | b[j] with ``union``) and fps[i, j] = Σ_k rows[i, j, k] · multipliers[k]
     modulo 2⁶⁴ (``fusion.belief.bitset.fingerprint``), in one pass over the words instead of two; empty[i, j] tells
-    whether the row has no bit set (known exactly, so equal empty rows need no comparing afterwards)."""
+    whether the row has no bit set (known exactly, so equal empty rows need no comparing afterwards).  ``rows`` with
+    no words (shape (k1, k2, 0)): the rows are not written, only fingerprinted, for rules that keep a few of them
+    (``fusion.belief.pairs.PairBlock``).  The branches on ``union`` and on writing are the same for every word, so
+    the compiler hoists them out of the loop (measured: as fast as four separate loops)."""
     k1, words = a.shape
-    k2 = b.shape[0]
-    for i in range(k1):
-        left = a[i]
-        for j in range(k2):
-            right = b[j]
-            out = rows[i, j]
-            h = np.uint64(0)
-            seen = np.uint64(0)
-            if union:
-                for k in range(words):
-                    x = left[k] | right[k]
-                    out[k] = x
-                    h += x * multipliers[k]
-                    seen |= x
-            else:
-                for k in range(words):
-                    x = left[k] & right[k]
-                    out[k] = x
-                    h += x * multipliers[k]
-                    seen |= x
-            fps[i, j] = h
-            empty[i, j] = seen == 0
-
-
-@numba.njit(cache=True, nogil=True)
-def pair_fingerprints(a, b, multipliers, union, fps, empty):  # pragma: no cover - compiled
-    """``pair_sets`` without writing the rows: fps[i, j] and empty[i, j] of a[i] & b[j] (a[i] | b[j] with ``union``),
-    for rules that keep only some of the rows (``fusion.belief.pairs.PairBlock``).  Reads the inputs only."""
-    k1, words = a.shape
+    write = rows.shape[2] == words
     for i in range(k1):
         left = a[i]
         for j in range(b.shape[0]):
             right = b[j]
+            out = rows[i, j]
             h = np.uint64(0)
             seen = np.uint64(0)
-            if union:
-                for k in range(words):
-                    x = left[k] | right[k]
-                    h += x * multipliers[k]
-                    seen |= x
-            else:
-                for k in range(words):
-                    x = left[k] & right[k]
-                    h += x * multipliers[k]
-                    seen |= x
+            for k in range(words):
+                x = (left[k] | right[k]) if union else (left[k] & right[k])
+                if write:
+                    out[k] = x
+                h += x * multipliers[k]
+                seen |= x
             fps[i, j] = h
             empty[i, j] = seen == 0
 
@@ -303,12 +275,8 @@ def pair_rows(a, b, union, left, right, out):  # pragma: no cover - compiled
     """out[r] = a[left[r]] & b[right[r]] (| with ``union``): the rows of a ``PairBlock`` that are read."""
     for r in range(left.size):
         x, y, row = a[left[r]], b[right[r]], out[r]
-        if union:
-            for k in range(row.size):
-                row[k] = x[k] | y[k]
-        else:
-            for k in range(row.size):
-                row[k] = x[k] & y[k]
+        for k in range(row.size):
+            row[k] = (x[k] | y[k]) if union else (x[k] & y[k])
 
 
 @numba.njit(cache=True, nogil=True)
@@ -317,12 +285,8 @@ def pair_union(a, b, union, left, right, out):  # pragma: no cover - compiled
     a time (``out`` stays in cache), none of them written out."""
     for r in range(left.size):
         x, y = a[left[r]], b[right[r]]
-        if union:
-            for k in range(out.size):
-                out[k] |= x[k] | y[k]
-        else:
-            for k in range(out.size):
-                out[k] |= x[k] & y[k]
+        for k in range(out.size):
+            out[k] |= (x[k] | y[k]) if union else (x[k] & y[k])
 
 
 @numba.njit(cache=True, nogil=True)
