@@ -49,3 +49,15 @@ def test_intersection_counts_match_numpy():
     b = rng.random((3, 70_000)) < 0.3
     counts = bitset.intersection_counts(bitset.pack_masks(a), bitset.pack_masks(b))
     np.testing.assert_array_equal(counts, (a[:, None, :] & b[None, :, :]).sum(axis=2))
+
+
+@pytest.mark.parametrize("n", [1, 63, 64, 65, 1000])
+def test_rows_packed_one_at_a_time_equal_the_packed_table(n):
+    # pack_rows builds no (count, n) table of booleans; its words equal numpy's packbits of that table, with the
+    # bits past cell n − 1 zero.
+    rng = np.random.default_rng(n)
+    masks = rng.random((5, n)) < 0.4
+    rows = bitset.pack_rows(n, 5, lambda i, out: np.copyto(out, masks[i]))
+    np.testing.assert_array_equal(rows, bitset.pack_masks(masks))
+    np.testing.assert_array_equal(bitset.unpack(rows, n), masks)
+    assert bitset.pack_rows(n, 0, None).shape == (0, bitset.n_words(n))

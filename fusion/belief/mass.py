@@ -182,16 +182,16 @@ class MassFunction:
             levels = int(levels)
             # Each cell's level index, 0 = top: its contour rounded up is values[index].
             if spacing == "linear":
-                index = np.clip(levels - np.ceil(c * levels - 1e-12), 0, levels).astype(np.int16)
+                index = np.clip(levels - np.ceil(c * levels - 1e-12), 0, levels).astype(np.intp)
                 table = (levels - np.arange(levels + 1)) / levels
             else:
-                index = geometric_level_index(c, levels).astype(np.int16)
+                index = geometric_level_index(c, levels)
                 table = np.append(2.0 ** -np.arange(levels), 0.0)
             present = np.flatnonzero(np.bincount(index, minlength=levels + 1))
             present = present[table[present] > 0]
             values = table[present]
             masses = np.append(values - np.append(values[1:], 0.0), 1.0 - (values[0] if len(values) else 0.0))
-            masks = np.vstack([index[None, :] <= present[:, None], np.zeros((1, n), dtype=bool)])
+            nested = bitset.pack_rows(n, len(present), lambda i, out: np.less_equal(index, present[i], out=out))
         else:
             values = np.unique(c[c > 0])[::-1]
             if len(values) > _MAX_EXACT_LEVELS:
@@ -201,9 +201,10 @@ class MassFunction:
                 )
             top = float(values[0]) if len(values) else 0.0
             masses = np.append(values - np.append(values[1:], 0.0), 1.0 - top)
-            masks = np.vstack([c[None, :] >= values[:, None], np.zeros((1, n), dtype=bool)])
+            nested = bitset.pack_rows(n, len(values), lambda i, out: np.greater_equal(c, values[i], out=out))
+        sets = np.vstack([nested, np.zeros((1, bitset.n_words(n)), dtype=bitset.WORD)])  # and ∅, for 1 − top
         keep = masses > 1e-15
-        return cls._trusted(n, bitset.pack_masks(masks[keep]), masses[keep].astype(np.float64))
+        return cls._trusted(n, sets[keep], masses[keep].astype(np.float64))
 
     @classmethod
     def from_likelihood(cls, likelihood: np.ndarray, levels: int | None = None) -> MassFunction:
