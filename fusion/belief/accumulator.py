@@ -15,6 +15,7 @@ from fusion.errors import (
 __all__ = ["FocalAccumulator", "MERGE_STRATEGIES"]
 
 _COMPARE_BYTES = 1024**2  # rows compared at once when confirming equal fingerprints
+_MERGE_BYTES = 16 * 1024**2  # dropped sets read at once by the nearest-set merge (our choice)
 
 MERGE_STRATEGIES = ("union", "nearest")
 """How ``FocalAccumulator.reduced`` merges the focal sets beyond the cap."""
@@ -215,29 +216,36 @@ class FocalAccumulator:
 
     def _merge_nearest(self, rows: np.ndarray, masses: list, dropped: np.ndarray, moved: float):
         """Each dropped set into the kept row it overlaps most (judged on the 64-cell words they occupy), in place;
-        returns (mass moved to a larger set, the dropped sets that overlap no kept row, the kept rows grown)."""
+        returns (mass moved to a larger set, the dropped sets that overlap no kept row, the kept rows grown).
+
+        The dropped sets are read a batch at a time, and a batch's overlaps with every kept row are counted at once;
+        the merges themselves go one set at a time, in order, since a kept row's mass grows as sets join it."""
         w = self._weights
         if not len(rows):  # a cap of one set keeps none: everything goes to the union
             return moved, dropped, []
-        signatures = np.stack([np.packbits(r != 0) for r in rows])
+        signatures = np.packbits(rows != 0, axis=1)
         sizes = np.bitwise_count(signatures).sum(axis=1)
         grown: set[int] = set()
         orphans = []
-        for s in dropped.tolist():
-            row = self._row(s)  # read once: a PairBlock writes it out on every read
-            sig = np.packbits(row != 0)
-            overlap = np.bitwise_count(signatures & sig).sum(axis=1)
-            if not overlap.any():
-                orphans.append(s)
-                continue
-            score = overlap / (sizes + np.bitwise_count(sig).sum() - overlap)
-            j = int(np.argmax(score))
-            before = rows[j].copy() if j not in grown else None
-            np.bitwise_or(rows[j], row, out=rows[j])
-            if before is not None and not np.array_equal(before, rows[j]):
-                grown.add(j)
-                moved += masses[j]  # the kept set's own mass now sits on a larger set too
-            masses[j] += float(w[s])
+        step = max(1, _MERGE_BYTES // (8 * self._w))
+        for start in range(0, len(dropped), step):
+            batch = dropped[start : start + step]
+            those = self.rows_of(batch)  # read once: a PairBlock writes its rows out on every read
+            marks = np.packbits(those != 0, axis=1)
+            overlaps = np.bitwise_count(marks[:, None, :] & signatures[None, :, :]).sum(axis=2)
+            own = np.bitwise_count(marks).sum(axis=1)
+            for i, s in enumerate(batch.tolist()):
+                overlap = overlaps[i]
+                if not overlap.any():
+                    orphans.append(s)
+                    continue
+                j = int(np.argmax(overlap / (sizes + own[i] - overlap)))
+                before = rows[j].copy() if j not in grown else None
+                np.bitwise_or(rows[j], those[i], out=rows[j])
+                if before is not None and not np.array_equal(before, rows[j]):
+                    grown.add(j)
+                    moved += masses[j]  # the kept set's own mass now sits on a larger set too
+                masses[j] += float(w[s])
         return moved, np.asarray(orphans, dtype=np.intp), sorted(grown)
 
     def _union_into(self, out: np.ndarray, slots: np.ndarray) -> None:
