@@ -184,11 +184,10 @@ class MassFunction:
             if spacing == "linear":
                 index = np.clip(levels - np.ceil(c * levels - 1e-12), 0, levels).astype(np.intp)
                 table = (levels - np.arange(levels + 1)) / levels
-                present = np.flatnonzero(np.bincount(index, minlength=levels + 1))
             else:
-                index, seen = geometric_levels(c, levels)
+                index = geometric_level_index(c, levels)
                 table = np.append(2.0 ** -np.arange(levels), 0.0)
-                present = np.flatnonzero(seen)
+            present = np.flatnonzero(np.bincount(index, minlength=levels + 1))
             present = present[table[present] > 0]
             values = table[present]
             masses = np.append(values - np.append(values[1:], 0.0), 1.0 - (values[0] if len(values) else 0.0))
@@ -385,19 +384,13 @@ class MassFunction:
 def geometric_level_index(contour: np.ndarray, levels: int) -> np.ndarray:
     """Each cell's level after rounding its plausibility *up* to 1, 1/2, …, 2^−(levels−1): 0 for the top
     level, ``levels`` for a plausibility of 0 (in no focal set)."""
-    return geometric_levels(contour, levels)[0]
-
-
-def geometric_levels(contour: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
-    """``geometric_level_index`` and which of the levels 0..``levels`` some cell has (booleans)."""
     loops = compiled.kernels()
     if loops is not None:
         out = np.empty(np.shape(contour), dtype=np.int64)
-        seen = np.zeros(int(levels) + 1, dtype=bool)
-        loops.geometric_levels(np.ascontiguousarray(contour, dtype=np.float64), int(levels), out.reshape(-1), seen)
-        return out, seen
+        loops.geometric_levels(np.ascontiguousarray(contour, dtype=np.float64), int(levels), out.reshape(-1))
+        return out
     mantissa, exponent = np.frexp(contour)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
     index = np.where(mantissa == 0.5, -exponent + 1, -exponent).astype(np.int64)
     np.clip(index, 0, levels - 1, out=index)
     index[contour <= 0] = levels
-    return index, np.bincount(index.reshape(-1), minlength=levels + 1) > 0
+    return index

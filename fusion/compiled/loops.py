@@ -339,17 +339,15 @@ def level_maxima(values, cells, bins, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True, nogil=True)
-def geometric_levels(contour, levels, out, seen):  # pragma: no cover - compiled
-    """``fusion.belief.mass.geometric_levels`` into ``out``, from the bits of each value: c = 1.f · 2^(E − 1023)
+def geometric_levels(contour, levels, out):  # pragma: no cover - compiled
+    """``fusion.belief.mass.geometric_level_index`` into ``out``, from the bits of each value: c = 1.f · 2^(E − 1023)
     rounds up to 2^−i with i = 1022 − E, or 1023 − E when f = 0 (c a power of two); subnormals by their top bit.
-    Integer work only, so it is np.frexp's answer exactly.  seen[l] (False on entry) is set when some cell has level
-    l: a store with no load, so cells of one level in a row make no chain of dependent adds, as a count would."""
+    Integer work only, so it is np.frexp's answer exactly."""
     bits = contour.view(np.int64)
     for i in range(contour.size):
         c = contour[i]
         if c <= 0.0:
             out[i] = levels
-            seen[levels] = True
             continue
         exponent = bits[i] >> 52
         fraction = bits[i] & 0xFFFFFFFFFFFFF
@@ -361,4 +359,3 @@ def geometric_levels(contour, levels, out, seen):  # pragma: no cover - compiled
         else:
             index = 1022 - exponent + (1 if fraction == 0 else 0)
         out[i] = min(max(index, 0), levels - 1)
-        seen[out[i]] = True
