@@ -310,7 +310,7 @@ def test_compiled_level_maxima_equal_numpy_maximum_at(kernels):
 def test_compiled_geometric_levels_equal_frexp(monkeypatch):
     # Each value rounded up to 1, 1/2, 1/4, …: from the bits against np.frexp, on powers of two (down into the
     # subnormals), zeros of both signs, negatives, values above 1, infinity and NaN, for few and many levels.
-    from fusion.belief.mass import geometric_level_index
+    from fusion.belief.mass import geometric_level_index, geometric_levels
 
     rng = np.random.default_rng(14)
     values = np.concatenate(
@@ -325,6 +325,13 @@ def test_compiled_geometric_levels_equal_frexp(monkeypatch):
     for a, b in zip(*_both_ways(monkeypatch, lambda: [geometric_level_index(values, n) for n in levels])):
         assert a.dtype == b.dtype
         np.testing.assert_array_equal(a, b)
+    # and which levels occur, against numpy's count of each (a level is present when its count is not 0), with at
+    # most 64 levels (found as the loop goes) and more (counted)
+    parts = (values, values[:20_000], np.zeros(5), values[20_000:22_000])
+    fast, slow = _both_ways(monkeypatch, lambda: [geometric_levels(p, n) for p in parts for n in (*levels, 63, 64)])
+    for (index, seen), (_, seen_numpy) in zip(fast, slow):
+        np.testing.assert_array_equal(seen, seen_numpy)
+        np.testing.assert_array_equal(seen, np.bincount(index, minlength=len(seen)) > 0)
 
 
 def test_the_command_line_refuses_a_wrong_kernel_setting_before_any_work(monkeypatch, capsys, tmp_path):

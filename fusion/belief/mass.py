@@ -184,10 +184,11 @@ class MassFunction:
             if spacing == "linear":
                 index = np.clip(levels - np.ceil(c * levels - 1e-12), 0, levels).astype(np.intp)
                 table = (levels - np.arange(levels + 1)) / levels
+                present = np.flatnonzero(np.bincount(index, minlength=levels + 1))
             else:
-                index = geometric_level_index(c, levels)
+                index, seen = geometric_levels(c, levels)
                 table = np.append(2.0 ** -np.arange(levels), 0.0)
-            present = np.flatnonzero(np.bincount(index, minlength=levels + 1))
+                present = np.flatnonzero(seen)
             present = present[table[present] > 0]
             values = table[present]
             masses = np.append(values - np.append(values[1:], 0.0), 1.0 - (values[0] if len(values) else 0.0))
@@ -384,13 +385,22 @@ class MassFunction:
 def geometric_level_index(contour: np.ndarray, levels: int) -> np.ndarray:
     """Each cell's level after rounding its plausibility *up* to 1, 1/2, …, 2^−(levels−1): 0 for the top
     level, ``levels`` for a plausibility of 0 (in no focal set)."""
+    return geometric_levels(contour, levels)[0]
+
+
+def geometric_levels(contour: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
+    """``geometric_level_index`` and which of the levels 0..``levels`` some cell has (booleans).  The compiled loop
+    finds them as it goes when there are at most 64; else they are counted afterwards, as numpy does."""
     loops = compiled.kernels()
     if loops is not None:
-        out = np.empty(np.shape(contour), dtype=np.int64)
-        loops.geometric_levels(np.ascontiguousarray(contour, dtype=np.float64), int(levels), out.reshape(-1))
-        return out
+        index = np.empty(np.shape(contour), dtype=np.int64)
+        flat = np.ascontiguousarray(contour, dtype=np.float64)
+        word = np.uint64(loops.geometric_levels(flat, int(levels), index.reshape(-1)))
+        if levels < 64:
+            return index, (word >> np.arange(levels + 1, dtype=np.uint64)) & np.uint64(1) == 1
+        return index, np.bincount(index.reshape(-1), minlength=levels + 1) > 0
     mantissa, exponent = np.frexp(contour)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
     index = np.where(mantissa == 0.5, -exponent + 1, -exponent).astype(np.int64)
     np.clip(index, 0, levels - 1, out=index)
     index[contour <= 0] = levels
-    return index
+    return index, np.bincount(index.reshape(-1), minlength=levels + 1) > 0

@@ -340,22 +340,28 @@ def level_maxima(values, cells, bins, out):  # pragma: no cover - compiled
 
 @numba.njit(cache=True, nogil=True)
 def geometric_levels(contour, levels, out):  # pragma: no cover - compiled
-    """``fusion.belief.mass.geometric_level_index`` into ``out``, from the bits of each value: c = 1.f · 2^(E − 1023)
+    """``fusion.belief.mass.geometric_levels`` into ``out``, from the bits of each value: c = 1.f · 2^(E − 1023)
     rounds up to 2^−i with i = 1022 − E, or 1023 − E when f = 0 (c a power of two); subnormals by their top bit.
-    Integer work only, so it is np.frexp's answer exactly."""
+    Integer work only, so it is np.frexp's answer exactly.  Returns the levels that occur as bits of one word (bit l
+    for level l, levels above 63 on bit 63): an OR that vectorises, where a flag stored per cell made the loop 3×
+    slower (measured)."""
     bits = contour.view(np.int64)
+    present = np.uint64(0)
     for i in range(contour.size):
         c = contour[i]
         if c <= 0.0:
-            out[i] = levels
-            continue
-        exponent = bits[i] >> 52
-        fraction = bits[i] & 0xFFFFFFFFFFFFF
-        if exponent == 0:  # subnormal: c = fraction · 2^−1074
-            top = 0
-            while (fraction >> (top + 1)) != 0:
-                top += 1
-            index = 1073 - top + (1 if fraction == (1 << top) else 0)
+            level = levels
         else:
-            index = 1022 - exponent + (1 if fraction == 0 else 0)
-        out[i] = min(max(index, 0), levels - 1)
+            exponent = bits[i] >> 52
+            fraction = bits[i] & 0xFFFFFFFFFFFFF
+            if exponent == 0:  # subnormal: c = fraction · 2^−1074
+                top = 0
+                while (fraction >> (top + 1)) != 0:
+                    top += 1
+                index = 1073 - top + (1 if fraction == (1 << top) else 0)
+            else:
+                index = 1022 - exponent + (1 if fraction == 0 else 0)
+            level = min(max(index, 0), levels - 1)
+        out[i] = level
+        present |= np.uint64(1) << np.uint64(min(level, 63))
+    return present
