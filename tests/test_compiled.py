@@ -310,7 +310,7 @@ def test_compiled_level_maxima_equal_numpy_maximum_at(kernels):
 def test_compiled_geometric_levels_equal_frexp(monkeypatch):
     # Each value rounded up to 1, 1/2, 1/4, …: from the bits against np.frexp, on powers of two (down into the
     # subnormals), zeros of both signs, negatives, values above 1, infinity and NaN, for few and many levels.
-    from fusion.belief.mass import geometric_level_index, geometric_levels
+    from fusion.belief.levels import geometric_level_index, geometric_levels
 
     rng = np.random.default_rng(14)
     values = np.concatenate(

@@ -38,7 +38,8 @@ import math
 import numpy as np
 
 from fusion import compiled
-from fusion.belief.mass import MassFunction, geometric_level_index
+from fusion.belief.levels import geometric_level_index
+from fusion.belief.mass import MassFunction
 from fusion.errors import MassValueError
 
 __all__ = ["ContourBelief", "consonant_distance", "LEVEL_RATIO", "LOWEST_LEVEL", "DISTANCE_LEVELS"]

@@ -18,7 +18,6 @@ from typing import NamedTuple
 
 import numpy as np
 
-from fusion import compiled
 from fusion.belief import bitset
 from fusion.belief.accumulator import MERGE_STRATEGIES, FocalAccumulator
 from fusion.belief.frame_checks import (
@@ -32,6 +31,7 @@ from fusion.belief.frame_checks import (
     _short,
     check_same_frame,
 )
+from fusion.belief.levels import geometric_levels
 from fusion.errors import (
     CellIndexError,
     MassValueError,
@@ -380,27 +380,3 @@ class MassFunction:
             hi = min(lo + bits.shape[1], self.n)
             out[lo:hi] = w @ bits[:, : hi - lo].astype(np.float64)
         return out
-
-
-def geometric_level_index(contour: np.ndarray, levels: int) -> np.ndarray:
-    """Each cell's level after rounding its plausibility *up* to 1, 1/2, …, 2^−(levels−1): 0 for the top
-    level, ``levels`` for a plausibility of 0 (in no focal set)."""
-    return geometric_levels(contour, levels)[0]
-
-
-def geometric_levels(contour: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
-    """``geometric_level_index`` and which of the levels 0..``levels`` some cell has (booleans).  The compiled loop
-    finds them as it goes when there are at most 64; else they are counted afterwards, as numpy does."""
-    loops = compiled.kernels()
-    if loops is not None:
-        index = np.empty(np.shape(contour), dtype=np.int64)
-        flat = np.ascontiguousarray(contour, dtype=np.float64)
-        word = np.uint64(loops.geometric_levels(flat, int(levels), index.reshape(-1)))
-        if levels < 64:
-            return index, (word >> np.arange(levels + 1, dtype=np.uint64)) & np.uint64(1) == 1
-        return index, np.bincount(index.reshape(-1), minlength=levels + 1) > 0
-    mantissa, exponent = np.frexp(contour)  # c = mantissa · 2^exponent, mantissa in [0.5, 1)
-    index = np.where(mantissa == 0.5, -exponent + 1, -exponent).astype(np.int64)
-    np.clip(index, 0, levels - 1, out=index)
-    index[contour <= 0] = levels
-    return index, np.bincount(index.reshape(-1), minlength=levels + 1) > 0

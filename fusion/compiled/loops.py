@@ -340,7 +340,7 @@ def level_maxima(values, cells, bins, out):  # pragma: no cover - compiled
 
 @numba.njit(cache=True, nogil=True)
 def geometric_levels(contour, levels, out):  # pragma: no cover - compiled
-    """``fusion.belief.mass.geometric_levels`` into ``out``, from the bits of each value: c = 1.f · 2^(E − 1023)
+    """``fusion.belief.levels.geometric_levels`` into ``out``, from the bits of each value: c = 1.f · 2^(E − 1023)
     rounds up to 2^−i with i = 1022 − E, or 1023 − E when f = 0 (c a power of two); subnormals by their top bit.
     Integer work only, so it is np.frexp's answer exactly.  Returns the levels that occur as bits of one word (bit l
     for level l, levels above 63 on bit 63): an OR that vectorises, where a flag stored per cell made the loop 3×
