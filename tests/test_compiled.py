@@ -171,6 +171,7 @@ def test_a_pair_block_reads_as_the_rows_it_stands_for(kernels):
     rng = np.random.default_rng(9)
     a = rng.integers(0, 2**64, size=(5, 70), dtype=np.uint64)
     b = rng.integers(0, 2**64, size=(3, 70), dtype=np.uint64)
+    a[:, rng.random(70) < 0.3] = 0  # empty words, so the word marks have zeros
     left, right = rng.integers(0, 5, 11), rng.integers(0, 3, 11)
     for union, op in ((False, np.bitwise_and), (True, np.bitwise_or)):
         block, rows = PairBlock(a, b, union, left, right, kernels), op(a[left], b[right])
@@ -184,6 +185,11 @@ def test_a_pair_block_reads_as_the_rows_it_stands_for(kernels):
         union_of = np.zeros(70, dtype=np.uint64)
         block.union_into(np.array([0, 3, 8]), union_of)
         np.testing.assert_array_equal(union_of, rows[0] | rows[3] | rows[8])
+        np.testing.assert_array_equal(block.word_marks(mask), np.packbits(rows[mask] != 0, axis=1))
+        target = rows[2].copy()
+        assert not block.or_into(2, target)  # a row ORed into itself adds nothing
+        assert block.or_into(5, target) == bool((rows[5] & ~rows[2]).any())
+        np.testing.assert_array_equal(target, rows[2] | rows[5])
         assert len(block) == 11 and block.shape == (11, 70)
 
 

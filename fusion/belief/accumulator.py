@@ -219,7 +219,8 @@ class FocalAccumulator:
         returns (mass moved to a larger set, the dropped sets that overlap no kept row, the kept rows grown).
 
         The dropped sets are read a batch at a time, and a batch's overlaps with every kept row are counted at once;
-        the merges themselves go one set at a time, in order, since a kept row's mass grows as sets join it."""
+        the merges themselves go one set at a time, in order, since a kept row's mass grows as sets join it.  Sets
+        of one unwritten PairBlock are never written out: their word marks and their OR come from its inputs."""
         w = self._weights
         if not len(rows):  # a cap of one set keeps none: everything goes to the union
             return moved, dropped, []
@@ -230,23 +231,27 @@ class FocalAccumulator:
         step = max(1, _MERGE_BYTES // (8 * self._w))
         for start in range(0, len(dropped), step):
             batch = dropped[start : start + step]
-            those = self.rows_of(batch)  # read once: a PairBlock writes its rows out on every read
-            marks = np.packbits(those != 0, axis=1)
-            overlaps = np.bitwise_count(marks[:, None, :] & signatures[None, :, :]).sum(axis=2)
-            own = np.bitwise_count(marks).sum(axis=1)
+            merge_into = self._merger(batch)
+            overlaps = np.bitwise_count(merge_into.marks[:, None, :] & signatures[None, :, :]).sum(axis=2)
+            own = np.bitwise_count(merge_into.marks).sum(axis=1)
             for i, s in enumerate(batch.tolist()):
                 overlap = overlaps[i]
                 if not overlap.any():
                     orphans.append(s)
                     continue
                 j = int(np.argmax(overlap / (sizes + own[i] - overlap)))
-                before = rows[j].copy() if j not in grown else None
-                np.bitwise_or(rows[j], those[i], out=rows[j])
-                if before is not None and not np.array_equal(before, rows[j]):
+                if merge_into(i, rows[j], check=j not in grown):
                     grown.add(j)
                     moved += masses[j]  # the kept set's own mass now sits on a larger set too
                 masses[j] += float(w[s])
         return moved, np.asarray(orphans, dtype=np.intp), sorted(grown)
+
+    def _merger(self, slots: np.ndarray) -> _Merger:
+        blocks = np.unique(self._block[slots])
+        block = self._blocks[int(blocks[0])]
+        if len(blocks) == 1 and isinstance(block, PairBlock):
+            return _Merger(block, self._row_at[slots])
+        return _Merger(self.rows_of(slots), None)
 
     def _union_into(self, out: np.ndarray, slots: np.ndarray) -> None:
         """out = the union of the given slots' sets: one OR-reduction per block they are stored in."""
@@ -265,3 +270,20 @@ class FocalAccumulator:
     def residual(self) -> np.ndarray:
         """Weights accumulated so far, one per distinct set (for comparisons within a tolerance)."""
         return self._weights.copy()
+
+
+class _Merger:
+    """A batch of dropped sets for nearest-set merging: their word marks, and ``merger(i, out, check)`` ORs set i into
+    ``out`` and, when ``check``, says whether that added a cell.  ``source`` is the sets as rows, or a PairBlock with
+    their row numbers in ``at`` (then no set is written out)."""
+
+    def __init__(self, source, at: np.ndarray | None):
+        self.source, self.at = source, at
+        self.marks = source.word_marks(at) if at is not None else np.packbits(source != 0, axis=1)
+
+    def __call__(self, i: int, out: np.ndarray, check: bool) -> bool:
+        if self.at is not None:
+            return self.source.or_into(int(self.at[i]), out) and check
+        before = out.copy() if check else None
+        np.bitwise_or(out, self.source[i], out=out)
+        return before is not None and not np.array_equal(before, out)

@@ -61,3 +61,14 @@ class PairBlock:
         """out |= every row at ``indices``, without writing the rows out."""
         idx = self._indices(indices)
         self._loops.pair_union(self.a, self.b, self.union, self.left[idx], self.right[idx], out)
+
+    def word_marks(self, indices) -> np.ndarray:
+        """``np.packbits(rows != 0, axis=1)`` of the rows at ``indices``: which words hold a cell, rows unwritten."""
+        idx = self._indices(indices)
+        out = np.empty((len(idx), (self.shape[1] + 7) // 8), dtype=np.uint8)
+        self._loops.pair_marks(self.a, self.b, self.union, self.left[idx], self.right[idx], out)
+        return out
+
+    def or_into(self, index: int, out: np.ndarray) -> bool:
+        """out |= the row at ``index``, unwritten; whether that added a cell ``out`` lacked."""
+        return bool(self._loops.pair_or_into(self.a, self.b, self.union, self.left[index], self.right[index], out))

@@ -9,7 +9,13 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-from fusion.compiled.pair_loops import pair_rows, pair_sets, pair_union  # noqa: F401  (loops of this module too)
+from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module too)
+    pair_marks,
+    pair_or_into,
+    pair_rows,
+    pair_sets,
+    pair_union,
+)
 
 _ADD, _ZERO, _PRODUCT = 0, 1, 2  # how a sum of taps starts: onto what is there, onto 0.0, or as the bare product
 _ROWS = 16  # grid rows per block of the prediction: every heading's moved rows of a block stay in cache (measured)

@@ -54,3 +54,31 @@ def pair_union(a, b, union, left, right, out):  # pragma: no cover - compiled
         x, y = a[left[r]], b[right[r]]
         for k in range(out.size):
             out[k] |= (x[k] | y[k]) if union else (x[k] & y[k])
+
+
+@numba.njit(cache=True, nogil=True)
+def pair_marks(a, b, union, left, right, out):  # pragma: no cover - compiled
+    """out[r] = np.packbits(row != 0) of the row a[left[r]] & b[right[r]] (| with ``union``): which of its words hold
+    a cell, eight words to a byte, the first word on the byte's top bit (numpy's order), without writing the row."""
+    words = a.shape[1]
+    for r in range(left.size):
+        x, y, marks = a[left[r]], b[right[r]], out[r]
+        for byte in range(marks.size):
+            value = 0
+            for bit in range(min(8, words - 8 * byte)):
+                k = 8 * byte + bit
+                if ((x[k] | y[k]) if union else (x[k] & y[k])) != 0:
+                    value |= 128 >> bit
+            marks[byte] = value
+
+
+@numba.njit(cache=True, nogil=True)
+def pair_or_into(a, b, union, i, j, out):  # pragma: no cover - compiled
+    """out |= a[i] & b[j] (| with ``union``), without writing that row; True when it added a cell out lacked."""
+    x, y = a[i], b[j]
+    grew = np.uint64(0)
+    for k in range(out.size):
+        z = (x[k] | y[k]) if union else (x[k] & y[k])
+        grew |= z & ~out[k]
+        out[k] |= z
+    return grew != 0
