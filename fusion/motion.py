@@ -126,12 +126,15 @@ def predict_density(
     loops = compiled.kernels()
     if out is not None and not (out.dtype == np.float64 and out.flags.c_contiguous and out.size == belief.size):
         raise ValueError(f"out must be a C-ordered float64 buffer of {belief.size} cells")
-    target = np.empty(belief.shape) if out is None else out.reshape(belief.shape)
     if loops is not None and belief.dtype == np.float64:
+        target = np.empty(belief.shape) if out is None else out.reshape(belief.shape)
         given = _NO_MASK if mask is None else np.ascontiguousarray(mask)
         loops.predict_density(np.ascontiguousarray(belief), *across, *along, *_pair(turn), given, target)
         return target
-    np.copyto(target, _predict_numpy(belief, across, along, turn))
+    target = _predict_numpy(belief, across, along, turn)
+    if out is not None:  # the numpy code makes its own array: copied into the caller's buffer
+        np.copyto(out.reshape(belief.shape), target)
+        target = out.reshape(belief.shape)
     if mask is not None:
         target *= mask
     return target
