@@ -10,6 +10,12 @@ import numba
 import numpy as np
 
 
+@numba.njit(inline="always")
+def _word(x, y, union):  # pragma: no cover - compiled
+    """One word of a pair's set: x | y with ``union``, else x & y (the rules' two operations)."""
+    return (x | y) if union else (x & y)
+
+
 @numba.njit(cache=True, nogil=True)
 def pair_sets(a, b, multipliers, union, rows, fps, empty):  # pragma: no cover - compiled
     """rows[i, j] = a[i] & b[j] (a[i] | b[j] with ``union``) and fps[i, j] = Σ_k rows[i, j, k] · multipliers[k]
@@ -28,7 +34,7 @@ def pair_sets(a, b, multipliers, union, rows, fps, empty):  # pragma: no cover -
             h = np.uint64(0)
             seen = np.uint64(0)
             for k in range(words):
-                x = (left[k] | right[k]) if union else (left[k] & right[k])
+                x = _word(left[k], right[k], union)
                 if write:
                     out[k] = x
                 h += x * multipliers[k]
@@ -43,7 +49,7 @@ def pair_rows(a, b, union, left, right, out):  # pragma: no cover - compiled
     for r in range(left.size):
         x, y, row = a[left[r]], b[right[r]], out[r]
         for k in range(row.size):
-            row[k] = (x[k] | y[k]) if union else (x[k] & y[k])
+            row[k] = _word(x[k], y[k], union)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -51,9 +57,7 @@ def pair_union(a, b, union, left, right, out):  # pragma: no cover - compiled
     """out |= a[left[r]] & b[right[r]] (| with ``union``) for every r: the union of a ``PairBlock``'s rows, a row at
     a time (``out`` stays in cache), none of them written out."""
     for r in range(left.size):
-        x, y = a[left[r]], b[right[r]]
-        for k in range(out.size):
-            out[k] |= (x[k] | y[k]) if union else (x[k] & y[k])
+        pair_or_into(a, b, union, left[r], right[r], out)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -67,7 +71,7 @@ def pair_marks(a, b, union, left, right, out):  # pragma: no cover - compiled
             value = 0
             for bit in range(min(8, words - 8 * byte)):
                 k = 8 * byte + bit
-                if ((x[k] | y[k]) if union else (x[k] & y[k])) != 0:
+                if _word(x[k], y[k], union) != 0:
                     value |= 128 >> bit
             marks[byte] = value
 
@@ -78,7 +82,7 @@ def pair_or_into(a, b, union, i, j, out):  # pragma: no cover - compiled
     x, y = a[i], b[j]
     grew = np.uint64(0)
     for k in range(out.size):
-        z = (x[k] | y[k]) if union else (x[k] & y[k])
+        z = _word(x[k], y[k], union)
         grew |= z & ~out[k]
         out[k] |= z
     return grew != 0
