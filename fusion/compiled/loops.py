@@ -271,7 +271,7 @@ def scan_log_likelihood(tables, field_index, sx, sy, pad, out):  # pragma: no co
 
 @numba.njit(cache=True, nogil=True)
 def region_scan(p, threshold, base, shift, mass, count, few):  # pragma: no cover - compiled
-    """One pass over ``p`` for ``fusion.backends.base.region_size``: the values ≥ ``threshold`` (the candidates) binned
+    """One pass over ``p`` for ``fusion.backends.region.region_size``: the values ≥ ``threshold`` (the candidates) binned
     by their top bits, (bits >> ``shift``) − ``base``, their mass and number added up per bin in the order of ``p`` (as
     ``np.bincount`` does); the first ``few.size`` candidates copied to ``few`` in that order.  Returns how many there
     are."""
