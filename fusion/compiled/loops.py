@@ -330,18 +330,12 @@ def pignistic_levels(contour, bins, below, upper, counts, out):  # pragma: no co
 def level_maxima(values, cells, bins, out):  # pragma: no cover - compiled
     """``np.maximum.at(out, bins, values[cells])`` (``values`` itself when ``cells`` is empty): the largest value per
     level bin, a NaN kept once met, as ``np.maximum`` keeps it."""
-    if cells.size > 0:
-        for i in range(bins.size):
-            v = values[cells[i]]
-            b = bins[i]
-            if v > out[b] or v != v:
-                out[b] = v
-    else:
-        for i in range(bins.size):
-            v = values[i]
-            b = bins[i]
-            if v > out[b] or v != v:
-                out[b] = v
+    gathered = cells.size > 0  # the same for every cell: the compiler hoists the branch (measured: no slower)
+    for i in range(bins.size):
+        v = values[cells[i]] if gathered else values[i]
+        b = bins[i]
+        if v > out[b] or v != v:
+            out[b] = v
 
 
 @numba.njit(cache=True, nogil=True)
