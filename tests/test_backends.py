@@ -125,10 +125,10 @@ def test_region_size_is_the_highest_density_region_by_its_definition(concentrati
     # The smallest set of cells holding 95% of the mass is the most probable cells taken in order
     # until their sum reaches 95% (Hyndman 1996, Computing and graphing highest density regions):
     # counted here by a full sort, against the partial selection the back ends use.
-    from fusion.backends.region import REGION_PROBE, region_size
+    from fusion.backends.region import _GATHER, region_size
 
     rng = np.random.default_rng(int(concentration * 1000))
-    for n in (10, 3 * REGION_PROBE, 200_000):
+    for n in (10, 3 * _GATHER, 200_000):
         p = rng.dirichlet(np.full(n, concentration))
         p[rng.random(n) < 0.1] = 0.0
         p[: n // 50] = p[0]  # ties
@@ -150,19 +150,36 @@ def test_region_size_of_uniform_beliefs_is_the_definition():
             assert region_size(p, 0.95) == min(expected, desc.size)
 
 
-def test_region_by_bins_counts_as_the_full_sort_does():
-    # The binned count of a spread belief (float64 bit patterns order as the values do, IEEE 754) against the
-    # highest-density region by its definition, a full sort (Hyndman 1996), on spread, tied and wide-ranging values.
-    from fusion.backends.region import _region_by_bins
+def test_region_search_counts_as_the_full_sort_does_whatever_its_sample_shows():
+    # The bracketing search against the highest-density region by its definition, a full sort (Hyndman 1996), on
+    # spread, tied, wide-ranging and equal values, and on beliefs its evenly spaced sample cannot see: every sampled
+    # cell empty, or the mass in a run of near-equal values between them.  The counts decide, not the sample, so
+    # these take the bit-pattern splitting and equal-value steps; ``passes`` checks that they end.
+    from fusion.backends import region
 
     rng = np.random.default_rng(8)
-    for values in (
-        rng.random(50_000),
-        np.repeat(rng.random(40), 500),
-        np.exp(rng.normal(0.0, 6.0, 30_000)),
-        np.full(10_000, 0.25),
-    ):
-        target = 0.95 * values.sum() * (1 - 1e-12)
-        desc = np.sort(values)[::-1]
-        expected = int(min(np.searchsorted(np.cumsum(desc), target) + 1, desc.size))
-        assert _region_by_bins(values, target) == expected
+    hidden = rng.random(60_000)
+    hidden[:: 60_000 // region._SAMPLE] = 0.0
+    close = np.full(60_000, 1e-9)
+    close[1::2] = 1.0 + rng.integers(0, 50, 30_000) * 2.0**-50  # distinct values a few bits apart
+    close[:: 60_000 // region._SAMPLE] = 0.0
+    calls = []
+    counts = region._Bracket._counts
+    try:
+        region._Bracket._counts = lambda self, trials: calls.append(trials) or counts(self, trials)
+        for values in (
+            rng.random(50_000),
+            np.repeat(rng.random(40), 500),
+            np.exp(rng.normal(0.0, 6.0, 30_000)),
+            np.full(10_000, 0.25),
+            np.full(100_000, 0.25),
+            hidden,
+            close,
+        ):
+            calls.clear()
+            desc = np.sort(values[values > 0])[::-1]
+            expected = int(min(np.searchsorted(np.cumsum(desc), 0.95 * desc.sum() * (1 - 1e-12)) + 1, desc.size))
+            assert region.region_size(values, 0.95) == expected
+            assert len(calls) <= 70  # at worst about two passes per halving of the bit patterns' span
+    finally:
+        region._Bracket._counts = counts

@@ -208,8 +208,10 @@ def estimate_pose(grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None =
     ph = (cube[box] * near[box[1:]][None]).sum(axis=(1, 2))  # only the window around the best cell: the rest is 0
     heading = math.atan2(float(ph @ np.sin(th)), float(ph @ np.cos(th))) % (2 * math.pi) if weight > 0 else bh
     dist2 = (xs[None, :] - lx) ** 2 + (ys[:, None] - ly) ** 2
-    spread = math.sqrt(max(float((plane * dist2).sum()) / max(float(plane.sum()), 1e-300), 0.0))
-    return PoseEstimate(lx, ly, heading, best, (bx, by, bh), region_size(p), spread, mean_x, mean_y)
+    total = float(plane.sum())
+    spread = math.sqrt(max(float((plane * dist2).sum()) / max(total, 1e-300), 0.0))
+    region = region_size(p, total=total if total > 0 else None)  # the plane's sum: one pass over the belief fewer
+    return PoseEstimate(lx, ly, heading, best, (bx, by, bh), region, spread, mean_x, mean_y)
 
 
 TIE = 1e-9

@@ -84,7 +84,7 @@ class HistogramFilter:
         except ZeroEvidenceError:
             log_z, rejected = float("-inf"), True
         seconds = time.perf_counter() - start
-        region = region_size(self.belief.probabilities) if self.report_region else 0
+        region = region_size(self.belief.probabilities, total=1.0) if self.report_region else 0  # normalised
         return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=log_z, rejected=rejected)
 
     # ----------------------------------------------------------------- conflict, scored on this belief
