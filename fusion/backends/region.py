@@ -70,14 +70,19 @@ class _Bracket:
     def __init__(self, values: np.ndarray, level: float, total: float):
         self.values, self.level, self.total, self.scale = values, level, total, _FIXED / total
         self.loops = compiled.kernels()
-        stride = max(1, values.size // _SAMPLE)
-        self.sample = np.sort(values[::stride])  # ascending
-        self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))
+        self.sample, self.sample_mass = np.empty(0), np.zeros(1, dtype=np.int64)
         self.lo, self.lo_count, self.lo_mass = 0.0, values.size, None  # None: the total, known after the first pass
         self.hi, self.hi_count, self.hi_mass = math.inf, 0, 0
         self.target = None
 
     def count(self) -> int:
+        if self.values.size <= _GATHER:  # few cells: all of them are the bracket
+            fixed = self._fixed(self.values)
+            self._settle(int(fixed.sum()))
+            return self._crossing(fixed)
+        stride = max(16, self.values.size // _SAMPLE)  # a sixteenth of a small belief is sample enough
+        self.sample = np.sort(self.values[::stride])  # ascending
+        self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))
         # The first pass also adds up the whole belief (the target needs it).  When the sample misses most of the
         # mass (a tracked belief), it tries the value below which cells cannot be needed, as together they hold less
         # than (1 − level) of the total: the few hundred cells above it are then gathered at once.
@@ -92,7 +97,7 @@ class _Bracket:
             self._narrow(self._from_sample(_TRIALS))
             if self.lo_count - self.hi_count == before:  # the sample could not split it: split the bit patterns
                 self._narrow(self._by_bits())
-        return self._gathered()
+        return self._crossing(self._fixed(self._inside()))
 
     # ----------------------------------------------------------------- counting passes
     def _narrow(self, trials: list[float]) -> None:
@@ -101,13 +106,16 @@ class _Bracket:
             return
         counts, masses, total = self._counts(trials)
         if self.lo_mass is None:
-            self.lo_mass = total
-            self.target = max(1, math.ceil(self.level * total * (1 - 1e-12)))  # reached, not missed by rounding
+            self._settle(total)
         for t, c, m in zip(trials, counts, masses):
             if m >= self.target:
                 self.lo, self.lo_count, self.lo_mass = t, c, m  # ascending: the last such is the largest
             elif t < self.hi:
                 self.hi, self.hi_count, self.hi_mass = t, c, m
+
+    def _settle(self, total: int) -> None:
+        """The belief's fixed-point mass is known: the target is ``level`` of it, reached, not missed by rounding."""
+        self.lo_mass, self.target = total, max(1, math.ceil(self.level * total * (1 - 1e-12)))
 
     def _counts(self, trials: list[float]) -> tuple[list[int], list[int], int]:
         """Per trial value: how many cells are at or above it and their fixed-point mass; and the whole mass."""
@@ -131,7 +139,9 @@ class _Bracket:
     def _from_sample(self, k: int) -> list[float]:
         """``k`` sampled values around where the sample puts the crossing: the sample's share of the bracket's mass,
         scaled to the bracket's counted mass, places it.  They are spaced about one standard error of that apart (its
-        sampling error, common practice, no source), at most as far as a gap ``_GATHER`` cells wide."""
+        sampling error, common practice, no source), at most as far as a gap half ``_GATHER`` cells wide: the number of cells
+        a sampled value stands for varies (measured: 5,600 to 9,800 in gaps of 24 values), and a gap gathered at once
+        costs less than a second pass."""
         s, cum = self.sample, self.sample_mass
         a, b = int(np.searchsorted(s, self.lo, "left")), int(np.searchsorted(s, self.hi, "left"))
         if b - a < 2 or cum[b] == cum[a]:
@@ -142,7 +152,7 @@ class _Bracket:
         top, seen = float(cum[b]), float(cum[b] - cum[a])
         need = top - (target - self.hi_mass) * seen / max(lo_mass - self.hi_mass, 1)
         centre = int(np.searchsorted(cum[a:b], need, "right")) - 1 + a  # the largest sampled value still reaching it
-        step = max(1.0, min(0.6 * math.sqrt(b - a), _GATHER * s.size / self.values.size))  # a gap is gathered whole
+        step = max(1.0, min(0.6 * math.sqrt(b - a), 0.5 * _GATHER * s.size / self.values.size))  # a gap is gathered
         spots = {min(max(centre + round(step * (j - (k - 1) / 2)), a), b - 1) for j in range(k)}
         return [float(s[i]) for i in sorted(spots)]
 
@@ -165,14 +175,28 @@ class _Bracket:
         each = int(self._fixed(np.array([self.lo]))[0])
         return self.hi_count + min(-(-(self.target - self.hi_mass) // max(each, 1)), self.lo_count - self.hi_count)
 
-    def _gathered(self) -> int:
-        inside = self._inside()
-        desc = np.sort(inside)[::-1]
-        cum = self.hi_mass + np.cumsum(self._fixed(desc))
-        return self.hi_count + int(min(np.searchsorted(cum, self.target, "left") + 1, desc.size))
+    def _crossing(self, fixed: np.ndarray) -> int:
+        """The count from the fixed-point masses of the bracket's cells, largest first.  Only the ranks where the sum
+        can cross are sorted: the answer k is at least need / (largest mass) and at most need / (smallest), and a
+        partition sets apart the ranks above that window, whose sum needs no order (a tenth of a sort's time on 7,500
+        cells, measured; a few hundred cells are simply sorted)."""
+        if fixed.size <= 512:
+            cum = self.hi_mass + np.cumsum(np.sort(fixed)[::-1])
+            return self.hi_count + min(int(np.searchsorted(cum, self.target, "left")) + 1, fixed.size)
+        need, size = self.target - self.hi_mass, fixed.size  # the bracket holds at least need: k_min ≤ size
+        low, high = int(fixed.min()), int(fixed.max())
+        k_min = max(1, -(-need // high))
+        k_max = min(size, -(-need // low)) if low > 0 else size
+        first, last = size - k_max, size - k_min + 1  # ascending: the window of ranks, then the k_min − 1 above it
+        parts = np.partition(fixed, [first, last] if last < size else [first])
+        window = np.sort(parts[first:last])[::-1]
+        cum = int(parts[last:].sum()) + np.cumsum(window)
+        return self.hi_count + k_min + min(int(np.searchsorted(cum, need, "left")), window.size - 1)
 
     def _inside(self) -> np.ndarray:
         n = self.lo_count - self.hi_count
+        if n == self.values.size:
+            return self.values
         if self.loops is None:
             return self.values[(self.values >= self.lo) & (self.values < self.hi)]
         out = np.empty(n + 1)  # the compiled gather writes each value before it knows whether to keep it
