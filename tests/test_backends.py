@@ -150,6 +150,28 @@ def test_region_size_of_uniform_beliefs_is_the_definition():
             assert region_size(p, 0.95) == min(expected, desc.size)
 
 
+def test_region_size_of_degenerate_beliefs_neither_raises_nor_hangs():
+    # Hostile inputs: empty, all zero, NaN, infinite, a total too small for the fixed-point unit (subnormal values),
+    # a negative cell, float32.  Where the count is defined it is the definition's (Hyndman 1996, full sort).
+    from fusion.backends.region import region_size
+
+    rng = np.random.default_rng(3)
+    tiny = np.where(rng.random(20_000) < 0.5, 0.0, 1e-320)
+    with np.errstate(all="ignore"):
+        assert region_size(np.zeros(0)) == 0 and region_size(np.zeros(50)) == 0
+        assert region_size(np.array([np.nan, 1.0])) == 0  # not a belief: nothing to count
+        assert region_size(np.array([np.inf, 1.0, 2.0])) == 1
+        assert region_size(np.full(10_000, 1e308)) == 9_500
+    desc = np.sort(tiny[tiny > 0])[::-1]
+    assert region_size(tiny) == int(np.searchsorted(np.cumsum(desc), 0.95 * desc.sum() * (1 - 1e-12)) + 1)
+    negative = rng.random(30_000)
+    negative[7] = -0.5
+    assert 0 <= region_size(negative) <= negative.size
+    single = rng.random(30_000).astype(np.float32)
+    desc = np.sort(single.astype(np.float64))[::-1]
+    assert region_size(single) == int(np.searchsorted(np.cumsum(desc), 0.95 * desc.sum() * (1 - 1e-12)) + 1)
+
+
 def test_region_search_counts_as_the_full_sort_does_whatever_its_sample_shows():
     # The bracketing search against the highest-density region by its definition, a full sort (Hyndman 1996), on
     # spread, tied, wide-ranging and equal values, and on beliefs its evenly spaced sample cannot see: every sampled

@@ -49,13 +49,18 @@ def region_size(p: np.ndarray, level: float = REGION_LEVEL, total: float | None 
     total = float(values.sum()) if total is None else float(total)
     if not total > 0:
         return 0
-    if not math.isfinite(total):  # not a probability: counted by its definition, the slow way
-        return _by_sort(values, level)
+    if not (math.isfinite(total) and math.isfinite(_FIXED / total)):  # a sum past the float range, or below 1e-290
+        peak = float(values.max())
+        if math.isfinite(peak) and peak > 0:  # finite cells: the same count on them over the largest
+            return region_size(values / peak, level)
+        return _by_sort(values, level)  # an infinite or NaN cell: counted by the definition, the slow way
     return _Bracket(values, level, total).count()
 
 
 def _by_sort(values: np.ndarray, level: float) -> int:
     desc = np.sort(values[values > 0])[::-1]
+    if not desc.size:
+        return 0
     cum = np.cumsum(desc)
     return int(min(np.searchsorted(cum, level * cum[-1] * (1 - 1e-12)) + 1, desc.size))
 
