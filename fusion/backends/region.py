@@ -40,6 +40,9 @@ a counting pass, measured on 240×160×36)."""
 _TRIALS = 4
 """Trial values per counting pass (the compiled pass checks four at once)."""
 
+_SPREAD = 64
+"""Sampled cells' worth of mass below which a belief counts as tracked (our choice; see ``_Bracket._tracked``)."""
+
 
 def region_size(p: np.ndarray, level: float = REGION_LEVEL, total: float | None = None) -> int:
     """Number of cells in the smallest set holding ``level`` of ``p`` (most probable cells first).  ``total``: the sum
@@ -88,11 +91,12 @@ class _Bracket:
         stride = max(16, self.values.size // _SAMPLE)  # a sixteenth of a small belief is sample enough
         self.sample = np.sort(self.values[::stride])  # ascending
         self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))
-        # The first pass also adds up the whole belief (the target needs it).  When the sample misses most of the
-        # mass (a tracked belief), it tries the value below which cells cannot be needed, as together they hold less
-        # than (1 − level) of the total: the few hundred cells above it are then gathered at once.
+        # The first pass also adds up the whole belief (the target needs it).  When a few sampled cells carry the
+        # sample's mass (a tracked belief: the sample cannot say where it crosses), it tries the value below which
+        # cells cannot be needed, as together they hold less than (1 − level) of the total: the few hundred cells
+        # above it are then gathered at once.
         trials = self._from_sample(_TRIALS)
-        if self.sample_mass[-1] * (self.values.size / self.sample.size) < 0.5 * _FIXED:
+        if self._tracked():
             trials = [(1.0 - self.level) * self.total / self.values.size, *trials[1:]]
         self._narrow(trials)
         while self.lo_count - self.hi_count > _GATHER:
@@ -103,6 +107,13 @@ class _Bracket:
             if self.lo_count - self.hi_count == before:  # the sample could not split it: split the bit patterns
                 self._narrow(self._by_bits())
         return self._crossing(self._fixed(self._inside()))
+
+    def _tracked(self) -> bool:
+        """Whether fewer than ``_SPREAD`` sampled cells' worth carry the sample's mass (its effective size, (Σm)² / Σm²,
+        Kish 1965): a random belief's sample of 4,096 counts about 3,000, a belief of 300 cells in 345,600 about 3."""
+        fixed = np.diff(self.sample_mass).astype(np.float64)
+        square = float(fixed @ fixed)
+        return square == 0 or float(fixed.sum()) ** 2 / square < _SPREAD
 
     # ----------------------------------------------------------------- counting passes
     def _narrow(self, trials: list[float]) -> None:
