@@ -124,7 +124,7 @@ def test_mismatched_evidence_and_unknown_rules_are_refused(backend):
 def test_region_size_is_the_highest_density_region_by_its_definition(concentration):
     # The smallest set of cells holding 95% of the mass is the most probable cells taken in order
     # until their sum reaches 95% (Hyndman 1996, Computing and graphing highest density regions):
-    # counted here by a full sort, against the partial selection the back ends use.
+    # counted here by a full sort, against the bracketing search the back ends use.
     from fusion.backends.region import _GATHER, region_size
 
     rng = np.random.default_rng(int(concentration * 1000))

@@ -231,12 +231,12 @@ def test_compiled_scan_likelihood_equals_numpy_bit_for_bit(monkeypatch, max_rang
 
 def test_compiled_region_size_counts_as_numpy_does(monkeypatch):
     # Tracked (a few cells), spread (every cell a candidate), heavy-tailed, tied and two-level beliefs, on both sides of
-    # the sizes where the numpy code switches from a sort to a partial selection to bins.
+    # the sizes where the count stops gathering every cell at once (8,192) and its sample thins out (65,536).
     from fusion.backends.region import region_size
 
     rng = np.random.default_rng(11)
     beliefs = []
-    for n in (7, 5_000, 9_000, 200_000):
+    for n in (7, 5_000, 9_000, 70_000, 200_000):
         tracked = np.zeros(n)
         tracked[rng.integers(0, n, 5)] = rng.random(5)
         beliefs += [
