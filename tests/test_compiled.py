@@ -388,3 +388,56 @@ def test_capped_rule_merges_exactly_when_every_fingerprint_collides(kernels, mon
         two = rules.reduce_focal_sets(rules.conjunctive(m1, m2), cap, "nearest")
         assert one.mass_function.is_close(two.mass_function, 1e-12)
         assert one.sets_merged == two.sets_merged
+
+
+def test_region_count_fused_into_the_normalisation_changes_no_bit(monkeypatch):
+    # The Bayes update normalising through ``normalise_and_count``: the posterior and log evidence are those of the
+    # plain update to the last bit, and the count is ``region_size`` of that posterior (the region by its definition,
+    # Hyndman 1996, checked against a full sort), with the compiled loops and with numpy; also when the likelihood
+    # underflows (the rescaled second try) and when the update is refused (the count of the belief kept).
+    from fusion.backends.region import _by_sort, normalise_and_count, region_size
+    from fusion.belief.posterior import Posterior
+    from fusion.errors import ZeroEvidenceError
+
+    def run():
+        rng, out = np.random.default_rng(21), []
+        for n, scale in ((300, 1.0), (40_000, 1.0), (200_000, 1.0), (200_000, 1e-290)):
+            prior = rng.random(n) ** 3
+            likelihood = (0.05 + rng.random(n)) * scale
+            plain, fused, counted = Posterior(prior), Posterior(prior), []
+            step = plain.update(likelihood)
+            normalise = lambda post, f, counted=counted: counted.append(normalise_and_count(post, f))  # noqa: E731
+            assert fused.update(likelihood, normalise) == step
+            assert np.array_equal(plain.probabilities, fused.probabilities)
+            assert counted == [region_size(plain.probabilities)] == [_by_sort(plain.probabilities, 0.95)]
+            out.append((counted[0], fused.probabilities.copy()))
+        refused, calls = Posterior(np.eye(1, 5_000, 7).ravel()), []
+        with pytest.raises(ZeroEvidenceError):
+            refused.update(np.ones(5_000) - np.eye(1, 5_000, 7).ravel(), lambda post, f: calls.append(f))
+        assert calls == []
+        return out
+
+    fast, slow = _both_ways(monkeypatch, run)
+    assert [c for c, _ in fast] == [c for c, _ in slow]
+    assert all(np.array_equal(a, b) for (_, a), (_, b) in zip(fast, slow))
+
+
+def test_bayes_filter_reports_the_region_of_its_posterior():
+    # ``report_region``: the count of each step's posterior, as ``region_size`` counts it (fused into the update's
+    # normalisation), and the kept belief's count when a reading is refused.
+    from fusion.backends.bayes import HistogramFilter
+    from fusion.backends.region import region_size
+    from fusion.grid import PoseGrid
+    from fusion.sensors.base import Evidence
+
+    grid = PoseGrid(6.0, 4.0, 0.1, 24)
+    rng = np.random.default_rng(4)
+    filt = HistogramFilter(grid, report_region=True)
+    for _ in range(3):
+        report = filt.update(Evidence("blob", 0.01 + rng.random(grid.n_cells) ** 6))
+        assert report.region_cells == region_size(filt.belief.probabilities)
+    only = np.zeros(grid.n_cells)
+    only[np.argmin(filt.belief.probabilities)] = 1.0
+    filt.belief.set(np.where(only > 0, 0.0, filt.belief.probabilities))
+    report = filt.update(Evidence("nowhere", only))
+    assert report.rejected and report.region_cells == region_size(filt.belief.probabilities)

@@ -22,6 +22,7 @@ from fusion.backends.base import (
     free_cells,
     region_size,
 )
+from fusion.backends.region import normalise_and_count
 from fusion.belief.posterior import Posterior
 from fusion.conflict import support_conflict, support_joint_conflict
 from fusion.errors import FrameMismatchError, ZeroEvidenceError
@@ -78,13 +79,19 @@ class HistogramFilter:
                 f"evidence from {evidence.sensor!r} covers {evidence.n} cells, the grid has {self.grid.n_cells}"
             )
         likelihood = evidence.likelihood
+        counted: list[int] = []
+        normalise = (
+            (lambda post, factor: counted.append(normalise_and_count(post, factor))) if self.report_region else None
+        )
         start = time.perf_counter()
         try:
-            log_z, rejected = self.belief.update(likelihood), False
+            log_z, rejected = self.belief.update(likelihood, normalise), False
         except ZeroEvidenceError:
             log_z, rejected = float("-inf"), True
         seconds = time.perf_counter() - start
-        region = region_size(self.belief.probabilities, total=1.0) if self.report_region else 0  # normalised
+        if self.report_region and not counted:  # refused: the belief as it was
+            counted.append(region_size(self.belief.probabilities, total=1.0))
+        region = counted[0] if counted else 0
         return StepReport(self.name, evidence.sensor, seconds, region, log_evidence=log_z, rejected=rejected)
 
     # ----------------------------------------------------------------- conflict, scored on this belief

@@ -22,7 +22,7 @@ import numpy as np
 
 from fusion import compiled
 
-__all__ = ["region_size", "REGION_LEVEL"]
+__all__ = ["region_size", "normalise_and_count", "REGION_LEVEL"]
 
 REGION_LEVEL = 0.95
 """Probability held by the 'best region' reported with every estimate (common practice, no source)."""
@@ -60,6 +60,19 @@ def region_size(p: np.ndarray, level: float = REGION_LEVEL, total: float | None 
     return _Bracket(values, level, total).count()
 
 
+def normalise_and_count(values: np.ndarray, factor: float, level: float = REGION_LEVEL) -> int:
+    """``values *= factor`` in place, a normalisation (the result sums to 1), then ``region_size`` of the result.  With
+    the compiled loops the multiplication is done in the first counting pass, one pass over the belief fewer; the
+    values written are numpy's to the last bit either way."""
+    if not (values.dtype == np.float64 and values.ndim == 1 and values.flags.c_contiguous and values.flags.writeable):
+        values *= factor
+        return region_size(values, level, total=1.0)
+    if compiled.kernels() is None or values.size <= _GATHER:
+        values *= factor
+        return region_size(values, level, total=1.0)
+    return _Bracket(values, level, 1.0, factor).count()
+
+
 def _by_sort(values: np.ndarray, level: float) -> int:
     desc = np.sort(values[values > 0])[::-1]
     if not desc.size:
@@ -75,8 +88,9 @@ class _Bracket:
     above ``lo`` hold at least it; so the region is every cell at or above ``hi`` and the largest of those in
     [lo, hi).  Each counting pass tries up to four values inside the bracket and keeps the narrowest one."""
 
-    def __init__(self, values: np.ndarray, level: float, total: float):
+    def __init__(self, values: np.ndarray, level: float, total: float, factor: float = 1.0):
         self.values, self.level, self.total, self.scale = values, level, total, _FIXED / total
+        self.factor = factor  # ≠ 1: the values are to be multiplied by it, in place, by the first counting pass
         self.loops = compiled.kernels()
         self.sample, self.sample_mass = np.empty(0), np.zeros(1, dtype=np.int64)
         self.lo, self.lo_count, self.lo_mass = 0.0, values.size, None  # None: the total, known after the first pass
@@ -89,7 +103,8 @@ class _Bracket:
             self._settle(int(fixed.sum()))
             return self._crossing(fixed)
         stride = max(16, self.values.size // _SAMPLE)  # a sixteenth of a small belief is sample enough
-        self.sample = np.sort(self.values[::stride])  # ascending
+        sampled = self.values[::stride] * self.factor if self.factor != 1.0 else self.values[::stride]
+        self.sample = np.sort(sampled)  # ascending; the values as the first pass will leave them
         self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))
         # The first pass also adds up the whole belief (the target needs it).  When a few sampled cells carry the
         # sample's mass (a tracked belief: the sample cannot say where it crosses), it tries the value below which
@@ -143,7 +158,11 @@ class _Bracket:
         for start in range(0, max(len(trials), 1), _TRIALS):
             chunk = trials[start : start + _TRIALS]
             padded = np.array(chunk + [math.inf] * (_TRIALS - len(chunk)))  # nothing is at or above infinity
-            self.loops.region_counts(self.values, self.scale, padded, out)
+            if self.factor != 1.0:
+                self.loops.region_counts_scaling(self.values, self.factor, self.scale, padded, out)
+                self.factor = 1.0
+            else:
+                self.loops.region_counts(self.values, self.scale, padded, out)
             counts += out[: len(chunk)].tolist()
             masses += out[_TRIALS : _TRIALS + len(chunk)].tolist()
         return counts, masses, int(out[-1])

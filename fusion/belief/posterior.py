@@ -119,11 +119,13 @@ class Posterior:
         self._swap(out)
 
     # ----------------------------------------------------------------- updates
-    def update(self, likelihood) -> float:
+    def update(self, likelihood, normalise=None) -> float:
         """Multiply by p(z | x) per cell and renormalise; returns log p(z | past) in nats.
 
         Raises ``ZeroEvidenceError`` (and leaves the belief unchanged) when the
-        likelihood is zero wherever the belief is positive.
+        likelihood is zero wherever the belief is positive.  ``normalise(post, factor)``: does the renormalising
+        ``post *= factor`` in place instead, with figures of its own in the same pass (the best region's count,
+        ``fusion.backends.region.normalise_and_count``); it is not called when the update is refused.
         """
         try:
             lik = np.asarray(likelihood, dtype=np.float64)
@@ -143,8 +145,11 @@ class Posterior:
             raise ZeroEvidenceError(self._zero_message())
         z = float(post.sum())
         if z < 1e-250:  # may have underflowed: redo with the likelihood scaled to a maximum of 1
-            return self._absorb(lik / hi, float(np.log(hi)))
-        post *= 1.0 / z
+            return self._absorb(lik / hi, float(np.log(hi)), normalise)
+        if normalise is None:
+            post *= 1.0 / z
+        else:
+            normalise(post, 1.0 / z)
         self._swap(post)
         step = float(np.log(z))
         self.log_evidence += step
@@ -174,12 +179,15 @@ class Posterior:
             raise ZeroEvidenceError(self._zero_message())
         return self._absorb(np.exp(ll - top), float(top))
 
-    def _absorb(self, scaled: np.ndarray, log_scale: float) -> float:
+    def _absorb(self, scaled: np.ndarray, log_scale: float, normalise=None) -> float:
         post = np.multiply(self._p, scaled, out=self._spare())
         z = float(post.sum())
         if not z > 0:
             raise ZeroEvidenceError(self._zero_message())
-        post *= 1.0 / z
+        if normalise is None:
+            post *= 1.0 / z
+        else:
+            normalise(post, 1.0 / z)
         self._swap(post)
         step = float(np.log(z)) + log_scale
         self.log_evidence += step

@@ -274,26 +274,45 @@ def region_counts(values, scale, trials, out):  # pragma: no cover - compiled
     """For ``fusion.backends.region``: per trial value t (four), how many values are ≥ t (out[0:4]) and the sum of their
     fixed-point masses int64(v · scale), truncated as numpy's ``astype`` does (out[4:8]); out[8] the sum over all.
     Integer sums are exact in any order, so this vectorised pass gives numpy's sums."""
-    t0, t1, t2, t3 = trials[0], trials[1], trials[2], trials[3]
-    c0 = c1 = c2 = c3 = 0
-    m0 = m1 = m2 = m3 = 0
-    whole = 0
+    t = (trials[0], trials[1], trials[2], trials[3])
+    acc = (0, 0, 0, 0, 0, 0, 0, 0, 0)
     for i in range(values.size):
-        v = values[i]
-        q = np.int64(v * scale)
-        a0, a1, a2, a3 = v >= t0, v >= t1, v >= t2, v >= t3
-        c0 += a0
-        c1 += a1
-        c2 += a2
-        c3 += a3
-        m0 += q if a0 else 0
-        m1 += q if a1 else 0
-        m2 += q if a2 else 0
-        m3 += q if a3 else 0
-        whole += q
-    out[0], out[1], out[2], out[3] = c0, c1, c2, c3
-    out[4], out[5], out[6], out[7] = m0, m1, m2, m3
-    out[8] = whole
+        acc = _tally(values[i], scale, t, acc)
+    for k in range(9):
+        out[k] = acc[k]
+
+
+@numba.njit(cache=True, nogil=True)
+def region_counts_scaling(values, factor, scale, trials, out):  # pragma: no cover - compiled
+    """``region_counts`` of the values once multiplied by ``factor``, which it does in place as it goes (numpy's
+    ``values *= factor``): a normalisation and the first counting pass in one pass over the belief."""
+    t = (trials[0], trials[1], trials[2], trials[3])
+    acc = (0, 0, 0, 0, 0, 0, 0, 0, 0)
+    for i in range(values.size):
+        v = values[i] * factor
+        values[i] = v
+        acc = _tally(v, scale, t, acc)
+    for k in range(9):
+        out[k] = acc[k]
+
+
+@numba.njit(inline="always")
+def _tally(v, scale, t, acc):  # pragma: no cover - compiled
+    """``acc`` (counts at or above each trial, their masses, the whole mass) with the value ``v`` added."""
+    q = np.int64(v * scale)
+    a0, a1, a2, a3 = v >= t[0], v >= t[1], v >= t[2], v >= t[3]
+    c0, c1, c2, c3, m0, m1, m2, m3, whole = acc
+    return (
+        c0 + a0,
+        c1 + a1,
+        c2 + a2,
+        c3 + a3,
+        m0 + (q if a0 else 0),
+        m1 + (q if a1 else 0),
+        m2 + (q if a2 else 0),
+        m3 + (q if a3 else 0),
+        whole + q,
+    )
 
 
 _CHUNK = 64  # values checked at once by ``region_gather`` before it looks at them one by one
