@@ -104,15 +104,17 @@ class _Bracket:
             return self._crossing(fixed)
         stride = max(16, self.values.size // _SAMPLE)  # a sixteenth of a small belief is sample enough
         sampled = self.values[::stride] * self.factor if self.factor != 1.0 else self.values[::stride]
-        self.sample = np.sort(sampled)  # ascending; the values as the first pass will leave them
-        self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))
-        # The first pass also adds up the whole belief (the target needs it).  When a few sampled cells carry the
-        # sample's mass (a tracked belief: the sample cannot say where it crosses), it tries the value below which
-        # cells cannot be needed, as together they hold less than (1 − level) of the total: the few hundred cells
-        # above it are then gathered at once.
+        sampled_mass = self._fixed(sampled)  # the values as the first pass will leave them
+        tracked = self._tracked(sampled_mass)
+        if tracked:
+            found = self._above_floor()
+            if found is not None:
+                return found
+        self.sample, self.sample_mass = np.sort(sampled), np.concatenate(([0], np.cumsum(np.sort(sampled_mass))))
+        # The first pass also adds up the whole belief (the target needs it); a tracked belief's tries the floor.
         trials = self._from_sample(_TRIALS)
-        if self._tracked():
-            trials = [(1.0 - self.level) * self.total / self.values.size, *trials[1:]]
+        if tracked:
+            trials = [self._floor(), *trials[1:]]
         self._narrow(trials)
         while self.lo_count - self.hi_count > _GATHER:
             if self._one_value():
@@ -123,12 +125,39 @@ class _Bracket:
                 self._narrow(self._by_bits())
         return self._crossing(self._fixed(self._inside()))
 
-    def _tracked(self) -> bool:
+    @staticmethod
+    def _tracked(sampled_mass: np.ndarray) -> bool:
         """Whether fewer than ``_SPREAD`` sampled cells' worth carry the sample's mass (its effective size, (Σm)² / Σm²,
         Kish 1965): a random belief's sample of 4,096 counts about 3,000, a belief of 300 cells in 345,600 about 3."""
-        fixed = np.diff(self.sample_mass).astype(np.float64)
+        fixed = sampled_mass.astype(np.float64)
         square = float(fixed @ fixed)
         return square == 0 or float(fixed.sum()) ** 2 / square < _SPREAD
+
+    def _floor(self) -> float:
+        """The value below which cells cannot be needed: together they hold less than (1 − level) of the total."""
+        return (1.0 - self.level) * self.total / self.values.size
+
+    def _above_floor(self) -> int | None:
+        """A tracked belief's count in one pass: the cells at or above the floor (a few hundred) gathered while the
+        whole mass is added up, when they are at most ``_GATHER`` and hold the target (they do, but for rounding)."""
+        if self.factor != 1.0:  # the pass below reads the values as they are
+            self.values *= self.factor
+            self.factor = 1.0
+        floor = self._floor()
+        if self.loops is None:
+            whole, above = int(self._fixed(self.values).sum()), self.values[self.values >= floor]
+            fits = above.size <= _GATHER
+        else:
+            buffer = np.empty(_GATHER + 1)
+            n, whole = self.loops.region_above(self.values, self.scale, floor, buffer)
+            above, fits = buffer[: max(n, 0)], n >= 0
+        self._settle(int(whole))
+        fixed = self._fixed(above) if fits else None
+        mass = int(fixed.sum()) if fits else 0
+        if not fits or mass < self.target:
+            return None  # the bracketing passes instead, the total already known
+        self.lo, self.lo_count, self.lo_mass = floor, above.size, mass
+        return self._crossing(fixed)
 
     # ----------------------------------------------------------------- counting passes
     def _narrow(self, trials: list[float]) -> None:

@@ -315,7 +315,35 @@ def _tally(v, scale, t, acc):  # pragma: no cover - compiled
     )
 
 
-_CHUNK = 64  # values checked at once by ``region_gather`` before it looks at them one by one
+_CHUNK = 64  # values checked at once by ``region_gather`` and ``region_above`` before it looks at them one by one
+
+
+@numba.njit(cache=True, nogil=True)
+def region_above(values, scale, floor, out):  # pragma: no cover - compiled
+    """For ``fusion.backends.region``: the values ≥ ``floor`` into ``out`` in their order, and the sum of every value's
+    fixed-point mass int64(v · scale), in one pass: (how many, the sum).  How many is negative when they do not fit
+    in ``out`` (less one, for the room its gather needs)."""
+    n, whole = 0, 0
+    room = out.size - 1
+    end = values.size - values.size % _CHUNK
+    for start in range(0, end, _CHUNK):
+        hits = 0
+        for i in range(start, start + _CHUNK):  # a constant count: vectorised
+            v = values[i]
+            whole += np.int64(v * scale)
+            hits += v >= floor
+        if hits and n >= 0:
+            n = _gather_run(values, floor, np.inf, start, start + _CHUNK, out, n) if n + hits <= room else -1
+    for i in range(end, values.size):
+        v = values[i]
+        whole += np.int64(v * scale)
+        if v >= floor and n >= 0:
+            if n < room:
+                out[n] = v
+                n += 1
+            else:
+                n = -1
+    return n, whole
 
 
 @numba.njit(cache=True, nogil=True)
