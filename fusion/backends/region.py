@@ -110,7 +110,8 @@ class _Bracket:
             found = self._above_floor()
             if found is not None:
                 return found
-        self.sample, self.sample_mass = np.sort(sampled), np.concatenate(([0], np.cumsum(np.sort(sampled_mass))))
+        self.sample = np.sort(sampled)
+        self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))  # the masses sort as the values
         # The first pass also adds up the whole belief (the target needs it); a tracked belief's tries the floor.
         trials = self._from_sample(_TRIALS)
         if tracked:
@@ -203,9 +204,9 @@ class _Bracket:
     def _from_sample(self, k: int) -> list[float]:
         """``k`` sampled values around where the sample puts the crossing: the sample's share of the bracket's mass,
         scaled to the bracket's counted mass, places it.  They are spaced about one standard error of that apart (its
-        sampling error, common practice, no source), at most as far as a gap half ``_GATHER`` cells wide: the number of cells
-        a sampled value stands for varies (measured: 5,600 to 9,800 in gaps of 24 values), and a gap gathered at once
-        costs less than a second pass."""
+        sampling error, common practice, no source), but no more than half ``_GATHER`` cells apart: the cells a sampled
+        value stands for vary (5,600 to 9,800 per 24 values, measured), and a gap gathered at once costs less than a
+        second pass."""
         s, cum = self.sample, self.sample_mass
         a, b = int(np.searchsorted(s, self.lo, "left")), int(np.searchsorted(s, self.hi, "left"))
         if b - a < 2 or cum[b] == cum[a]:
