@@ -117,12 +117,17 @@ def run_sweep(
             f"interrupted: {len(done)} of {plural(len(wanted), 'run')} saved in {folder / 'runs'}; "
             "run the same command again to resume"
         ) from None
+    _refuse_failures(failures, len(todo), len(done), folder)
+    return [done[(s.key, seed)] for s, seed in wanted if (s.key, seed) in done]
+
+
+def _refuse_failures(failures: list[str], tried: int, saved: int, folder: Path) -> None:
+    """Raise, naming the first failure, when any run of a sweep failed; the finished runs are already saved."""
     if failures:
         raise FusionError(
-            f"{len(failures)} of {plural(len(todo), 'run')} failed (the {plural(len(done), 'finished run')} saved in "
+            f"{len(failures)} of {plural(tried, 'run')} failed (the {plural(saved, 'finished run')} saved in "
             f"{folder / 'runs'}); first: {failures[0]}"
         )
-    return [done[(s.key, seed)] for s, seed in wanted if (s.key, seed) in done]
 
 
 def _claim_manifest(folder: Path, case_path: str, digest: str, seeds: list[int], settings: list[Setting]) -> None:
