@@ -62,8 +62,8 @@ _CHUNK = 64  # values checked at once by ``region_gather`` and ``region_above`` 
 @numba.njit(cache=True, nogil=True)
 def region_above(values, scale, floor, out):  # pragma: no cover - compiled
     """For ``fusion.backends.region``: the values ≥ ``floor`` into ``out`` in their order, and the sum of every value's
-    fixed-point mass int64(v · scale), in one pass: (how many, the sum).  How many is negative when they do not fit
-    in ``out`` (less one, for the room its gather needs)."""
+    fixed-point mass int64(v · scale), in one pass: (how many, the sum).  How many is −1 when more than out.size − 1
+    are found (the gather writes one slot ahead of what it keeps)."""
     n, whole = 0, 0
     room = out.size - 1
     end = values.size - values.size % _CHUNK
