@@ -146,10 +146,7 @@ class Posterior:
         z = float(post.sum())
         if z < 1e-250:  # may have underflowed: redo with the likelihood scaled to a maximum of 1
             return self._absorb(lik / hi, float(np.log(hi)), normalise)
-        if normalise is None:
-            post *= 1.0 / z
-        else:
-            normalise(post, 1.0 / z)
+        (normalise or _rescale)(post, 1.0 / z)
         self._swap(post)
         step = float(np.log(z))
         self.log_evidence += step
@@ -184,10 +181,7 @@ class Posterior:
         z = float(post.sum())
         if not z > 0:
             raise ZeroEvidenceError(self._zero_message())
-        if normalise is None:
-            post *= 1.0 / z
-        else:
-            normalise(post, 1.0 / z)
+        (normalise or _rescale)(post, 1.0 / z)
         self._swap(post)
         step = float(np.log(z)) + log_scale
         self.log_evidence += step
@@ -252,6 +246,11 @@ class Posterior:
 
     def __repr__(self) -> str:
         return f"Posterior(n={self.n}, MAP cell {self.map_cell()}, entropy {self.entropy():.3g} nats)"
+
+
+def _rescale(post: np.ndarray, factor: float) -> None:
+    """The renormalisation an update does unless it is given its own: ``post *= factor`` in place."""
+    post *= factor
 
 
 def _references(buffer: np.ndarray) -> int:
