@@ -64,10 +64,8 @@ def normalise_and_count(values: np.ndarray, factor: float, level: float = REGION
     """``values *= factor`` in place, a normalisation (the result sums to 1), then ``region_size`` of the result.  With
     the compiled loops the multiplication is done in the first counting pass, one pass over the belief fewer; the
     values written are numpy's to the last bit either way."""
-    if not (values.dtype == np.float64 and values.ndim == 1 and values.flags.c_contiguous and values.flags.writeable):
-        values *= factor
-        return region_size(values, level, total=1.0)
-    if compiled.kernels() is None or values.size <= _GATHER:
+    fusable = values.dtype == np.float64 and values.ndim == 1 and values.flags.c_contiguous and values.flags.writeable
+    if not fusable or compiled.kernels() is None or values.size <= _GATHER:  # nothing to fuse: scale, then count
         values *= factor
         return region_size(values, level, total=1.0)
     return _Bracket(values, level, 1.0, factor).count()
