@@ -139,9 +139,7 @@ class _Bracket:
     def _above_floor(self) -> int | None:
         """A tracked belief's count in one pass: the cells at or above the floor (a few hundred) gathered while the
         whole mass is added up, when they are at most ``_GATHER`` and hold the target (they do, but for rounding)."""
-        if self.factor != 1.0:  # the pass below reads the values as they are
-            self.values *= self.factor
-            self.factor = 1.0
+        self._scale_now()  # the pass below reads the values as they are
         floor = self._floor()
         if self.loops is None:
             whole, above = int(self._fixed(self.values).sum()), self.values[self.values >= floor]
@@ -179,6 +177,7 @@ class _Bracket:
     def _counts(self, trials: list[float]) -> tuple[list[int], list[int], int]:
         """Per trial value: how many cells are at or above it and their fixed-point mass; and the whole mass."""
         if self.loops is None:
+            self._scale_now()
             fixed = self._fixed(self.values)
             masks = [self.values >= t for t in trials]
             return [int(np.count_nonzero(m)) for m in masks], [int(fixed[m].sum()) for m in masks], int(fixed.sum())
@@ -194,6 +193,12 @@ class _Bracket:
             counts += out[: len(chunk)].tolist()
             masses += out[_TRIALS : _TRIALS + len(chunk)].tolist()
         return counts, masses, int(out[-1])
+
+    def _scale_now(self) -> None:
+        """Apply a pending normalisation factor in place (numpy's ``values *= factor``), for code that cannot fuse it."""
+        if self.factor != 1.0:
+            self.values *= self.factor
+            self.factor = 1.0
 
     def _fixed(self, values: np.ndarray) -> np.ndarray:
         return (values * self.scale).astype(np.int64)  # truncated, as the compiled pass converts
