@@ -253,6 +253,56 @@ def test_compiled_region_size_counts_as_numpy_does(monkeypatch):
     assert fast == slow
 
 
+def test_compiled_bracket_pass_gathers_and_adds_up_as_numpy_does(kernels):
+    # The one-pass gather of the region count (bit masks of 64 cells, set bits visited by a de Bruijn index, Leiserson,
+    # Prokop & Randall 1998) against numpy's boolean masks: the same cells in the same order, the same count and
+    # fixed-point masses at and above the top, the whole's, the values scaled as numpy's ``*=`` scales them; on a
+    # length that is not a multiple of 64, with values equal to either end, an open top, and more cells than fit.
+    from fusion.compiled import region_loops
+
+    assert sorted(region_loops._DE_BRUIJN_INDEX.tolist()) == list(range(64))  # a permutation: every bit found
+    rng = np.random.default_rng(31)
+    values = np.round(rng.random(100_003), 3) * 1e-5
+    scale = 2.0**61 / values.sum()
+    for lo, hi, room in ((3e-6, 6e-6, 40_000), (3e-6, 6e-6, 1_000), (0.0, 1e-6, 40_000), (9e-6, np.inf, 40_000)):
+        for factor in (1.0, 0.37):
+            scaled = values * factor
+            inside = scaled[(scaled >= lo) & (scaled < hi)]
+            fixed = (scaled * scale).astype(np.int64)
+            out, acc, work = np.full(room, -1.0), np.zeros(3, dtype=np.int64), values.copy()
+            if factor == 1.0:
+                n = kernels.region_bracket(work, scale, lo, hi, out, acc)
+            else:
+                n = kernels.region_bracket_scaling(work, factor, scale, lo, hi, out, acc)
+            assert n == inside.size
+            np.testing.assert_array_equal(out[: min(n, room)], inside[:room])
+            assert acc.tolist() == [int((scaled >= hi).sum()), int(fixed[scaled >= hi].sum()), int(fixed.sum())]
+            np.testing.assert_array_equal(work, scaled)
+
+
+def test_region_count_settles_from_any_first_bracket(monkeypatch):
+    # The one-pass count from a first bracket that holds the crossing, lies wholly above or below it, holds too many
+    # cells, or is empty: the exact masses found by the pass decide, so the count is the full sort's (Hyndman 1996,
+    # Computing and graphing highest density regions) every time, with the compiled loops and with numpy.
+    from fusion.backends import region
+
+    rng = np.random.default_rng(32)
+    values = rng.random(120_000) ** 4
+    expected = region._by_sort(values, 0.95)
+    cut = np.sort(values)[::-1][expected - 1]  # the crossing value
+    below, above = np.nextafter(cut, 0), np.nextafter(cut, 1)
+    brackets = [(cut * 0.99, cut * 1.01), (cut * 1.5, cut * 2), (cut * 0.2, cut * 0.5), (0.0, cut * 1.5), (cut, cut)]
+    brackets += [(below, above), (cut, above), (0.0, np.inf)]
+
+    def counts():  # as given, and as the pass leaves them scaled by a pending factor (a normalisation)
+        total = float(values.sum())
+        plain = [region._Bracket(values.copy(), 0.95, total).settle(lo, hi) for lo, hi in brackets]
+        return plain + [region._Bracket(values * 2.0, 0.95, total, 0.5).settle(lo, hi) for lo, hi in brackets]
+
+    fast, slow = _both_ways(monkeypatch, counts)
+    assert fast == slow == [expected] * 2 * len(brackets)
+
+
 def test_compiled_bayes_update_equals_numpy_and_refuses_the_same_likelihoods(monkeypatch):
     # The one-pass product and check against numpy's minimum, maximum and product: the same posterior and evidence
     # to the last bit, and the same error, naming the same cell, for each kind of bad likelihood (-0.0 is a zero).

@@ -3,10 +3,11 @@
 Every back end reports it with each pose estimate, so it is computed every tick on beliefs of up to millions of
 cells, tracked (a few hundred cells hold nearly everything) or spread (after a re-seed, or the evidential back
 end's plausibility transform).  No sort of the belief, and no per-cell binning (a scatter, which does not
-vectorise): the value where the most probable cells reach the level is bracketed by passes that only count and
-add up the cells at or above a few trial values, and only the cells inside the final bracket are gathered and
-sorted.  A sample of the belief places the trial values; the counts, not the sample, decide, so the count is
-exact whatever the sample shows.
+vectorise).  A sample of the belief puts a bracket of values around where the most probable cells reach the level;
+one pass adds up the exact mass at and above its top and the whole's, and gathers the cells inside it, among which
+a partial selection finds the count.  When those exact masses show that the sample was wrong, passes that count and
+add up the cells at or above a few trial values narrow the bracket first.  The masses, not the sample, decide, so
+the count is exact whatever the sample shows.
 
 The masses are added up in fixed point, each value v as the integer ⌊v · 2⁶¹ / total⌋: integer sums are exact in
 any order, so the compiled pass (``fusion.compiled``, vectorised) and the numpy code give the same count to the
@@ -31,17 +32,29 @@ _FIXED = 2.0**61
 """Fixed-point units of a belief's total: the integer masses add up to about 2⁶¹, well inside an int64."""
 
 _SAMPLE = 4096
-"""Cells sampled (evenly spaced) to place the trial values (our choice: sorting them costs about 0.1 ms)."""
+"""Cells sampled (evenly spaced) to place the brackets (our choice: sorting them costs about 0.1 ms)."""
 
-_GATHER = 8192
-"""The bracket's cells are gathered and sorted once it holds at most this many (our choice: about 0.5 ms, as much as
-a counting pass, measured on 240×160×36)."""
+_SMALL = 8192
+"""A belief of at most this many cells is counted in one go, all its cells the bracket (our choice)."""
+
+_GATHER = 32768
+"""The bracket's cells are gathered once it holds at most this many (our choice: the gathering pass costs the same
+for 0 or 32,000 of them, and the crossing among 32,000 about 0.1 ms, measured on 240×160×36)."""
+
+_SPACING = 8192
+"""Cells at most between the trial values of a narrowing pass (our choice: a gap found to hold the crossing is then
+gathered whole, well inside ``_GATHER``; see ``_from_sample``)."""
+
+_WINDOW = 24576
+"""Cells the sample's first bracket spans, around where it puts the crossing (our choice: the sample misses the
+crossing by about 8,000 cells at 1.4 M (one standard deviation, measured), so this holds it about 9 times in 10,
+and the pass that gathers it costs the same whatever it holds, up to ``_GATHER``)."""
 
 _TRIALS = 4
 """Trial values per counting pass (the compiled pass checks four at once)."""
 
 _SPREAD = 64
-"""Sampled cells' worth of mass below which a belief counts as tracked (our choice; see ``_Bracket._tracked``)."""
+"""Sampled cells' worth of mass below which a belief counts as tracked (our choice; see ``_tracked``)."""
 
 
 def region_size(p: np.ndarray, level: float = REGION_LEVEL, total: float | None = None) -> int:
@@ -65,10 +78,24 @@ def normalise_and_count(values: np.ndarray, factor: float, level: float = REGION
     the compiled loops the multiplication is done in the first counting pass, one pass over the belief fewer; the
     values written are numpy's to the last bit either way."""
     fusable = values.dtype == np.float64 and values.ndim == 1 and values.flags.c_contiguous and values.flags.writeable
-    if not fusable or compiled.kernels() is None or values.size <= _GATHER:  # nothing to fuse: scale, then count
+    if not fusable or compiled.kernels() is None or values.size <= _SMALL:  # nothing to fuse: scale, then count
         values *= factor
         return region_size(values, level, total=1.0)
     return _Bracket(values, level, 1.0, factor).count()
+
+
+def _stride(size: int) -> int:
+    return max(16, size // _SAMPLE)  # a sixteenth of a small belief is sample enough
+
+
+def _tracked(sampled: np.ndarray) -> bool:
+    """Whether fewer than ``_SPREAD`` sampled cells' worth carry the sample's mass (its effective size, (Σv)² / Σv²,
+    Kish 1965): a random belief's sample of 4,096 counts about 3,000, a belief of 300 cells in 345,600 about 3."""
+    top = float(sampled.max()) if sampled.size else 0.0
+    if not (top > 0 and math.isfinite(top)):
+        return True
+    relative = sampled / top  # squares of tiny values would underflow
+    return float(relative.sum()) ** 2 / float(relative @ relative) < _SPREAD
 
 
 def _by_sort(values: np.ndarray, level: float) -> int:
@@ -96,25 +123,25 @@ class _Bracket:
         self.target = None
 
     def count(self) -> int:
-        if self.values.size <= _GATHER:  # few cells: all of them are the bracket
+        if self.values.size <= _SMALL:  # few cells: all of them are the bracket
             fixed = self._fixed(self.values)
             self._settle(int(fixed.sum()))
             return self._crossing(fixed)
-        stride = max(16, self.values.size // _SAMPLE)  # a sixteenth of a small belief is sample enough
+        stride = _stride(self.values.size)
         sampled = self.values[::stride] * self.factor if self.factor != 1.0 else self.values[::stride]
-        sampled_mass = self._fixed(sampled)  # the values as the first pass will leave them
-        tracked = self._tracked(sampled_mass)
-        if tracked:
-            found = self._above_floor()
-            if found is not None:
-                return found
-        self.sample = np.sort(sampled)
-        self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))  # the masses sort as the values
-        # The first pass also adds up the whole belief (the target needs it); a tracked belief's tries the floor.
-        trials = self._from_sample(_TRIALS)
-        if tracked:
-            trials = [self._floor(), *trials[1:]]
-        self._narrow(trials)
+        if _tracked(sampled):  # the values as the first pass will leave them
+            return self.settle(self._floor(), math.inf)
+        self.place(sampled)
+        window = self._from_sample(2, _WINDOW)
+        if len(window) < 2:  # the sample cannot place it: the passes find the total, then split the bit patterns
+            self._narrow([])
+            return self._search()
+        return self.settle(*window)
+
+    def _search(self) -> int:
+        """Narrow the bracket until it holds at most ``_GATHER`` cells, then count in it."""
+        if not self.sample.size:
+            self.place(self.values[:: _stride(self.values.size)])
         while self.lo_count - self.hi_count > _GATHER:
             if self._one_value():
                 return self._equal_values()
@@ -124,37 +151,55 @@ class _Bracket:
                 self._narrow(self._by_bits())
         return self._crossing(self._fixed(self._inside()))
 
-    @staticmethod
-    def _tracked(sampled_mass: np.ndarray) -> bool:
-        """Whether fewer than ``_SPREAD`` sampled cells' worth carry the sample's mass (its effective size, (Σm)² / Σm²,
-        Kish 1965): a random belief's sample of 4,096 counts about 3,000, a belief of 300 cells in 345,600 about 3."""
-        fixed = sampled_mass.astype(np.float64)
-        square = float(fixed @ fixed)
-        return square == 0 or float(fixed.sum()) ** 2 / square < _SPREAD
+    def place(self, sampled: np.ndarray) -> None:
+        """Keep a sample of the values, sorted with their cumulative fixed-point masses, to place trial values by."""
+        self.sample = np.sort(sampled)
+        self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))  # the masses sort as the values
+
+    def settle(self, lo: float, hi: float) -> int:
+        """The count in one pass when the crossing lies in [lo, hi) (of the values as the pending factor leaves them)
+        and that holds at most ``_GATHER`` cells: the pass adds up the exact masses at and above ``hi`` and of the
+        whole, and gathers the cells in [lo, hi) (``_gather``).  Where those masses show the crossing elsewhere, or
+        the cells are too many, the search goes on from the bracket they give."""
+        buffer, acc = np.empty(_GATHER), np.zeros(3, dtype=np.int64)
+        n = self._gather(lo, hi, buffer, acc)
+        if self.lo_mass is None:
+            self._settle(int(acc[2]))
+        count, mass = int(acc[0]), int(acc[1])
+        if mass >= self.target:  # the crossing lies at or above hi
+            self.lo, self.lo_count, self.lo_mass = hi, count, mass
+            return self._search()
+        self.hi, self.hi_count, self.hi_mass = hi, count, mass
+        if n > _GATHER:
+            return self._search()
+        fixed = self._fixed(buffer[:n])
+        inside = mass + int(fixed.sum())
+        if inside < self.target:  # below lo
+            self.hi, self.hi_count, self.hi_mass = lo, count + n, inside
+            return self._search()
+        self.lo, self.lo_count, self.lo_mass = lo, count + n, inside
+        return self._crossing(fixed)
+
+    def _gather(self, lo: float, hi: float, out: np.ndarray, acc: np.ndarray) -> int:
+        """One pass (``region_bracket``, scaling by the pending factor as it goes): the values in [lo, hi) into ``out``
+        as far as it goes, how many are ≥ hi, their fixed-point mass and the whole's into ``acc``; returns how many
+        lie in [lo, hi)."""
+        if self.loops is None:
+            self._scale_now()
+            v, fixed = self.values, self._fixed(self.values)
+            top, inside = v >= hi, v[(v >= lo) & (v < hi)]
+            acc[:] = np.count_nonzero(top), int(fixed[top].sum()), int(fixed.sum())
+            out[: min(inside.size, out.size)] = inside[: out.size]
+            return inside.size
+        if self.factor == 1.0:
+            return self.loops.region_bracket(self.values, self.scale, lo, hi, out, acc)
+        n = self.loops.region_bracket_scaling(self.values, self.factor, self.scale, lo, hi, out, acc)
+        self.factor = 1.0
+        return n
 
     def _floor(self) -> float:
         """The value below which cells cannot be needed: together they hold less than (1 − level) of the total."""
         return (1.0 - self.level) * self.total / self.values.size
-
-    def _above_floor(self) -> int | None:
-        """A tracked belief's count in one pass: the cells at or above the floor (a few hundred) gathered while the
-        whole mass is added up, when they are at most ``_GATHER`` and hold the target (they do, but for rounding)."""
-        self._scale_now()  # the pass below reads the values as they are
-        floor = self._floor()
-        if self.loops is None:
-            whole, above = int(self._fixed(self.values).sum()), self.values[self.values >= floor]
-            fits = above.size <= _GATHER
-        else:
-            buffer = np.empty(_GATHER + 1)
-            n, whole = self.loops.region_above(self.values, self.scale, floor, buffer)
-            above, fits = buffer[: max(n, 0)], n >= 0
-        self._settle(int(whole))
-        fixed = self._fixed(above) if fits else None
-        mass = int(fixed.sum()) if fits else 0
-        if not fits or mass < self.target:
-            return None  # the bracketing passes instead, the total already known
-        self.lo, self.lo_count, self.lo_mass = floor, above.size, mass
-        return self._crossing(fixed)
 
     # ----------------------------------------------------------------- counting passes
     def _narrow(self, trials: list[float]) -> None:
@@ -204,12 +249,12 @@ class _Bracket:
         return (values * self.scale).astype(np.int64)  # truncated, as the compiled pass converts
 
     # ----------------------------------------------------------------- trial values
-    def _from_sample(self, k: int) -> list[float]:
+    def _from_sample(self, k: int, spacing: int | None = None) -> list[float]:
         """``k`` sampled values around where the sample puts the crossing: the sample's share of the bracket's mass,
         scaled to the bracket's counted mass, places it.  They are spaced about one standard error of that apart (its
-        sampling error, common practice, no source), but no more than half ``_GATHER`` cells apart: the cells a sampled
+        sampling error, common practice, no source), but no more than ``_SPACING`` cells apart: the cells a sampled
         value stands for vary (5,600 to 9,800 per 24 values, measured), and a gap gathered at once costs less than a
-        second pass."""
+        second pass.  ``spacing``: the cells apart instead (the first window's width)."""
         s, cum = self.sample, self.sample_mass
         a, b = int(np.searchsorted(s, self.lo, "left")), int(np.searchsorted(s, self.hi, "left"))
         if b - a < 2 or cum[b] == cum[a]:
@@ -220,7 +265,8 @@ class _Bracket:
         top, seen = float(cum[b]), float(cum[b] - cum[a])
         need = top - (target - self.hi_mass) * seen / max(lo_mass - self.hi_mass, 1)
         centre = int(np.searchsorted(cum[a:b], need, "right")) - 1 + a  # the largest sampled value still reaching it
-        step = max(1.0, min(0.6 * math.sqrt(b - a), 0.5 * _GATHER * s.size / self.values.size))  # a gap is gathered
+        step = min(0.6 * math.sqrt(b - a), _SPACING * s.size / self.values.size) if spacing is None else None
+        step = max(1.0, step if step is not None else spacing * s.size / self.values.size)  # a gap is gathered
         spots = {min(max(centre + round(step * (j - (k - 1) / 2)), a), b - 1) for j in range(k)}
         return [float(s[i]) for i in sorted(spots)]
 
@@ -265,8 +311,6 @@ class _Bracket:
         n = self.lo_count - self.hi_count
         if n == self.values.size:
             return self.values
-        if self.loops is None:
-            return self.values[(self.values >= self.lo) & (self.values < self.hi)]
-        out = np.empty(n + 1)  # the compiled gather writes each value before it knows whether to keep it
-        self.loops.region_gather(self.values, self.lo, self.hi, out)
-        return out[:n]
+        out = np.empty(n)
+        self._gather(self.lo, self.hi, out, np.zeros(3, dtype=np.int64))
+        return out

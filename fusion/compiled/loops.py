@@ -17,10 +17,10 @@ from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module to
     pair_union,
 )
 from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module too)
-    region_above,
+    region_bracket,
+    region_bracket_scaling,
     region_counts,
     region_counts_scaling,
-    region_gather,
 )
 
 _ADD, _ZERO, _PRODUCT = 0, 1, 2  # how a sum of taps starts: onto what is there, onto 0.0, or as the bare product
