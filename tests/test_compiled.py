@@ -5,6 +5,7 @@ in the other test files (e.g. ``test_motion.py``).  A compiled loop keeps the nu
 operations, so the two must agree to the last bit, not merely to a tolerance.
 """
 
+import dataclasses
 import math
 
 import numpy as np
@@ -251,6 +252,42 @@ def test_compiled_region_size_counts_as_numpy_does(monkeypatch):
         ]
     fast, slow = _both_ways(monkeypatch, lambda: [region_size(p) for p in beliefs])
     assert fast == slow
+
+
+def test_prediction_total_is_the_same_integer_sum_either_way_and_close_to_the_float_sum(monkeypatch):
+    # ``predict_into``'s total, added up in fixed point as the compiled loop writes, against numpy's sum of the same
+    # integers (exact in any order, so equal), and against the floating-point sum of the prediction (within the
+    # 3·10⁻¹³ the truncation can drop, our bound); None when less than half the mass is kept, or with slip.
+    from fusion import motion
+
+    rng = np.random.default_rng(41)
+    belief = rng.random((12, 30, 40)) ** 3
+    belief /= belief.sum()
+    free = rng.random(belief.shape) < 0.9
+    cases = [
+        (_motion(12, 0.7, 0.3, 0.2, 0.6, 0.4), free),
+        (_motion(12, 0.7, 0.3, 0.2, 0.6, 0.4), None),
+        (_motion(12, 2.0, 1.0, 1.5, 0.0, 0.0), free),
+        (_motion(12, 35.0, 0.0, 0.0, 0.5, 0.5), free),  # most of the mass moves off the map
+    ]
+
+    def run():
+        got = []
+        for m, mask in cases:
+            out = np.empty(belief.size)
+            total = motion.predict_into(belief, m, np.ones(belief.shape, bool) if mask is None else mask, out)
+            got.append((total, out.copy()))
+        return got
+
+    fast, slow = _both_ways(monkeypatch, run)
+    for (t1, a), (t2, b) in zip(fast, slow):
+        assert t1 == t2
+        np.testing.assert_array_equal(a, b)
+    for total, out in fast[:3]:
+        assert total is not None and abs(total - out.sum()) <= 3e-13 * out.sum()
+    assert fast[3][0] is None and fast[3][1].sum() < 0.5
+    slipping = dataclasses.replace(cases[0][0], reliability=0.9)
+    assert motion.predict_into(belief, slipping, free, np.empty(belief.size)) is None
 
 
 def test_compiled_bracket_pass_gathers_and_adds_up_as_numpy_does(kernels):

@@ -1,6 +1,6 @@
 """The Bayesian back end: a histogram filter over the pose grid.
 
-Prediction shifts and blurs each heading slice (``fusion.motion.predict_on_free``);
+Prediction shifts and blurs each heading slice (``fusion.motion.predict_into``);
 an update multiplies by the reading's likelihood and renormalises
 (``fusion.belief.posterior.Posterior``).  Cells off free space keep probability 0.
 """
@@ -27,7 +27,7 @@ from fusion.belief.posterior import Posterior
 from fusion.conflict import support_conflict, support_joint_conflict
 from fusion.errors import FrameMismatchError, ZeroEvidenceError
 from fusion.grid import PoseGrid
-from fusion.motion import predict_on_free
+from fusion.motion import predict_into
 from fusion.sensors.base import Evidence
 from fusion.sensors.odometry import Motion
 
@@ -69,7 +69,7 @@ class HistogramFilter:
     def predict(self, motion: Motion) -> None:
         shape = self.grid.shape
         try:
-            self.belief.move(lambda p, out: predict_on_free(p.reshape(shape), motion, self.free, out=out))
+            self.belief.move(lambda p, out: predict_into(p.reshape(shape), motion, self.free, out))
         except ZeroEvidenceError:  # every cell moved off free space: keep the belief, the monitor will see it
             pass
 

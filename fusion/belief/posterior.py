@@ -104,14 +104,16 @@ class Posterior:
     def move(self, predict) -> None:
         """Replace the belief by a prediction of it, renormalised; evidence is kept.  ``predict(p, out)`` writes the
         prediction of the probabilities ``p`` (read-only) into ``out``, a spare buffer of the same shape, finite and
-        non-negative: unlike ``set`` no new belief-sized array is made.  Raises ``ZeroEvidenceError`` (belief
-        unchanged) when the prediction holds nothing."""
+        non-negative: unlike ``set`` no new belief-sized array is made.  When it returns a float, that is the sum of
+        what it wrote (``fusion.motion.predict_into`` adds it up as it writes), saving a pass; anything else (None,
+        ``out`` itself): summed here.  Raises ``ZeroEvidenceError`` (belief unchanged) when the prediction holds
+        nothing."""
         out = self._spare()
         current = self._p.view()
         current.flags.writeable = False
-        predict(current, out)
+        written = predict(current, out)
         del current
-        total = float(out.sum())
+        total = written if isinstance(written, float) else float(out.sum())
         if not (total > 0 and np.isfinite(total)):
             self.set(out.copy())  # the checks and messages of ``set``
             return

@@ -35,7 +35,9 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
     entries of its row.
 
     The grid is done a block of rows at a time, for every heading, so what one heading's slice moved to is still in
-    cache when the headings are mixed, instead of a whole moved belief going out to memory and back.
+    cache when the headings are mixed, instead of a whole moved belief going out to memory and back.  Returns the
+    sum of what it wrote in fixed point, Σ int64(v · 2⁶²) (``fusion.motion.predict_into``; it overflows unless the
+    belief sums to at most 1): integer sums are exact in any order, so this one is added as the values are written.
     """
     headings, ny, nx = belief.shape
     taps = max(ox.shape[1], oy.shape[1], turn_offsets.size, 1)
@@ -50,6 +52,7 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
     across = np.empty((_ROWS + highest - lowest, nx))
     moved = np.empty((headings, _ROWS * nx))
     masked = free.size > 0
+    total = 0
     for y0 in range(0, ny, _ROWS):
         y1 = min(ny, y0 + _ROWS)
         first, last = max(0, y0 - highest), min(ny, y1 - lowest)  # the rows the block's y pass reads
@@ -64,37 +67,56 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
             for t in range(turn_offsets.size):
                 rows_buf[t] = (h - turn_offsets[t]) % headings
             if masked and 1 <= turn_offsets.size <= 4:  # the usual case: one pass, the mask applied as it writes
-                _mix_masked(dst, moved, rows_buf, turn_weights, turn_offsets.size, free[h, y0:y1].reshape(cells))
+                total += _mix_masked(
+                    dst, moved, rows_buf, turn_weights, turn_offsets.size, free[h, y0:y1].reshape(cells)
+                )
                 continue
             _combine(dst, moved, rows_buf, shifts_buf, turn_weights, turn_offsets.size, 0, cells, _PRODUCT)
             if masked:  # times 1.0 or 0.0, as numpy multiplies by a boolean mask
                 allowed = free[h, y0:y1].reshape(cells)
                 for i in range(cells):
                     dst[i] = dst[i] * allowed[i]
+            for i in range(cells):
+                total += np.int64(dst[i] * _UNIT)
+    return total
+
+
+_UNIT = 4611686018427387904.0  # 2⁶², the fixed-point unit of ``predict_density``'s total
 
 
 @numba.njit(inline="always")
 def _mix_masked(dst, moved, rows, weights, count, allowed):  # pragma: no cover - compiled
     """dst = (Σ_k weights[k]·moved[rows[k]]) · allowed for 1 to 4 taps: ``_combine``'s bare-product sum, in its order,
-    times the mask (1.0 or 0.0) in the same pass instead of a second one over dst (9% of the prediction, measured)."""
+    times the mask (1.0 or 0.0) in the same pass instead of a second one over dst (9% of the prediction, measured).
+    Returns the fixed-point sum of what it wrote (see ``predict_density``)."""
     w0, a = weights[0], moved[rows[0]]
+    total = 0
     if count == 1:
         for i in range(dst.size):
-            dst[i] = (w0 * a[i]) * allowed[i]
-        return
+            v = (w0 * a[i]) * allowed[i]
+            dst[i] = v
+            total += np.int64(v * _UNIT)
+        return total
     w1, b = weights[1], moved[rows[1]]
     if count == 2:
         for i in range(dst.size):
-            dst[i] = (w0 * a[i] + w1 * b[i]) * allowed[i]
-        return
+            v = (w0 * a[i] + w1 * b[i]) * allowed[i]
+            dst[i] = v
+            total += np.int64(v * _UNIT)
+        return total
     w2, c = weights[2], moved[rows[2]]
     if count == 3:
         for i in range(dst.size):
-            dst[i] = ((w0 * a[i] + w1 * b[i]) + w2 * c[i]) * allowed[i]
-        return
+            v = ((w0 * a[i] + w1 * b[i]) + w2 * c[i]) * allowed[i]
+            dst[i] = v
+            total += np.int64(v * _UNIT)
+        return total
     w3, e = weights[3], moved[rows[3]]
     for i in range(dst.size):
-        dst[i] = (((w0 * a[i] + w1 * b[i]) + w2 * c[i]) + w3 * e[i]) * allowed[i]
+        v = (((w0 * a[i] + w1 * b[i]) + w2 * c[i]) + w3 * e[i]) * allowed[i]
+        dst[i] = v
+        total += np.int64(v * _UNIT)
+    return total
 
 
 @numba.njit(inline="always")
