@@ -315,6 +315,16 @@ def test_compiled_bracket_pass_gathers_and_adds_up_as_numpy_does(kernels):
             np.testing.assert_array_equal(out[: min(n, room)], inside[:room])
             assert acc.tolist() == [int((scaled >= hi).sum()), int(fixed[scaled >= hi].sum()), int(fixed.sum())]
             np.testing.assert_array_equal(work, scaled)
+            if hi == np.inf:  # the pass with no top: the same cells and whole, nothing counted above
+                out, acc, work = np.full(room, -1.0), np.zeros(3, dtype=np.int64), values.copy()
+                if factor == 1.0:
+                    n = kernels.region_above(work, scale, lo, out, acc)
+                else:
+                    n = kernels.region_above_scaling(work, factor, scale, lo, out, acc)
+                assert n == inside.size
+                np.testing.assert_array_equal(out[: min(n, room)], inside[:room])
+                assert acc.tolist() == [0, 0, int(fixed.sum())]
+                np.testing.assert_array_equal(work, scaled)
 
 
 def test_region_count_settles_from_any_first_bracket(monkeypatch):

@@ -191,11 +191,15 @@ class _Bracket:
             acc[:] = np.count_nonzero(top), int(fixed[top].sum()), int(fixed.sum())
             out[: min(inside.size, out.size)] = inside[: out.size]
             return inside.size
-        if self.factor == 1.0:
-            return self.loops.region_bracket(self.values, self.scale, lo, hi, out, acc)
-        n = self.loops.region_bracket_scaling(self.values, self.factor, self.scale, lo, hi, out, acc)
+        values, factor, scale, loops = self.values, self.factor, self.scale, self.loops
         self.factor = 1.0
-        return n
+        if hi == math.inf:  # no top: a lighter pass
+            if factor == 1.0:
+                return loops.region_above(values, scale, lo, out, acc)
+            return loops.region_above_scaling(values, factor, scale, lo, out, acc)
+        if factor == 1.0:
+            return loops.region_bracket(values, scale, lo, hi, out, acc)
+        return loops.region_bracket_scaling(values, factor, scale, lo, hi, out, acc)
 
     def _floor(self) -> float:
         """The value below which cells cannot be needed: together they hold less than (1 − level) of the total."""

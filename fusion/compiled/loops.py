@@ -17,6 +17,8 @@ from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module to
     pair_union,
 )
 from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module too)
+    region_above,
+    region_above_scaling,
     region_bracket,
     region_bracket_scaling,
     region_counts,

@@ -64,18 +64,31 @@ def region_bracket(values, scale, lo, hi, out, acc):  # pragma: no cover - compi
     """For ``fusion.backends.region``, in one pass: the values in [lo, hi) gathered into ``out`` in their order (as
     many as fit), how many are ≥ hi (acc[0]) and the sum of their fixed-point masses int64(v · scale) (acc[1]), and
     the sum over all (acc[2]).  Returns how many values lie in [lo, hi), whether or not they all fit."""
-    return _bracket_pass(values, 1.0, False, scale, lo, hi, out, acc)
+    return _bracket_pass(values, 1.0, False, scale, lo, hi, True, out, acc)
 
 
 @numba.njit(cache=True, nogil=True)
 def region_bracket_scaling(values, factor, scale, lo, hi, out, acc):  # pragma: no cover - compiled
     """``region_bracket`` of the values once multiplied by ``factor``, which it does in place as it goes (numpy's
     ``values *= factor``): a normalisation and the count's last pass in one pass over the belief."""
-    return _bracket_pass(values, factor, True, scale, lo, hi, out, acc)
+    return _bracket_pass(values, factor, True, scale, lo, hi, True, out, acc)
+
+
+@numba.njit(cache=True, nogil=True)
+def region_above(values, scale, lo, out, acc):  # pragma: no cover - compiled
+    """``region_bracket`` with no top (hi = +inf, acc[0] and acc[1] left 0), for a tracked belief's cells above the
+    floor: less work a cell (0.088 against 0.125 ms a count on 300 beliefs of the depot replay, measured)."""
+    return _bracket_pass(values, 1.0, False, scale, lo, np.inf, False, out, acc)
+
+
+@numba.njit(cache=True, nogil=True)
+def region_above_scaling(values, factor, scale, lo, out, acc):  # pragma: no cover - compiled
+    """``region_above`` of the values once multiplied by ``factor``, which it does in place as it goes."""
+    return _bracket_pass(values, factor, True, scale, lo, np.inf, False, out, acc)
 
 
 @numba.njit(inline="always")
-def _bracket_pass(values, factor, scaling, scale, lo, hi, out, acc):  # pragma: no cover - compiled
+def _bracket_pass(values, factor, scaling, scale, lo, hi, capped, out, acc):  # pragma: no cover - compiled
     """Each chunk of 64 values is tallied (vectorised: the chunk's length is a constant) into a bit mask of the values
     inside the bracket, and only the set bits are visited: a gather's cost no longer grows with the cells it keeps
     (0.43 ms for 1.4 M cells whether it keeps 0 or 32,000, against 0.45 to 0.76 ms for 0 to 8,000 when each chunk
@@ -83,19 +96,20 @@ def _bracket_pass(values, factor, scaling, scale, lo, hi, out, acc):  # pragma: 
     n, tally = 0, (0, 0, 0)
     end = values.size - values.size % _CHUNK
     for start in range(0, end, _CHUNK):
-        tally, bits = _chunk(values, start, start + _CHUNK, factor, scaling, scale, lo, hi, tally)
+        tally, bits = _chunk(values, start, start + _CHUNK, factor, scaling, scale, lo, hi, capped, tally)
         if bits:
             n = _keep(values, start, bits, out, n)
-    tally, bits = _chunk(values, end, values.size, factor, scaling, scale, lo, hi, tally)
+    tally, bits = _chunk(values, end, values.size, factor, scaling, scale, lo, hi, capped, tally)
     n = _keep(values, end, bits, out, n)
     acc[0], acc[1], acc[2] = tally
     return n
 
 
 @numba.njit(inline="always")
-def _chunk(values, start, stop, factor, scaling, scale, lo, hi, tally):  # pragma: no cover - compiled
+def _chunk(values, start, stop, factor, scaling, scale, lo, hi, capped, tally):  # pragma: no cover - compiled
     """Values [start, stop), at most 64 (scaled in place first when ``scaling``): ``tally`` (how many ≥ hi, their mass,
-    the whole mass) with them added, and the bit mask of those in [lo, hi)."""
+    the whole mass) with them added, and the bit mask of those in [lo, hi).  ``scaling`` and ``capped`` (whether hi is
+    finite) are constants at each call, so the code for the other case is dropped where it is compiled."""
     above, mass, whole = tally
     bits = np.uint64(0)
     for i in range(start, stop):
@@ -104,11 +118,14 @@ def _chunk(values, start, stop, factor, scaling, scale, lo, hi, tally):  # pragm
             v = v * factor
             values[i] = v
         q = np.int64(v * scale)
-        top = v >= hi
-        inside = (v >= lo) & (v < hi)
-        above += top
-        mass += q if top else 0
         whole += q
+        if capped:
+            top = v >= hi
+            inside = (v >= lo) & (v < hi)
+            above += top
+            mass += q if top else 0
+        else:
+            inside = v >= lo
         bits |= np.uint64(inside) << np.uint64(i - start)
     return (above, mass, whole), bits
 
