@@ -45,10 +45,11 @@ _SPACING = 8192
 """Cells at most between the trial values of a narrowing pass (our choice: a gap found to hold the crossing is then
 gathered whole, well inside ``_GATHER``; see ``_from_sample``)."""
 
-_WINDOW = 24576
-"""Cells the sample's first bracket spans, around where it puts the crossing (our choice: the sample misses the
-crossing by about 8,000 cells at 1.4 M (one standard deviation, measured), so this holds it about 9 times in 10,
-and the pass that gathers it costs the same whatever it holds, up to ``_GATHER``)."""
+_WINDOW = 72
+"""Sampled values the sample's first bracket spans, around where it puts the crossing (our choice: the sample misses
+the crossing by about 24 sampled values, 8,000 cells at 1.4 M (one standard deviation, measured), so this holds it
+about 9 times in 10; the pass that gathers it costs the same whatever it holds, but the selection among what it
+gathers grows with it).  At most three quarters of ``_GATHER`` cells."""
 
 _TRIALS = 4
 """Trial values per counting pass (the compiled pass checks four at once)."""
@@ -132,7 +133,7 @@ class _Bracket:
         if _tracked(sampled):  # the values as the first pass will leave them
             return self.settle(self._floor(), math.inf)
         self.place(sampled)
-        window = self._from_sample(2, _WINDOW)
+        window = self._from_sample(2, min(_WINDOW, 0.75 * _GATHER * self.sample.size / self.values.size))
         if len(window) < 2:  # the sample cannot place it: the passes find the total, then split the bit patterns
             self._narrow([])
             return self._search()
@@ -253,12 +254,12 @@ class _Bracket:
         return (values * self.scale).astype(np.int64)  # truncated, as the compiled pass converts
 
     # ----------------------------------------------------------------- trial values
-    def _from_sample(self, k: int, spacing: int | None = None) -> list[float]:
+    def _from_sample(self, k: int, spacing: float | None = None) -> list[float]:
         """``k`` sampled values around where the sample puts the crossing: the sample's share of the bracket's mass,
         scaled to the bracket's counted mass, places it.  They are spaced about one standard error of that apart (its
         sampling error, common practice, no source), but no more than ``_SPACING`` cells apart: the cells a sampled
         value stands for vary (5,600 to 9,800 per 24 values, measured), and a gap gathered at once costs less than a
-        second pass.  ``spacing``: the cells apart instead (the first window's width)."""
+        second pass.  ``spacing``: how many sampled values apart instead (the first window's width)."""
         s, cum = self.sample, self.sample_mass
         a, b = int(np.searchsorted(s, self.lo, "left")), int(np.searchsorted(s, self.hi, "left"))
         if b - a < 2 or cum[b] == cum[a]:
@@ -269,8 +270,8 @@ class _Bracket:
         top, seen = float(cum[b]), float(cum[b] - cum[a])
         need = top - (target - self.hi_mass) * seen / max(lo_mass - self.hi_mass, 1)
         centre = int(np.searchsorted(cum[a:b], need, "right")) - 1 + a  # the largest sampled value still reaching it
-        step = min(0.6 * math.sqrt(b - a), _SPACING * s.size / self.values.size) if spacing is None else None
-        step = max(1.0, step if step is not None else spacing * s.size / self.values.size)  # a gap is gathered
+        step = min(0.6 * math.sqrt(b - a), _SPACING * s.size / self.values.size) if spacing is None else spacing
+        step = max(1.0, step)  # a gap is gathered
         spots = {min(max(centre + round(step * (j - (k - 1) / 2)), a), b - 1) for j in range(k)}
         return [float(s[i]) for i in sorted(spots)]
 
