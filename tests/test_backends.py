@@ -175,8 +175,9 @@ def test_region_size_of_degenerate_beliefs_neither_raises_nor_hangs():
 def test_region_search_counts_as_the_full_sort_does_whatever_its_sample_shows():
     # The bracketing search against the highest-density region by its definition, a full sort (Hyndman 1996), on
     # spread, tied, wide-ranging and equal values, and on beliefs its evenly spaced sample cannot see: every sampled
-    # cell empty, or the mass in a run of near-equal values between them.  The counts decide, not the sample, so
-    # these take the bit-pattern splitting and equal-value steps; ``passes`` checks that they end.
+    # cell empty, the mass in a run of near-equal values between them, or between sampled cells too small to weigh
+    # in fixed point (no first bracket can be placed).  The counts decide, not the sample, so
+    # these take the bit-pattern splitting and equal-value steps; ``calls`` checks that they end.
     from fusion.backends import region
 
     rng = np.random.default_rng(8)
@@ -185,6 +186,9 @@ def test_region_search_counts_as_the_full_sort_does_whatever_its_sample_shows():
     close = np.full(60_000, 1e-9)
     close[1::2] = 1.0 + rng.integers(0, 50, 30_000) * 2.0**-50  # distinct values a few bits apart
     close[:: 60_000 // region._SAMPLE] = 0.0
+    unseen = 1e-25 * (1.0 + rng.random(200_000))  # sampled cells too small to weigh: no first bracket to place
+    between = np.setdiff1d(np.arange(200_000), np.arange(0, 200_000, region._stride(200_000)))[:5_000]
+    unseen[between] = rng.random(5_000)
     calls = []
     counts = region._Bracket._counts
     try:
@@ -197,6 +201,7 @@ def test_region_search_counts_as_the_full_sort_does_whatever_its_sample_shows():
             np.full(100_000, 0.25),
             hidden,
             close,
+            unseen,
         ):
             calls.clear()
             desc = np.sort(values[values > 0])[::-1]

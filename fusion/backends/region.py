@@ -116,7 +116,7 @@ class _Bracket:
 
     def __init__(self, values: np.ndarray, level: float, total: float, factor: float = 1.0):
         self.values, self.level, self.total, self.scale = values, level, total, _FIXED / total
-        self.factor = factor  # ≠ 1: the values are to be multiplied by it, in place, by the first counting pass
+        self.factor = factor  # ≠ 1: the values are to be multiplied by it, in place, by the first pass
         self.loops = compiled.kernels()
         self.sample, self.sample_mass = np.empty(0), np.zeros(1, dtype=np.int64)
         self.lo, self.lo_count, self.lo_mass = 0.0, values.size, None  # None: the total, known after the first pass
@@ -134,9 +134,8 @@ class _Bracket:
             return self.settle(self._floor(), math.inf)
         self.place(sampled)
         window = self._from_sample(2, min(_WINDOW, 0.75 * _GATHER * self.sample.size / self.values.size))
-        if len(window) < 2:  # the sample cannot place it: the passes find the total, then split the bit patterns
-            self._narrow([])
-            return self._search()
+        if len(window) < 2:  # the sample cannot place it: every cell is the bracket (the search splits bit patterns)
+            window = [0.0, math.inf]
         return self.settle(*window)
 
     def _search(self) -> int:
@@ -226,8 +225,8 @@ class _Bracket:
 
     def _counts(self, trials: list[float]) -> tuple[list[int], list[int], int]:
         """Per trial value: how many cells are at or above it and their fixed-point mass; and the whole mass."""
+        self._scale_now()  # a no-op after the first pass (``settle``), which scales as it goes
         if self.loops is None:
-            self._scale_now()
             fixed = self._fixed(self.values)
             masks = [self.values >= t for t in trials]
             return [int(np.count_nonzero(m)) for m in masks], [int(fixed[m].sum()) for m in masks], int(fixed.sum())
@@ -235,11 +234,7 @@ class _Bracket:
         for start in range(0, max(len(trials), 1), _TRIALS):
             chunk = trials[start : start + _TRIALS]
             padded = np.array(chunk + [math.inf] * (_TRIALS - len(chunk)))  # nothing is at or above infinity
-            if self.factor != 1.0:
-                self.loops.region_counts_scaling(self.values, self.factor, self.scale, padded, out)
-                self.factor = 1.0
-            else:
-                self.loops.region_counts(self.values, self.scale, padded, out)
+            self.loops.region_counts(self.values, self.scale, padded, out)
             counts += out[: len(chunk)].tolist()
             masses += out[_TRIALS : _TRIALS + len(chunk)].tolist()
         return counts, masses, int(out[-1])

@@ -23,20 +23,6 @@ def region_counts(values, scale, trials, out):  # pragma: no cover - compiled
         out[k] = acc[k]
 
 
-@numba.njit(cache=True, nogil=True)
-def region_counts_scaling(values, factor, scale, trials, out):  # pragma: no cover - compiled
-    """``region_counts`` of the values once multiplied by ``factor``, which it does in place as it goes (numpy's
-    ``values *= factor``): a normalisation and the first counting pass in one pass over the belief."""
-    t = (trials[0], trials[1], trials[2], trials[3])
-    acc = (0, 0, 0, 0, 0, 0, 0, 0, 0)
-    for i in range(values.size):
-        v = values[i] * factor
-        values[i] = v
-        acc = _tally(v, scale, t, acc)
-    for k in range(9):
-        out[k] = acc[k]
-
-
 @numba.njit(inline="always")
 def _tally(v, scale, t, acc):  # pragma: no cover - compiled
     """``acc`` (counts at or above each trial, their masses, the whole mass) with the value ``v`` added."""
