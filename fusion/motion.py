@@ -148,7 +148,7 @@ def _density(belief, motion, sigma, sigma_turn, free, out) -> tuple[np.ndarray, 
     if loops is not None and belief.dtype == np.float64:
         target = np.empty(belief.shape) if out is None else out.reshape(belief.shape)
         given = _NO_MASK if mask is None else np.ascontiguousarray(mask)
-        total = loops.predict_density(np.ascontiguousarray(belief), *across, *along, *_pair(turn), given, target)
+        total = loops.predict_density(np.ascontiguousarray(belief), *across, *along, *_pair(turn), given, target, _UNIT)
         return target, int(total)
     target = _predict_numpy(belief, across, along, turn)
     if out is not None:  # the numpy code makes its own array: copied into the caller's buffer

@@ -29,7 +29,7 @@ _ROWS = 16  # grid rows per block of the prediction: every heading's moved rows 
 
 
 @numba.njit(cache=True, nogil=True)
-def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, free, out):  # pragma: no cover
+def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, free, out, unit):  # pragma: no cover
     """``fusion.motion.predict_density`` into ``out``: per heading h, Σ_k wx[h,k]·(slice moved by ox[h,k] along x),
     zero-filled; the same along y; then headings mixed by the turn taps (wrapping round); then cells where ``free``
     is False set to 0 (``free`` empty: no mask).  The taps are padded tables: heading h uses the first cx[h] (cy[h])
@@ -37,8 +37,8 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
 
     The grid is done a block of rows at a time, for every heading, so what one heading's slice moved to is still in
     cache when the headings are mixed, instead of a whole moved belief going out to memory and back.  Returns the
-    sum of what it wrote in fixed point, Σ int64(v · 2⁶²) (``fusion.motion.predict_into``; it overflows unless the
-    belief sums to at most 1): integer sums are exact in any order, so this one is added as the values are written.
+    sum of what it wrote in fixed point, Σ int64(v · unit) (``fusion.motion.predict_into``, which sets the unit):
+    integer sums are exact in any order, so this one is added as the values are written.
     """
     headings, ny, nx = belief.shape
     taps = max(ox.shape[1], oy.shape[1], turn_offsets.size, 1)
@@ -68,9 +68,8 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
             for t in range(turn_offsets.size):
                 rows_buf[t] = (h - turn_offsets[t]) % headings
             if masked and 1 <= turn_offsets.size <= 4:  # the usual case: one pass, the mask applied as it writes
-                total += _mix_masked(
-                    dst, moved, rows_buf, turn_weights, turn_offsets.size, free[h, y0:y1].reshape(cells)
-                )
+                allowed = free[h, y0:y1].reshape(cells)
+                total += _mix_masked(dst, moved, rows_buf, turn_weights, turn_offsets.size, allowed, unit)
                 continue
             _combine(dst, moved, rows_buf, shifts_buf, turn_weights, turn_offsets.size, 0, cells, _PRODUCT)
             if masked:  # times 1.0 or 0.0, as numpy multiplies by a boolean mask
@@ -78,15 +77,12 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
                 for i in range(cells):
                     dst[i] = dst[i] * allowed[i]
             for i in range(cells):
-                total += np.int64(dst[i] * _UNIT)
+                total += np.int64(dst[i] * unit)
     return total
 
 
-_UNIT = 4611686018427387904.0  # 2⁶², the fixed-point unit of ``predict_density``'s total
-
-
 @numba.njit(inline="always")
-def _mix_masked(dst, moved, rows, weights, count, allowed):  # pragma: no cover - compiled
+def _mix_masked(dst, moved, rows, weights, count, allowed, unit):  # pragma: no cover - compiled
     """dst = (Σ_k weights[k]·moved[rows[k]]) · allowed for 1 to 4 taps: ``_combine``'s bare-product sum, in its order,
     times the mask (1.0 or 0.0) in the same pass instead of a second one over dst (9% of the prediction, measured).
     Returns the fixed-point sum of what it wrote (see ``predict_density``)."""
@@ -96,27 +92,27 @@ def _mix_masked(dst, moved, rows, weights, count, allowed):  # pragma: no cover 
         for i in range(dst.size):
             v = (w0 * a[i]) * allowed[i]
             dst[i] = v
-            total += np.int64(v * _UNIT)
+            total += np.int64(v * unit)
         return total
     w1, b = weights[1], moved[rows[1]]
     if count == 2:
         for i in range(dst.size):
             v = (w0 * a[i] + w1 * b[i]) * allowed[i]
             dst[i] = v
-            total += np.int64(v * _UNIT)
+            total += np.int64(v * unit)
         return total
     w2, c = weights[2], moved[rows[2]]
     if count == 3:
         for i in range(dst.size):
             v = ((w0 * a[i] + w1 * b[i]) + w2 * c[i]) * allowed[i]
             dst[i] = v
-            total += np.int64(v * _UNIT)
+            total += np.int64(v * unit)
         return total
     w3, e = weights[3], moved[rows[3]]
     for i in range(dst.size):
         v = (((w0 * a[i] + w1 * b[i]) + w2 * c[i]) + w3 * e[i]) * allowed[i]
         dst[i] = v
-        total += np.int64(v * _UNIT)
+        total += np.int64(v * unit)
     return total
 
 
