@@ -192,6 +192,32 @@ def test_a_pair_block_reads_as_the_rows_it_stands_for(kernels):
         assert block.or_into(5, target) == bool((rows[5] & ~rows[2]).any())
         np.testing.assert_array_equal(target, rows[2] | rows[5])
         assert len(block) == 11 and block.shape == (11, 70)
+        for which, against in ((np.array([0, 3, 8]), np.array([1, 4, 2])), (np.arange(11), np.arange(11))):
+            same = all(np.array_equal(rows[p], rows[q]) for p, q in zip(which, against))
+            assert block.rows_equal(which, against) == same
+
+
+def test_a_pair_block_compares_rows_without_writing_them(kernels):
+    # Equal sets from different pairs (a row of ``a`` repeated, and a pair repeated) are equal, a row differing in
+    # one bit of its last word is not, and the answer is numpy's comparison of the written rows.
+    from fusion.belief.pairs import PairBlock
+
+    rng = np.random.default_rng(12)
+    a = rng.integers(0, 2**64, size=(4, 9), dtype=np.uint64)
+    b = rng.integers(0, 2**64, size=(2, 9), dtype=np.uint64)
+    a[1] = a[0]
+    a[2] = a[0]
+    a[2, -1] ^= np.uint64(1) << np.uint64(63)
+    b[1, -1] |= np.uint64(1) << np.uint64(63)  # so that bit survives the AND with b[1]
+    left, right = np.array([0, 1, 2, 0, 3]), np.array([1, 1, 1, 1, 0])
+    for union, op in ((False, np.bitwise_and), (True, np.bitwise_or)):
+        block, rows = PairBlock(a, b, union, left, right, kernels), op(a[left], b[right])
+        for p, q in ((0, 1), (0, 3), (0, 2), (1, 2), (4, 0), (4, 4)):
+            expected = bool(np.array_equal(rows[p], rows[q]))
+            assert block.rows_equal(np.array([p]), np.array([q])) == expected, (union, p, q)
+        assert block.rows_equal(np.array([0, 1]), np.array([1, 3]))
+        # a[2] differs from a[0] only in a bit b[1] has: the AND keeps the difference, the OR hides it.
+        assert block.rows_equal(np.array([0, 0]), np.array([1, 2])) == union
 
 
 def test_compiled_pair_fingerprints_without_rows_equal_the_written_pairs(kernels):

@@ -40,6 +40,7 @@ class FocalAccumulator:
         self._weights = np.zeros(0, dtype=np.float64)
         self._block = np.zeros(0, dtype=np.intp)  # slot -> (block, row) where its set is stored
         self._row_at = np.zeros(0, dtype=np.intp)
+        self._void = np.zeros(0, dtype=bool)  # slot -> its set is known, exactly, to be the empty set
         self._sorted: np.ndarray | None = None  # slots by fingerprint, for lookups
         self._shared = False  # two slots share a fingerprint (a collision): look up one row at a time
 
@@ -80,9 +81,10 @@ class FocalAccumulator:
         if new.size:
             new = new[np.argsort(first[new], kind="stable")]  # new sets in the order they first came
             positions = first[new]
+            void = None if empty is None else empty[positions]
             if not owned:
                 rows, positions = rows[positions], np.arange(len(positions))
-            self._append(rows, positions, uniq[new], sums[new])
+            self._append(rows, positions, uniq[new], sums[new], void)
 
     def _lookup(self, fps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(which fingerprints a slot already has, that slot) for distinct fingerprints."""
@@ -102,6 +104,8 @@ class FocalAccumulator:
             return True
         differ = which != against if other is not None else np.ones(len(which), dtype=bool)
         which, against = which[differ], against[differ]
+        if other is rows and isinstance(rows, PairBlock):  # within one unwritten block: compared from its inputs
+            return rows.rows_equal(which, against)
         step = max(1, _COMPARE_BYTES // (8 * self._w))
         for start in range(0, len(which), step):
             mine = rows[which[start : start + step]]
@@ -123,14 +127,22 @@ class FocalAccumulator:
             else:
                 self._append(rows[i : i + 1].copy(), np.zeros(1, dtype=np.intp), np.array([fp], np.uint64), [w])
 
-    def _append(self, rows: np.ndarray, positions: np.ndarray, fps: np.ndarray, weights) -> None:
+    def _append(self, rows: np.ndarray, positions: np.ndarray, fps: np.ndarray, weights, void=None) -> None:
+        """New slots for ``rows[positions]``; ``void``: which of them are known to be the empty set."""
+        void = np.zeros(len(positions), dtype=bool) if void is None else np.asarray(void, dtype=bool)
         if len(self._fps) and np.isin(fps, self._fps).any():
             self._shared = True
         self._blocks.append(rows)
-        self._block = np.append(self._block, np.full(len(positions), len(self._blocks) - 1, dtype=np.intp))
-        self._row_at = np.append(self._row_at, np.asarray(positions, dtype=np.intp))
-        self._fps = np.append(self._fps, np.asarray(fps, dtype=np.uint64))
-        self._weights = np.append(self._weights, np.asarray(weights, dtype=np.float64))
+        block = np.full(len(positions), len(self._blocks) - 1, dtype=np.intp)
+        columns = (
+            (block, np.asarray(positions, dtype=np.intp), np.asarray(fps, dtype=np.uint64))
+            + (np.array(weights, dtype=np.float64), void)  # a copy: weights grow in place
+        )
+        if len(self._fps):  # the first batch's arrays are taken as they are
+            columns = tuple(
+                map(np.concatenate, zip((self._block, self._row_at, self._fps, self._weights, self._void), columns))
+            )
+        self._block, self._row_at, self._fps, self._weights, self._void = columns
         self._sorted = None
 
     def rows_of(self, slots: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
@@ -159,9 +171,10 @@ class FocalAccumulator:
         return self.rows_of(np.arange(len(self._weights))), self._weights.copy()
 
     def empty_slots(self) -> np.ndarray:
-        """Which slots hold the empty set: its fingerprint is 0, confirmed exactly (few rows to look at)."""
+        """Which slots hold the empty set: its fingerprint is 0, confirmed exactly (few rows to look at, none of
+        those known to be empty when they came)."""
         empty = self._fps == 0
-        for slot in np.flatnonzero(empty).tolist():
+        for slot in np.flatnonzero(empty & ~self._void).tolist():
             empty[slot] = not self._row(slot).any()
         return empty
 
@@ -206,12 +219,14 @@ class FocalAccumulator:
             fps[len(keep)] = bitset.fingerprint(rows[len(keep) : len(keep) + 1])[0]
             masses.append(float(w[orphans].sum()))
         at = len(masses)
-        self.rows_of(empty_slots, out=rows[at : at + len(empty_slots)])
+        rows[at : at + len(empty_slots)] = 0  # confirmed empty: nothing to read
         fps[at : at + len(empty_slots)] = self._fps[empty_slots]
         masses += w[empty_slots].tolist()
         acc = FocalAccumulator(self.n)  # enlarged sets may now coincide: merge them exactly
         n_rows = len(masses)
-        acc.add(rows[:n_rows], masses, owned=True, fingerprints=fps[:n_rows])
+        void = np.zeros(n_rows, dtype=bool)
+        void[at:] = True  # the empty set's rows, as confirmed above
+        acc.add(rows[:n_rows], masses, owned=True, fingerprints=fps[:n_rows], empty=void)
         return acc, moved, len(dropped)
 
     def _merge_nearest(self, rows: np.ndarray, masses: list, dropped: np.ndarray, moved: float):

@@ -47,6 +47,11 @@ class PairBlock:
         self._loops.pair_rows(self.a, self.b, self.union, self.left[idx], self.right[idx], out)
         return out
 
+    def rows_equal(self, which, against) -> bool:
+        """Whether row which[r] equals row against[r] for every r, compared from the inputs (no row written)."""
+        which, against = self._indices(which), self._indices(against)
+        return bool(self._loops.pair_rows_equal(self.a, self.b, self.union, self.left, self.right, which, against))
+
     def __getitem__(self, key) -> np.ndarray:
         if isinstance(key, (int, np.integer)):
             return self.take(np.array([key]))[0]

@@ -13,6 +13,7 @@ from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module to
     pair_marks,
     pair_or_into,
     pair_rows,
+    pair_rows_equal,
     pair_sets,
     pair_union,
 )

@@ -53,6 +53,23 @@ def pair_rows(a, b, union, left, right, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True, nogil=True)
+def pair_rows_equal(a, b, union, left, right, which, against):  # pragma: no cover - compiled
+    """Whether row which[r] equals row against[r] for every r, where row q is a[left[q]] & b[right[q]] (| with
+    ``union``): the exact check behind equal fingerprints, word by word from the inputs, no row written out; stops
+    at the first difference."""
+    words = a.shape[1]
+    for r in range(which.size):
+        p, q = which[r], against[r]
+        x, y, u, v = a[left[p]], b[right[p]], a[left[q]], b[right[q]]
+        differ = np.uint64(0)
+        for k in range(words):
+            differ |= _word(x[k], y[k], union) ^ _word(u[k], v[k], union)
+        if differ != 0:
+            return False
+    return True
+
+
+@numba.njit(cache=True, nogil=True)
 def pair_union(a, b, union, left, right, out):  # pragma: no cover - compiled
     """out |= a[left[r]] & b[right[r]] (| with ``union``) for every r: the union of a ``PairBlock``'s rows, a row at
     a time (``out`` stays in cache), none of them written out."""
