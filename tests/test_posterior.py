@@ -164,3 +164,36 @@ def test_a_prediction_that_holds_nothing_is_refused_and_the_belief_kept():
     with pytest.raises(ZeroEvidenceError):
         belief.move(lambda p, out: out.fill(0.0))
     assert_close(belief.probabilities, [0.2, 0.8])
+
+
+def test_a_large_update_normalises_by_the_lane_sums_of_its_product():
+    # From COMPILED_FROM cells the normalising sum is the lane sums of the product, added up exactly (math.fsum,
+    # Shewchuk 1997, "Adaptive precision floating-point arithmetic").  The lanes are checked against their
+    # definition written as a plain loop, and the sum against the correctly rounded one: L lanes of m values each,
+    # added in order, are off by at most (m − 1)·u·Σ|x| (Higham 2002, *Accuracy and Stability of Numerical
+    # Algorithms*, §4.2), u = 2⁻⁵³.
+    import math
+
+    from fusion import compiled
+    from fusion.belief.posterior import COMPILED_FROM, lane_sums
+
+    width = compiled.SUM_LANES
+    rng = np.random.default_rng(5)
+    for n in (1, width - 1, width, width + 1, 3 * width + 7):
+        values = rng.random(n) ** 4
+        expected = [0.0] * width
+        body = n - n % width
+        for i in range(body):
+            expected[i % width] += float(values[i])
+        for i in range(body, n):
+            expected[i - body] += float(values[i])
+        assert lane_sums(values).tolist() == expected
+    n = COMPILED_FROM * 17 + 5
+    prior, likelihood = rng.random(n), rng.random(n) ** 3
+    belief = Posterior(prior)
+    product = belief.probabilities * likelihood
+    step = belief.update(likelihood)
+    exact = math.fsum(product.tolist())
+    bound = (n // width) * 2.0**-53 * exact
+    assert abs(math.exp(step) - exact) <= bound + 4 * 2.0**-53 * exact  # + the rounding of log and exp
+    assert step == math.log(math.fsum(lane_sums(product).tolist()))

@@ -10,6 +10,7 @@ surprising under the belief).  The update is Bayes' rule as in a histogram filte
 
 from __future__ import annotations
 
+import math
 import sys
 
 import numpy as np
@@ -18,12 +19,14 @@ from fusion import compiled
 from fusion.belief.frame_checks import cell_vector
 from fusion.errors import LikelihoodValueError, ZeroEvidenceError
 
-__all__ = ["Posterior", "COMPILED_FROM"]
+__all__ = ["Posterior", "COMPILED_FROM", "lane_sums"]
 
 COMPILED_FROM = 4096
 """Cells from which an update runs the compiled product (``fusion.compiled``).  It is faster at every size once
 loaded (6.7 against 4.8 µs at 256 cells, 53 against 39 µs at 65,536, measured), but loading the loops costs about
-0.5 s: a small belief is not worth that to a process that has no large one (our choice)."""
+0.5 s: a small belief is not worth that to a process that has no large one (our choice).  From this size the
+normalising sum is the lane sum (``lane_sums``, added up as the product is written) whichever code runs, so the
+compiled and numpy updates give the same posterior; below it, numpy's sum."""
 
 
 class Posterior:
@@ -135,17 +138,20 @@ class Posterior:
             lik = None
         if lik is None or lik.shape != (self.n,):
             lik = self._check(likelihood, "likelihood")
-        post, hi = self._spare(), -1.0
-        loops = compiled.kernels() if lik.size >= COMPILED_FROM else None
+        post, hi, z = self._spare(), -1.0, None
+        large = lik.size >= COMPILED_FROM
+        loops = compiled.kernels() if large else None
         if loops is not None and lik.dtype == np.float64 and lik.flags.c_contiguous:
-            bits = loops.checked_product(self._p, lik, post)  # −1: a bad likelihood, found and named below
+            lanes = np.zeros(compiled.SUM_LANES)
+            bits = loops.checked_product(self._p, lik, post, lanes)  # −1: a bad likelihood, found and named below
             hi = float(np.int64(bits).view(np.float64)) if bits >= 0 else -1.0
+            z = _fold(lanes)
         if hi < 0:
             hi = self._checked_maximum(lik)
             np.multiply(self._p, lik, out=post)
+            z = _fold(lane_sums(post)) if large else float(post.sum())
         if hi <= 0:
             raise ZeroEvidenceError(self._zero_message())
-        z = float(post.sum())
         if z < 1e-250:  # may have underflowed: redo with the likelihood scaled to a maximum of 1
             return self._absorb(lik / hi, float(np.log(hi)), normalise)
         (normalise or _rescale)(post, 1.0 / z)
@@ -248,6 +254,22 @@ class Posterior:
 
     def __repr__(self) -> str:
         return f"Posterior(n={self.n}, MAP cell {self.map_cell()}, entropy {self.entropy():.3g} nats)"
+
+
+def lane_sums(values: np.ndarray) -> np.ndarray:
+    """The ``SUM_LANES`` lane sums of a large update's product (``fusion.compiled.loops.checked_product`` makes the
+    same numbers as it writes): lane j adds values j, j + L, j + 2L, … of the first n − n mod L in order (numpy adds
+    a C-ordered table's rows in order along its first axis), then value n − n mod L + j."""
+    width = compiled.SUM_LANES
+    body = values.size - values.size % width
+    lanes = np.add.reduce(values[:body].reshape(-1, width), axis=0) if body else np.zeros(width)
+    lanes[: values.size - body] += values[body:]
+    return lanes
+
+
+def _fold(lanes: np.ndarray) -> float:
+    """The sum of the lanes, correctly rounded (``math.fsum``), so the order they are added in cannot matter."""
+    return math.fsum(lanes.tolist())
 
 
 def _rescale(post: np.ndarray, factor: float) -> None:

@@ -19,9 +19,13 @@ from types import ModuleType
 
 from fusion.errors import KernelSetupError
 
-__all__ = ["ENV", "CHOICES", "KernelChoice", "KernelSetupError", "kernels", "choice", "setting", "reset"]
+__all__ = ["ENV", "SUM_LANES", "CHOICES", "KernelChoice", "KernelSetupError", "kernels", "choice", "setting", "reset"]
 
 ENV = "FUSION_KERNELS"
+SUM_LANES = 256
+"""Lanes of a sum that a compiled loop adds up as it writes (``checked_product``): lane j takes every L-th value
+from j.  Fewer lanes cost the numpy twin more (32: 0.82 against 0.31 ms over 1.4 M values, whose plain sum takes
+0.28), more cost the loop more (1,024: +0.14 ms, 256: +0.03, measured)."""
 CHOICES = ("auto", "numpy", "compiled")
 
 

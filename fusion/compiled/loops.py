@@ -9,6 +9,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
+from fusion.compiled import SUM_LANES
 from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module too)
     pair_marks,
     pair_or_into,
@@ -259,18 +260,40 @@ def _combine(dst, table, rows, shifts, weights, count, lo, hi, start_as):  # pra
 
 
 @numba.njit(cache=True, nogil=True)
-def checked_product(p, likelihood, out):  # pragma: no cover - compiled
+def checked_product(p, likelihood, out, lanes):  # pragma: no cover - compiled
     """out = p · likelihood cell by cell (``fusion.belief.posterior.Posterior.update``'s product) and, in the same pass,
     the bit pattern of the largest likelihood; −1 instead when a likelihood is negative (−0.0 included), NaN or
     infinite, for the numpy code to find and name.  Non-negative float64 values order as their bit patterns do (IEEE
     754), and integer minima and maxima vectorise where float ones, NaN-aware, do not: one pass at about the speed
-    of the product alone, against numpy's three (minimum, maximum, product)."""
+    of the product alone, against numpy's three (minimum, maximum, product).
+
+    ``lanes`` (zeros on entry, L = ``SUM_LANES`` of them) gets the product's lane sums as ``fusion.belief.posterior.lane_sums`` makes
+    them: lane j adds the cells j, j + L, j + 2L, … of the first n − n mod L in order, then cell n − n mod L + j; the
+    caller adds up the lanes.  Independent lanes vectorise where one running sum does not, so the normalising sum
+    costs no pass of its own."""
     bits = likelihood.view(np.int64)
     lo, hi = np.int64(0), np.int64(0)
-    for i in range(p.size):
+    width = (
+        SUM_LANES  # a constant: the compiler unrolls the lanes into vectors (a width given at run time: 2.3× slower)
+    )
+    body = p.size - p.size % width
+    sums = np.zeros(width)  # its own array, which ``out`` cannot overlap (``lanes`` could): the loop vectorises
+    for start in range(0, body, width):
+        for j in range(width):
+            i = start + j
+            lo = min(lo, bits[i])
+            hi = max(hi, bits[i])
+            v = p[i] * likelihood[i]
+            out[i] = v
+            sums[j] += v
+    for i in range(body, p.size):
         lo = min(lo, bits[i])
         hi = max(hi, bits[i])
-        out[i] = p[i] * likelihood[i]
+        v = p[i] * likelihood[i]
+        out[i] = v
+        sums[i - body] += v
+    for j in range(width):
+        lanes[j] += sums[j]
     return np.int64(-1) if lo < 0 or hi >= _INFINITY_BITS else hi
 
 
