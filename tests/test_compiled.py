@@ -353,6 +353,46 @@ def test_compiled_bracket_pass_gathers_and_adds_up_as_numpy_does(kernels):
                 np.testing.assert_array_equal(work, scaled)
 
 
+def test_compiled_crossing_counts_as_a_full_sort_does(kernels):
+    # The count among the bracket's cells (``region_crossing``: the values' range cut into ranges, only the range
+    # where the sum crosses kept) against its definition by a full sort, largest first (Hyndman 1996, "Computing and
+    # graphing highest density regions"): ties, equal values, cells too small to weigh in fixed point, a range too
+    # narrow to divide, one value, a need no subset reaches, a need every cell is needed for, and ranges that keep
+    # most of the values; the values given are left as they were.
+    rng = np.random.default_rng(41)
+
+    def by_sort(values, scale, need):
+        fixed = (values * scale).astype(np.int64)
+        total = int(fixed.sum())
+        if total < need:
+            return total, -1
+        return total, int(np.searchsorted(np.cumsum(np.sort(fixed)[::-1]), need, "left")) + 1
+
+    families = [
+        lambda n: rng.random(n),
+        lambda n: rng.random(n) ** 25,
+        lambda n: np.round(rng.random(n), 2),
+        lambda n: np.full(n, 0.37),
+        lambda n: np.append(np.where(rng.random(n - 1) < 0.5, 1e-300, rng.random(n - 1)), 0.75),
+        lambda n: 0.5 + rng.random(n) * 1e-15,
+        lambda n: 1e-290 * (1 + rng.integers(0, 2, n) * 2.0**-52),  # a range whose width's reciprocal overflows
+        lambda n: np.concatenate([np.full(n - n // 50, 1e-3), rng.random(n // 50)]),  # most values in one range
+    ]
+    for family in families:
+        for n in (1, 7, 256, 257, 3000, 30_000):
+            values = family(n)
+            with np.errstate(over="ignore"):
+                scale = 2.0**61 / values.sum()
+            if not np.isfinite(scale):  # region_size rescales such a belief first (its own test)
+                continue
+            whole = int((values * scale).astype(np.int64).sum())
+            for need in {1, max(1, whole // 3), max(1, int(whole * 0.95)), whole, whole + 1}:
+                given = values.copy()
+                total, k = kernels.region_crossing(given, scale, need)
+                assert (int(total), int(k)) == by_sort(values, scale, need), (n, need)
+                np.testing.assert_array_equal(given, values)
+
+
 def test_region_count_settles_from_any_first_bracket(monkeypatch):
     # The one-pass count from a first bracket that holds the crossing, lies wholly above or below it, holds too many
     # cells, or is empty: the exact masses found by the pass decide, so the count is the full sort's (Hyndman 1996,

@@ -24,6 +24,7 @@ from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module 
     region_bracket,
     region_bracket_scaling,
     region_counts,
+    region_crossing,
 )
 
 _ADD, _ZERO, _PRODUCT = 0, 1, 2  # how a sum of taps starts: onto what is there, onto 0.0, or as the bare product

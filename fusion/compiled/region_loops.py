@@ -135,3 +135,72 @@ _DE_BRUIJN = np.uint64(0x022FDD63CC95386D)
 _DE_BRUIJN_INDEX = np.zeros(64, dtype=np.int64)
 for _bit in range(64):
     _DE_BRUIJN_INDEX[((1 << _bit) * 0x022FDD63CC95386D % 2**64) >> 58] = _bit
+
+
+_BUCKETS = 1024  # value ranges per pass of ``region_crossing`` (our choice)
+_SORTED = 256  # candidates from which ``region_crossing`` sorts instead of dividing further (our choice)
+
+
+@numba.njit(cache=True, nogil=True)
+def region_crossing(values, scale, need):  # pragma: no cover - compiled
+    """For ``fusion.backends.region``: (the sum of the values' fixed-point masses int64(v · scale), k), k the fewest
+    of the largest values whose masses add up to at least ``need`` (≥ 1); k = −1 when all of them fall short.
+
+    The values' range is cut into 1,024 equal ranges and each range's count and mass added up in one pass; walking
+    down from the top range, whole ranges are taken while they fall short, and only the range where the sum crosses
+    is kept, and cut again, until a few hundred values are left to sort (or all are equal).  The range of a value
+    rises with it and so does its mass (both are monotone in v, IEEE 754 rounding included), so taking ranges top
+    down takes the values largest first: the count is the one a full sort gives, ties included."""
+    n = values.size
+    total, low, high = 0, np.inf, -np.inf
+    for i in range(n):
+        v = values[i]
+        total += np.int64(v * scale)
+        low = min(low, v)
+        high = max(high, v)
+    if total < need:
+        return total, -1
+    counts = np.empty(_BUCKETS, np.int64)
+    masses = np.empty(_BUCKETS, np.int64)
+    pool, size = values, n
+    scratch = np.empty(n)  # the kept values, compacted in place from the second cut on (never written ahead of read)
+    taken, rest = 0, need
+    while size > _SORTED and high > low:
+        inv = (_BUCKETS - 1) / (high - low)
+        if not np.isfinite(inv):  # a range too narrow to divide: sorted below
+            break
+        counts[:] = 0
+        masses[:] = 0
+        for i in range(size):
+            v = pool[i]
+            b = min(np.int64((v - low) * inv), _BUCKETS - 1)
+            counts[b] += 1
+            masses[b] += np.int64(v * scale)
+        b = _BUCKETS - 1
+        while masses[b] < rest:  # the pool holds at least ``rest``: this stops inside it
+            rest -= masses[b]
+            taken += counts[b]
+            b -= 1
+        kept, new_low, new_high = 0, np.inf, -np.inf
+        for i in range(size):
+            v = pool[i]
+            if min(np.int64((v - low) * inv), _BUCKETS - 1) == b:
+                scratch[kept] = v
+                kept += 1
+                new_low = min(new_low, v)
+                new_high = max(new_high, v)
+        pool, size = scratch, kept
+        low, high = new_low, new_high
+    if not high > low:  # all equal: the same mass each
+        each = np.int64(low * scale)
+        return total, taken + (rest + each - 1) // each
+    fixed = np.empty(size, np.int64)
+    for i in range(size):
+        fixed[i] = np.int64(pool[i] * scale)
+    fixed.sort()
+    for i in range(fixed.size - 1, -1, -1):
+        taken += 1
+        rest -= fixed[i]
+        if rest <= 0:
+            break
+    return total, taken
