@@ -194,13 +194,20 @@ def region_crossing(values, scale, need):  # pragma: no cover - compiled
     if not high > low:  # all equal: the same mass each
         each = np.int64(low * scale)
         return total, taken + (rest + each - 1) // each
-    fixed = np.empty(size, np.int64)
-    for i in range(size):
-        fixed[i] = np.int64(pool[i] * scale)
+    return total, taken + _largest_reaching(pool[:size], scale, rest)
+
+
+@numba.njit(inline="always")
+def _largest_reaching(values, scale, need):  # pragma: no cover - compiled
+    """How many of the largest ``values`` add up to at least ``need`` in fixed point (they hold it): by a sort."""
+    fixed = np.empty(values.size, np.int64)
+    for i in range(values.size):
+        fixed[i] = np.int64(values[i] * scale)
     fixed.sort()
+    count = 0
     for i in range(fixed.size - 1, -1, -1):
-        taken += 1
-        rest -= fixed[i]
-        if rest <= 0:
+        count += 1
+        need -= fixed[i]
+        if need <= 0:
             break
-    return total, taken
+    return count
