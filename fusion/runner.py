@@ -49,8 +49,10 @@ STEP_COLUMNS = (
 )
 
 
-TIMING_KEYS = ("mean_step_ms", "p95_step_ms")
-"""Summary figures that are wall times: written to timing.json, not summary.json."""
+TIMING_KEYS = ("first_step_ms", "mean_step_ms", "p95_step_ms")
+"""Summary figures that are wall times: written to timing.json, not summary.json.  The first tick is timed apart:
+it carries the one-time start-up of the process (the compiled loops load on first use, about 0.5 s), which would
+lift the mean above the 95th percentile of the ticks that follow."""
 
 
 @dataclass(frozen=True)
@@ -153,6 +155,7 @@ class RunResult:
             err = np.array([r.error_m for r in mine])
             herr = np.array([r.heading_error_deg for r in mine])
             secs = np.array([r.seconds for r in mine])
+            steady = secs[1:] if secs.size > 1 else secs  # the ticks after the first (see TIMING_KEYS)
             actions = [r.action for r in mine]
             out["backends"][backend] = {
                 "median_error_m": float(np.median(err)),
@@ -162,8 +165,9 @@ class RunResult:
                 "alerts": actions.count(ALERT),
                 "relocalizations": actions.count(RELOCALIZE),
                 "quarantines": actions.count(QUARANTINE),
-                "mean_step_ms": float(secs.mean() * 1e3),
-                "p95_step_ms": float(np.percentile(secs, 95) * 1e3),
+                "first_step_ms": float(secs[0] * 1e3),
+                "mean_step_ms": float(steady.mean() * 1e3),
+                "p95_step_ms": float(np.percentile(steady, 95) * 1e3),
             }
         return out
 

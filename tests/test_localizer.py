@@ -118,7 +118,7 @@ def test_same_case_and_seed_give_byte_identical_summaries(case, tmp_path):
     for name in ("summary.json", "observations.jsonl", "truth.jsonl"):
         assert (first / name).read_bytes() == (second / name).read_bytes(), name
     timing = json.loads((first / "timing.json").read_text())
-    assert set(timing["backends"]["bayes"]) == {"mean_step_ms", "p95_step_ms"}
+    assert set(timing["backends"]["bayes"]) == {"first_step_ms", "mean_step_ms", "p95_step_ms"}
 
 
 def test_cli_run_check_and_bad_case(tmp_path, capsys, monkeypatch):
