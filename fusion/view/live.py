@@ -257,13 +257,13 @@ def summary_table(summary: dict) -> Table:
     table.add_column("figure")
     for b in summary["backends"]:
         table.add_column(BACKEND_TITLES.get(b, b), justify="right")
-    from fusion.view.run_report import SUMMARY_ROWS
+    from fusion.view.run_report import STARTUP_NOTE, SUMMARY_ROWS
 
     for label, key, fmt in SUMMARY_ROWS:
         table.add_row(label, *[fmt.format(v[key]) for v in summary["backends"].values()])
     table.caption = (
         "Errors are of the estimate (local mean around the best cell) against the simulated truth; "
-        "times are one core of this machine."
+        f"times are one core of this machine. {STARTUP_NOTE}"
     )
     return table
 
