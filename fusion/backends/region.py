@@ -5,8 +5,9 @@ cells, tracked (a few hundred cells hold nearly everything) or spread (after a r
 end's plausibility transform).  No sort of the belief, and no per-cell binning (a scatter, which does not
 vectorise).  A sample of the belief puts a bracket of values around where the most probable cells reach the level;
 one pass adds up the exact mass at and above its top and the whole's, and gathers the cells inside it, among which
-the count is found by cutting their range into smaller ones (compiled) or by a partial selection (numpy).  When those exact masses show that the sample was wrong, passes that count and
-add up the cells at or above a few trial values narrow the bracket first.  The masses, not the sample, decide, so
+the count is found by cutting their range into smaller ones (compiled) or by a partial selection (numpy).  When
+those exact masses show that the sample was wrong, passes that count and add up the cells at or above a few trial
+values narrow the bracket first.  The masses, not the sample, decide, so
 the count is exact whatever the sample shows.
 
 The masses are added up in fixed point, each value v as the integer ⌊v · 2⁶¹ / total⌋: integer sums are exact in
@@ -132,7 +133,7 @@ class _Bracket:
         self.target = None
 
     def count(self) -> int:
-        if self.values.size <= _SMALL:  # few cells: all of them are the bracket
+        if self.values.size <= _SMALL:  # few cells: all of them are the bracket (nothing above it)
             fixed = self._fixed(self.values)
             self._settle(int(fixed.sum()))
             return self._crossing(fixed)
@@ -157,7 +158,7 @@ class _Bracket:
             self._narrow(self._from_sample(_TRIALS))
             if self.lo_count - self.hi_count == before:  # the sample could not split it: split the bit patterns
                 self._narrow(self._by_bits())
-        inside, k = self._within(self._inside())
+        _, k = self._within(self._inside())
         return self.hi_count + k
 
     def place(self, sampled: np.ndarray) -> None:
@@ -308,16 +309,17 @@ class _Bracket:
             return int(inside), int(k)
         fixed = self._fixed(values)
         inside = int(fixed.sum())
-        return inside, (self._crossing(fixed) - self.hi_count if inside >= need else -1)
+        return inside, (self._crossing(fixed) if inside >= need else -1)
 
     def _crossing(self, fixed: np.ndarray) -> int:
-        """The count from the fixed-point masses of the bracket's cells, largest first.  Only the ranks where the sum
+        """How many of the bracket's cells, largest first, reach the target with the cells above it (``hi_count``
+        of them, not included), from their fixed-point masses ``fixed``.  Only the ranks where the sum
         can cross are sorted: the answer k is at least need / (largest mass) and at most need / (smallest), and a
         partition sets apart the ranks above that window, whose sum needs no order (a tenth of a sort's time on 7,500
         cells, measured; a few hundred cells are simply sorted)."""
         if fixed.size <= 512:
             cum = self.hi_mass + np.cumsum(np.sort(fixed)[::-1])
-            return self.hi_count + min(int(np.searchsorted(cum, self.target, "left")) + 1, fixed.size)
+            return min(int(np.searchsorted(cum, self.target, "left")) + 1, fixed.size)
         need, size = self.target - self.hi_mass, fixed.size  # the bracket holds at least need: k_min ≤ size
         low, high = int(fixed.min()), int(fixed.max())
         k_min = max(1, -(-need // high))
@@ -326,7 +328,7 @@ class _Bracket:
         parts = np.partition(fixed, [first, last] if last < size else [first])
         window = np.sort(parts[first:last])[::-1]
         cum = int(parts[last:].sum()) + np.cumsum(window)
-        return self.hi_count + k_min + min(int(np.searchsorted(cum, need, "left")), window.size - 1)
+        return k_min + min(int(np.searchsorted(cum, need, "left")), window.size - 1)
 
     def _inside(self) -> np.ndarray:
         n = self.lo_count - self.hi_count

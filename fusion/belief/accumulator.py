@@ -133,15 +133,16 @@ class FocalAccumulator:
         if len(self._fps) and np.isin(fps, self._fps).any():
             self._shared = True
         self._blocks.append(rows)
-        block = np.full(len(positions), len(self._blocks) - 1, dtype=np.intp)
         columns = (
-            (block, np.asarray(positions, dtype=np.intp), np.asarray(fps, dtype=np.uint64))
-            + (np.array(weights, dtype=np.float64), void)  # a copy: weights grow in place
+            np.full(len(positions), len(self._blocks) - 1, dtype=np.intp),
+            np.asarray(positions, dtype=np.intp),
+            np.asarray(fps, dtype=np.uint64),
+            np.array(weights, dtype=np.float64),  # a copy: weights grow in place
+            void,
         )
-        if len(self._fps):  # the first batch's arrays are taken as they are
-            columns = tuple(
-                map(np.concatenate, zip((self._block, self._row_at, self._fps, self._weights, self._void), columns))
-            )
+        if len(self._fps):  # after the first batch, appended to the slots there are
+            held = (self._block, self._row_at, self._fps, self._weights, self._void)
+            columns = tuple(np.concatenate(pair) for pair in zip(held, columns))
         self._block, self._row_at, self._fps, self._weights, self._void = columns
         self._sorted = None
 

@@ -268,15 +268,14 @@ def checked_product(p, likelihood, out, lanes):  # pragma: no cover - compiled
     754), and integer minima and maxima vectorise where float ones, NaN-aware, do not: one pass at about the speed
     of the product alone, against numpy's three (minimum, maximum, product).
 
-    ``lanes`` (zeros on entry, L = ``SUM_LANES`` of them) gets the product's lane sums as ``fusion.belief.posterior.lane_sums`` makes
-    them: lane j adds the cells j, j + L, j + 2L, … of the first n − n mod L in order, then cell n − n mod L + j; the
-    caller adds up the lanes.  Independent lanes vectorise where one running sum does not, so the normalising sum
-    costs no pass of its own."""
+    ``lanes`` (zeros on entry, L = ``SUM_LANES`` of them) gets the product's lane sums as
+    ``fusion.belief.posterior.lane_sums`` makes them: lane j adds the cells j, j + L, j + 2L, … of the first
+    n − n mod L in order, then cell n − n mod L + j; the caller adds up the lanes.  Independent lanes vectorise where
+    one running sum does not, so the normalising sum costs no pass of its own."""
     bits = likelihood.view(np.int64)
     lo, hi = np.int64(0), np.int64(0)
-    width = (
-        SUM_LANES  # a constant: the compiler unrolls the lanes into vectors (a width given at run time: 2.3× slower)
-    )
+    # A constant: the compiler unrolls the lanes into vectors (a width given at run time: 2.3× slower).
+    width = SUM_LANES
     body = p.size - p.size % width
     sums = np.zeros(width)  # its own array, which ``out`` cannot overlap (``lanes`` could): the loop vectorises
     for start in range(0, body, width):

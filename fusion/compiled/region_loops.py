@@ -173,7 +173,7 @@ def region_crossing(values, scale, need):  # pragma: no cover - compiled
         masses[:] = 0
         for i in range(size):
             v = pool[i]
-            b = min(np.int64((v - low) * inv), _BUCKETS - 1)
+            b = _range_of(v, low, inv)
             counts[b] += 1
             masses[b] += np.int64(v * scale)
         b = _BUCKETS - 1
@@ -184,7 +184,7 @@ def region_crossing(values, scale, need):  # pragma: no cover - compiled
         kept, new_low, new_high = 0, np.inf, -np.inf
         for i in range(size):
             v = pool[i]
-            if min(np.int64((v - low) * inv), _BUCKETS - 1) == b:
+            if _range_of(v, low, inv) == b:
                 scratch[kept] = v
                 kept += 1
                 new_low = min(new_low, v)
@@ -195,6 +195,13 @@ def region_crossing(values, scale, need):  # pragma: no cover - compiled
         each = np.int64(low * scale)
         return total, taken + (rest + each - 1) // each
     return total, taken + _largest_reaching(pool[:size], scale, rest)
+
+
+@numba.njit(inline="always")
+def _range_of(v, low, inv):  # pragma: no cover - compiled
+    """Which of ``region_crossing``'s ranges the value v falls in: one expression for both of its passes, so the
+    values kept are exactly those the range's tally counted."""
+    return min(np.int64((v - low) * inv), _BUCKETS - 1)
 
 
 @numba.njit(inline="always")
