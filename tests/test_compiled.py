@@ -91,6 +91,29 @@ def test_compiled_prediction_masks_as_numpy_does(kernels):
             )
 
 
+def test_compiled_heading_mix_pairs_headings_only_when_the_offsets_run_on(kernels):
+    # Two headings are mixed in one pass when the turn taps' offsets run on by one (o, o + 1, … round the circle, as
+    # ``_turn_taps`` makes them): the same sums, in the same order, as one heading at a time.  Other orders (backwards,
+    # with gaps, shuffled) take the one-heading pass.  Both against numpy, with 1 to 4 taps, heading counts odd and
+    # even (the last one then mixed alone), one heading, and the fixed-point total against numpy's integer sum.
+    rng = np.random.default_rng(9)
+    for headings in (1, 2, 3, 5, 8):
+        belief = rng.random((headings, 18, 13))
+        belief /= belief.sum()
+        free = rng.random(belief.shape) < 0.7
+        m = _motion(headings, 1.3, 0.2, 0.0, 0.5, 0.0)
+        across, along = motion._tap_table(m.dx, m.sigma), motion._tap_table(m.dy, m.sigma)
+        for offsets in ([0], [-1, 0], [0, 1, 2], [3, 4, 5, 6], [-1, 0, 1, 2], [2, 1, 0], [0, 2], [1, 0, 3, 2]):
+            turn: dict[int, float] = {}
+            for o in offsets:
+                turn.setdefault(o % headings, float(rng.random()))
+            want = motion._predict_numpy(belief, across, along, turn) * free
+            out = np.empty_like(belief)
+            total = kernels.predict_density(belief, *across, *along, *motion._pair(turn), free, out, motion._UNIT)
+            np.testing.assert_array_equal(out, want, err_msg=f"{headings} headings, offsets {list(turn)}")
+            assert total == int((want * motion._UNIT).astype(np.int64).sum())
+
+
 def test_compiled_prediction_takes_a_strided_belief(kernels):
     # A belief seen through a view (every other heading) is copied to a contiguous array first.
     belief = np.random.default_rng(1).random((16, 9, 11))[::2]

@@ -37,32 +37,106 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
             highest = max(highest, oy[h, k])
     across = np.empty((_ROWS + highest - lowest, nx))
     moved = np.empty((headings, _ROWS * nx))
-    masked = free.size > 0
     total = 0
     for y0 in range(0, ny, _ROWS):
         y1 = min(ny, y0 + _ROWS)
-        first, last = max(0, y0 - highest), min(ny, y1 - lowest)  # the rows the block's y pass reads
         for h in range(headings):
+            first, last = _rows_read(oy[h], cy[h], y0, y1, ny)
             _across_block(across, belief[h], first, last, ox[h], wx[h], cx[h], rows_buf, shifts_buf)
             _along_block(moved[h], across, ny, y0, y1, first, oy[h], wy[h], cy[h], rows_buf, shifts_buf, weights_buf)
-        cells = (y1 - y0) * nx
-        for t in range(turn_offsets.size):
-            shifts_buf[t] = 0
-        for h in range(headings):
-            dst = out[h, y0:y1].reshape(cells)
-            for t in range(turn_offsets.size):
-                rows_buf[t] = (h - turn_offsets[t]) % headings
-            if masked and 1 <= turn_offsets.size <= 4:  # the usual case: one pass, the mask applied as it writes
-                allowed = free[h, y0:y1].reshape(cells)
-                total += _mix_masked(dst, moved, rows_buf, turn_weights, turn_offsets.size, allowed, unit)
-                continue
-            _combine(dst, moved, rows_buf, shifts_buf, turn_weights, turn_offsets.size, 0, cells, _PRODUCT)
-            if masked:  # times 1.0 or 0.0, as numpy multiplies by a boolean mask
-                allowed = free[h, y0:y1].reshape(cells)
-                for i in range(cells):
-                    dst[i] = dst[i] * allowed[i]
+        total += _mix_block(out, moved, free, y0, y1, turn_offsets, turn_weights, rows_buf, shifts_buf, unit)
+    return total
+
+
+@numba.njit(inline="always")
+def _rows_read(offsets, count, y0, y1, ny):  # pragma: no cover - compiled
+    """The rows [first, last) that the y pass of rows [y0, y1) reads with one heading's taps: the block's rows moved by
+    that heading's own offsets, not by the widest of all headings' (on the bench's move, 17 rows through the x pass for
+    each block of 16 instead of 20)."""
+    lo, hi = 0, 0
+    for k in range(count):
+        lo = offsets[k] if k == 0 else min(lo, offsets[k])
+        hi = offsets[k] if k == 0 else max(hi, offsets[k])
+    return max(0, y0 - hi), max(0, min(ny, y1 - lo))
+
+
+@numba.njit(inline="always")
+def _mix_block(out, moved, free, y0, y1, turn_offsets, turn_weights, rows_buf, shifts_buf, unit):  # pragma: no cover
+    """out's rows [y0, y1) of every heading h = Σ_t turn_weights[t]·moved[(h − turn_offsets[t]) mod headings], in tap
+    order, onto the bare first product, times the mask (``free`` empty: none); returns the fixed-point sum of what it
+    wrote.  With 1 to 4 taps whose offsets run on by one (as ``fusion.motion._turn_taps`` makes them) two headings are
+    mixed in one pass (``_mix_pair``)."""
+    headings = out.shape[0]
+    cells = (y1 - y0) * out.shape[2]
+    count = turn_offsets.size
+    masked = free.size > 0
+    paired = masked and 1 <= count <= 4
+    for t in range(count):
+        shifts_buf[t] = 0
+        paired = paired and (turn_offsets[t] - turn_offsets[0] - t) % headings == 0
+    total = 0
+    h = 0
+    while h < headings:
+        dst = out[h, y0:y1].reshape(cells)
+        allowed = free[h, y0:y1].reshape(cells) if masked else free.reshape(0)
+        if paired and h + 1 < headings:
+            top = h + 1 - turn_offsets[0]
+            later, allowed_later = out[h + 1, y0:y1].reshape(cells), free[h + 1, y0:y1].reshape(cells)
+            total += _mix_pair(dst, later, moved, top, turn_weights, count, allowed, allowed_later, unit)
+            h += 2
+            continue
+        for t in range(count):
+            rows_buf[t] = (h - turn_offsets[t]) % headings
+        if masked and 1 <= count <= 4:  # the usual case: one pass, the mask applied as it writes
+            total += _mix_masked(dst, moved, rows_buf, turn_weights, count, allowed, unit)
+        else:
+            _combine(dst, moved, rows_buf, shifts_buf, turn_weights, count, 0, cells, _PRODUCT)
             for i in range(cells):
+                if masked:  # times 1.0 or 0.0, as numpy multiplies by a boolean mask
+                    dst[i] = dst[i] * allowed[i]
                 total += np.int64(dst[i] * unit)
+        h += 1
+    return total
+
+
+@numba.njit(inline="always")
+def _mix_pair(dst, later, moved, top, weights, count, allowed, allowed_later, unit):  # pragma: no cover - compiled
+    """``_mix_masked`` of two neighbouring headings h (into ``dst``) and h + 1 (into ``later``) in one pass, for 1 to 4
+    taps whose offsets run on by one: with s_j = moved[(top − j) mod headings], top = h + 1 − offset₀, heading h sums
+    s_1 … s_count and heading h + 1 sums s_0 … s_count−1, so each source row is read once for both (the same sums in
+    the same order as one heading at a time; a pass costs 0.49 against 0.67 ms for two, measured on 240×160×36 with
+    four taps).  Returns the fixed-point sum of what it wrote."""
+    headings = moved.shape[0]
+    w0, s0, s1 = weights[0], moved[top % headings], moved[(top - 1) % headings]
+    total = 0
+    if count == 1:
+        for i in range(dst.size):
+            v, u = (w0 * s1[i]) * allowed[i], (w0 * s0[i]) * allowed_later[i]
+            dst[i], later[i] = v, u
+            total += np.int64(v * unit) + np.int64(u * unit)
+        return total
+    w1, s2 = weights[1], moved[(top - 2) % headings]
+    if count == 2:
+        for i in range(dst.size):
+            v = (w0 * s1[i] + w1 * s2[i]) * allowed[i]
+            u = (w0 * s0[i] + w1 * s1[i]) * allowed_later[i]
+            dst[i], later[i] = v, u
+            total += np.int64(v * unit) + np.int64(u * unit)
+        return total
+    w2, s3 = weights[2], moved[(top - 3) % headings]
+    if count == 3:
+        for i in range(dst.size):
+            v = ((w0 * s1[i] + w1 * s2[i]) + w2 * s3[i]) * allowed[i]
+            u = ((w0 * s0[i] + w1 * s1[i]) + w2 * s2[i]) * allowed_later[i]
+            dst[i], later[i] = v, u
+            total += np.int64(v * unit) + np.int64(u * unit)
+        return total
+    w3, s4 = weights[3], moved[(top - 4) % headings]
+    for i in range(dst.size):
+        v = (((w0 * s1[i] + w1 * s2[i]) + w2 * s3[i]) + w3 * s4[i]) * allowed[i]
+        u = (((w0 * s0[i] + w1 * s1[i]) + w2 * s2[i]) + w3 * s3[i]) * allowed_later[i]
+        dst[i], later[i] = v, u
+        total += np.int64(v * unit) + np.int64(u * unit)
     return total
 
 
