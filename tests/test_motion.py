@@ -86,3 +86,27 @@ def test_taps_of_every_heading_at_once_are_each_headings_own_bit_for_bit():
         offsets, weights, counts = _tap_table(shifts, sigma)
         rows = [list(zip(offsets[h, :c].tolist(), weights[h, :c].tolist())) for h, c in enumerate(counts.tolist())]
         assert rows == [_taps(float(s), sigma) for s in shifts]
+
+
+def test_turn_taps_and_joint_tables_are_shift_kernels_own_bit_for_bit():
+    # The heading kernel built in plain floats from the cached Gaussian, and the x and y tables made as one, against
+    # shift_kernel's taps (``_taps``) one shift at a time: the same weights, offsets folded round the headings and
+    # summed where two land on one (our implementation's own invariant).
+    from fusion.motion import _tap_table, _tap_tables, _taps, _turn_taps
+
+    rng = np.random.default_rng(5)
+    for sigma in (0.0, 1e-7, 0.134, 0.3, 1.7, 6.0):
+        for turn in (0.0, 0.4, -0.5, 2.0, 35.9, -71.25, float(rng.normal(0, 20))):
+            for headings in (1, 2, 7, 36):
+                folded: dict[int, float] = {}
+                for offset, w in _taps(turn, sigma):
+                    folded[offset % headings] = folded.get(offset % headings, 0.0) + w
+                assert list(_turn_taps(turn, sigma, headings).items()) == list(folded.items())  # order: the sum's
+        dx, dy = rng.normal(0, 3, 12), rng.normal(0, 0.2, 12)
+        across, along = _tap_tables(dx, dy, sigma)
+        for joint, alone in zip((across, along), (_tap_table(dx, sigma), _tap_table(dy, sigma))):
+            for h in range(12):
+                c = alone[2][h]
+                assert joint[2][h] == c
+                assert joint[0][h, :c].tolist() == alone[0][h, :c].tolist()
+                assert joint[1][h, :c].tolist() == alone[1][h, :c].tolist()
