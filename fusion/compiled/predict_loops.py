@@ -251,66 +251,73 @@ def _edge_cells(dst, source, offsets, weights, count, first, last):  # pragma: n
 @numba.njit(inline="always")
 def _combine(dst, table, rows, shifts, weights, count, lo, hi, start_as):  # pragma: no cover - compiled
     """dst[i] for i in [lo, hi) = (start) + Σ_k weights[k]·table[rows[k], i − shifts[k]] in tap order, up to four taps a
-    pass; ``start_as``: onto dst (_ADD), onto 0.0 (_ZERO) or the bare first product (_PRODUCT).  Each product is rounded
-    and then added, in the order numpy adds the taps one array at a time, so the sums are numpy's to the last bit."""
-    m = hi - lo
-    if m <= 0:
+    pass (``_taps_onto``); ``start_as``: onto dst (_ADD), onto 0.0 (_ZERO) or the bare first product (_PRODUCT).  Each
+    product is rounded and then added, in the order numpy adds the taps one array at a time, so the sums are numpy's
+    to the last bit."""
+    if hi <= lo:
         return
     k = 0
     mode = start_as
     d = dst[lo:hi]
     while k < count:
         group = min(4, count - k)
-        w0 = weights[k]
-        a = table[rows[k], lo - shifts[k] : hi - shifts[k]]
-        if group == 1:
-            if mode == _PRODUCT:
-                for i in range(m):
-                    d[i] = w0 * a[i]
-            elif mode == _ZERO:
-                for i in range(m):
-                    d[i] = 0.0 + w0 * a[i]
-            else:
-                for i in range(m):
-                    d[i] = d[i] + w0 * a[i]
-        elif group == 2:
-            w1 = weights[k + 1]
-            b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
-            if mode == _PRODUCT:
-                for i in range(m):
-                    d[i] = w0 * a[i] + w1 * b[i]
-            elif mode == _ZERO:
-                for i in range(m):
-                    d[i] = (0.0 + w0 * a[i]) + w1 * b[i]
-            else:
-                for i in range(m):
-                    d[i] = (d[i] + w0 * a[i]) + w1 * b[i]
-        elif group == 3:
-            w1, w2 = weights[k + 1], weights[k + 2]
-            b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
-            c = table[rows[k + 2], lo - shifts[k + 2] : hi - shifts[k + 2]]
-            if mode == _PRODUCT:
-                for i in range(m):
-                    d[i] = (w0 * a[i] + w1 * b[i]) + w2 * c[i]
-            elif mode == _ZERO:
-                for i in range(m):
-                    d[i] = ((0.0 + w0 * a[i]) + w1 * b[i]) + w2 * c[i]
-            else:
-                for i in range(m):
-                    d[i] = ((d[i] + w0 * a[i]) + w1 * b[i]) + w2 * c[i]
-        else:
-            w1, w2, w3 = weights[k + 1], weights[k + 2], weights[k + 3]
-            b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
-            c = table[rows[k + 2], lo - shifts[k + 2] : hi - shifts[k + 2]]
-            e = table[rows[k + 3], lo - shifts[k + 3] : hi - shifts[k + 3]]
-            if mode == _PRODUCT:
-                for i in range(m):
-                    d[i] = ((w0 * a[i] + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
-            elif mode == _ZERO:
-                for i in range(m):
-                    d[i] = (((0.0 + w0 * a[i]) + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
-            else:
-                for i in range(m):
-                    d[i] = (((d[i] + w0 * a[i]) + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
+        _taps_onto(d, table, rows, shifts, weights, k, group, lo, hi, mode)
         k += group
         mode = _ADD
+
+
+@numba.njit(inline="always")
+def _taps_onto(d, table, rows, shifts, weights, k, group, lo, hi, mode):  # pragma: no cover - compiled
+    """One pass of ``_combine``: taps k … k + group − 1 (group 1 to 4) added onto d, which starts as ``mode`` says."""
+    m = hi - lo
+    w0 = weights[k]
+    a = table[rows[k], lo - shifts[k] : hi - shifts[k]]
+    if group == 1:
+        if mode == _PRODUCT:
+            for i in range(m):
+                d[i] = w0 * a[i]
+        elif mode == _ZERO:
+            for i in range(m):
+                d[i] = 0.0 + w0 * a[i]
+        else:
+            for i in range(m):
+                d[i] = d[i] + w0 * a[i]
+    elif group == 2:
+        w1 = weights[k + 1]
+        b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
+        if mode == _PRODUCT:
+            for i in range(m):
+                d[i] = w0 * a[i] + w1 * b[i]
+        elif mode == _ZERO:
+            for i in range(m):
+                d[i] = (0.0 + w0 * a[i]) + w1 * b[i]
+        else:
+            for i in range(m):
+                d[i] = (d[i] + w0 * a[i]) + w1 * b[i]
+    elif group == 3:
+        w1, w2 = weights[k + 1], weights[k + 2]
+        b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
+        c = table[rows[k + 2], lo - shifts[k + 2] : hi - shifts[k + 2]]
+        if mode == _PRODUCT:
+            for i in range(m):
+                d[i] = (w0 * a[i] + w1 * b[i]) + w2 * c[i]
+        elif mode == _ZERO:
+            for i in range(m):
+                d[i] = ((0.0 + w0 * a[i]) + w1 * b[i]) + w2 * c[i]
+        else:
+            for i in range(m):
+                d[i] = ((d[i] + w0 * a[i]) + w1 * b[i]) + w2 * c[i]
+    else:
+        w1, w2, w3 = weights[k + 1], weights[k + 2], weights[k + 3]
+        b = table[rows[k + 1], lo - shifts[k + 1] : hi - shifts[k + 1]]
+        c = table[rows[k + 2], lo - shifts[k + 2] : hi - shifts[k + 2]]
+        e = table[rows[k + 3], lo - shifts[k + 3] : hi - shifts[k + 3]]
+        if mode == _PRODUCT:
+            for i in range(m):
+                d[i] = ((w0 * a[i] + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
+        elif mode == _ZERO:
+            for i in range(m):
+                d[i] = (((0.0 + w0 * a[i]) + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
+        else:
+            for i in range(m):
+                d[i] = (((d[i] + w0 * a[i]) + w1 * b[i]) + w2 * c[i]) + w3 * e[i]
