@@ -157,9 +157,11 @@ class RunResult:
             secs = np.array([r.seconds for r in mine])
             steady = secs[1:] if secs.size > 1 else secs  # the ticks after the first (see TIMING_KEYS)
             actions = [r.action for r in mine]
+            quiet = err[[not (r.faults or r.carried) for r in mine]]  # ticks with nothing being injected
             out["backends"][backend] = {
                 "median_error_m": float(np.median(err)),
                 "p95_error_m": float(np.percentile(err, 95)),
+                "p95_error_quiet_m": float(np.percentile(quiet, 95)) if quiet.size else None,
                 "median_heading_error_deg": float(np.median(herr)),
                 "within_0_5_m_and_15_deg": float(np.mean((err <= 0.5) & (herr <= 15.0))),
                 "alerts": actions.count(ALERT),

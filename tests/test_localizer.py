@@ -1,7 +1,10 @@
+import csv
+import io
 import json
 import math
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from fusion.backends import BACKENDS
@@ -110,6 +113,30 @@ def test_runner_writes_complete_results(case, tmp_path):
     assert tuple(header) == STEP_COLUMNS
     lines = (folder / "observations.jsonl").read_text().splitlines()
     assert len(lines) == sum(len(t.observations) for t in result.ticks)
+
+
+def test_summary_leaves_out_the_injected_ticks_in_its_quiet_percentile(tmp_path):
+    # The "nothing injected" 95th percentile is numpy's (linear interpolation, Hyndman & Fan 1996, type 7) of the
+    # errors at the ticks with no fault being injected and no carry, from the written per-tick table; with a fault
+    # over the whole run there is no such tick (null).
+    plain = TINY.read_text()
+    for start, end, any_quiet in ((2.0, 4.0, True), (0.0, 1000.0, False)):
+        fault = f'faults = [{{ kind = "people", start_s = {start}, end_s = {end}, rate = 0.5 }}]'
+        text = plain.replace("rate_hz = 4.0\nbearings_deg", f"rate_hz = 4.0\n{fault}\nbearings_deg")
+        assert text != plain
+        path = tmp_path / f"faulty{int(end)}.toml"
+        path.write_text(text)
+        folder = write_results(run_case(load_case(path), backends=["bayes"]), tmp_path / f"out{int(end)}")
+        rows = list(csv.DictReader(io.StringIO((folder / "steps.csv").read_text())))
+        quiet = [float(r["error_m"]) for r in rows if not r["faults"] and r["carried"] == "False"]
+        figures = json.loads((folder / "summary.json").read_text())["backends"]["bayes"]
+        assert any(r["faults"] for r in rows)
+        if any_quiet:
+            assert len(quiet) < len(rows)
+            # the table's errors have six significant digits
+            assert figures["p95_error_quiet_m"] == pytest.approx(float(np.percentile(quiet, 95)), rel=1e-5)
+        else:
+            assert quiet == [] and figures["p95_error_quiet_m"] is None
 
 
 def test_same_case_and_seed_give_byte_identical_summaries(case, tmp_path):
