@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 from support import assert_close
 
+from fusion import compiled
 from fusion.backends.bayes import HistogramFilter
 from fusion.backends.contour import ContourFilter
 from fusion.backends.evidential import MassFilter
@@ -184,8 +185,12 @@ def test_the_region_sample_sorts_by_bit_pattern_as_numpy_sorts_values():
         np.exp(rng.normal(0.0, 200.0, 3000)),
         rng.random(9000)[::7],  # a strided sample, as the count takes it
         rng.random(100) - 0.5,  # negatives: numpy's float sort instead
+        np.array([]),
+        np.full(50, 0.25),  # every byte the same in every key: no pass moves anything
     ):
         np.testing.assert_array_equal(_sorted(values), np.sort(values))
+        # The compiled radix sort (without numba: the same numpy sort), -0.0 and negatives sent to numpy's sorts
+        np.testing.assert_array_equal(_sorted(values, compiled.kernels()), np.sort(values))
 
 
 def test_region_search_counts_as_the_full_sort_does_whatever_its_sample_shows():

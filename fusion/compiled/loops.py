@@ -26,6 +26,7 @@ from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module 
     region_bracket_scaling,
     region_counts,
     region_crossing,
+    region_sorted,
 )
 
 

