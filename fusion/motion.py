@@ -76,10 +76,21 @@ def _tap_table(shifts: np.ndarray, sigma: float) -> tuple[np.ndarray, np.ndarray
 
 
 def _tap_tables(across: np.ndarray, along: np.ndarray, sigma: float):
-    """``_tap_table`` of the x shifts and of the y shifts, made as one table (a third faster than two: 24 against 37
-    µs for 36 headings, measured); each part keeps its own counts, so the padding they share changes nothing."""
-    offsets, weights, counts = _tap_table(np.concatenate((across, along)), sigma)
-    n = len(across)
+    """``_tap_table`` of the x shifts and of the y shifts, made as one table; each part keeps its own counts, so
+    padding changes nothing.  With the compiled loops, made by one of them (``tap_tables``: the same weights,
+    tested), whose table is padded with zeros to the Gaussian's width; otherwise by numpy."""
+    across = np.ascontiguousarray(across, dtype=np.float64).reshape(-1)
+    along = np.ascontiguousarray(along, dtype=np.float64).reshape(-1)
+    n = across.size
+    loops = compiled.kernels()
+    if loops is None:
+        offsets, weights, counts = _tap_table(np.concatenate((across, along)), sigma)
+    else:
+        gauss, rolled = _gaussian(sigma)
+        rows = n + along.size
+        offsets, weights = np.zeros((rows, gauss.size), np.int64), np.zeros((rows, gauss.size))
+        counts = np.zeros(rows, np.int64)
+        loops.tap_tables(across, along, gauss, rolled, offsets, weights, counts)
     return (offsets[:n], weights[:n], counts[:n]), (offsets[n:], weights[n:], counts[n:])
 
 

@@ -114,6 +114,26 @@ def test_compiled_heading_mix_pairs_headings_only_when_the_offsets_run_on(kernel
             assert total == int((want * motion._UNIT).astype(np.int64).sum())
 
 
+def test_compiled_tap_tables_are_numpys(kernels):
+    # The x and y taps built by the compiled loop against numpy's table (``_tap_table``): the same counts, offsets and
+    # weights to the last bit, for shifts negative, whole, a hair from whole, -0.0 and far off, and noises from none
+    # to wide.
+    rng = np.random.default_rng(17)
+    shifts = np.concatenate(
+        [rng.normal(0, 3, 40), [0.0, -0.0, 1.0, -2.0, 2.9999999999999996, -1e-17, 1e-17, 733.25, -512.5, 0.5]]
+    )
+    for sigma in (0.0, 1e-7, 0.11, 0.134, 0.44, 1.7, 6.0):
+        across, along = motion._tap_tables(shifts[:25], shifts[25:], sigma)
+        want = motion._tap_table(shifts, sigma)
+        for h in range(shifts.size):
+            got = across if h < 25 else along
+            row = h if h < 25 else h - 25
+            c = int(want[2][h])
+            assert int(got[2][row]) == c, (sigma, shifts[h])
+            assert got[0][row, :c].tolist() == want[0][h, :c].tolist(), (sigma, shifts[h])
+            assert got[1][row, :c].tobytes() == want[1][h, :c].tobytes(), (sigma, shifts[h])
+
+
 def test_compiled_prediction_takes_a_strided_belief(kernels):
     # A belief seen through a view (every other heading) is copied to a contiguous array first.
     belief = np.random.default_rng(1).random((16, 9, 11))[::2]

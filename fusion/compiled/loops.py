@@ -18,7 +18,7 @@ from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module to
     pair_sets,
     pair_union,
 )
-from fusion.compiled.predict_loops import predict_density  # noqa: F401  (a loop of this module too)
+from fusion.compiled.predict_loops import predict_density, tap_tables  # noqa: F401  (loops of this module too)
 from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module too)
     region_above,
     region_above_scaling,

@@ -6,11 +6,38 @@ then added), so the results are the same to the last bit; ``tests/test_compiled.
 
 from __future__ import annotations
 
+import math
+
 import numba
 import numpy as np
 
 _ADD, _ZERO, _PRODUCT = 0, 1, 2  # how a sum of taps starts: onto what is there, onto 0.0, or as the bare product
 _ROWS = 16  # grid rows per block of the prediction: every heading's moved rows of a block stay in cache (measured)
+
+
+@numba.njit(cache=True, nogil=True)
+def tap_tables(across, along, gauss, rolled, offsets, weights, counts):  # pragma: no cover - compiled
+    """``fusion.motion._tap_tables`` into ``offsets``, ``weights`` (zeros on entry, a row per shift of ``across`` then
+    of ``along``, as many columns as ``gauss``) and ``counts``: per shift s, the weights (1 − f)·gauss + f·rolled with
+    f = s − ⌊s⌋, those above 1e-15 in order, at offsets ⌊s⌋ + column − radius.  The same operations on the same
+    numbers as numpy's table, so the same weights; 3 against 23 µs for 36 headings (measured), and the prediction
+    after it runs 0.16–0.18 ms faster than after numpy's (paired rounds: numpy's small-array calls slow the loop that
+    follows them, by more than their own time; we did not find why)."""
+    n = across.size
+    radius = gauss.size // 2
+    for row in range(n + along.size):
+        shift = across[row] if row < n else along[row - n]
+        whole = math.floor(shift)
+        frac = shift - whole
+        keep = 1 - frac
+        count = 0
+        for k in range(gauss.size):
+            w = keep * gauss[k] + frac * rolled[k]
+            if w > 1e-15:
+                weights[row, count] = w
+                offsets[row, count] = int(whole) + k - radius
+                count += 1
+        counts[row] = count
 
 
 @numba.njit(cache=True, nogil=True)
