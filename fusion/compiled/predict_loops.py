@@ -57,12 +57,11 @@ def predict_density(belief, ox, wx, cx, oy, wy, cy, turn_offsets, turn_weights, 
     rows_buf = np.empty(taps, np.int64)
     shifts_buf = np.zeros(taps, np.int64)
     weights_buf = np.empty(taps)
-    lowest, highest = 0, 0
+    span = 0  # the most rows a heading's y taps reach beyond a block's: the x pass's rows are at most _ROWS + span
     for h in range(headings):
-        for k in range(cy[h]):
-            lowest = min(lowest, oy[h, k])
-            highest = max(highest, oy[h, k])
-    across = np.empty((_ROWS + highest - lowest, nx))
+        lo, hi = _taps_span(oy[h], cy[h])
+        span = max(span, hi - lo)
+    across = np.empty((_ROWS + span, nx))
     moved = np.empty((headings, _ROWS * nx))
     total = 0
     for y0 in range(0, ny, _ROWS):
@@ -80,11 +79,20 @@ def _rows_read(offsets, count, y0, y1, ny):  # pragma: no cover - compiled
     """The rows [first, last) that the y pass of rows [y0, y1) reads with one heading's taps: the block's rows moved by
     that heading's own offsets, not by the widest of all headings' (on the bench's move, 17 rows through the x pass for
     each block of 16 instead of 20)."""
-    lo, hi = 0, 0
-    for k in range(count):
-        lo = offsets[k] if k == 0 else min(lo, offsets[k])
-        hi = offsets[k] if k == 0 else max(hi, offsets[k])
+    lo, hi = _taps_span(offsets, count)
     return max(0, y0 - hi), max(0, min(ny, y1 - lo))
+
+
+@numba.njit(inline="always")
+def _taps_span(offsets, count):  # pragma: no cover - compiled
+    """(the lowest, the highest) of a heading's first ``count`` tap offsets; (0, 0) when it has none."""
+    if count == 0:
+        return 0, 0
+    lo, hi = offsets[0], offsets[0]
+    for k in range(1, count):
+        lo = min(lo, offsets[k])
+        hi = max(hi, offsets[k])
+    return lo, hi
 
 
 @numba.njit(inline="always")
