@@ -75,10 +75,17 @@ def test_packed_set_motion_equals_the_cell_by_cell_reference(
     np.testing.assert_array_equal(bitset.unpack(packed, grid.n_cells).reshape(masks.shape), expected)
 
 
+def _taps(shift: float, sigma: float) -> list[tuple[int, float]]:
+    """The reference: (offset, weight) pairs of ``shift_kernel`` for one shift, weights under 1e-15 dropped."""
+    whole, weights = shift_kernel(shift, sigma)
+    radius = len(weights) // 2
+    return [(whole + i - radius, float(w)) for i, w in enumerate(weights) if w > 1e-15]
+
+
 def test_taps_of_every_heading_at_once_are_each_headings_own_bit_for_bit():
     # The batched kernels of predict_density (one Gaussian for all headings) against shift_kernel per shift:
     # identical operations on identical numbers, so identical weights (our implementation's own invariant).
-    from fusion.motion import _tap_table, _taps
+    from fusion.motion import _tap_table
 
     rng = np.random.default_rng(4)
     for sigma in (0.0, 1e-7, 0.3, 1.7, 6.0):
@@ -92,7 +99,7 @@ def test_turn_taps_and_joint_tables_are_shift_kernels_own_bit_for_bit():
     # The heading kernel built in plain floats from the cached Gaussian, and the x and y tables made as one, against
     # shift_kernel's taps (``_taps``) one shift at a time: the same weights, offsets folded round the headings and
     # summed where two land on one (our implementation's own invariant).
-    from fusion.motion import _tap_table, _tap_tables, _taps, _turn_taps
+    from fusion.motion import _tap_table, _tap_tables, _turn_taps
 
     rng = np.random.default_rng(5)
     for sigma in (0.0, 1e-7, 0.134, 0.3, 1.7, 6.0):
