@@ -8,6 +8,7 @@ from fusion import compiled
 from fusion.backends.bayes import HistogramFilter
 from fusion.backends.contour import ContourFilter
 from fusion.backends.evidential import MassFilter
+from fusion.belief.mass import MassFunction
 from fusion.errors import FrameMismatchError, RuleError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
@@ -112,6 +113,27 @@ def test_focal_sets_stay_bounded(bay):
         report = filt.update(Evidence("s", rng.random(grid.n_cells), reliability=0.9, levels=4))
         assert report.focal_sets <= 8 + 1
         assert_close(filt.belief.masses.sum(), 1.0)
+
+
+def test_a_fully_reliable_reading_is_conditioned_on_the_belief_without_rounding_over_one():
+    """A reading of reliability 1 whose contour peaks at m < 1 over the cells the belief allows (U).  Conditioning
+    on U (Dempster's rule with the categorical mass function on U; Shafer 1976, ch. 3) leaves a reading with
+    contour c / m, undiscounted, and removes conflict 1 − m; here c / m = 1 on U, so the belief is unchanged.  The
+    conditioned reliability r·m / (r·m + 1 − r) once rounded a hair over 1 and the update raised."""
+    grid = PoseGrid(2.0, 1.0, 0.5, 2)  # 16 cells
+    inside = np.arange(grid.n_cells) < 8
+    peak = 0.8756292572035381  # a value at which (m + 1) − 1 ≠ m in floating point
+    assert (peak + 1.0) - 1.0 != peak
+    cells = np.flatnonzero(inside)
+    belief = MassFunction.from_focal(grid.n_cells, {tuple(cells[:3]): 0.25, tuple(cells[2:]): 0.75})
+    filt = MassFilter(grid, rule="dempster", report_region=False)
+    filt.reset(belief)
+    report = filt.update(Evidence("exact", np.where(inside, peak, 1.0), reliability=1.0))
+    # The reference: Dempster's rule's conflict by its definition, K = Σ_{B∩C=∅} m1(B) m2(C), on the reading's
+    # exact consonant mass function (its two focal sets: the cells outside U, mass 1 − m; every cell, mass m).
+    assert_close(report.conflict, 1.0 - peak)
+    assert_close(filt.belief.bel(cells[:3]), 0.25)
+    assert_close(filt.belief.pignistic(), belief.pignistic())
 
 
 def test_mismatched_evidence_and_unknown_rules_are_refused(backend):

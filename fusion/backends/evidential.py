@@ -216,7 +216,8 @@ class MassFilter:
             if r >= 1.0:
                 return MassFunction.from_contour(inside), 0.0  # all mass on ∅: total conflict
             return MassFunction.vacuous(belief.n), r
-        r_cond = r * top / (r * top + 1.0 - r)
+        # (1 − r) added whole: (r·m + 1) − r rounds, and for r = 1 gave r' a hair over 1, which discount refuses
+        r_cond = r * top / (r * top + (1.0 - r))
         masses = rules.discount(
             MassFunction.from_contour(inside / top, levels=evidence.levels, spacing=evidence.spacing), r_cond
         )
