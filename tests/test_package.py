@@ -57,6 +57,9 @@ def test_bench_reports_ratios_as_json(capsys):
     assert all(0.0 <= d <= 1.0 for d in fidelity.values()) and len(fidelity) == 6
     for r in rows:  # ratios are computed from the two times of the same run, never hard-coded
         assert abs(r["ratio"] - r["best_ms"] / r["floor_ms"]) < 1e-9 * r["ratio"]
+    in_turn = [r for r in rows if r["slowest_ratio"] is not None]  # the grid and frame rows take inputs in turn
+    assert {r["backend"] for r in in_turn} == {"bayes", "evidential", "evidential, focal sets", "mass functions"}
+    assert all(r["slowest_ratio"] >= r["ratio"] for r in in_turn)  # the slowest input is no faster than the median
 
 
 @pytest.mark.slow

@@ -58,9 +58,9 @@ COMMANDS = {
     "bench": Help(
         "time each back end's steps as ratios to floors measured in the same run",
         "Time predict, update and combination on synthetic beliefs at several grid sizes, each as a ratio "
-        "to a floor (a memory copy, a multiply-and-normalise) measured in the same run; pin to one core "
-        "for stable figures.",
-        ("fusion bench --quick", "taskset -c 0 fusion bench --repeats 15", "fusion bench --json > bench.json"),
+        "to a floor (a memory copy, a multiply-and-normalise) measured in the same run, each on several "
+        "inputs taken in turn (the median input, and the slowest); pin to one core for stable figures.",
+        ("fusion bench --quick", "taskset -c 0 fusion bench --repeats 9", "fusion bench --json > bench.json"),
     ),
     "soak": Help(
         "run many steps (or stream lines) and check the belief's invariants",

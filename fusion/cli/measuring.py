@@ -19,10 +19,10 @@ def bench_command(args: argparse.Namespace) -> int:
 
     from rich.console import Console
 
-    from fusion.bench import SIZES, bench_localizer, run_bench
     from fusion.bench_combination import FRAME_SIZES, bench_combination
+    from fusion.bench_grid import SIZES, run_bench
     from fusion.bench_imports import bench_imports
-    from fusion.bench_steps import bench_backend_steps
+    from fusion.bench_steps import bench_backend_steps, bench_localizer
     from fusion.bench_sweep import bench_sweep
     from fusion.fidelity import measure_fidelity
     from fusion.place_cases.bench import bench_graph_steps
@@ -31,7 +31,7 @@ def bench_command(args: argparse.Namespace) -> int:
     console = Console(stderr=args.json)
     notice(console)
     sizes = SIZES[:1] if args.quick else SIZES
-    with console.status("measuring… (each figure is the fastest of several runs)"):
+    with console.status("measuring… (each figure on several inputs taken in turn, the fastest run of each)"):
         rows = run_bench(sizes=sizes, repeats=args.repeats, seed=args.seed)
         frames = FRAME_SIZES[:-1] if args.quick else FRAME_SIZES
         rows += bench_combination(repeats=args.repeats, seed=args.seed, sizes=frames)

@@ -22,9 +22,11 @@ def bench_table(rows, width: int = 120) -> list:
         peak = "" if r.peak_copies is None else f"{r.peak_copies:.1f} beliefs"
         ratio = "" if r.ratio != r.ratio else f"{r.ratio:.2f}×" if r.ratio < 10 else f"{r.ratio:.1f}×"  # NaN: no floor
         floor = _ms(r.floor_ms) if r.floor_ms else ""
-        cells.append([grid, r.backend, r.operation, _ms(r.best_ms), floor, ratio, peak, mark])
+        slowest = "" if r.slowest_ratio is None else f"{r.slowest_ratio:.2f}×"
+        cells.append([grid, r.backend, r.operation, _ms(r.best_ms), floor, ratio, slowest, peak, mark])
     keys = [Column("grid"), Column("back end"), Column("operation")]
-    values = [Column(h, "right") for h in ("best ms", "floor ms", "ratio", "peak memory", "note")]
+    heads = ("ms", "floor ms", "ratio", "slowest input", "peak memory", "note")
+    values = [Column(h, "right") for h in heads]
     sizes = sorted({r.size for r in rows}, key=len)
     out: list = fitted_tables(
         "Back-end cost as a ratio to a floor measured in the same run", keys, values, cells, width
@@ -32,9 +34,11 @@ def bench_table(rows, width: int = 120) -> list:
     out += [f"grids: {', '.join(sizes)}", *notes]
     out.append(
         "floor: Bayes and evidential = one multiply-and-normalise pass (Bayes predict: a memory copy); focal sets "
-        "and Dempster's rule = bare AND of all focal-set word pairs; compiled loops = their numpy code. CPU time, "
-        "fastest of repeated runs after a warm-up (stream lines: one run; start-ups: wall time of fresh processes); "
-        "peak memory of one call via tracemalloc."
+        "and Dempster's rule = bare AND of all focal-set word pairs; compiled loops = their numpy code. CPU time. "
+        "Grid and frame rows take several inputs in turn: ms is the median input's fastest run, ratio its time over "
+        "the floor's (timed alike), slowest input the slowest input's; other rows: fastest of repeated runs after a "
+        "warm-up (stream lines: one run; start-ups: wall time of fresh processes). Peak memory of one call via "
+        "tracemalloc."
     )
     return out
 
