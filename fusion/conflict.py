@@ -30,6 +30,7 @@ import math
 
 import numpy as np
 
+from fusion import compiled
 from fusion.belief import bitset, rules
 from fusion.belief.mass import FocalAccumulator, MassFunction, check_same_frame
 
@@ -104,19 +105,35 @@ def support_cells(p: np.ndarray, share: float, top: float | None = None) -> np.n
     return np.flatnonzero(p >= share * top) if top > 0 else np.arange(len(p))
 
 
-def support_conflict(p: np.ndarray, evidence, share: float) -> float:
+def support_conflict(p: np.ndarray, evidence, share: float, top: float | None = None) -> float:
     """r·(1 − pl) of a reading's best fit among the cells with p ≥ ``share`` · max p: Dempster's K between
     the discounted consonant reading and the categorical mass function on those cells, pl scored by
-    ``fit_plausibility`` (for a scan of m beams, how often a correct pose fits as badly)."""
-    top = float(p.max())
+    ``fit_plausibility`` (for a scan of m beams, how often a correct pose fits as badly).  ``top``: max p, where
+    the caller knows it (a contour's is 1)."""
+    top = float(p.max()) if top is None else top
     if top <= 0:
         return 1.0
+    loops = compiled.kernels()
+    c = evidence.contour
+    if loops is not None and _plain(p) and _plain(c) and c.shape == p.shape:
+        hi = loops.support_best(p, share * top, c)  # the support's best value, no list of its cells written
+        if hi >= 0:
+            return _fit_conflict(float(np.int64(hi).view(np.float64)), evidence)
     return conflict_on(support_cells(p, share, top), evidence)
+
+
+def _plain(a: np.ndarray) -> bool:
+    """A float64 vector in one run of memory: what the compiled loops take as they are."""
+    return a.dtype == np.float64 and a.ndim == 1 and a.flags.c_contiguous
 
 
 def conflict_on(cells: np.ndarray, evidence) -> float:
     """``support_conflict`` on a given support (cell indices)."""
-    best = float(evidence.contour[cells].max())
+    return _fit_conflict(float(evidence.contour[cells].max()), evidence)
+
+
+def _fit_conflict(best: float, evidence) -> float:
+    """r·(1 − pl) of the reading's best value on a support, pl scored by ``fit_plausibility``."""
     return evidence.reliability * (1.0 - fit_plausibility(best, evidence.dof))
 
 

@@ -668,3 +668,36 @@ def test_bayes_filter_reports_the_region_of_its_posterior():
     filt.belief.set(np.where(only > 0, 0.0, filt.belief.probabilities))
     report = filt.update(Evidence("nowhere", only))
     assert report.rejected and report.region_cells == region_size(filt.belief.probabilities)
+
+
+@pytest.mark.parametrize("reliability", [1.0, 0.9, 0.3, 1e-9])
+def test_compiled_contour_product_equals_numpy_bit_for_bit(monkeypatch, reliability):
+    # The contour filter's product with a reading (its likelihood r·c + 1 − r formed cell by cell inside the loop),
+    # and the maximum found in the same pass, against numpy's product with Evidence.likelihood and its max.
+    from fusion.backends.contour import _product
+    from fusion.sensors.base import Evidence
+
+    rng = np.random.default_rng(14)
+    for n in (1, 7, 1000, 40_001):
+        belief = np.where(rng.random(n) < 0.2, 0.0, rng.random(n))
+        reading = np.where(rng.random(n) < 0.2, 0.0, rng.random(n) ** 4)
+        got, want = _both_ways(monkeypatch, lambda: _product(belief, Evidence("r", reading, reliability)))
+        np.testing.assert_array_equal(got[0].view(np.int64), want[0].view(np.int64))
+        assert got[1] == want[1] == float((belief * Evidence("r", reading, reliability).likelihood).max())
+
+
+def test_compiled_support_conflict_equals_the_listed_support(monkeypatch):
+    # The best reading value over the cells with p ≥ share · max p, found without listing them, against the list
+    # (support_cells, then the reading's values there): beliefs with ties at the threshold, one cell, all zeros.
+    from fusion.conflict import conflict_on, support_cells, support_conflict
+    from fusion.sensors.base import Evidence
+
+    rng = np.random.default_rng(15)
+    cases = [rng.random(5000), np.where(rng.random(5000) < 0.5, 0.25, 1.0), np.eye(1, 300, 17)[0], np.zeros(50)]
+    for p in cases:
+        for dof in (0, 5):
+            reading = Evidence("r", rng.random(p.size), reliability=0.8, dof=dof)
+            got, want = _both_ways(monkeypatch, lambda: support_conflict(p, reading, 0.25))
+            assert got == want
+            if p.max() > 0:
+                assert got == conflict_on(support_cells(p, 0.25), reading)

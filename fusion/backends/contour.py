@@ -30,6 +30,7 @@ import time
 
 import numpy as np
 
+from fusion import compiled
 from fusion.backends.base import (
     NO_OPINION,
     TOTAL_CONFLICT,
@@ -120,8 +121,9 @@ class ContourFilter:
                 slipped = dilate_density(cube, *bound_offsets(motion, motion.slip, motion.slip_turn))
                 moved = motion.reliability * moved + (1.0 - motion.reliability) * slipped
             moved = moved.reshape(-1) * self.free
-        if moved.max() > 0:  # everything moved into walls: keep the belief; the next update shows the conflict
-            self.belief = ContourBelief(moved, self.belief.empty, owned=True)
+        top = float(moved.max())
+        if top > 0:  # everything moved into walls: keep the belief; the next update shows the conflict
+            self.belief = ContourBelief(moved, self.belief.empty, owned=True, top=top)
 
     # ----------------------------------------------------------------- update
     def update(self, evidence: Evidence) -> StepReport:
@@ -130,10 +132,10 @@ class ContourFilter:
                 f"evidence from {evidence.sensor!r} covers {evidence.n} cells, the grid has {self.grid.n_cells}"
             )
         start = time.perf_counter()
-        k, joint = self._combined(self.belief, evidence)
+        k, joint, top = self._combined(self.belief, evidence)
         rejected = joint is None
         if not rejected:
-            self.belief = ContourBelief(joint, k if self.rule == "conjunctive" else 0.0, owned=True)
+            self.belief = ContourBelief(joint, k if self.rule == "conjunctive" else 0.0, owned=True, top=top)
         seconds = time.perf_counter() - start
         region = region_size(self.distribution()) if self.report_region else 0
         return StepReport(self.name, evidence.sensor, seconds, region, conflict=k, rejected=rejected)
@@ -156,7 +158,7 @@ class ContourFilter:
             reading = ContourBelief(np.maximum(evidence.plausibility, 0.0))
             return SecondOpinion(disagreement=pignistic_disagreement(snapshot.pignistic(), reading.pignistic()))
         if k >= clear_level:
-            return SecondOpinion(core=support_conflict(snapshot.contour, evidence, CORE_SHARE))
+            return SecondOpinion(core=support_conflict(snapshot.contour, evidence, CORE_SHARE, top=1.0))
         return NO_OPINION
 
     def joint_conflict(self, snapshot: ContourBelief, readings) -> float:
@@ -164,18 +166,18 @@ class ContourFilter:
         1 − Π (1 − K_i), each K_i against the belief the earlier ones left."""
         belief, keep = snapshot, 1.0
         for _, e in readings:
-            k, joint = self._combined(belief, e)
+            k, joint, top = self._combined(belief, e)
             if joint is None:
                 return 1.0
             keep *= 1.0 - k
-            belief = ContourBelief(joint, owned=True)
+            belief = ContourBelief(joint, owned=True, top=top)
         return 1.0 - keep
 
-    def _combined(self, belief: ContourBelief, evidence: Evidence) -> tuple[float, np.ndarray | None]:
-        """(K, the product contour) of absorbing one reading; the contour None on total conflict."""
+    def _combined(self, belief: ContourBelief, evidence: Evidence) -> tuple[float, np.ndarray | None, float]:
+        """(K, the product contour, its maximum) of absorbing one reading; the contour None on total conflict."""
         k = self.reading_conflict(belief, evidence)
-        joint = belief.contour * evidence.likelihood
-        return k, (None if k >= TOTAL_CONFLICT or float(joint.max()) <= 0.0 else joint)
+        joint, top = _product(belief.contour, evidence)
+        return k, (None if k >= TOTAL_CONFLICT or top <= 0.0 else joint), top
 
     def overlay(self) -> None:
         return None  # the belief map shows the whole belief
@@ -195,3 +197,19 @@ class ContourFilter:
     def health(self) -> BeliefHealth:
         c = self.belief.contour
         return BeliefHealth(float(c.max()), float(c.min()), 1, 0, "plausibility")
+
+
+def _product(contour: np.ndarray, evidence: Evidence) -> tuple[np.ndarray, float]:
+    """The contour times the reading's likelihood r·c + (1 − r), and the product's maximum.  The compiled loop forms
+    the likelihood cell by cell as ``Evidence.likelihood`` does, so the product is the same to the last bit without
+    the likelihood written out, and finds the maximum in the same pass."""
+    out = np.empty_like(contour)
+    loops = compiled.kernels()
+    c = evidence.contour
+    if loops is not None and c.dtype == np.float64 and c.flags.c_contiguous and c.shape == contour.shape:
+        r = float(evidence.reliability)
+        hi = loops.plain_product(contour, c, out) if r == 1.0 else loops.discounted_product(contour, c, r, out)
+        if hi >= 0:
+            return out, float(np.int64(hi).view(np.float64))
+    np.multiply(contour, evidence.likelihood, out=out)
+    return out, float(out.max())

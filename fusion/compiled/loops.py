@@ -28,6 +28,7 @@ from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module 
     region_crossing,
     region_sorted,
 )
+from fusion.compiled.support_loops import discounted_product, plain_product, support_best  # noqa: F401
 
 
 @numba.njit(cache=True, nogil=True)

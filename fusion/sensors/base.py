@@ -67,7 +67,11 @@ class Evidence:
     def likelihood(self) -> np.ndarray:
         """r · c + (1 − r): the Bayesian likelihood, up to a constant factor."""
         r = self.reliability
-        return self.contour if r == 1.0 else r * self.contour + (1.0 - r)
+        if r == 1.0:
+            return self.contour
+        out = np.multiply(self.contour, r)  # r·c, then + (1 − r) in place: one array, no temporary
+        out += 1.0 - r
+        return out
 
     @cached_property
     def plausibility(self) -> np.ndarray:
