@@ -681,7 +681,7 @@ def test_compiled_contour_product_equals_numpy_bit_for_bit(monkeypatch, reliabil
     for n in (1, 7, 1000, 40_001):
         belief = np.where(rng.random(n) < 0.2, 0.0, rng.random(n))
         reading = np.where(rng.random(n) < 0.2, 0.0, rng.random(n) ** 4)
-        got, want = _both_ways(monkeypatch, lambda: _product(belief, Evidence("r", reading, reliability)))
+        got, want = _both_ways(monkeypatch, lambda b=belief, c=reading: _product(b, Evidence("r", c, reliability)))
         np.testing.assert_array_equal(got[0].view(np.int64), want[0].view(np.int64))
         assert got[1] == want[1] == float((belief * Evidence("r", reading, reliability).likelihood).max())
 
@@ -697,7 +697,7 @@ def test_compiled_support_conflict_equals_the_listed_support(monkeypatch):
     for p in cases:
         for dof in (0, 5):
             reading = Evidence("r", rng.random(p.size), reliability=0.8, dof=dof)
-            got, want = _both_ways(monkeypatch, lambda: support_conflict(p, reading, 0.25))
+            got, want = _both_ways(monkeypatch, lambda p=p, e=reading: support_conflict(p, e, 0.25))
             assert got == want
             if p.max() > 0:
                 assert got == conflict_on(support_cells(p, 0.25), reading)
