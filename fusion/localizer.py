@@ -30,7 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from fusion.backends import BACKENDS, build
-from fusion.backends.base import free_cells
+from fusion.backends.base import PoseEstimate, free_cells
 from fusion.conflict import EvidenceAverages, pairwise_conflict, weight_of_conflict
 from fusion.decision import Decision
 from fusion.errors import FusionError, ObservationError
@@ -107,6 +107,7 @@ class Localizer:
         self._pending: Travel | None = None  # odometry composed since the last prediction
         self._free_prior = free_cells(grid, free).astype(np.float64)
         self.recovery = Recovery(policy, self.monitor, self._free_prior)
+        self.last_estimate: PoseEstimate | None = None  # the last decision's, of the belief that step left
 
     @classmethod
     def from_case(cls, case, backend: str, **options) -> Localizer:
@@ -351,7 +352,7 @@ class Localizer:
     def _decision(
         self, t, action, reasons, figures, blame, quarantined, rejected, start, pairs=(), fault=None
     ) -> Decision:
-        est = self.filter.pose_estimate()
+        est = self.last_estimate = self.filter.pose_estimate()
         x, y, heading = est.x_m, est.y_m, est.heading_rad
         fix = getattr(self.sensors.grid, "fix", None)  # a frame of places says where in words
         if self._pending is not None:  # carried along by the odometry not yet applied to the belief

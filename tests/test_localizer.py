@@ -44,6 +44,23 @@ def test_localizer_tracks_the_simulated_route_in_a_few_lines(case, localizer):
     assert sorted(errors)[len(errors) // 2] < 0.75  # median error under 1.5 cells of this coarse test grid
 
 
+@pytest.mark.parametrize("backend", BACKENDS)
+def test_each_step_keeps_the_estimate_of_the_belief_it_left(case, backend):
+    # The replay draws each tick's belief from the step's own estimate (its headings-summed plane) instead of
+    # summing the distribution again: the two must be the same array, value for value, on every tick.
+    loc = Localizer.from_case(case, backend)
+    first = simulate(case)[0].truth
+    loc.start_at(first.x_m, first.y_m, first.heading_deg)
+    for tick in simulate(case)[:25]:
+        odometry = next(o for o in tick.observations if o.kind == "odometry")
+        decision = loc.step(odometry, [o for o in tick.observations if o.kind != "odometry"])
+        est = loc.last_estimate
+        assert (est.x_m, est.y_m) == (decision.x_m, decision.y_m) or loc._pending is not None
+        if est.plane is not None:
+            plane = loc.filter.distribution().reshape(loc.sensors.grid.shape).sum(axis=0)
+            np.testing.assert_array_equal(est.plane, plane)
+
+
 def test_rejected_readings_leave_the_state_unchanged(case, localizer):
     before = localizer.filter.distribution().copy()
     bad = [

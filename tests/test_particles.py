@@ -149,3 +149,22 @@ def test_the_decision_reports_the_effective_sample_share():
     assert "effective_share" in d.to_record()["figures"]
     w = np.full(10, 0.1)
     assert float(1.0 / (w @ w)) == pytest.approx(10.0)
+
+
+def test_conflict_is_scored_on_the_cells_the_particles_occupy_as_on_their_histogram():
+    # A reading's support conflict (K = r·(1 − pl) of its best fit on the cells with weight ≥ 10⁻³ of the heaviest,
+    # Dempster's rule against the categorical mass function on that support) is found from the occupied cells
+    # alone; it must equal the definition on the whole histogram, alone and for a tick's readings at once.
+    from fusion.backends.bayes import SUPPORT_SHARE
+    from fusion.conflict import support_conflict, support_joint_conflict
+
+    filt = _fixed(500, 3)
+    filt.update(Evidence("a", _bump(1.2, 2.1), 0.9))
+    snapshot = filt.snapshot()
+    histogram = filt._histogram(snapshot)
+    readings = [Evidence("b", _bump(4.0, 0.5, 0.5), 0.8, dof=5), Evidence("c", _bump(1.0, 2.0), 0.7)]
+    for e in readings:
+        assert filt.reading_conflict(snapshot, e) == support_conflict(histogram, e, SUPPORT_SHARE)
+    pairs = [(e.sensor, e) for e in readings]
+    assert filt.joint_conflict(snapshot, pairs) == support_joint_conflict(histogram, pairs, SUPPORT_SHARE)
+    assert 0 < filt.reading_conflict(snapshot, readings[0]) < 1  # a reading off the belief's cells, not all of it

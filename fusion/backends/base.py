@@ -10,7 +10,7 @@ every back end alike.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Protocol, runtime_checkable
 
 import numpy as np
@@ -66,7 +66,8 @@ class PoseEstimate:
     of its best cell (a local mean: a distribution over a site is often multimodal, or carries a
     thin layer of ignorance over the whole site, and its global mean then lies between the modes);
     ``mean_x_m``, ``mean_y_m`` are the global mean; ``spread_m`` is the RMS distance of the
-    whole distribution from the estimate.
+    whole distribution from the estimate.  ``plane``: the probability of each position, headings summed, where
+    the estimate was made from the distribution over the grid (``estimate_pose``); None otherwise.
     """
 
     x_m: float
@@ -78,6 +79,7 @@ class PoseEstimate:
     spread_m: float
     mean_x_m: float = 0.0
     mean_y_m: float = 0.0
+    plane: np.ndarray | None = field(default=None, repr=False, compare=False)
 
 
 @dataclass(frozen=True)
@@ -211,7 +213,7 @@ def estimate_pose(grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None =
     total = float(plane.sum())
     spread = math.sqrt(max(float((plane * dist2).sum()) / max(total, 1e-300), 0.0))
     region = region_size(p, total=total if total > 0 else None)  # the plane's sum: one pass over the belief fewer
-    return PoseEstimate(lx, ly, heading, best, (bx, by, bh), region, spread, mean_x, mean_y)
+    return PoseEstimate(lx, ly, heading, best, (bx, by, bh), region, spread, mean_x, mean_y, plane)
 
 
 TIE = 1e-9

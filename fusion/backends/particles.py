@@ -49,7 +49,7 @@ from fusion.backends.base import (
 )
 from fusion.backends.bayes import SUPPORT_SHARE
 from fusion.backends.tuning import require_settings
-from fusion.conflict import support_conflict, support_joint_conflict
+from fusion.conflict import conflict_on, joint_conflict_on, support_conflict, support_joint_conflict
 from fusion.errors import FrameMismatchError
 from fusion.grid import PoseGrid
 from fusion.sensors.base import Evidence
@@ -321,13 +321,29 @@ class ParticleFilter:
 
     def reading_conflict(self, snapshot: _State, evidence: Evidence) -> float:
         """As the histogram filter scores it (``fusion.conflict.support_conflict``), on the particles' cells."""
-        return support_conflict(self._histogram(snapshot), evidence, SUPPORT_SHARE)
+        support = self._support(snapshot)
+        if support is None:
+            return support_conflict(self._histogram(snapshot), evidence, SUPPORT_SHARE)
+        return conflict_on(support, evidence)
 
     def second_opinion(self, snapshot, evidence, k, conflict_k, clear_level) -> SecondOpinion:
         return NO_OPINION
 
     def joint_conflict(self, snapshot: _State, readings) -> float:
-        return support_joint_conflict(self._histogram(snapshot), readings, SUPPORT_SHARE)
+        support = self._support(snapshot)
+        if support is None:
+            return support_joint_conflict(self._histogram(snapshot), readings, SUPPORT_SHARE)
+        return joint_conflict_on(support, readings)
+
+    def _support(self, snapshot: _State) -> np.ndarray | None:
+        """``support_cells`` of the histogram, from the cells the particles occupy alone: a cell's weight is summed
+        in the particles' order either way (so the same sums, to the last bit), and a cell with no particle has
+        weight 0, below the support's share of a positive maximum.  None when no cell has weight (the histogram's
+        own rule applies then)."""
+        occupied, inverse = np.unique(self._cells(snapshot.poses), return_inverse=True)
+        sums = np.bincount(inverse.reshape(-1), weights=snapshot.weights, minlength=len(occupied))
+        top = float(sums.max()) if sums.size else 0.0
+        return occupied[sums >= SUPPORT_SHARE * top] if top > 0 else None
 
     def _histogram(self, snapshot: _State) -> np.ndarray:
         """The weights summed per cell: the probability per cell every tool reads."""

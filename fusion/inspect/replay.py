@@ -199,6 +199,11 @@ class _Replay:
         self.sensors.encode(obs)  # raises on a payload the model cannot use (e.g. a marker not on the map)
 
     def _plane(self, loc: Localizer) -> np.ndarray:
+        """The probability of each position, headings summed, as the step just taken left the belief: the step's
+        pose estimate summed it already where the back end estimates from the grid."""
+        est = loc.last_estimate
+        if est is not None and est.plane is not None:
+            return est.plane
         return loc.filter.distribution().reshape(loc.sensors.grid.shape).sum(axis=0)
 
     def _in_episode(self, ep: Episode, tick: int, decisions, readings, moment: Moment, pose) -> None:
