@@ -115,16 +115,11 @@ def support_conflict(p: np.ndarray, evidence, share: float, top: float | None = 
         return 1.0
     loops = compiled.kernels()
     c = evidence.contour
-    if loops is not None and _plain(p) and _plain(c) and c.shape == p.shape:
+    if loops is not None and compiled.plain_vector(p) and compiled.plain_vector(c) and c.shape == p.shape:
         hi = loops.support_best(p, share * top, c)  # the support's best value, no list of its cells written
         if hi >= 0:
             return _fit_conflict(float(np.int64(hi).view(np.float64)), evidence)
     return conflict_on(support_cells(p, share, top), evidence)
-
-
-def _plain(a: np.ndarray) -> bool:
-    """A float64 vector in one run of memory: what the compiled loops take as they are."""
-    return a.dtype == np.float64 and a.ndim == 1 and a.flags.c_contiguous
 
 
 def conflict_on(cells: np.ndarray, evidence) -> float:

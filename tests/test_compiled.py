@@ -701,3 +701,20 @@ def test_compiled_support_conflict_equals_the_listed_support(monkeypatch):
             assert got == want
             if p.max() > 0:
                 assert got == conflict_on(support_cells(p, 0.25), reading)
+
+
+def test_compiled_likelihood_and_ruled_out_share_equal_numpy(monkeypatch):
+    # A reading's likelihood r·c + 1 − r (one compiled pass) bit for bit, and the share of cells it rules out
+    # (contour < ½, counted without writing flags), on contours with zeros, exact halves and a NaN.
+    from fusion.sensors.base import Evidence
+
+    rng = np.random.default_rng(16)
+    contours = [rng.random(40_001) ** 2, np.where(rng.random(999) < 0.3, 0.5, rng.random(999)), np.zeros(3)]
+    contours[1][5] = np.nan
+    for c in contours:
+        for r in (1.0, 0.9, 1e-6):
+            got, want = _both_ways(
+                monkeypatch, lambda c=c, r=r: (Evidence("r", c, r).likelihood, Evidence("r", c, r).ruled_out)
+            )
+            np.testing.assert_array_equal(got[0].view(np.int64), want[0].view(np.int64))
+            assert got[1] == want[1] == np.count_nonzero(c < 0.5) / c.size

@@ -89,3 +89,8 @@ def reset() -> None:
     """Forget the choice, so the next call reads ``FUSION_KERNELS`` again (for tests)."""
     global _loaded
     _loaded = None
+
+
+def plain_vector(a) -> bool:
+    """A float64 vector in one run of memory: what the compiled loops take as it is (anything else goes to numpy)."""
+    return a.dtype.char == "d" and a.dtype.isnative and a.ndim == 1 and a.flags.c_contiguous

@@ -19,6 +19,13 @@ from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module to
     pair_union,
 )
 from fusion.compiled.predict_loops import predict_density, tap_tables  # noqa: F401  (loops of this module too)
+from fusion.compiled.reading_loops import (  # noqa: F401  (loops of this module too)
+    count_below,
+    discounted,
+    discounted_product,
+    plain_product,
+    support_best,
+)
 from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module too)
     region_above,
     region_above_scaling,
@@ -28,7 +35,6 @@ from fusion.compiled.region_loops import (  # noqa: F401  (loops of this module 
     region_crossing,
     region_sorted,
 )
-from fusion.compiled.support_loops import discounted_product, plain_product, support_best  # noqa: F401
 
 
 @numba.njit(cache=True, nogil=True)

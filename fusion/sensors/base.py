@@ -23,6 +23,7 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
+from fusion import compiled
 from fusion.belief import rules
 from fusion.belief.mass import MassFunction
 from fusion.errors import ObservationError
@@ -61,15 +62,25 @@ class Evidence:
     def ruled_out(self) -> float:
         """The share of cells the reading rules out (contour < ½): how much it says about where the robot is
         (``fusion.monitor.recovery.informative``); counted once, as the monitor asks for it every tick."""
-        return np.count_nonzero(self.contour < 0.5) / max(self.n, 1)
+        loops = compiled.kernels()
+        c = self.contour
+        below = (
+            loops.count_below(c, 0.5) if loops is not None and compiled.plain_vector(c) else np.count_nonzero(c < 0.5)
+        )
+        return below / max(self.n, 1)
 
     @cached_property
     def likelihood(self) -> np.ndarray:
         """r · c + (1 − r): the Bayesian likelihood, up to a constant factor."""
-        r = self.reliability
+        r, c = self.reliability, self.contour
         if r == 1.0:
-            return self.contour
-        out = np.multiply(self.contour, r)  # r·c, then + (1 − r) in place: one array, no temporary
+            return c
+        loops = compiled.kernels()
+        if loops is not None and compiled.plain_vector(c):
+            out = np.empty_like(c)
+            loops.discounted(c, float(r), out)  # one pass, numpy's arithmetic
+            return out
+        out = np.multiply(c, r)  # r·c, then + (1 − r) in place: one array, no temporary
         out += 1.0 - r
         return out
 
@@ -124,4 +135,5 @@ def contour_from_log(log_likelihood: np.ndarray) -> np.ndarray:
     top = np.max(log_likelihood)
     if not np.isfinite(top):
         return np.zeros(log_likelihood.size)
-    return np.exp(log_likelihood - top).reshape(-1)
+    out = np.subtract(log_likelihood, top)
+    return np.exp(out, out=out).reshape(-1)  # in place: one array made, not two
