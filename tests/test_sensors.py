@@ -165,3 +165,20 @@ def test_a_scan_reads_the_same_whether_the_padded_field_is_gathered_whole_or_by_
         np.testing.assert_array_equal(sensor.log_likelihood(scan), whole)
     finally:
         compiled.reset()
+
+
+def test_a_door_contact_s_evidence_is_made_once_per_state_and_read_only(depot):
+    # A contact's reading is fired or quiet and nothing else, so its evidence is the same for every reading of one
+    # state (made once, handed out again); it must still be p(reading | pose) as the hit and false-alarm rates give
+    # it, scaled to a maximum of 1, and neither it nor its likelihood may be changed in place (every back end reads
+    # the same arrays).
+    grid = depot.grid(4)
+    sensor = DoorSensor("bay contact", "bay door", depot, grid, DoorParams(hit_rate=0.9, false_alarm_rate=0.05))
+    fired, quiet = sensor.encode(DoorReading(True)), sensor.encode(DoorReading(False))
+    assert sensor.encode(DoorReading(True)) is fired and sensor.encode(np.True_) is fired
+    zone = grid.broadcast(sensor.zone)
+    np.testing.assert_allclose(fired.contour, np.where(zone, 1.0, 0.05 / 0.9))
+    np.testing.assert_allclose(quiet.contour, np.where(zone, 0.1 / 0.95, 1.0))
+    for array in (fired.contour, fired.likelihood):
+        with pytest.raises(ValueError, match="read-only"):
+            array[0] = 0.5

@@ -79,9 +79,10 @@ class Evidence:
         if loops is not None and compiled.plain_vector(c):
             out = np.empty_like(c)
             loops.discounted(c, float(r), out)  # one pass, numpy's arithmetic
-            return out
-        out = np.multiply(c, r)  # r·c, then + (1 − r) in place: one array, no temporary
-        out += 1.0 - r
+        else:
+            out = np.multiply(c, r)  # r·c, then + (1 − r) in place: one array, no temporary
+            out += 1.0 - r
+        out.flags.writeable = False  # shared by every back end the reading goes to: never changed in place
         return out
 
     @cached_property

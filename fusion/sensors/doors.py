@@ -43,6 +43,7 @@ class DoorSensor:
         require_valid(params, name)
         self.door = site.door(door)
         self.zone = site.door_zone(self.door)
+        self._made: dict[bool, Evidence] = {}  # the evidence of a fired and of a quiet contact, made on first use
         if not self.zone.any():
             raise ObservationError(
                 f"sensor {name!r}: the zone of door {door!r} holds no free cell; check its position, facing and radius"
@@ -54,12 +55,16 @@ class DoorSensor:
         return max(self.params.false_alarm_rate, 1 - self.params.hit_rate)
 
     def likelihood(self, reading) -> np.ndarray:
-        active = getattr(reading, "active", reading)
-        if not isinstance(active, (bool, np.bool_)):
-            raise ObservationError(f"sensor {self.name!r}: a door reading is true or false, got {active!r}")
+        active = self._active(reading)
         p = self.params
         inside, outside = (p.hit_rate, p.false_alarm_rate) if active else (1 - p.hit_rate, 1 - p.false_alarm_rate)
         return self.grid.broadcast(np.where(self.zone, inside, outside))
+
+    def _active(self, reading) -> bool:
+        active = getattr(reading, "active", reading)
+        if not isinstance(active, (bool, np.bool_)):
+            raise ObservationError(f"sensor {self.name!r}: a door reading is true or false, got {active!r}")
+        return bool(active)
 
     def explain(self, reading, x: float, y: float, heading_deg: float) -> str:
         """The contact against the position (x, y): how far that is from the door."""
@@ -70,13 +75,22 @@ class DoorSensor:
         return f"door {d.name}'s contact {said}; the pose is {away:.2f} m from the door (zone radius {d.radius_m:g} m)"
 
     def encode(self, reading) -> Evidence:
-        lik = self.likelihood(reading)
-        top = lik.max()
-        contour = lik / top if top > 0 else np.zeros(lik.shape)
-        # A contact that fired places the robot in the zone; a quiet one only makes the zone less likely,
-        # which no Gaussian measurement says (the Gaussian filter moment-matches it instead).
-        point = self._fired if getattr(reading, "active", reading) else None
-        return Evidence(self.name, contour, self.params.reliability, self.params.levels, point=point)
+        """The reading's evidence.  It depends on whether the contact fired and nothing else, so each of the two is
+        made once and handed out again, with what it computes when asked (its likelihood, its mass function); its
+        contour is read-only, as evidence is never changed in place."""
+        active = self._active(reading)
+        made = self._made.get(active)
+        if made is None:
+            lik = self.likelihood(active)
+            top = lik.max()
+            contour = lik / top if top > 0 else np.zeros(lik.shape)
+            contour.flags.writeable = False
+            # A contact that fired places the robot in the zone; a quiet one only makes the zone less likely,
+            # which no Gaussian measurement says (the Gaussian filter moment-matches it instead).
+            point = self._fired if active else None
+            made = Evidence(self.name, contour, self.params.reliability, self.params.levels, point=point)
+            self._made[active] = made
+        return made
 
     @cached_property
     def _fired(self) -> ZonePoint:
