@@ -180,7 +180,9 @@ def free_cells(grid: PoseGrid, free: np.ndarray | None) -> np.ndarray:
     return np.ones(grid.n_cells, bool) if free is None else grid.broadcast(np.asarray(free, bool))
 
 
-def estimate_pose(grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None = None) -> PoseEstimate:
+def estimate_pose(
+    grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None = None, plane: np.ndarray | None = None
+) -> PoseEstimate:
     """Local mean around the centre of the most probable region, global mean, best cell and spread.
 
     The most probable region is the set of positions whose probability (summed over headings) ties with
@@ -189,9 +191,9 @@ def estimate_pose(grid: PoseGrid, p: np.ndarray, mode_plane: np.ndarray | None =
     connected regions, the one holding the most probability wins, and its centre is the tied cell
     nearest its centroid: the estimate sits in the middle of the plateau, never at the end that happens
     to have the lowest cell index.  ``mode_plane``: a (ny, nx) plane to find the most probable region in instead
-    of ``p``'s own (a sampled belief's, smoothed)."""
+    of ``p``'s own (a sampled belief's, smoothed); ``plane``: ``p`` summed over headings, where the caller has it."""
     cube = p.reshape(grid.shape)
-    plane = cube.sum(axis=0)
+    plane = cube.sum(axis=0) if plane is None else plane
     xs, ys = grid.x_centres(), grid.y_centres()
     px, py = plane.sum(axis=0), plane.sum(axis=1)
     mean_x, mean_y = float(px @ xs), float(py @ ys)

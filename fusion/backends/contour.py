@@ -164,13 +164,14 @@ class ContourFilter:
     def joint_conflict(self, snapshot: ContourBelief, readings) -> float:
         """Conflict of absorbing ``readings`` ((sensor, Evidence) pairs) into ``snapshot`` one after another:
         1 − Π (1 − K_i), each K_i against the belief the earlier ones left."""
-        belief, keep = snapshot, 1.0
-        for _, e in readings:
+        belief, keep, readings = snapshot, 1.0, list(readings)
+        for i, (_, e) in enumerate(readings):
             k, joint, top = self._combined(belief, e)
             if joint is None:
                 return 1.0
             keep *= 1.0 - k
-            belief = ContourBelief(joint, owned=True, top=top)
+            if i + 1 < len(readings):  # the last reading's product is only asked whether it is all zero
+                belief = ContourBelief(joint, owned=True, top=top)
         return 1.0 - keep
 
     def _combined(self, belief: ContourBelief, evidence: Evidence) -> tuple[float, np.ndarray | None, float]:

@@ -371,4 +371,4 @@ class ParticleFilter:
         p = self.distribution()
         plane = p.reshape(self.grid.shape).sum(axis=0)
         smooth = ndimage.gaussian_filter(plane, MODE_KERNEL_M / self.grid.resolution_m, mode="constant")
-        return estimate_pose(self.grid, p, mode_plane=smooth)
+        return estimate_pose(self.grid, p, mode_plane=smooth, plane=plane)
