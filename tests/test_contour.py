@@ -152,3 +152,30 @@ def test_conjunctive_rule_keeps_the_conflict_on_the_empty_set():
     report = filt.update(Evidence("b", second, reliability=0.5))
     assert abs(report.conflict - 0.5) < 1e-3 and math.isclose(filt.belief.empty, report.conflict)
     assert_close(filt.distribution().sum(), 1.0)
+
+
+def test_joint_conflict_runs_that_share_a_beginning_give_what_fresh_runs_give():
+    # Blame asks one snapshot for the tick's readings and for each sensor's left out; the filter reuses the beliefs
+    # along runs that share a beginning.  Each answer must equal 1 − Π(1 − K_i) of a fresh filter that never saw the
+    # other runs (the chain rule of conflict: K of successive Dempster combinations), bit for bit, in any order,
+    # with a reading that conflicts totally among them.
+    from fusion.backends.contour import ContourFilter
+    from fusion.grid import PoseGrid
+    from fusion.sensors.base import Evidence
+
+    grid = PoseGrid(4.0, 3.0, 0.5, 4)
+    rng = np.random.default_rng(21)
+    start = ContourFilter(grid)
+    start.update(Evidence("s", rng.random(grid.n_cells), 0.9))
+    snapshot = start.belief
+    readings = [(f"r{i}", Evidence(f"r{i}", rng.random(grid.n_cells) ** 3, 0.8)) for i in range(4)]
+    clash = ("x", Evidence("x", np.where(snapshot.contour > 0, 0.0, 1.0), 1.0))  # nothing where the belief is
+    runs = [readings, readings[1:], readings[:2] + readings[3:], readings[:3], readings[:1], readings[:2] + [clash],
+            readings[:2] + [clash] + readings[2:], readings[:2], []]  # fmt: skip
+    reused = ContourFilter(grid)
+    for order in (runs, runs[::-1]):
+        for run in order:
+            fresh = ContourFilter(grid)
+            assert reused.joint_conflict(snapshot, run) == fresh.joint_conflict(snapshot, run)
+    assert reused.joint_conflict(snapshot, readings[:2] + [clash]) == 1.0
+    assert reused.joint_conflict(snapshot, []) == 0.0

@@ -82,6 +82,8 @@ class ContourFilter:
         self.free = free_cells(grid, free)
         self.belief = ContourBelief.vacuous_on(self.free)
         self._residual = self._motion_state()
+        self._chain_of: ContourBelief | None = None  # the snapshot joint_conflict last ran from, and its runs
+        self._chain: dict = {}
 
     def _motion_state(self):
         """What prediction carries from one odometry record to the next (the sub-cell residual box)."""
@@ -90,6 +92,7 @@ class ContourFilter:
     def fork(self) -> ContourFilter:
         other = copy.copy(self)
         other._residual = copy.deepcopy(self._residual)
+        other._chain_of, other._chain = None, {}
         return other
 
     def reset(self, prior) -> None:
@@ -163,15 +166,34 @@ class ContourFilter:
 
     def joint_conflict(self, snapshot: ContourBelief, readings) -> float:
         """Conflict of absorbing ``readings`` ((sensor, Evidence) pairs) into ``snapshot`` one after another:
-        1 − Π (1 − K_i), each K_i against the belief the earlier ones left."""
-        belief, keep, readings = snapshot, 1.0, list(readings)
-        for i, (_, e) in enumerate(readings):
-            k, joint, top = self._combined(belief, e)
+        1 − Π (1 − K_i), each K_i against the belief the earlier ones left.
+
+        Blame asks this of one snapshot for a tick's readings and for each sensor's readings left out, and those
+        runs share their beginnings: the beliefs along the way are kept for the last snapshot asked, keyed by the
+        readings absorbed (the same objects), and a run starts from the longest beginning already made.  The
+        products and K are the same either way, taken in the same order."""
+        readings = [e for _, e in readings]
+        if self._chain_of is not snapshot:
+            self._chain_of, self._chain = snapshot, {}
+        start, belief, keep = 0, snapshot, 1.0
+        for i in range(len(readings), 0, -1):
+            made = self._chain.get(tuple(readings[:i]))
+            if made is None:
+                continue
+            if made[1] == _TOTAL:  # a reading of this beginning conflicted totally: so does every run through it
+                return 1.0
+            if made[0] is not None or i == len(readings):  # a belief to go on from, or nothing left to absorb
+                start, (belief, keep) = i, made
+                break
+        for i in range(start, len(readings)):
+            k, joint, top = self._combined(belief, readings[i])
             if joint is None:
+                self._chain[tuple(readings[: i + 1])] = (None, _TOTAL)
                 return 1.0
             keep *= 1.0 - k
-            if i + 1 < len(readings):  # the last reading's product is only asked whether it is all zero
-                belief = ContourBelief(joint, owned=True, top=top)
+            # The last reading's product is only asked whether it is all zero: no belief is made of it.
+            belief = ContourBelief(joint, owned=True, top=top) if i + 1 < len(readings) else None
+            self._chain[tuple(readings[: i + 1])] = (belief, keep)
         return 1.0 - keep
 
     def _combined(self, belief: ContourBelief, evidence: Evidence) -> tuple[float, np.ndarray | None, float]:
@@ -214,3 +236,7 @@ def _product(contour: np.ndarray, evidence: Evidence) -> tuple[np.ndarray, float
             return out, float(np.int64(hi).view(np.float64))
     np.multiply(contour, evidence.likelihood, out=out)
     return out, float(out.max())
+
+
+_TOTAL = -1.0
+"""What a run of ``joint_conflict`` keeps where a reading conflicted totally (no ``keep`` is negative)."""
