@@ -392,3 +392,17 @@ def test_each_sensor_says_its_reading_against_a_pose(case):
     assert "fired" in door and "4.00 m from the door" in door  # |4.75 − 0.75| m
     miss = sensors.explain("camera", MarkerMiss(), 2.0, 1.5, 0.0)
     assert "R-east" in miss or "R-west" in miss
+
+
+def test_the_terminal_summary_and_the_report_explain_their_figures_in_the_same_words(case):
+    # One note says what the run summary's figures are (errors of which estimate, which time, the quiet percentile,
+    # the first tick apart); the terminal table and the HTML report both carry it, word for word.
+    import html
+
+    from fusion.view.live import summary_table
+    from fusion.view.run_report import SUMMARY_NOTE, run_report
+
+    result = run_case(case)
+    assert summary_table(result.summary()).caption == SUMMARY_NOTE
+    assert html.escape(SUMMARY_NOTE) in run_report(result)
+    assert "wall-clock" in SUMMARY_NOTE and "start-up" in SUMMARY_NOTE and "'—'" in SUMMARY_NOTE

@@ -257,14 +257,11 @@ def summary_table(summary: dict) -> Table:
     table.add_column("figure")
     for b in summary["backends"]:
         table.add_column(BACKEND_TITLES.get(b, b), justify="right")
-    from fusion.view.run_report import QUIET_NOTE, STARTUP_NOTE, SUMMARY_ROWS, summary_cell
+    from fusion.view.run_report import SUMMARY_NOTE, SUMMARY_ROWS, summary_cell
 
     for label, key, fmt in SUMMARY_ROWS:
         table.add_row(label, *[summary_cell(fmt, v[key]) for v in summary["backends"].values()])
-    table.caption = (
-        "Errors are of the estimate (local mean around the best cell) against the simulated truth; "
-        f"times are one core of this machine. {QUIET_NOTE} {STARTUP_NOTE}"
-    )
+    table.caption = SUMMARY_NOTE
     return table
 
 

@@ -40,8 +40,7 @@ def run_report(result) -> str:
     body = f"""<p>{e(result.case.name)}, seed {summary["seed"]}: {plural(summary["ticks"], "tick")}
 ({summary["duration_s"]:.1f} s simulated). Every back end saw the same readings.</p>
 <table><tr><th>figure</th>{head}</tr>{rows}</table>
-<p>Errors are of the estimate against the simulated truth; times are one core of the machine that ran it.
-{e(QUIET_NOTE)} {e(STARTUP_NOTE)}</p>
+<p>{e(SUMMARY_NOTE)}</p>
 <h2>Injected faults and carries</h2><ul>{faults}</ul>
 <h2>Plots</h2>{figures_html(images)}
 <h2>Monitor actions ({len(result.events)})</h2><ul>{events or "<li>none: every tick was 'carry on'</li>"}</ul>"""
@@ -63,6 +62,10 @@ SUMMARY_ROWS = (
 )
 """The rows of a run's summary, as the terminal and the report show them: (label, key of the summary, format)."""
 
+ERROR_NOTE = (
+    "Errors are of the estimate (local mean around the best cell) against the simulated truth; times are wall-clock "
+    "time per tick, in one process on the machine that ran it."
+)
 QUIET_NOTE = (
     "The 95th percentile of the position error counts every tick, those while a fault was injected or the robot was "
     "carried too; the row after it leaves those ticks out (the recovery after them stays in; '—': no such tick)."
@@ -78,6 +81,8 @@ STARTUP_NOTE = (
     "The first tick includes the process's one-time start-up (the compiled loops load, or are compiled on a fresh "
     "install), so it is shown apart from the ticks after it."
 )
+SUMMARY_NOTE = f"{ERROR_NOTE} {QUIET_NOTE} {STARTUP_NOTE}"
+"""What the run summary's figures are, said once for the terminal and the report."""
 
 
 def _path_map(result) -> bytes:
