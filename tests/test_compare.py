@@ -307,6 +307,25 @@ def test_dask_engine_gives_the_local_results(tmp_path):
     assert [_figure_free(r) for r in dask] == [_figure_free(r) for r in local]
 
 
+def test_dask_engine_runs_beside_another_cluster_s_port(tmp_path):
+    # Two sweeps on one machine (or two test runs) must not fight over the HTTP port a Dask scheduler takes by
+    # default (8787): the engine asks for any free port, so holding 8787 here changes nothing and warns of nothing.
+    import socket
+
+    pytest.importorskip("distributed")
+    held = socket.socket()
+    try:
+        held.bind(("", 8787))
+        held.listen(1)
+    except OSError:
+        pass  # something else holds it already: the same situation
+    try:
+        records = run_sweep(TINY, TWO[:1], [4], tmp_path / "dask", workers=1, engine="dask")
+    finally:
+        held.close()
+    assert len(records) == 1
+
+
 # ----------------------------------------------------------------------------- command line
 def test_compare_command_writes_the_report(tmp_path, capsys):
     out = tmp_path / "cmp"
