@@ -59,10 +59,10 @@ def shift_kernel(shift: float, sigma: float) -> tuple[int, np.ndarray]:
 
 def _tap_table(shifts: np.ndarray, sigma: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``shift_kernel``'s taps of every shift in ``shifts`` (one per heading), weights under 1e-15 of the total dropped,
-    as padded tables (offsets, weights, counts): row h holds heading h's taps in its first counts[h] entries.  The Gaussian is built once per σ, and the weights are the
-    same, bit for bit, as ``shift_kernel`` gives each shift (the same operations on the same numbers).  A row's kept
-    taps are one run: both of its terms rise to their peaks (one offset apart) and fall after, so their sum does too,
-    and the taps above 1e-15 of it are consecutive."""
+    as padded tables (offsets, weights, counts): row h holds heading h's taps in its first counts[h] entries.  The
+    Gaussian is built once per σ, and the weights are the same, bit for bit, as ``shift_kernel`` gives each shift (the
+    same operations on the same numbers).  A row's kept taps are one run: both of its terms rise to their peaks (one
+    offset apart) and fall after, so their sum does too, and the taps above 1e-15 of it are consecutive."""
     gauss, rolled = _gaussian(sigma)
     shifts = np.asarray(shifts, dtype=np.float64)
     wholes = np.floor(shifts)
@@ -210,9 +210,8 @@ def predict_on_free(belief: np.ndarray, motion: Motion, free: np.ndarray, out: n
 
 def _turn_taps(turn: float, sigma_turn: float, headings: int) -> dict[int, float]:
     """The heading kernel's taps (``shift_kernel``'s, weights under 1e-15 dropped) with each offset folded round the
-    circle (headings wrap).  Built in plain
-    floats from the cached Gaussian: the same operations on the same numbers as ``shift_kernel``'s arrays, so the
-    same weights (tested), in 1 µs against 14 for the arrays (measured)."""
+    circle (headings wrap).  Built in plain floats from the cached Gaussian: the same operations on the same numbers
+    as ``shift_kernel``'s arrays, so the same weights (tested), in 1 µs against 14 for the arrays (measured)."""
     gauss, rolled = _gaussian_values(sigma_turn)
     whole = math.floor(turn)
     frac = turn - whole

@@ -178,17 +178,12 @@ class ContourFilter:
         start, belief, keep = 0, snapshot, 1.0
         for i in range(len(readings), 0, -1):
             made = self._chain.get(tuple(readings[:i]))
-            if made is None:
-                continue
-            if made[1] == _TOTAL:  # a reading of this beginning conflicted totally: so does every run through it
-                return 1.0
-            if made[0] is not None or i == len(readings):  # a belief to go on from, or nothing left to absorb
+            if made is not None and (made[0] is not None or i == len(readings)):  # a belief to go on from, or done
                 start, (belief, keep) = i, made
                 break
         for i in range(start, len(readings)):
             k, joint, top = self._combined(belief, readings[i])
-            if joint is None:
-                self._chain[tuple(readings[: i + 1])] = (None, _TOTAL)
+            if joint is None:  # total conflict: kept nowhere, so a run through it meets it again and stops the same
                 return 1.0
             keep *= 1.0 - k
             # The last reading's product is only asked whether it is all zero: no belief is made of it.
@@ -229,14 +224,10 @@ def _product(contour: np.ndarray, evidence: Evidence) -> tuple[np.ndarray, float
     out = np.empty_like(contour)
     loops = compiled.kernels()
     c = evidence.contour
-    if loops is not None and c.dtype == np.float64 and c.flags.c_contiguous and c.shape == contour.shape:
+    if loops is not None and compiled.plain_vector(c) and compiled.plain_vector(contour) and c.shape == contour.shape:
         r = float(evidence.reliability)
         hi = loops.plain_product(contour, c, out) if r == 1.0 else loops.discounted_product(contour, c, r, out)
         if hi >= 0:
             return out, float(np.int64(hi).view(np.float64))
     np.multiply(contour, evidence.likelihood, out=out)
     return out, float(out.max())
-
-
-_TOTAL = -1.0
-"""What a run of ``joint_conflict`` keeps where a reading conflicted totally (no ``keep`` is negative)."""
