@@ -284,10 +284,16 @@ def _run_dask(jobs, workers, address, finished, failed, order=None) -> None:
     if address:
         client = Client(address)
     else:
-        # ":0": the scheduler's HTTP server (which it starts even without a dashboard) takes any free port; its
-        # default, 8787, made a second sweep on the same machine warn, or fail where warnings are errors.
+        # The scheduler starts its HTTP server even with no dashboard, on 8787 unless told otherwise, and a second
+        # sweep on the same machine then warned (or failed, where warnings are errors): any free port (":0"), and
+        # still no dashboard (a given address would otherwise switch it on).
         cluster = LocalCluster(
-            n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0", env=_ONE_THREAD
+            n_workers=workers,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address=":0",
+            scheduler_kwargs={"dashboard": False},
+            env=_ONE_THREAD,
         )
         client = Client(cluster)
     try:
