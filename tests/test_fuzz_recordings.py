@@ -9,7 +9,10 @@ an MCAP file flipped or cut); ``fuzz_count.tried`` tallies the distinct malforme
 
 from __future__ import annotations
 
+import io
 import tempfile
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 from fuzz_count import tried
@@ -63,13 +66,16 @@ TABLES = {
 HOSTILE_CELLS = [*HOSTILE_RAW, "", " ", "-1", "1e-320", "0x10", "true", "7\t7", "é", "\x00", "1,2", '"', "nan"]
 
 
-def _folder(layout: str, tables: dict[str, str]) -> Path:
-    root = Path(tempfile.mkdtemp(prefix="fuzz-rec-"))
-    (root / "yard.toml").write_text(CASE)
-    (root / "layout.toml").write_text(layout, encoding="utf-8", errors="surrogatepass")
-    for name, text in tables.items():
-        (root / name).write_text(text, encoding="utf-8", errors="surrogatepass")
-    return root
+@contextmanager
+def _folder(layout: str, tables: dict[str, str]) -> Iterator[Path]:
+    """A recording folder that is gone again after the example (thousands of examples run)."""
+    with tempfile.TemporaryDirectory(prefix="fuzz-rec-") as tmp:
+        root = Path(tmp)
+        (root / "yard.toml").write_text(CASE)
+        (root / "layout.toml").write_text(layout, encoding="utf-8", errors="surrogatepass")
+        for name, text in tables.items():
+            (root / name).write_text(text, encoding="utf-8", errors="surrogatepass")
+        yield root
 
 
 def _read_all(root: Path):
@@ -90,7 +96,8 @@ def _read_all(root: Path):
 @given(mutated_text(LAYOUT))
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 def test_a_mutated_layout_is_read_or_refused_with_file_line_and_field(text):
-    result = _read_all(_folder(text, TABLES))
+    with _folder(text, TABLES) as root:
+        result = _read_all(root)
     if isinstance(result, InputFileError):
         tried("layouts", text)
         assert "layout.toml" in str(result) or result.path.endswith((".csv", ".tsv"))
@@ -124,7 +131,8 @@ def corrupted_tables(draw) -> dict[str, str]:
 @given(corrupted_tables())
 @settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 def test_corrupted_tables_are_read_with_every_bad_row_set_aside(tables):
-    result = _read_all(_folder(LAYOUT, tables))
+    with _folder(LAYOUT, tables) as root:
+        result = _read_all(root)
     if isinstance(result, InputFileError):
         tried("recording tables", repr(sorted(tables.items())))
         return
@@ -138,12 +146,12 @@ def test_corrupted_tables_are_read_with_every_bad_row_set_aside(tables):
 @given(corrupted_tables(), st.sampled_from(["known", "anywhere"]))
 @settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 def test_the_command_line_never_shows_a_traceback_for_a_damaged_recording(tables, start):
-    root = _folder(LAYOUT, tables)
-    args = ["inspect", str(root / "layout.toml"), "--site", str(root / "yard.toml"), "--no-frames", "--quiet"]
-    args += ["--out", str(root / "out"), "--truth", str(root / "layout.toml")]
-    if start == "anywhere":
-        args += ["--start", "anywhere"]
-    code = main(args)
+    with _folder(LAYOUT, tables) as root:
+        args = ["inspect", str(root / "layout.toml"), "--site", str(root / "yard.toml"), "--no-frames", "--quiet"]
+        args += ["--out", str(root / "out"), "--truth", str(root / "layout.toml")]
+        if start == "anywhere":
+            args += ["--start", "anywhere"]
+        code = main(args)
     tried("recordings (command line)", repr(sorted(tables.items())) + start)
     assert code != EXIT_DEFECT
 
@@ -153,14 +161,13 @@ def _mcap_bytes() -> bytes:
 
     from tests.ros2_messages import BOOL
 
-    path = Path(tempfile.mkdtemp(prefix="fuzz-mcap-")) / "door.mcap"
-    with open(path, "wb") as fh:
-        writer = Writer(fh, chunk_size=256)
-        flag = writer.register_msgdef("std_msgs/msg/Bool", BOOL)
-        for k in range(40):
-            writer.write_message("/gate", flag, {"data": k % 7 == 0}, log_time=k * 250_000_000)
-        writer.finish()
-    return path.read_bytes()
+    fh = io.BytesIO()
+    writer = Writer(fh, chunk_size=256)
+    flag = writer.register_msgdef("std_msgs/msg/Bool", BOOL)
+    for k in range(40):
+        writer.write_message("/gate", flag, {"data": k % 7 == 0}, log_time=k * 250_000_000)
+    writer.finish()
+    return fh.getvalue()
 
 
 MCAP = _mcap_bytes()
@@ -174,17 +181,17 @@ def test_a_damaged_mcap_file_is_read_to_its_damage_or_refused(flips, keep):
     for at, value in flips:
         data[at] = value
     data = bytes(data[:keep])
-    root = _folder(MCAP_LAYOUT, {})
-    (root / "run.mcap").write_bytes(data)
-    case = parse_case(CASE, str(root / "yard.toml"))
-    try:
-        layout = load_layout(root / "layout.toml", case)
-        aside = []
-        got = list(observations(str(root / "run.mcap"), layout, aside.append))
-    except InputFileError as err:
-        tried("mcap files", data)
-        assert str(err).strip() and err.path
-        return
+    with _folder(MCAP_LAYOUT, {}) as root:
+        (root / "run.mcap").write_bytes(data)
+        case = parse_case(CASE, str(root / "yard.toml"))
+        try:
+            layout = load_layout(root / "layout.toml", case)
+            aside = []
+            got = list(observations(str(root / "run.mcap"), layout, aside.append))
+        except InputFileError as err:
+            tried("mcap files", data)
+            assert str(err).strip() and err.path
+            return
     if data != MCAP:
         tried("mcap files", data)
     assert len([o for _, o in got if o.kind == "door"]) <= 40
