@@ -295,6 +295,32 @@ def test_a_gaussian_seen_on_a_fine_grid_is_found_again_by_its_moments():
     assert mode.share > 0.999
 
 
+def test_a_mode_short_of_the_share_or_wider_than_asked_is_none_and_the_bounds_are_the_cells_own():
+    """Two well-separated Gaussians mixed 0.6 : 0.4: the best mode holds the larger weight (the mixture's own
+    weights, a closed form).  Asked for at least its share, or at most its spread, to the last bit, it is the same
+    mode as unasked; asked for a hair more share (1e-12), a hair less spread, a share of 0.7 or a spread of 0.1 m,
+    there is none.  The hair is inside the bounds' first judgement on the heading-summed plane, so this checks that
+    the answer at the bound is the one the cells give (the filter uses the bounds between re-seeds)."""
+    from fusion.backends.gaussian_grid import GridView, best_mode
+
+    grid = PoseGrid(8.0, 6.0, 0.1, 36)
+    view = GridView(grid, np.ones(grid.n_cells, bool))
+    cov = np.diag([0.04, 0.04, math.radians(10.0) ** 2])
+    p = 0.6 * view.density(PoseGaussian(np.array([2.0, 2.0, 0.4]), cov))
+    p += 0.4 * view.density(PoseGaussian(np.array([6.0, 4.0, 2.0]), cov))
+    mode = best_mode(grid, p)
+    assert mode.share == pytest.approx(0.6, abs=1e-3)
+    for at_least, within_m in ((0.5, math.inf), (mode.share, math.inf), (0.0, mode.spread_m), (0.5, 1.0)):
+        again = best_mode(grid, p, at_least, within_m)
+        figures = (again.share, again.spread_m, again.heading_spread_deg)
+        assert figures == (mode.share, mode.spread_m, mode.heading_spread_deg)
+        assert np.array_equal(again.belief.mean, mode.belief.mean)
+        assert np.array_equal(again.belief.cov, mode.belief.cov)
+    for at_least, within_m in ((mode.share + 1e-12, math.inf), (0.0, mode.spread_m * (1 - 1e-12)), (0.7, 1.0)):
+        assert best_mode(grid, p, at_least, within_m) is None
+    assert best_mode(grid, p, 0.5, 0.1) is None
+
+
 def test_a_start_covariance_is_the_same_prior_for_every_back_end():
     from fusion.io.case import load_case
     from fusion.localizer import Localizer

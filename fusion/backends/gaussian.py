@@ -155,7 +155,8 @@ class GaussianFilter:
         """Make the histogram's best mode the belief when it stands for it (see the module docstring); the
         note says what happened."""
         cfg, p = self.settings, self.state.histogram
-        mode = best_mode(self.grid, p)
+        # Between re-seeds only a mode the filter would collapse to is of use (nothing is said of another).
+        mode = best_mode(self.grid, p) if reseeded else best_mode(self.grid, p, cfg.mode_share, cfg.mode_spread_m)
         if mode is None:
             return
         compact = mode.spread_m <= cfg.mode_spread_m and mode.heading_spread_deg <= cfg.mode_heading_deg

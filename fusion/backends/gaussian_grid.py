@@ -149,13 +149,18 @@ class Mode:
     heading_spread_deg: float
 
 
-def best_mode(grid: PoseGrid, p: np.ndarray) -> Mode | None:
+def best_mode(grid: PoseGrid, p: np.ndarray, at_least: float = 0.0, within_m: float = math.inf) -> Mode | None:
     """The most probable mode of a probability per cell (``MODE_FLOOR``), as a Gaussian of its moments with
     the spread of a uniform cell added (res²/12 per axis, Δθ²/12 in heading): each cell is read as a uniform
     pose over it.  For a histogram of a smooth density (cell integrals, as ``GridView.density`` gives) that
     reads the variance one cell's spread wide, on top of the cell's spread the grouping itself adds (Sheppard
     1898); the error is on the wide side on purpose (an EKF seeded too narrow gates out the readings that would
-    correct it), and it keeps a mode of one heading bin from a singular covariance.  None for an all-zero ``p``."""
+    correct it), and it keeps a mode of one heading bin from a singular covariance.
+
+    None for an all-zero ``p``; None too when the mode holds less than ``at_least`` of it, or spreads wider than
+    ``within_m``: a caller that would not use such a mode is spared its moments, most of the work on a wide mode.
+    Both are first judged on the heading-summed plane, which needs no pass over every cell; only a figure within
+    ``ROUNDING`` of its bound is worked out on the cells, so the answer is the one the cells give."""
     from scipy import ndimage
 
     cube = p.reshape(grid.shape)
@@ -166,8 +171,12 @@ def best_mode(grid: PoseGrid, p: np.ndarray) -> Mode | None:
     labels, _ = ndimage.label(plane >= MODE_FLOOR * top, structure=np.ones((3, 3)))
     iy, ix = np.unravel_index(int(np.argmax(plane)), plane.shape)
     inside = labels == labels[iy, ix]
+    if not _may_hold(grid, np.where(inside, plane, 0.0), float(plane.sum()), at_least, within_m):
+        return None
     weights = cube * inside[None]
     share = float(weights.sum()) / float(p.sum())
+    if share < at_least:
+        return None
     rows, cols = np.flatnonzero(inside.any(axis=1)), np.flatnonzero(inside.any(axis=0))
     box = weights[:, rows[0] : rows[-1] + 1, cols[0] : cols[-1] + 1]  # the mode's cells lie in its bounding box
     hh, yy, xx = np.nonzero(box)  # in the order of the whole cube's cells
@@ -181,4 +190,28 @@ def best_mode(grid: PoseGrid, p: np.ndarray) -> Mode | None:
     cov = (offsets * ww[:, None]).T @ offsets
     cov += cell_spread(grid)
     spread = math.sqrt(float(cov[0, 0] + cov[1, 1]))
+    if spread > within_m:
+        return None
     return Mode(PoseGaussian(centre, 0.5 * (cov + cov.T)), share, spread, math.degrees(math.sqrt(float(cov[2, 2]))))
+
+
+ROUNDING = 1e-6
+"""How far apart two float64 sums of the same positive terms in another order may be, relatively, at the most:
+pairwise summation of n terms errs by about log₂(n)·2⁻⁵³ (Higham 1993, "The accuracy of floating point
+summation"), some 3e-15 for 10⁸ cells; the bound is set far wider, at no cost but a rare extra pass."""
+
+
+def _may_hold(grid: PoseGrid, held: np.ndarray, total: float, at_least: float, within_m: float) -> bool:
+    """False when the mode, its probability per position ``held`` out of ``total``, surely holds less than
+    ``at_least`` or surely spreads wider than ``within_m`` (RMS, a cell's spread included, as ``best_mode``):
+    the same sums as on the cells, in another order, beyond ``ROUNDING``."""
+    mass = float(held.sum())
+    if mass < at_least * total * (1 - ROUNDING):
+        return False
+    if not math.isfinite(within_m):
+        return True
+    px, py = held.sum(axis=0), held.sum(axis=1)
+    xs, ys = grid.x_centres(), grid.y_centres()
+    mx, my = float(px @ xs) / mass, float(py @ ys) / mass
+    var = (float(px @ (xs - mx) ** 2) + float(py @ (ys - my) ** 2)) / mass + grid.resolution_m**2 / 6
+    return var <= within_m**2 * (1 + ROUNDING)
