@@ -11,6 +11,7 @@ import argparse
 import sys
 
 from fusion import compiled
+from fusion.allocator import keep_freed_memory
 from fusion.cli.args import joined_values
 from fusion.cli.parser import build_parser
 from fusion.errors import FusionError
@@ -39,6 +40,7 @@ def _outcome(args: argparse.Namespace) -> int:
     """Run the command; every error becomes a message and an exit code, never a traceback."""
     try:
         compiled.setting()  # a wrong FUSION_KERNELS is refused before any work, not at the first compiled loop
+        keep_freed_memory()  # this process is the tool's: freed arrays are kept for the next step (fusion.allocator)
         return args.run(args)
     except FusionError as err:
         print(f"fusion: error: {plain(err)}", file=sys.stderr)
