@@ -9,10 +9,12 @@ stream took 250–280 page faults and about 0.4 ms of system time per line that 
 ``keep_freed_memory`` raises the two glibc thresholds involved (``mallopt``):
 
 - ``M_MMAP_THRESHOLD`` to 32 MiB, the most glibc accepts on 64-bit systems (half its heap size limit; from glibc's
-  ``malloc.c``, from memory): arrays up to that size come from the heap, not each from a fresh mapping.  Setting
-  it also switches off glibc's own adjustment of the threshold, so the trim threshold must be set with it: set
-  alone, it sends every array above 128 KiB to a fresh mapping (3,181 faults per line, measured);
+  ``malloc.c``, from memory): arrays up to that size come from the heap, not each from a fresh mapping;
 - ``M_TRIM_THRESHOLD`` to ``KEEP_BYTES``: free memory at the top of the heap is handed back only beyond that.
+
+Setting either switches off glibc's own adjustment of both (mallopt(3)), so they are set together: the trim
+threshold set alone leaves the mapping threshold at its 128 KiB start, and every array then gets a fresh mapping
+(3,181 faults per line of the evidential stream, measured).
 
 The command line calls it for every command (it owns its process).  A program that embeds the library decides for
 its own process: the call changes how the whole process allocates.  The resident size then stays near its high
