@@ -15,6 +15,7 @@ import time
 
 import numpy as np
 
+from fusion import compiled
 from fusion.belief import bitset, rules
 from fusion.belief.mass import MassFunction
 from fusion.bench import INPUTS, BenchRow, best_seconds, timed_in_turn
@@ -59,6 +60,7 @@ def _random_masses(n: int, rng: np.random.Generator, as_frozensets: bool) -> tup
 def bench_combination(repeats: int = 5, seed: int = 0, sizes=FRAME_SIZES) -> list[BenchRow]:
     """One row per frame size: Dempster's rule on pairs of mass functions taken in turn, ``repeats`` rounds."""
     rng = np.random.default_rng(seed)
+    compiled.kernels()  # loaded, as a run's grid filters leave them: small frames use them only then (rules.py)
     rows = []
     for n in sizes:
         pairs = [(_random_masses(n, rng, i == 0), _random_masses(n, rng, i == 0)) for i in range(INPUTS)]

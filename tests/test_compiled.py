@@ -208,6 +208,87 @@ def test_rules_on_a_large_frame_give_the_same_result_either_way(monkeypatch):
     assert k_fast == k_slow
 
 
+def _one_word_mass(rng, n: int, k: int, tiny: bool):
+    """A mass function on ``n`` ≤ 64 cells with up to ``k`` focal sets, repeats and empty-meeting pairs likely;
+    ``tiny``: one set's mass 1e-200, whose products with another such underflow to 0 (left out by the rule)."""
+    from fusion.belief.mass import MassFunction
+
+    focal = {}
+    for _ in range(k):
+        cells = tuple(np.flatnonzero(rng.random(n) < rng.uniform(0.05, 0.9)).tolist()) or (int(rng.integers(n)),)
+        focal[cells] = focal.get(cells, 0.0) + float(rng.random())
+    total = sum(focal.values())
+    masses = {cells: v / total for cells, v in focal.items()}
+    if tiny and len(masses) > 1:
+        first = next(iter(masses))
+        masses[next(c for c in masses if c != first)] += masses[first] - 1e-200
+        masses[first] = 1e-200
+    return MassFunction.from_focal(n, masses)
+
+
+@settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.integers(1, 64), st.integers(1, 40), st.integers(1, 40), st.booleans(), st.integers(0, 2**32 - 1))
+def test_the_one_word_conjunctive_rule_equals_numpy_bit_for_bit(monkeypatch, n, k1, k2, tiny, seed):
+    """Frames of up to 64 cells: the compiled merge (``word_products``) gives numpy's sets in numpy's order and
+    its masses to the last bit, for the conjunctive rule and Dempster's (the numpy code is checked against
+    published examples in ``test_rules.py``)."""
+    from fusion.belief import rules
+
+    rng = np.random.default_rng(seed)
+    m1, m2 = _one_word_mass(rng, n, k1, tiny), _one_word_mass(rng, n, k2, tiny)
+
+    def both():
+        loaded = compiled.kernels() is not None  # the one-word loop runs only once the loops are loaded
+        joint = rules.conjunctive(m1, m2)
+        k = float(joint.masses[joint.sets[:, 0] == 0].sum())
+        return loaded, joint, rules.dempster(m1, m2) if k < 1.0 else None
+
+    (loaded, fast, fast_d), (_, slow, slow_d) = _both_ways(monkeypatch, both)
+    assert loaded
+    for got, expected in ((fast, slow), (fast_d, slow_d)):
+        if expected is None:
+            assert got is None
+            continue
+        np.testing.assert_array_equal(got.sets, expected.sets)
+        np.testing.assert_array_equal(got.masses.view(np.int64), expected.masses.view(np.int64))
+
+
+def test_the_one_word_rule_refuses_as_numpy_does_when_every_product_underflows(monkeypatch):
+    """Every product rounds to 0 (1e-200 · 1e-200): no set keeps any weight, and the compiled path hands the case to
+    the numpy code, which refuses it with the same words.  No valid mass function gets here (masses summing to 1
+    give some product of at least 1/(k₁k₂)); this one is built past the checks, to cover the branch."""
+    from fusion.belief import rules
+    from fusion.belief.mass import MassFunction
+    from fusion.errors import MassValueError
+
+    tiny = MassFunction._trusted(3, np.array([[1], [2]], dtype=np.uint64), np.array([1e-200, 1e-200]))
+
+    def attempt():
+        compiled.kernels()
+        with pytest.raises(MassValueError, match="no focal set received any mass") as caught:
+            rules.conjunctive(tiny, tiny)
+        return str(caught.value)
+
+    fast, slow = _both_ways(monkeypatch, attempt)
+    assert fast == slow
+
+
+def test_the_one_word_rule_does_not_load_the_compiled_loops(monkeypatch):
+    """A rule on a small frame never pays numba's start-up: with the loops not loaded yet it takes the numpy code,
+    and they are still not loaded after it."""
+    from fusion.belief import rules
+    from fusion.belief.mass import MassFunction
+
+    monkeypatch.delenv(compiled.ENV, raising=False)
+    compiled.reset()
+    m = MassFunction.from_focal(4, {(0, 1): 0.5, (1, 2, 3): 0.5})
+    try:
+        rules.dempster(m, m)
+        assert compiled.kernels_if_loaded() is None and compiled._loaded is None
+    finally:
+        compiled.reset()
+
+
 def test_a_pair_block_reads_as_the_rows_it_stands_for(kernels):
     # A PairBlock is indexed, taken, selected and united as the array of its rows op(a[i], b[j]) would be.
     from fusion.belief.pairs import PairBlock

@@ -19,7 +19,18 @@ from types import ModuleType
 
 from fusion.errors import KernelSetupError
 
-__all__ = ["ENV", "SUM_LANES", "CHOICES", "KernelChoice", "KernelSetupError", "kernels", "choice", "setting", "reset"]
+__all__ = [
+    "ENV",
+    "SUM_LANES",
+    "CHOICES",
+    "KernelChoice",
+    "KernelSetupError",
+    "kernels",
+    "kernels_if_loaded",
+    "choice",
+    "setting",
+    "reset",
+]
 
 ENV = "FUSION_KERNELS"
 SUM_LANES = 256
@@ -76,6 +87,12 @@ def kernels() -> ModuleType | None:
     if _loaded is None:
         _loaded = _load()
     return _loaded[1]
+
+
+def kernels_if_loaded() -> ModuleType | None:
+    """The compiled loops when this process has loaded them already, else None: for calls too small to pay numba's
+    start-up (0.4 s, ``fusion bench``) but worth the loops once something else has paid it."""
+    return None if _loaded is None else _loaded[1]
 
 
 def choice() -> KernelChoice:

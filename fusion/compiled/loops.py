@@ -17,6 +17,7 @@ from fusion.compiled.pair_loops import (  # noqa: F401  (loops of this module to
     pair_rows_equal,
     pair_sets,
     pair_union,
+    word_products,
 )
 from fusion.compiled.predict_loops import predict_density, tap_tables  # noqa: F401  (loops of this module too)
 from fusion.compiled.reading_loops import (  # noqa: F401  (loops of this module too)

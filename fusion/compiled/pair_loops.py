@@ -103,3 +103,37 @@ def pair_or_into(a, b, union, i, j, out):  # pragma: no cover - compiled
         grew |= z & ~out[k]
         out[k] |= z
     return grew != 0
+
+
+_GOLDEN = np.uint64(0x9E3779B97F4A7C15)  # 2⁶⁴ / φ, odd: Fibonacci hashing (Knuth, TAOCP vol. 3, §6.4)
+
+
+@numba.njit(cache=True, nogil=True)
+def word_products(a, ma, b, mb, words, masses, table, shift):  # pragma: no cover - compiled
+    """The conjunctive rule's merge on frames of one word (up to 64 cells): for every pair, i over ``a`` then j over
+    ``b``, the set a[i] & b[j] with weight ma[i]·mb[j], zero weights left out; equal sets merged, each new set in
+    the order it first comes, its weights added in pair order onto 0.0.  Those are ``fusion.belief.rules._products``'s
+    numbers (numpy's products, ``FocalAccumulator.add``'s order of sets, ``np.bincount``'s order of addition).  Writes
+    ``words`` and ``masses``; returns how many sets.  ``table``: 2^(64 − shift) slots, all −1, at least twice the pairs
+    (a set's slot is found by hashing its word and probing the next slots)."""
+    mask = np.int64(table.size - 1)
+    count = 0
+    for i in range(a.size):
+        left, weight = a[i], ma[i]
+        for j in range(b.size):
+            w = weight * mb[j]
+            if w == 0.0:
+                continue
+            word = left & b[j]
+            at = np.int64((word * _GOLDEN) >> shift)
+            while table[at] >= 0 and words[table[at]] != word:
+                at = (at + np.int64(1)) & mask
+            slot = table[at]
+            if slot < 0:
+                slot = count
+                table[at] = slot
+                words[slot] = word
+                masses[slot] = 0.0
+                count += 1
+            masses[slot] += w
+    return count
