@@ -118,7 +118,7 @@ def support_conflict(p: np.ndarray, evidence, share: float, top: float | None = 
     if loops is not None and compiled.plain_vector(p) and compiled.plain_vector(c) and c.shape == p.shape:
         hi = loops.support_best(p, share * top, c)  # the support's best value, no list of its cells written
         if hi >= 0:
-            return _fit_conflict(float(np.int64(hi).view(np.float64)), evidence)
+            return _fit_conflict(compiled.float_of_bits(hi), evidence)
     return conflict_on(support_cells(p, share, top), evidence)
 
 

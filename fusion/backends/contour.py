@@ -228,6 +228,6 @@ def _product(contour: np.ndarray, evidence: Evidence) -> tuple[np.ndarray, float
         r = float(evidence.reliability)
         hi = loops.plain_product(contour, c, out) if r == 1.0 else loops.discounted_product(contour, c, r, out)
         if hi >= 0:
-            return out, float(np.int64(hi).view(np.float64))
+            return out, compiled.float_of_bits(hi)
     np.multiply(contour, evidence.likelihood, out=out)
     return out, float(out.max())

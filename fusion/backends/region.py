@@ -296,7 +296,7 @@ class _Bracket:
         lo_bits, hi_bits = (int(np.float64(v).view(np.int64)) for v in (self.lo, top))
         step = max(1, (hi_bits - lo_bits) // (_TRIALS - 1))
         picks = {lo_bits + 1, lo_bits + step, lo_bits + 2 * step, hi_bits}
-        return [float(np.int64(b).view(np.float64)) for b in sorted(picks) if lo_bits < b <= hi_bits]
+        return [compiled.float_of_bits(b) for b in sorted(picks) if lo_bits < b <= hi_bits]
 
     # ----------------------------------------------------------------- the last step
     def _equal_values(self) -> int:

@@ -144,7 +144,7 @@ class Posterior:
         if loops is not None and lik.dtype == np.float64 and lik.flags.c_contiguous:
             lanes = np.zeros(compiled.SUM_LANES)
             bits = loops.checked_product(self._p, lik, post, lanes)  # −1: a bad likelihood, found and named below
-            hi = float(np.int64(bits).view(np.float64)) if bits >= 0 else -1.0
+            hi = compiled.float_of_bits(bits) if bits >= 0 else -1.0
             z = _fold(lanes)
         if hi < 0:
             hi = self._checked_maximum(lik)

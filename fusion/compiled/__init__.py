@@ -27,6 +27,8 @@ __all__ = [
     "KernelSetupError",
     "kernels",
     "kernels_if_loaded",
+    "float_of_bits",
+    "plain_vector",
     "choice",
     "setting",
     "reset",
@@ -106,6 +108,14 @@ def reset() -> None:
     """Forget the choice, so the next call reads ``FUSION_KERNELS`` again (for tests)."""
     global _loaded
     _loaded = None
+
+
+def float_of_bits(bits: int) -> float:
+    """The float64 whose bit pattern is ``bits``: how a loop's maximum comes back (non-negative float64 values order
+    as their patterns do, IEEE 754, and an integer maximum vectorises where a float one does not)."""
+    import numpy as np  # numpy is loaded by then; ``import fusion`` does not load it
+
+    return float(np.int64(bits).view(np.float64))
 
 
 def plain_vector(a) -> bool:
