@@ -68,7 +68,7 @@ class DoorSensor:
 
     def explain(self, reading, x: float, y: float, heading_deg: float) -> str:
         """The contact against the position (x, y): how far that is from the door."""
-        active = getattr(reading, "active", reading)
+        active = self._active(reading)
         d = self.door
         away = math.hypot(x - d.x, y - d.y)
         said = "fired" if active else "stayed quiet"
